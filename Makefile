@@ -1,0 +1,34 @@
+# The two commands of README.md: `make run` and `make test`.
+VENV ?= .venv
+PYTHON ?= python3
+TEST_POSTGRES_URL ?= postgresql+psycopg://postgres@127.0.0.1:5432/test
+export TEST_POSTGRES_URL
+
+.PHONY: run test system-deps benchmarks clean
+
+$(VENV)/.installed: pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(VENV)/bin/pip install -q --upgrade pip
+	$(VENV)/bin/pip install -q -e '.[test]'
+	touch $@
+
+## run: venv, install, migrate, load the demo network if empty, print an admin token, serve on 127.0.0.1:8000 (SQLite)
+run: $(VENV)/.installed
+	$(VENV)/bin/ullage db upgrade
+	$(VENV)/bin/ullage demo --if-empty
+	@$(VENV)/bin/ullage token create "make-run-$$(date +%Y%m%d%H%M%S)" --role admin | tail -n 1 | sed 's/^/ADMIN TOKEN (shown once): /'
+	$(VENV)/bin/ullage serve
+
+## test: venv, install, system packages the tests need, the whole suite on SQLite and PostgreSQL
+test: $(VENV)/.installed system-deps
+	$(VENV)/bin/lint-imports
+	$(VENV)/bin/python -m pytest
+
+system-deps:
+	@bash .ci/system-deps
+
+benchmarks: $(VENV)/.installed
+	$(VENV)/bin/python benchmarks/planning.py
+
+clean:
+	rm -rf $(VENV) var tests/artifacts .pytest_cache

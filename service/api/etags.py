@@ -1,0 +1,54 @@
+"""Strong ETags from a row's ``version`` (RFC 9110 §8.8.3, §13.1).
+
+``If-Match`` uses the strong comparison: a mismatch is 412, a missing header on a change is 428
+(RFC 6585 §3). ``If-None-Match`` on a read answers 304.
+"""
+
+from __future__ import annotations
+
+import hashlib
+
+from flask import Response, request
+
+from service.errors import Problem
+
+
+def version_etag(kind: str, code: str, version: int) -> str:
+    """A strong entity tag for one version of one resource."""
+    digest = hashlib.sha256(f"{kind}/{code}/{version}".encode()).hexdigest()[:20]
+    return f'"{digest}"'
+
+
+def content_etag(body: bytes) -> str:
+    """A strong entity tag for a computed representation."""
+    return '"' + hashlib.sha256(body).hexdigest()[:32] + '"'
+
+
+def _tags(header: str) -> list[str]:
+    return [part.strip() for part in header.split(",") if part.strip()]
+
+
+def require_if_match(etag: str) -> None:
+    """Refuse a change unless ``If-Match`` carries the current tag."""
+    header = request.headers.get("If-Match")
+    if header is None:
+        raise Problem(428, "Send If-Match with the ETag from your last GET of this resource.",
+                      kind="precondition-required")
+    tags = _tags(header)
+    if "*" in tags or etag in tags:
+        return
+    raise Problem(412, "The resource has changed since you read it; GET it again and retry.",
+                  kind="precondition-failed", headers={"ETag": etag})
+
+
+def not_modified(etag: str) -> Response | None:
+    """A 304 when ``If-None-Match`` names ``etag`` (weak comparison, as RFC 9110 says)."""
+    header = request.headers.get("If-None-Match")
+    if header is None:
+        return None
+    tags = [t.removeprefix("W/") for t in _tags(header)]
+    if "*" in tags or etag in tags:
+        response = Response(status=304)
+        response.headers["ETag"] = etag
+        return response
+    return None

@@ -1,0 +1,1 @@
+"""marshmallow 4 schemas of the API."""

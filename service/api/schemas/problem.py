@@ -1,0 +1,18 @@
+"""The RFC 9457 problem document (for the OpenAPI description)."""
+
+import marshmallow as ma
+
+
+class ProblemErrorSchema(ma.Schema):
+    pointer = ma.fields.String(metadata={"description": "JSON Pointer to the offending member"})
+    detail = ma.fields.String()
+
+
+class ProblemSchema(ma.Schema):
+    type = ma.fields.String(metadata={"description": "URI of the problem type, or about:blank"})
+    title = ma.fields.String()
+    status = ma.fields.Integer()
+    detail = ma.fields.String()
+    instance = ma.fields.String()
+    request_id = ma.fields.String()
+    errors = ma.fields.List(ma.fields.Nested(ProblemErrorSchema))

@@ -1,0 +1,74 @@
+"""Site schemas."""
+
+import marshmallow as ma
+
+from service.api.fields import JsonFloat
+from service.api.pagination import PageArgsSchema
+from service.api.schemas.common import (
+    AMOUNT_MAX,
+    StrictSchema,
+    code_field_validate,
+    name_validate,
+    nonnegative,
+    positive,
+)
+
+
+class SiteSchema(StrictSchema):
+    code = ma.fields.String(required=True, validate=code_field_validate)
+    name = ma.fields.String(required=True, validate=name_validate)
+    truck = ma.fields.String(required=True, validate=code_field_validate,
+                             metadata={"description": "Code of the truck that serves the site"})
+    demand_per_day = JsonFloat(required=True, validate=positive(), metadata={"description": "Quantity used per day"})
+    holding_cost = JsonFloat(required=True, validate=nonnegative(),
+                             metadata={"description": "Currency per quantity unit per day"})
+    stop_cost = JsonFloat(required=True, validate=nonnegative(), metadata={"description": "Currency per delivery"})
+    tank_capacity = JsonFloat(required=True, validate=positive(), metadata={"description": "Nominal tank size"})
+    safe_fill = JsonFloat(load_default=0.9, validate=ma.validate.Range(min=0.01, max=1.0),
+                          metadata={"description": "Fraction of the tank that may be filled, (0, 1]"})
+    safety_stock = JsonFloat(load_default=0.0, validate=ma.validate.Range(min=0, max=AMOUNT_MAX),
+                             metadata={"description": "Stock kept in reserve; below safe_fill × tank_capacity"})
+    active = ma.fields.Boolean(load_default=True)
+    latitude = JsonFloat(load_default=None, allow_none=True, validate=ma.validate.Range(min=-90, max=90))
+    longitude = JsonFloat(load_default=None, allow_none=True, validate=ma.validate.Range(min=-180, max=180))
+    version = ma.fields.Integer(dump_only=True)
+    created_at = ma.fields.DateTime(dump_only=True)
+    updated_at = ma.fields.DateTime(dump_only=True)
+
+    @ma.validates_schema
+    def _safety_stock_below_safe_fill(self, data: dict, **_kwargs: object) -> None:
+        if {"safety_stock", "safe_fill", "tank_capacity"} <= data.keys():
+            check_safety_stock(data)
+
+
+def check_safety_stock(data: dict) -> None:
+    """``safety_stock`` must stay below ``safe_fill × tank_capacity``."""
+    limit = data["safe_fill"] * data["tank_capacity"]
+    if data["safety_stock"] >= limit:
+        raise ma.ValidationError(f"Must be below safe_fill × tank_capacity = {limit:g}.", field_name="safety_stock")
+
+
+class SitePatchSchema(SiteSchema):
+    """Every field optional; defaults are not applied (a PATCH changes only what it names)."""
+
+    class Meta:
+        exclude = ("code",)
+
+
+class SiteListSchema(ma.Schema):
+    items = ma.fields.List(ma.fields.Nested(SiteSchema))
+
+
+class SiteQueryArgsSchema(PageArgsSchema):
+    truck = ma.fields.String(validate=code_field_validate)
+
+
+class ImportArgsSchema(ma.Schema):
+    dry_run = ma.fields.Boolean(load_default=False)
+
+
+class ImportResultSchema(ma.Schema):
+    dry_run = ma.fields.Boolean()
+    created = ma.fields.Integer()
+    updated = ma.fields.Integer()
+    rows = ma.fields.Integer()

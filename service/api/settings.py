@@ -1,0 +1,35 @@
+"""``GET /api/v1/settings``: the service's quantity unit, currency and time zone."""
+
+import marshmallow as ma
+from flask import current_app
+from flask.views import MethodView
+
+from service.api.blueprint import Blueprint
+from service.auth import allow
+
+PREFIX = "/settings"
+blp = Blueprint("settings", __name__, description="Units, currency and time zone of this service")
+
+
+class SettingsSchema(ma.Schema):
+    quantity_unit = ma.fields.String(metadata={"description": "Label of the one quantity unit, e.g. L, gal, m3"})
+    currency = ma.fields.String(metadata={"description": "ISO 4217 code of the one currency"})
+    timezone = ma.fields.String(metadata={"description": "IANA time zone that decides delivery days"})
+    max_sites_per_calculation = ma.fields.Integer()
+    idempotency_key_hours = ma.fields.Integer()
+
+
+@blp.route("")
+class Settings(MethodView):
+    @allow("viewer")
+    @blp.response(200, SettingsSchema)
+    def get(self):
+        """Units, currency and time zone"""
+        settings = current_app.config["ULLAGE_SETTINGS"]
+        return {
+            "quantity_unit": settings.quantity_unit,
+            "currency": settings.currency,
+            "timezone": settings.timezone,
+            "max_sites_per_calculation": 100_000,
+            "idempotency_key_hours": 24,
+        }

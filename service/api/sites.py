@@ -1,0 +1,162 @@
+"""Sites: list, read, create, change (If-Match), delete; CSV import and export."""
+
+from flask import Response, current_app, request, url_for
+from flask.views import MethodView
+from marshmallow import ValidationError
+from sqlalchemy import select
+
+from service.api import sites_csv
+from service.api.blueprint import Blueprint, accepts_body
+from service.api.etags import not_modified, require_if_match, version_etag
+from service.api.pagination import page
+from service.api.schemas.sites import (
+    ImportArgsSchema,
+    ImportResultSchema,
+    SiteListSchema,
+    SitePatchSchema,
+    SiteQueryArgsSchema,
+    SiteSchema,
+    check_safety_stock,
+)
+from service.auth import allow
+from service.errors import Problem, flatten_messages
+from service.persistence import repository as repo
+from service.persistence.db import get_session
+from service.persistence.models import Site, Truck
+
+PREFIX = "/sites"
+blp = Blueprint("sites", __name__, description="Customer tanks and depots")
+
+
+def site_or_404(code: str, *, for_update: bool = False) -> Site:
+    try:
+        return repo.site_by_code(get_session(), code, for_update=for_update)
+    except repo.NotFound as exc:
+        raise Problem(404, str(exc), kind="not-found") from exc
+
+
+def truck_for(code: str, pointer: str = "#/truck") -> Truck:
+    try:
+        return repo.truck_by_code(get_session(), code)
+    except repo.NotFound as exc:
+        raise Problem(422, str(exc), kind="validation", errors=[{"pointer": pointer, "detail": str(exc)}]) from exc
+
+
+def etag(site: Site) -> str:
+    return version_etag("site", site.code, site.version)
+
+
+def dump(site: Site, truck_code: str) -> dict:
+    data = {name: getattr(site, name) for name in (*repo.SITE_FIELDS, "code", "version", "created_at", "updated_at")}
+    data["truck"] = truck_code
+    return data
+
+
+@blp.route("")
+class Sites(MethodView):
+    @allow("viewer")
+    @blp.arguments(SiteQueryArgsSchema, location="query")
+    @blp.response(200, SiteListSchema)
+    def get(self, args):
+        """List sites (filter by truck; keyset pages by code)"""
+        session = get_session()
+        statement = select(Site)
+        if "truck" in args:
+            statement = statement.join(Truck, Site.truck_id == Truck.id).where(Truck.code == args["truck"])
+        rows, headers = page(session, statement, Site.code, args)
+        codes = repo.truck_codes(session, (s.truck_id for s in rows))
+        return {"items": [dump(s, codes[s.truck_id]) for s in rows]}, headers
+
+    @allow("admin")
+    @blp.arguments(SiteSchema)
+    @blp.response(201, SiteSchema)
+    @blp.alt_response(409, description="A site with this code exists")
+    def post(self, data):
+        """Create a site"""
+        session = get_session()
+        truck = truck_for(data["truck"])
+        if session.scalar(select(Site.id).where(Site.code == data["code"])) is not None:
+            raise Problem(409, f"A site with code {data['code']!r} already exists.", kind="conflict")
+        site = repo.add_site(session, data, truck)
+        session.commit()
+        return dump(site, truck.code), {"Location": url_for("sites.SiteByCode", code=site.code), "ETag": etag(site)}
+
+
+@blp.route("/<string:code>")
+class SiteByCode(MethodView):
+    @allow("viewer")
+    @blp.response(200, SiteSchema)
+    @blp.alt_response(304, description="Not modified")
+    def get(self, code):
+        """Read a site (strong ETag)"""
+        site = site_or_404(code)
+        truck_code = repo.truck_codes(get_session(), [site.truck_id])[site.truck_id]
+        return not_modified(etag(site)) or (dump(site, truck_code), {"ETag": etag(site)})
+
+    @allow("admin")
+    @blp.arguments(SitePatchSchema(partial=True))
+    @blp.response(200, SiteSchema)
+    @blp.alt_response(412, description="ETag does not match")
+    @blp.alt_response(428, description="If-Match missing")
+    def patch(self, data, code):
+        """Change a site (needs If-Match; every change bumps version)"""
+        session = get_session()
+        site = site_or_404(code, for_update=True)
+        require_if_match(etag(site))
+        merged = {name: getattr(site, name) for name in ("safe_fill", "tank_capacity", "safety_stock")} | data
+        try:
+            check_safety_stock(merged)
+        except ValidationError as exc:
+            raise Problem(422, "safety_stock must be below safe_fill × tank_capacity.", kind="validation",
+                          errors=flatten_messages(exc.messages)) from exc
+        if "truck" in data:
+            data = data | {"truck_id": truck_for(data["truck"]).id}
+        repo.apply_changes(site, data, (*repo.SITE_FIELDS, "truck_id"))
+        session.commit()
+        truck_code = repo.truck_codes(session, [site.truck_id])[site.truck_id]
+        return dump(site, truck_code), {"ETag": etag(site)}
+
+    @allow("admin")
+    @blp.response(204)
+    @blp.alt_response(409, description="Recorded plans reference the site")
+    def delete(self, code):
+        """Delete a site that no recorded plan references (otherwise PATCH active=false)"""
+        session = get_session()
+        site = site_or_404(code, for_update=True)
+        require_if_match(etag(site))
+        if repo.site_is_planned(session, site):
+            raise Problem(409, "Recorded plans reference this site, so it stays on file; PATCH it with "
+                          "active=false to take it out of future plans.", kind="conflict")
+        session.delete(site)
+        session.commit()
+
+
+@blp.route("/import")
+class SiteImport(MethodView):
+    @allow("admin")
+    @accepts_body("text/csv")
+    @blp.arguments(ImportArgsSchema, location="query")
+    @blp.response(200, ImportResultSchema)
+    @blp.doc(requestBody={"required": True, "content": {"text/csv": {"schema": {"type": "string"}}}})
+    def post(self, args):
+        """Create or update sites from CSV (all or nothing; ?dry_run=true checks only)"""
+        session = get_session()
+        unit = current_app.config["ULLAGE_SETTINGS"].quantity_unit
+        result = sites_csv.import_sites(session, request.get_data(cache=False), dry_run=args["dry_run"],
+                                        service_unit=unit)
+        if args["dry_run"]:
+            session.rollback()
+        else:
+            session.commit()
+        return result
+
+
+@blp.route("/export")
+class SiteExport(MethodView):
+    @allow("viewer")
+    @blp.response(200, content_type="text/csv")
+    def get(self):
+        """All sites as CSV (text cells that could be read as formulas are defused)"""
+        body = sites_csv.export_sites(get_session())
+        return Response(body, mimetype="text/csv",
+                        headers={"Content-Disposition": 'attachment; filename="sites.csv"'})

@@ -1,0 +1,170 @@
+"""CSV import and export of sites.
+
+Import: UTF-8 (a BOM is accepted), a header row, at most :data:`MAX_ROWS` rows; every row is
+validated with the same schema as JSON; all rows are written in one transaction or none is.
+A ``unit`` column may give a row's volumes in ``L``, ``gal`` (US gallon, exactly 3.785411784 L,
+NIST Handbook 44 App. C) or ``m3`` (1000 L); they are converted to the service unit. Volumes are
+``demand_per_day``, ``tank_capacity`` and ``safety_stock``; ``holding_cost`` is per volume unit and
+is divided by the same factor.
+
+Export: cells of text columns that start with ``= + - @`` (or tab / carriage return) get a leading
+``'`` so a spreadsheet does not read them as formulas (OWASP "CSV injection").
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from typing import Any
+
+from marshmallow import ValidationError
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from service.api.schemas.sites import SiteSchema
+from service.errors import Problem
+from service.persistence import repository as repo
+from service.persistence.models import Site, Truck
+
+MAX_ROWS = 5000
+LITRES_PER_UNIT = {"L": 1.0, "gal": 3.785411784, "m3": 1000.0}
+VOLUME_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock")
+NUMBER_FIELDS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock",
+                 "latitude", "longitude")
+TEXT_FIELDS = ("code", "name", "truck")
+COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def _unit_factor(unit: str, service_unit: str) -> float:
+    """How many service units one ``unit`` is."""
+    if unit == service_unit:
+        return 1.0
+    if unit not in LITRES_PER_UNIT or service_unit not in LITRES_PER_UNIT:
+        raise ValueError(f"Cannot convert {unit!r} to the service unit {service_unit!r}; use one of L, gal, m3.")
+    return LITRES_PER_UNIT[unit] / LITRES_PER_UNIT[service_unit]
+
+
+def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], list[tuple[str, str]]]:
+    data: dict[str, Any] = {}
+    errors: list[tuple[str, str]] = []
+    for name, value in raw.items():
+        value = (value or "").strip()
+        if name == "unit" or value == "":
+            continue
+        if name in NUMBER_FIELDS:
+            try:
+                number = float(value)
+            except ValueError:
+                errors.append((name, f"{value!r} is not a number."))
+                continue
+            if not math.isfinite(number):
+                errors.append((name, "Must be a finite number."))
+                continue
+            data[name] = number
+        elif name == "active":
+            if value.lower() not in {"true", "false", "1", "0", "yes", "no"}:
+                errors.append((name, "Use true or false."))
+                continue
+            data[name] = value.lower() in {"true", "1", "yes"}
+        else:
+            data[name] = value
+    unit = (raw.get("unit") or "").strip() or service_unit
+    try:
+        factor = _unit_factor(unit, service_unit)
+    except ValueError as exc:
+        errors.append(("unit", str(exc)))
+        factor = 1.0
+    for name in VOLUME_FIELDS:
+        if isinstance(data.get(name), float):
+            data[name] *= factor
+    if isinstance(data.get("holding_cost"), float):
+        data["holding_cost"] /= factor
+    return data, errors
+
+
+def import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit: str) -> dict[str, Any]:
+    """Validate every row, then create or update by ``code``; raise a 422 Problem naming bad rows."""
+    try:
+        text = body.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise Problem(422, "The CSV must be UTF-8.", kind="validation") from exc
+    reader = csv.DictReader(io.StringIO(text))
+    header = reader.fieldnames or []
+    unknown = [h for h in header if h not in (*COLUMNS, "unit")]
+    missing = [h for h in ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
+               if h not in header]
+    if unknown or missing:
+        errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
+        errors += [{"pointer": f"#/header/{h}", "detail": "Missing column."} for h in missing]
+        raise Problem(422, "The CSV header is not valid.", kind="validation", errors=errors)
+    schema = SiteSchema()
+    trucks = {t.code: t for t in session.scalars(select(Truck))}
+    rows: list[dict[str, Any]] = []
+    errors: list[dict[str, str]] = []
+    seen: set[str] = set()
+    for number, raw in enumerate(reader, start=1):
+        if number > MAX_ROWS:
+            raise Problem(413, f"At most {MAX_ROWS} rows per import.", kind="too-many-rows")
+        if None in raw:
+            errors.append({"pointer": f"#/rows/{number}", "detail": f"Row {number} has more cells than the header."})
+            continue
+        data, bad = _parse_row(raw, service_unit)
+        errors += [{"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {msg}"} for col, msg in bad]
+        if bad:
+            continue
+        try:
+            loaded = schema.load(data)
+        except ValidationError as exc:
+            for col, messages in exc.messages.items():  # type: ignore[union-attr]
+                for msg in messages if isinstance(messages, list) else [messages]:
+                    errors.append({"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {msg}"})
+            continue
+        if loaded["truck"] not in trucks:
+            errors.append({"pointer": f"#/rows/{number}/truck",
+                           "detail": f"Row {number}, truck: no truck with code {loaded['truck']!r}."})
+            continue
+        if loaded["code"] in seen:
+            errors.append({"pointer": f"#/rows/{number}/code",
+                           "detail": f"Row {number}, code: {loaded['code']!r} appears twice."})
+            continue
+        seen.add(loaded["code"])
+        rows.append(loaded)
+    if errors:
+        bad_rows = sorted({int(e["pointer"].split("/")[2]) for e in errors})
+        raise Problem(422, f"Nothing was imported: {len(bad_rows)} bad row(s): {', '.join(map(str, bad_rows[:20]))}.",
+                      kind="validation", errors=errors)
+    if not rows:
+        raise Problem(422, "The CSV has no rows.", kind="validation")
+    existing = {s.code: s for s in session.scalars(select(Site).where(Site.code.in_(seen)))}
+    created = updated = 0
+    for data in rows:
+        truck = trucks[data["truck"]]
+        site = existing.get(data["code"])
+        if site is None:
+            repo.add_site(session, data, truck)
+            created += 1
+        elif repo.apply_changes(site, data | {"truck_id": truck.id}, (*repo.SITE_FIELDS, "truck_id")):
+            updated += 1
+    session.flush()
+    return {"dry_run": dry_run, "created": created, "updated": updated, "rows": len(rows)}
+
+
+def _defuse(value: str) -> str:
+    return "'" + value if value.startswith(FORMULA_STARTS) else value
+
+
+def export_sites(session: Session) -> str:
+    """All sites as CSV in the service unit, ordered by code."""
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\r\n")
+    writer.writerow(COLUMNS)
+    codes = dict(session.execute(select(Truck.id, Truck.code)).tuples().all())
+    for site in session.scalars(select(Site).order_by(Site.code)):
+        row: list[Any] = [_defuse(site.code), _defuse(site.name), _defuse(codes[site.truck_id])]
+        row += [repr(getattr(site, f)) for f in NUMBER_FIELDS[:6]]
+        row += ["true" if site.active else "false"]
+        row += ["" if getattr(site, f) is None else repr(getattr(site, f)) for f in ("latitude", "longitude")]
+        writer.writerow(row)
+    return out.getvalue()

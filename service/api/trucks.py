@@ -1,0 +1,92 @@
+"""Trucks: list, read, create, change (If-Match), delete."""
+
+from flask import url_for
+from flask.views import MethodView
+from sqlalchemy import select
+
+from service.api.blueprint import Blueprint
+from service.api.etags import not_modified, require_if_match, version_etag
+from service.api.pagination import page
+from service.api.schemas.trucks import TruckListSchema, TruckPatchSchema, TruckQueryArgsSchema, TruckSchema
+from service.auth import allow
+from service.errors import Problem
+from service.persistence import repository as repo
+from service.persistence.db import get_session
+from service.persistence.models import Truck
+
+PREFIX = "/trucks"
+blp = Blueprint("trucks", __name__, description="Trucks: dispatch cost, capacity and stop limit")
+
+
+def truck_or_404(code: str, *, for_update: bool = False) -> Truck:
+    try:
+        return repo.truck_by_code(get_session(), code, for_update=for_update)
+    except repo.NotFound as exc:
+        raise Problem(404, str(exc), kind="not-found") from exc
+
+
+def etag(truck: Truck) -> str:
+    return version_etag("truck", truck.code, truck.version)
+
+
+@blp.route("")
+class Trucks(MethodView):
+    @allow("viewer")
+    @blp.arguments(TruckQueryArgsSchema, location="query")
+    @blp.response(200, TruckListSchema)
+    def get(self, args):
+        """List trucks (keyset pages by code)"""
+        rows, headers = page(get_session(), select(Truck), Truck.code, args)
+        return {"items": rows}, headers
+
+    @allow("admin")
+    @blp.arguments(TruckSchema)
+    @blp.response(201, TruckSchema)
+    @blp.alt_response(409, description="A truck with this code exists")
+    def post(self, data):
+        """Create a truck"""
+        session = get_session()
+        if session.scalar(select(Truck.id).where(Truck.code == data["code"])) is not None:
+            raise Problem(409, f"A truck with code {data['code']!r} already exists.", kind="conflict")
+        truck = repo.add_truck(session, data)
+        session.commit()
+        return truck, {"Location": url_for("trucks.TruckByCode", code=truck.code), "ETag": etag(truck)}
+
+
+@blp.route("/<string:code>")
+class TruckByCode(MethodView):
+    @allow("viewer")
+    @blp.response(200, TruckSchema)
+    @blp.alt_response(304, description="Not modified")
+    def get(self, code):
+        """Read a truck (strong ETag)"""
+        truck = truck_or_404(code)
+        return not_modified(etag(truck)) or (truck, {"ETag": etag(truck)})
+
+    @allow("admin")
+    @blp.arguments(TruckPatchSchema(partial=True))
+    @blp.response(200, TruckSchema)
+    @blp.alt_response(412, description="ETag does not match")
+    @blp.alt_response(428, description="If-Match missing")
+    def patch(self, data, code):
+        """Change a truck (needs If-Match)"""
+        session = get_session()
+        truck = truck_or_404(code, for_update=True)
+        require_if_match(etag(truck))
+        repo.apply_changes(truck, data, repo.TRUCK_FIELDS)
+        session.commit()
+        return truck, {"ETag": etag(truck)}
+
+    @allow("admin")
+    @blp.response(204)
+    @blp.alt_response(409, description="Sites or plans still reference the truck")
+    def delete(self, code):
+        """Delete a truck that no site or plan references"""
+        session = get_session()
+        truck = truck_or_404(code, for_update=True)
+        require_if_match(etag(truck))
+        if repo.truck_is_referenced(session, truck):
+            raise Problem(409, "Sites or recorded plans reference this truck; move its sites first, or PATCH "
+                          "it with active=false.", kind="conflict")
+        session.delete(truck)
+        session.commit()

@@ -1,0 +1,159 @@
+"""Bearer-token authentication and the per-route role rules.
+
+Tokens look like ``ull_<43 url-safe characters>`` (256 random bits, Python ``secrets``). Only the
+SHA-256 of the whole token is stored and tokens are looked up by that hash on a unique index, so no
+secret is compared in Python. Nothing is cached per process: a revocation is refused on the next
+request in every worker.
+
+Every route declares who may call it with :func:`allow` (or :data:`EXTRA_RULES` for routes that
+libraries register). A route without a rule is refused (default deny) and the role-matrix test
+fails on it.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import secrets
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import TypeVar
+
+from flask import Flask, current_app, g, request
+from sqlalchemy import select, update
+
+from service.errors import Problem
+from service.persistence.db import get_session, write_intent
+from service.persistence.models import Token, utcnow
+
+ROLES = ("viewer", "dispatcher", "admin")
+PUBLIC = "public"
+SESSION = "session"  # the status page signs people in with its own cookie (service.web)
+TOKEN_PREFIX = "ull_"
+LAST_USED_RESOLUTION = dt.timedelta(minutes=1)
+
+F = TypeVar("F", bound=Callable[..., object])
+
+#: Rules for endpoints that are not ours to decorate.
+EXTRA_RULES = {"api-docs.openapi_json": "viewer"}
+
+
+@dataclass(frozen=True)
+class Caller:
+    """Who is calling: the token's id, name and role."""
+
+    token_id: int
+    name: str
+    role: str
+
+    def has(self, role: str) -> bool:
+        return ROLES.index(self.role) >= ROLES.index(role)
+
+
+def allow(role: str) -> Callable[[F], F]:
+    """Declare the least role (or ``PUBLIC`` / ``SESSION``) a view needs."""
+    if role not in (*ROLES, PUBLIC, SESSION):
+        raise ValueError(f"unknown role {role!r}")
+
+    def mark(view: F) -> F:
+        view._ullage_role = role  # type: ignore[attr-defined]
+        return view
+
+    return mark
+
+
+def new_token() -> str:
+    """A fresh secret token."""
+    return TOKEN_PREFIX + secrets.token_urlsafe(32)
+
+
+def token_hash(token: str) -> str:
+    """The stored form of a token."""
+    return hashlib.sha256(token.encode("utf-8")).hexdigest()
+
+
+def rule_for(app: Flask, endpoint: str, method: str) -> str | None:
+    """The declared rule of ``endpoint`` for ``method`` (``None`` if there is none)."""
+    if endpoint in EXTRA_RULES:
+        return EXTRA_RULES[endpoint]
+    view = app.view_functions.get(endpoint)
+    if view is None:
+        return None
+    view_class = getattr(view, "view_class", None)
+    if view_class is not None:
+        name = "get" if method == "HEAD" else method.lower()
+        handler = getattr(view_class, name, None)
+        return getattr(handler, "_ullage_role", None)
+    return getattr(view, "_ullage_role", None)
+
+
+def caller_from_token(token: str) -> Caller | None:
+    """Look a presented token up; ``None`` when unknown or revoked. Notes the last use (per minute)."""
+    session = get_session()
+    row = session.scalars(select(Token).where(Token.secret_hash == token_hash(token))).one_or_none()
+    if row is None or row.revoked_at is not None:
+        return None
+    now = utcnow()
+    if row.last_used_at is None or now - row.last_used_at > LAST_USED_RESOLUTION:
+        g.touch_token = row.id
+    return Caller(row.id, row.name, row.role)
+
+
+def _presented_token() -> str | None:
+    header = request.headers.get("Authorization", "")
+    scheme, _, value = header.partition(" ")
+    if scheme.lower() != "bearer" or not value.strip():
+        return None
+    return value.strip()
+
+
+def authenticate() -> None:
+    """``before_request``: enforce the route's rule for bearer-token routes."""
+    if request.endpoint is None or request.method == "OPTIONS":
+        return
+    rule = rule_for(current_app, request.endpoint, request.method)
+    if rule in (PUBLIC, SESSION):
+        return
+    if rule is None:
+        raise Problem(403, "This route has no access rule; it is refused.", kind="forbidden")
+    if any(k in request.args for k in ("token", "access_token", "api_key")):
+        raise Problem(401, "Tokens are accepted only in the Authorization header, never in the URL.",
+                      kind="unauthenticated", headers={"WWW-Authenticate": 'Bearer realm="ullage", error="invalid_request"'})
+    token = _presented_token()
+    if token is None:
+        raise Problem(401, "Send 'Authorization: Bearer <token>'.", kind="unauthenticated",
+                      headers={"WWW-Authenticate": 'Bearer realm="ullage"'})
+    caller = caller_from_token(token)
+    if caller is None:
+        raise Problem(401, "The token is not valid or has been revoked.", kind="unauthenticated",
+                      headers={"WWW-Authenticate": 'Bearer realm="ullage", error="invalid_token"'})
+    g.caller = caller
+    if not caller.has(rule):
+        raise Problem(403, f"This needs the {rule} role or higher; the token has the {caller.role} role.",
+                      kind="forbidden")
+
+
+def note_token_use(response):  # type: ignore[no-untyped-def]
+    """``after_request``: record ``last_used_at`` at most once a minute per token (own transaction)."""
+    token_id = g.pop("touch_token", None)
+    if token_id is not None and response.status_code < 500:
+        write_intent.set(True)
+        session = current_app.extensions["ullage.sessionmaker"]()
+        try:
+            session.execute(update(Token).where(Token.id == token_id).values(last_used_at=utcnow()))
+            session.commit()
+        except Exception:  # noqa: BLE001 - a missed "last used" note must not fail the request
+            session.rollback()
+        finally:
+            session.close()
+    return response
+
+
+def current_caller() -> Caller:
+    """The authenticated caller of this request."""
+    return g.caller
+
+
+def init_app(app: Flask) -> None:
+    app.before_request(authenticate)
+    app.after_request(note_token_use)

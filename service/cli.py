@@ -1,0 +1,147 @@
+"""The ``ullage`` command: database, tokens, demo data, serving."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+
+from alembic import command
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from service.config import load_settings
+from service.health import alembic_config
+from service.persistence import repository as repo
+from service.persistence.db import make_engine
+from service.persistence.models import Site, Token, Truck
+
+SAMPLE_DATA = Path(__file__).resolve().parent.parent / "sample_data"
+
+
+def _session() -> Session:
+    return Session(make_engine(load_settings().database_url), expire_on_commit=False)
+
+
+def db_upgrade(args: argparse.Namespace) -> int:
+    command.upgrade(alembic_config(load_settings().database_url), args.revision)
+    print(f"database at {args.revision}")
+    return 0
+
+
+def db_downgrade(args: argparse.Namespace) -> int:
+    command.downgrade(alembic_config(load_settings().database_url), args.revision)
+    print(f"database at {args.revision}")
+    return 0
+
+
+def token_create(args: argparse.Namespace) -> int:
+    from service.auth import new_token, token_hash  # noqa: PLC0415 - keeps `ullage --help` light
+
+    with _session() as session:
+        if session.scalar(select(Token.id).where(Token.name == args.name)) is not None:
+            print(f"a token named {args.name!r} exists; choose another name or revoke it", file=sys.stderr)
+            return 1
+        token = new_token()
+        repo.add_token(session, args.name, args.role, token_hash(token))
+        session.commit()
+    print(f"created {args.role} token {args.name!r}; it is shown once, here:")
+    print(token)
+    return 0
+
+
+def token_revoke(args: argparse.Namespace) -> int:
+    with _session() as session:
+        try:
+            repo.revoke_token(session, args.name)
+        except repo.NotFound as exc:
+            print(exc, file=sys.stderr)
+            return 1
+        session.commit()
+    print(f"revoked {args.name!r}")
+    return 0
+
+
+def token_list(_args: argparse.Namespace) -> int:
+    with _session() as session:
+        for token in session.scalars(select(Token).order_by(Token.name)):
+            state = "revoked" if token.revoked_at else "active"
+            print(f"{token.name}\t{token.role}\t{state}\tcreated {token.created_at:%Y-%m-%dT%H:%MZ}")
+    return 0
+
+
+def demo(args: argparse.Namespace) -> int:
+    from service.demo import load_demo  # noqa: PLC0415
+
+    with _session() as session:
+        if repo.count_rows(session, Truck) or repo.count_rows(session, Site):
+            print("the database already holds trucks or sites; the demo loads only into an empty one")
+            return 0 if args.if_empty else 1
+        trucks, sites = load_demo(session, Path(args.directory), load_settings().quantity_unit)
+        session.commit()
+    print(f"loaded the demo network: {trucks} trucks, {sites} sites")
+    return 0
+
+
+def _persistent_secret() -> str:
+    """ULLAGE_SECRET_KEY, or a key kept in ./var/secret_key so every worker signs cookies alike."""
+    path = Path("var") / "secret_key"
+    if not path.exists():
+        import secrets  # noqa: PLC0415
+
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.touch(mode=0o600)
+        path.write_text(secrets.token_urlsafe(32))
+    return path.read_text().strip()
+
+
+def serve(args: argparse.Namespace) -> int:
+    os.environ.setdefault("ULLAGE_SECRET_KEY", _persistent_secret())
+    argv = ["gunicorn", "--config", str(Path(__file__).resolve().parent / "gunicorn_conf.py"),
+            "--bind", f"{args.host}:{args.port}", "service.app:create_app()"]
+    if args.workers:
+        argv[1:1] = ["--workers", str(args.workers)]
+    os.execvp(argv[0], argv)
+    return 0  # pragma: no cover - exec does not return
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="ullage", description="Delivery planning for bulk-liquid tanks.")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    db = sub.add_parser("db", help="database schema").add_subparsers(dest="db_command", required=True)
+    up = db.add_parser("upgrade", help="migrate to the newest schema (Alembic)")
+    up.add_argument("revision", nargs="?", default="head")
+    up.set_defaults(func=db_upgrade)
+    down = db.add_parser("downgrade", help="migrate back (Alembic)")
+    down.add_argument("revision")
+    down.set_defaults(func=db_downgrade)
+
+    token = sub.add_parser("token", help="API tokens").add_subparsers(dest="token_command", required=True)
+    create = token.add_parser("create", help="create a token; prints it once, alone on the last line")
+    create.add_argument("name")
+    create.add_argument("--role", required=True, choices=("admin", "dispatcher", "viewer"))
+    create.set_defaults(func=token_create)
+    revoke = token.add_parser("revoke", help="revoke a token by name")
+    revoke.add_argument("name")
+    revoke.set_defaults(func=token_revoke)
+    token.add_parser("list", help="names, roles and states (never secrets)").set_defaults(func=token_list)
+
+    dm = sub.add_parser("demo", help="load sample_data/ into an empty database")
+    dm.add_argument("--directory", default=str(SAMPLE_DATA))
+    dm.add_argument("--if-empty", action="store_true", help="exit 0 without loading when data exists")
+    dm.set_defaults(func=demo)
+
+    sv = sub.add_parser("serve", help="run gunicorn")
+    sv.add_argument("--host", default=os.environ.get("ULLAGE_HOST", "127.0.0.1"))
+    sv.add_argument("--port", type=int, default=int(os.environ.get("ULLAGE_PORT", "8000")))
+    sv.add_argument("--workers", type=int, default=0, help="default: WEB_CONCURRENCY or 2")
+    sv.set_defaults(func=serve)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    return int(args.func(args) or 0)

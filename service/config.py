@@ -1,0 +1,115 @@
+"""Settings from the environment, then from an override mapping.
+
+Twelve-factor style: everything that varies between deployments is an environment variable. The
+variable names are listed in README.md (configuration table). Nothing here connects anywhere.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import secrets
+import zoneinfo
+from collections.abc import Mapping
+from dataclasses import dataclass, fields, replace
+from pathlib import Path
+from typing import Any
+
+#: ISO 4217 alphabetic codes we accept: three capital letters (the full register is not bundled;
+#: a code of the right shape is accepted, anything else fails at start-up).
+_CURRENCY = re.compile(r"^[A-Z]{3}$")
+_UNIT = re.compile(r"^[A-Za-z0-9³]{1,8}$")
+
+#: Environment variable → settings field.
+ENVIRONMENT = {
+    "DATABASE_URL": "database_url",
+    "ULLAGE_QUANTITY_UNIT": "quantity_unit",
+    "ULLAGE_CURRENCY": "currency",
+    "ULLAGE_TIMEZONE": "timezone",
+    "ULLAGE_SECRET_KEY": "secret_key",
+    "ULLAGE_MAX_BODY_BYTES": "max_body_bytes",
+    "ULLAGE_MAX_CALCULATION_BYTES": "max_calculation_bytes",
+    "ULLAGE_READING_STALE_DAYS": "reading_stale_days",
+    "LOG_LEVEL": "log_level",
+}
+
+
+def default_database_url() -> str:
+    """A SQLite file under ``./var/`` of the working directory."""
+    return f"sqlite:///{Path('var') / 'ullage.db'}"
+
+
+def normalise_database_url(url: str) -> str:
+    """Map the Heroku-style ``postgres://`` and bare ``postgresql://`` to psycopg 3.
+
+    SQLAlchemy removed the ``postgres`` alias in 1.4 (sqlalchemy#6105).
+    """
+    for prefix in ("postgres://", "postgresql://"):
+        if url.startswith(prefix):
+            return "postgresql+psycopg://" + url[len(prefix):]
+    return url
+
+
+@dataclass(frozen=True)
+class Settings:
+    """The service's configuration; one immutable object per app."""
+
+    database_url: str
+    quantity_unit: str = "L"
+    currency: str = "EUR"
+    timezone: str = "UTC"
+    secret_key: str = ""
+    max_body_bytes: int = 1 << 20
+    max_calculation_bytes: int = 32 << 20
+    reading_stale_days: int = 7
+    log_level: str = "INFO"
+    testing: bool = False
+
+    def validate(self) -> Settings:
+        """Fail fast on a value the service cannot work with."""
+        if not _CURRENCY.match(self.currency):
+            raise ValueError(f"ULLAGE_CURRENCY must be an ISO 4217 code such as EUR, got {self.currency!r}")
+        if not _UNIT.match(self.quantity_unit):
+            raise ValueError(f"ULLAGE_QUANTITY_UNIT must be a short label such as L, gal or m3, got {self.quantity_unit!r}")
+        try:
+            zoneinfo.ZoneInfo(self.timezone)
+        except (zoneinfo.ZoneInfoNotFoundError, ValueError) as exc:
+            raise ValueError(f"ULLAGE_TIMEZONE must be an IANA time zone, got {self.timezone!r}") from exc
+        for name in ("max_body_bytes", "max_calculation_bytes", "reading_stale_days"):
+            if getattr(self, name) < 1:
+                raise ValueError(f"{name} must be at least 1")
+        return self
+
+
+def _coerce(name: str, value: Any) -> Any:
+    kind = {f.name: f.type for f in fields(Settings)}[name]
+    if kind == "int" and isinstance(value, str):
+        return int(value)
+    if kind == "bool" and isinstance(value, str):
+        return value.strip().lower() in {"1", "true", "yes", "on"}
+    return value
+
+
+def load_settings(overrides: Mapping[str, Any] | None = None, environ: Mapping[str, str] | None = None) -> Settings:
+    """Build the settings: defaults, then the environment, then ``overrides``.
+
+    ``overrides`` may use either the environment names (``DATABASE_URL``) or the field names
+    (``database_url``); ``TESTING`` maps to ``testing``.
+    """
+    environ = os.environ if environ is None else environ
+    values: dict[str, Any] = {"database_url": default_database_url()}
+    for env_name, field_name in ENVIRONMENT.items():
+        if environ.get(env_name):
+            values[field_name] = _coerce(field_name, environ[env_name])
+    known = {f.name for f in fields(Settings)}
+    for key, value in (overrides or {}).items():
+        field_name = ENVIRONMENT.get(key, key.lower())
+        if field_name in known:
+            values[field_name] = _coerce(field_name, value)
+    settings = Settings(**values)
+    settings = replace(settings, database_url=normalise_database_url(settings.database_url))
+    if not settings.secret_key:
+        # A per-process key: sessions do not survive a restart and are not shared between
+        # workers. Production sets ULLAGE_SECRET_KEY (README).
+        settings = replace(settings, secret_key=secrets.token_urlsafe(32))
+    return settings.validate()

@@ -1,0 +1,24 @@
+"""Load the invented demo network in ``sample_data/`` (trucks.csv, then sites.csv via the CSV import)."""
+
+from __future__ import annotations
+
+import csv
+from pathlib import Path
+
+from sqlalchemy.orm import Session
+
+from service.api.sites_csv import import_sites
+from service.persistence import repository as repo
+
+
+def load_demo(session: Session, directory: Path, service_unit: str) -> tuple[int, int]:
+    """Add the trucks and sites; returns how many of each. The caller commits."""
+    with open(directory / "trucks.csv", encoding="utf-8", newline="") as handle:
+        trucks = list(csv.DictReader(handle))
+    for row in trucks:
+        repo.add_truck(session, {
+            "code": row["code"], "name": row["name"], "dispatch_cost": float(row["dispatch_cost"]),
+            "capacity": float(row["capacity"]), "max_stops": int(row["max_stops"]) if row["max_stops"] else None,
+        })
+    result = import_sites(session, (directory / "sites.csv").read_bytes(), dry_run=False, service_unit=service_unit)
+    return len(trucks), result["created"]

@@ -1,0 +1,187 @@
+"""One error shape everywhere: RFC 9457 ``application/problem+json``.
+
+Members: ``type``, ``title``, ``status``, ``detail``, ``instance``, and for validation ``errors``:
+a list of ``{pointer, detail}`` where ``pointer`` is a JSON Pointer (RFC 6901) into the request
+body, or ``#/query/<name>`` / ``#/header/<name>`` for other locations.
+Stack traces, versions and connection strings never reach a client.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Iterable, Mapping
+from http import HTTPStatus
+from typing import Any
+
+from flask import Flask, Response, g, json, request
+from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
+from werkzeug.exceptions import HTTPException
+
+from service.planning.errors import PlanningInputError
+
+PROBLEM_JSON = "application/problem+json"
+PROBLEM_BASE = "https://ullage.invalid/problems/"
+log = logging.getLogger("ullage.errors")
+
+
+class Problem(Exception):
+    """Raise to answer with a problem document."""
+
+    def __init__(
+        self,
+        status: int,
+        detail: str,
+        *,
+        kind: str | None = None,
+        errors: Iterable[Mapping[str, str]] = (),
+        headers: Mapping[str, str] | None = None,
+        title: str | None = None,
+    ) -> None:
+        super().__init__(detail)
+        self.status = status
+        self.detail = detail
+        self.kind = kind
+        self.errors = list(errors)
+        self.headers = dict(headers or {})
+        self.title = title
+
+
+def problem_response(
+    status: int,
+    detail: str,
+    *,
+    kind: str | None = None,
+    errors: Iterable[Mapping[str, str]] = (),
+    headers: Mapping[str, str] | None = None,
+    title: str | None = None,
+) -> Response:
+    """Build a problem+json response."""
+    body: dict[str, Any] = {
+        "type": PROBLEM_BASE + kind if kind else "about:blank",
+        "title": title or HTTPStatus(status).phrase,
+        "status": status,
+        "detail": detail,
+        "instance": request.path,
+    }
+    errors = list(errors)
+    if errors:
+        body["errors"] = errors
+    request_id = g.get("request_id")
+    if request_id:
+        body["request_id"] = request_id
+    response = Response(json.dumps(body), status=status, mimetype=PROBLEM_JSON)
+    for name, value in (headers or {}).items():
+        response.headers[name] = value
+    return response
+
+
+def _pointer(path: Iterable[Any]) -> str:
+    parts = [str(p).replace("~", "~0").replace("/", "~1") for p in path]
+    return "#/" + "/".join(parts) if parts else "#"
+
+
+def flatten_messages(messages: Any, path: tuple[Any, ...] = ()) -> list[dict[str, str]]:
+    """Turn marshmallow's nested ``{field: [msg]}`` into ``[{pointer, detail}]``."""
+    out: list[dict[str, str]] = []
+    if isinstance(messages, Mapping):
+        for key, value in messages.items():
+            if key == "_schema":
+                out.extend(flatten_messages(value, path))
+            else:
+                out.extend(flatten_messages(value, (*path, key)))
+    elif isinstance(messages, (list, tuple)) and messages and all(isinstance(m, str) for m in messages):
+        out.extend({"pointer": _pointer(path), "detail": m} for m in messages)
+    elif isinstance(messages, (list, tuple)):
+        for value in messages:
+            out.extend(flatten_messages(value, path))
+    else:
+        out.append({"pointer": _pointer(path), "detail": str(messages)})
+    return out
+
+
+def webargs_errors(messages: Mapping[str, Any]) -> list[dict[str, str]]:
+    """webargs groups messages by location; the body is the root of the pointer."""
+    out: list[dict[str, str]] = []
+    for location, per_field in messages.items():
+        prefix: tuple[str, ...] = () if location == "json" else (location,)
+        out.extend(flatten_messages(per_field, prefix))
+    return out
+
+
+def handle_http_exception(error: HTTPException) -> Response:
+    """Every werkzeug/webargs HTTP error as problem+json, keeping its headers (``Allow`` on 405)."""
+    status = error.code or 500
+    data = getattr(error, "data", None) or {}
+    errors = webargs_errors(data["messages"]) if "messages" in data else []
+    headers = {k: v for k, v in error.get_headers() if k.lower() != "content-type"}
+    headers.update(data.get("headers") or {})
+    if status == 400 and request.is_json:
+        detail = "The request body is not valid JSON."
+    elif errors:
+        detail = "The request is not valid: " + "; ".join(f"{e['pointer']}: {e['detail']}" for e in errors[:5])
+    else:
+        detail = data.get("message") or error.description or HTTPStatus(status).phrase
+    if status == 401:
+        headers.setdefault("WWW-Authenticate", 'Bearer realm="ullage"')
+    return problem_response(status, detail, errors=errors, headers=headers)
+
+
+def handle_problem(error: Problem) -> Response:
+    return problem_response(
+        error.status, error.detail, kind=error.kind, errors=error.errors, headers=error.headers, title=error.title
+    )
+
+
+def handle_planning_input(error: PlanningInputError) -> Response:
+    """A planning input the core refuses (e.g. a tank that holds less than a day) → 422."""
+    path = ("sites", error.index, error.field) if error.index is not None else (error.field,)
+    return problem_response(422, str(error), kind="planning-input", errors=[{"pointer": _pointer(path), "detail": str(error)}])
+
+
+def handle_integrity(error: IntegrityError) -> Response:
+    _rollback()
+    log.info("integrity error: %s", type(error.orig).__name__)
+    return problem_response(409, "The change conflicts with data already stored.", kind="conflict")
+
+
+def _storage_full(error: DBAPIError) -> bool:
+    text = str(getattr(error, "orig", error)).lower()
+    return "database or disk is full" in text or "no space left" in text or "disk full" in text
+
+
+def handle_database(error: DBAPIError) -> Response:
+    """Database unreachable, locked too long or full: 503 (507 when full) with Retry-After."""
+    _rollback()
+    if _storage_full(error):
+        log.error("storage full: %s", type(error.orig).__name__)
+        return problem_response(507, "The plan store is full; nothing was recorded.", kind="storage-full",
+                                headers={"Retry-After": "60"})
+    log.warning("database unavailable: %s", type(getattr(error, "orig", error)).__name__)
+    return problem_response(503, "The database is not available right now; nothing was recorded. Retry shortly.",
+                            kind="database-unavailable", headers={"Retry-After": "2"})
+
+
+def handle_unexpected(error: Exception) -> Response:
+    _rollback()
+    log.exception("unhandled error")
+    return problem_response(500, "Something went wrong on our side; nothing was recorded.")
+
+
+def _rollback() -> None:
+    session = g.get("db_session")
+    if session is not None:
+        try:
+            session.rollback()
+        except Exception:  # noqa: BLE001 - the connection may already be gone
+            session.invalidate()
+
+
+def init_app(app: Flask) -> None:
+    """Register the handlers (flask-smorest's own HTTPException handler is replaced in service.api)."""
+    app.register_error_handler(Problem, handle_problem)
+    app.register_error_handler(PlanningInputError, handle_planning_input)
+    app.register_error_handler(IntegrityError, handle_integrity)
+    app.register_error_handler(OperationalError, handle_database)
+    app.register_error_handler(DBAPIError, handle_database)
+    app.register_error_handler(HTTPException, handle_http_exception)
+    app.register_error_handler(Exception, handle_unexpected)

@@ -1,0 +1,22 @@
+"""gunicorn settings for Ullage (see conventions: graceful shutdown, no preload, heartbeat in /dev/shm)."""
+
+import os
+
+from service.observability import configure_logging
+
+workers = int(os.environ.get("WEB_CONCURRENCY", "2"))
+worker_class = "gthread"
+threads = int(os.environ.get("ULLAGE_THREADS", "4"))
+timeout = 30
+graceful_timeout = 20
+keepalive = 5
+preload_app = False  # each worker opens its own database connections after the fork
+max_requests = 2000
+max_requests_jitter = 200
+worker_tmp_dir = "/dev/shm" if os.path.isdir("/dev/shm") else None
+accesslog = None  # the app writes one JSON line per request itself
+errorlog = "-"
+
+
+def post_worker_init(worker):  # type: ignore[no-untyped-def]
+    configure_logging(os.environ.get("LOG_LEVEL", "INFO"))

@@ -1,0 +1,205 @@
+"""Typed SQLAlchemy 2 models. Alembic (migrations/) owns the schema built from these."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from sqlalchemy import (
+    JSON,
+    CheckConstraint,
+    Date,
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    MetaData,
+    String,
+    Text,
+    TypeDecorator,
+    UniqueConstraint,
+    text,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+NAMING_CONVENTION = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+CODE_LENGTH = 40
+NAME_LENGTH = 200
+
+
+def utcnow() -> dt.datetime:
+    """The current time, timezone-aware, in UTC."""
+    return dt.datetime.now(dt.UTC)
+
+
+class UTCDateTime(TypeDecorator[dt.datetime]):
+    """A timestamp stored in UTC and always read back timezone-aware (SQLite drops the zone)."""
+
+    impl = DateTime(timezone=True)
+    cache_ok = True
+
+    def process_bind_param(self, value: dt.datetime | None, dialect: Any) -> dt.datetime | None:
+        if value is None:
+            return None
+        if value.tzinfo is None:
+            raise ValueError("naive datetime given to a UTC column")
+        return value.astimezone(dt.UTC)
+
+    def process_result_value(self, value: dt.datetime | None, dialect: Any) -> dt.datetime | None:
+        if value is None:
+            return None
+        return value.replace(tzinfo=dt.UTC) if value.tzinfo is None else value.astimezone(dt.UTC)
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING_CONVENTION)
+
+
+class Truck(Base):
+    __tablename__ = "trucks"
+    __table_args__ = (
+        CheckConstraint("dispatch_cost >= 0", name="dispatch_cost_nonnegative"),
+        CheckConstraint("capacity > 0", name="capacity_positive"),
+        CheckConstraint("max_stops IS NULL OR max_stops >= 1", name="max_stops_positive"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    code: Mapped[str] = mapped_column(String(CODE_LENGTH), unique=True)
+    name: Mapped[str] = mapped_column(String(NAME_LENGTH))
+    dispatch_cost: Mapped[float] = mapped_column(Float)
+    capacity: Mapped[float] = mapped_column(Float)
+    max_stops: Mapped[int | None] = mapped_column(Integer)
+    active: Mapped[bool] = mapped_column(default=True)
+    version: Mapped[int] = mapped_column(default=1)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class Site(Base):
+    __tablename__ = "sites"
+    __table_args__ = (
+        CheckConstraint("demand_per_day > 0", name="demand_positive"),
+        CheckConstraint("holding_cost >= 0", name="holding_cost_nonnegative"),
+        CheckConstraint("stop_cost >= 0", name="stop_cost_nonnegative"),
+        CheckConstraint("tank_capacity > 0", name="tank_capacity_positive"),
+        CheckConstraint("safe_fill > 0 AND safe_fill <= 1", name="safe_fill_fraction"),
+        CheckConstraint(
+            "safety_stock >= 0 AND safety_stock < safe_fill * tank_capacity", name="safety_stock_below_safe_fill"
+        ),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    code: Mapped[str] = mapped_column(String(CODE_LENGTH), unique=True)
+    name: Mapped[str] = mapped_column(String(NAME_LENGTH))
+    truck_id: Mapped[int] = mapped_column(ForeignKey("trucks.id"), index=True)
+    demand_per_day: Mapped[float] = mapped_column(Float)
+    holding_cost: Mapped[float] = mapped_column(Float)
+    stop_cost: Mapped[float] = mapped_column(Float)
+    tank_capacity: Mapped[float] = mapped_column(Float)
+    safe_fill: Mapped[float] = mapped_column(Float, default=0.9)
+    safety_stock: Mapped[float] = mapped_column(Float, default=0.0)
+    active: Mapped[bool] = mapped_column(default=True)
+    latitude: Mapped[float | None] = mapped_column(Float)
+    longitude: Mapped[float | None] = mapped_column(Float)
+    version: Mapped[int] = mapped_column(default=1)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class Token(Base):
+    """An API token. Only the SHA-256 of the secret is stored; the secret is shown once."""
+
+    __tablename__ = "tokens"
+    __table_args__ = (CheckConstraint("role IN ('admin', 'dispatcher', 'viewer')", name="role_known"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(80), unique=True)
+    role: Mapped[str] = mapped_column(String(16))
+    secret_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    last_used_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+    revoked_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+
+
+class Plan(Base):
+    """A recorded schedule: inputs snapshot and result are written once and never changed."""
+
+    __tablename__ = "plans"
+    __table_args__ = (
+        CheckConstraint("status IN ('proposed', 'active', 'superseded')", name="status_known"),
+        # At most one active plan per truck, enforced by the database.
+        Index(
+            "uq_plans_one_active_per_truck",
+            "truck_id",
+            unique=True,
+            sqlite_where=text("status = 'active'"),
+            postgresql_where=text("status = 'active'"),
+        ),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    truck_id: Mapped[int] = mapped_column(ForeignKey("trucks.id"), index=True)
+    status: Mapped[str] = mapped_column(String(12), default="proposed")
+    method: Mapped[str] = mapped_column(String(16))
+    start_date: Mapped[dt.date] = mapped_column(Date)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    created_by: Mapped[str] = mapped_column(String(80))
+    inputs: Mapped[dict[str, Any]] = mapped_column(JSON)
+    inputs_digest: Mapped[str] = mapped_column(String(64))
+    result: Mapped[dict[str, Any]] = mapped_column(JSON)
+
+
+class PlanSite(Base):
+    """Which sites a plan was computed from (keeps referenced sites from being deleted)."""
+
+    __tablename__ = "plan_sites"
+
+    plan_id: Mapped[int] = mapped_column(ForeignKey("plans.id"), primary_key=True)
+    site_id: Mapped[int] = mapped_column(ForeignKey("sites.id"), primary_key=True, index=True)
+
+
+class Reading(Base):
+    """A tank level reading."""
+
+    __tablename__ = "readings"
+    __table_args__ = (
+        CheckConstraint("level >= 0", name="level_nonnegative"),
+        Index("ix_readings_site_measured", "site_id", "measured_at"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    site_id: Mapped[int] = mapped_column(ForeignKey("sites.id"))
+    level: Mapped[float] = mapped_column(Float)
+    measured_at: Mapped[dt.datetime] = mapped_column(UTCDateTime)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    created_by: Mapped[str] = mapped_column(String(80))
+
+
+class IdempotencyRecord(Base):
+    """One ``Idempotency-Key`` of one token: the request fingerprint and, once done, the response."""
+
+    __tablename__ = "idempotency_keys"
+    __table_args__ = (
+        UniqueConstraint("token_id", "idempotency_key", name="uq_idempotency_keys_token_key"),
+        CheckConstraint("state IN ('in_progress', 'done')", name="state_known"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    token_id: Mapped[int] = mapped_column(ForeignKey("tokens.id"))
+    idempotency_key: Mapped[str] = mapped_column(String(255))
+    method: Mapped[str] = mapped_column(String(8))
+    path: Mapped[str] = mapped_column(String(400))
+    body_sha256: Mapped[str] = mapped_column(String(64))
+    state: Mapped[str] = mapped_column(String(12), default="in_progress")
+    response_status: Mapped[int | None] = mapped_column(Integer)
+    response_body: Mapped[str | None] = mapped_column(Text)
+    response_location: Mapped[str | None] = mapped_column(String(400))
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow, index=True)

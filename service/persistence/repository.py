@@ -1,0 +1,113 @@
+"""Small functions over a session for trucks, sites and tokens. They never commit."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+from typing import Any
+
+from sqlalchemy import exists, func, select
+from sqlalchemy.orm import Session
+
+from service.persistence.models import Plan, PlanSite, Site, Token, Truck, utcnow
+
+SITE_FIELDS = ("name", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill",
+               "safety_stock", "active", "latitude", "longitude")
+TRUCK_FIELDS = ("name", "dispatch_cost", "capacity", "max_stops", "active")
+
+
+class NotFound(LookupError):
+    """No such row."""
+
+
+def lock_for_update(session: Session, statement: Any) -> Any:
+    """``SELECT … FOR UPDATE`` on PostgreSQL; SQLite writers are already serialised (BEGIN IMMEDIATE)."""
+    return statement.with_for_update() if session.get_bind().dialect.name == "postgresql" else statement
+
+
+def truck_by_code(session: Session, code: str, *, for_update: bool = False) -> Truck:
+    statement = select(Truck).where(Truck.code == code)
+    if for_update:
+        statement = lock_for_update(session, statement)
+    truck = session.scalars(statement).one_or_none()
+    if truck is None:
+        raise NotFound(f"No truck with code {code!r}.")
+    return truck
+
+
+def site_by_code(session: Session, code: str, *, for_update: bool = False) -> Site:
+    statement = select(Site).where(Site.code == code)
+    if for_update:
+        statement = lock_for_update(session, statement)
+    site = session.scalars(statement).one_or_none()
+    if site is None:
+        raise NotFound(f"No site with code {code!r}.")
+    return site
+
+
+def truck_codes(session: Session, ids: Iterable[int]) -> dict[int, str]:
+    ids = set(ids)
+    if not ids:
+        return {}
+    return dict(session.execute(select(Truck.id, Truck.code).where(Truck.id.in_(ids))).tuples().all())
+
+
+def apply_changes(row: Site | Truck, changes: Mapping[str, Any], allowed: Iterable[str]) -> bool:
+    """Set the allowed fields that differ; bump ``version`` and ``updated_at`` when anything changed."""
+    changed = False
+    for name in allowed:
+        if name in changes and getattr(row, name) != changes[name]:
+            setattr(row, name, changes[name])
+            changed = True
+    if changed:
+        row.version += 1
+        row.updated_at = utcnow()
+    return changed
+
+
+def add_truck(session: Session, data: Mapping[str, Any]) -> Truck:
+    truck = Truck(code=data["code"], **{k: data[k] for k in TRUCK_FIELDS if k in data})
+    session.add(truck)
+    session.flush()
+    return truck
+
+
+def add_site(session: Session, data: Mapping[str, Any], truck: Truck) -> Site:
+    site = Site(code=data["code"], truck_id=truck.id, **{k: data[k] for k in SITE_FIELDS if k in data})
+    session.add(site)
+    session.flush()
+    return site
+
+
+def site_is_planned(session: Session, site: Site) -> bool:
+    return bool(session.scalar(select(exists().where(PlanSite.site_id == site.id))))
+
+
+def truck_is_referenced(session: Session, truck: Truck) -> bool:
+    has_sites = session.scalar(select(exists().where(Site.truck_id == truck.id)))
+    has_plans = session.scalar(select(exists().where(Plan.truck_id == truck.id)))
+    return bool(has_sites or has_plans)
+
+
+def active_sites(session: Session, truck: Truck) -> list[Site]:
+    """The truck's active sites in code order (the order plans are computed in)."""
+    return list(session.scalars(select(Site).where(Site.truck_id == truck.id, Site.active.is_(True)).order_by(Site.code)))
+
+
+def count_rows(session: Session, model: type) -> int:
+    return int(session.scalar(select(func.count()).select_from(model)) or 0)
+
+
+def add_token(session: Session, name: str, role: str, secret_hash: str) -> Token:
+    token = Token(name=name, role=role, secret_hash=secret_hash)
+    session.add(token)
+    session.flush()
+    return token
+
+
+def revoke_token(session: Session, name: str) -> Token:
+    token = session.scalars(select(Token).where(Token.name == name)).one_or_none()
+    if token is None:
+        raise NotFound(f"No token named {name!r}.")
+    if token.revoked_at is None:
+        token.revoked_at = utcnow()
+    return token
