@@ -91,12 +91,13 @@ def caller_from_token(token: str) -> Caller | None:
     """Look a presented token up; ``None`` when unknown or revoked. Notes the last use (per minute)."""
     session = get_session()
     row = session.scalars(select(Token).where(Token.secret_hash == token_hash(token))).one_or_none()
-    if row is None or row.revoked_at is not None:
-        return None
-    now = utcnow()
-    if row.last_used_at is None or now - row.last_used_at > LAST_USED_RESOLUTION:
+    caller = None if row is None or row.revoked_at is not None else Caller(row.id, row.name, row.role)
+    if caller is not None and (row.last_used_at is None or utcnow() - row.last_used_at > LAST_USED_RESOLUTION):
         g.touch_token = row.id
-    return Caller(row.id, row.name, row.role)
+    # End the lookup's transaction: on SQLite a write request's BEGIN IMMEDIATE must not hold the
+    # write lock while the request opens its own short transactions (idempotency, last-used note).
+    session.rollback()
+    return caller
 
 
 def _presented_token() -> str | None:
@@ -137,7 +138,13 @@ def note_token_use(response):  # type: ignore[no-untyped-def]
     """``after_request``: record ``last_used_at`` at most once a minute per token (own transaction)."""
     token_id = g.pop("touch_token", None)
     if token_id is not None and response.status_code < 500:
-        write_intent.set(True)
+        request_session = g.get("db_session")
+        if request_session is not None:
+            # The view has committed what it meant to; anything still open (an error path after the
+            # token lookup) is abandoned anyway. Ending it first matters on SQLite, where the open
+            # BEGIN IMMEDIATE would make the write below wait out busy_timeout (5 s) and fail.
+            request_session.rollback()
+        intent = write_intent.set(True)
         session = current_app.extensions["ullage.sessionmaker"]()
         try:
             session.execute(update(Token).where(Token.id == token_id).values(last_used_at=utcnow()))
@@ -146,6 +153,7 @@ def note_token_use(response):  # type: ignore[no-untyped-def]
             session.rollback()
         finally:
             session.close()
+            write_intent.reset(intent)
     return response
 
 

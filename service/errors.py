@@ -17,7 +17,7 @@ from flask import Flask, Response, g, json, request
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 from werkzeug.exceptions import HTTPException
 
-from service.planning.errors import PlanningInputError
+from service.planning import PlanningInputError
 
 PROBLEM_JSON = "application/problem+json"
 PROBLEM_BASE = "https://ullage.invalid/problems/"

@@ -56,6 +56,8 @@ def upgrade() -> None:
     sa.Column('path', sa.String(length=400), nullable=False),
     sa.Column('body_sha256', sa.String(length=64), nullable=False),
     sa.Column('state', sa.String(length=12), nullable=False),
+    sa.Column('claim', sa.String(length=32), nullable=False),
+    sa.Column('claimed_at', sa.DateTime(timezone=True), nullable=False),
     sa.Column('response_status', sa.Integer(), nullable=True),
     sa.Column('response_body', sa.Text(), nullable=True),
     sa.Column('response_location', sa.String(length=400), nullable=True),

@@ -38,7 +38,7 @@ class Api(SmorestApi):
 
 def init_app(app: Flask) -> Api:
     """Create the Api and register every blueprint."""
-    from service.api import settings, sites, trucks  # noqa: PLC0415
+    from service.api import calculations, plans, readings, settings, sites, trucks  # noqa: PLC0415
 
     app.config.update(
         API_TITLE="Ullage",
@@ -55,7 +55,7 @@ def init_app(app: Flask) -> Api:
         },
     )
     api = Api(app)
-    for module in (settings, trucks, sites):
+    for module in (settings, trucks, sites, calculations, plans, readings):
         api.register_blueprint(module.blp, url_prefix=API_PREFIX + module.PREFIX)
     return api
 

@@ -108,7 +108,7 @@ class SiteByCode(MethodView):
             check_safety_stock(merged)
         except ValidationError as exc:
             raise Problem(422, "safety_stock must be below safe_fill × tank_capacity.", kind="validation",
-                          errors=flatten_messages(exc.messages)) from exc
+                          errors=flatten_messages(exc.normalized_messages())) from exc
         if "truck" in data:
             data = data | {"truck_id": truck_for(data["truck"]).id}
         repo.apply_changes(site, data, (*repo.SITE_FIELDS, "truck_id"))

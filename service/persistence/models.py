@@ -199,6 +199,8 @@ class IdempotencyRecord(Base):
     path: Mapped[str] = mapped_column(String(400))
     body_sha256: Mapped[str] = mapped_column(String(64))
     state: Mapped[str] = mapped_column(String(12), default="in_progress")
+    claim: Mapped[str] = mapped_column(String(32))
+    claimed_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
     response_status: Mapped[int | None] = mapped_column(Integer)
     response_body: Mapped[str | None] = mapped_column(Text)
     response_location: Mapped[str | None] = mapped_column(String(400))

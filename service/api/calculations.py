@@ -1,0 +1,67 @@
+"""Stateless what-if calculations: one site alone with the truck, and the sites of one truck.
+
+Nothing is stored. The numbers are the planning core's (docs/planning.md).
+"""
+
+from flask import jsonify
+from flask.views import MethodView
+
+from service.api.blueprint import Blueprint
+from service.api.schemas.calculations import (
+    CycleRequestSchema,
+    CycleResultSchema,
+    JointRequestSchema,
+    JointResultSchema,
+)
+from service.auth import allow
+from service.errors import Problem
+from service.planning import PlanningInputError, SiteInput, TruckInput, plan_joint, single_site_cycle
+
+PREFIX = "/calculations"
+blp = Blueprint("calculations", __name__, description="What-if calculations (nothing is stored)")
+
+#: Core field → request field, where the API names differ.
+API_FIELD = {"capacity": "truck_capacity"}
+SINGLE_CODE = "site"
+SITE_KEYS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
+
+
+def input_problem(error: PlanningInputError, *, single: bool = False) -> Problem:
+    """A 422 whose pointer names the request field (and site index) the core refused."""
+    field = API_FIELD.get(error.field, error.field)
+    pointer = f"#/sites/{error.index}/{field}" if error.index is not None and not single else f"#/{field}"
+    detail = str(error).replace(f"site `{SINGLE_CODE}`: ", "") if single else str(error)
+    return Problem(422, detail, kind="planning-input", errors=[{"pointer": pointer, "detail": detail}])
+
+
+@blp.route("/cycle")
+class CycleCalculation(MethodView):
+    @allow("dispatcher")
+    @blp.arguments(CycleRequestSchema)
+    @blp.response(200, CycleResultSchema)
+    def post(self, body):
+        """Cheapest whole-day delivery cycle of one site alone with the truck"""
+        site = SiteInput(code=SINGLE_CODE, **{k: body[k] for k in SITE_KEYS})
+        truck = TruckInput(dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"])
+        try:
+            return single_site_cycle(site, truck).to_dict()
+        except PlanningInputError as exc:
+            raise input_problem(exc, single=True) from exc
+
+
+@blp.route("/joint")
+class JointCalculation(MethodView):
+    @allow("dispatcher")
+    @blp.arguments(JointRequestSchema)
+    @blp.response(200, JointResultSchema)
+    def post(self, body):
+        """Joint schedule of the sites of one truck, with the lower bound and the gap"""
+        sites = [SiteInput(code=s["code"], **{k: s[k] for k in SITE_KEYS}) for s in body["sites"]]
+        truck = TruckInput(dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"],
+                           max_stops=body["max_stops"])
+        try:
+            result = plan_joint(sites, truck, method=body["method"], base_days=body["base_days"])
+        except PlanningInputError as exc:
+            raise input_problem(exc) from exc
+        # Serialised directly: a schema dump of 100 000 sites would cost seconds.
+        return jsonify(result.to_dict())

@@ -1,0 +1,207 @@
+"""Recorded plans (immutable, idempotent creation), activation, and the weekly trips."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from flask import Response, current_app, json, request, url_for
+from flask.views import MethodView
+from sqlalchemy import select
+
+from service import idempotency, schedule
+from service.api.blueprint import Blueprint
+from service.api.etags import content_etag, not_modified
+from service.api.pagination import page
+from service.api.schemas.plans import PlanListSchema, PlanQueryArgsSchema, PlanRequestSchema, PlanSchema, TripsQueryArgsSchema, TripsSchema
+from service.auth import allow, current_caller
+from service.errors import Problem
+from service.persistence import plans as plan_store
+from service.persistence import repository as repo
+from service.persistence.db import get_session
+from service.persistence.models import Plan, Truck
+from service.planning import PlanningInputError, plan_joint
+
+PREFIX = ""
+blp = Blueprint("plans", __name__, description="Recorded plans and the trips dispatch software loads each week")
+
+MAX_WINDOW_DAYS = 92
+HEAVY = ("trips", "inputs")
+
+
+def _truck(code: str, *, for_update: bool = False) -> Truck:
+    try:
+        return repo.truck_by_code(get_session(), code, for_update=for_update)
+    except repo.NotFound as exc:
+        raise Problem(404, str(exc), kind="not-found") from exc
+
+
+def _plan(plan_id: int) -> Plan:
+    try:
+        return plan_store.plan_by_id(get_session(), plan_id)
+    except repo.NotFound as exc:
+        raise Problem(404, str(exc), kind="not-found") from exc
+
+
+def plan_json(plan: Plan, truck_code: str, *, heavy: bool = True) -> dict[str, Any]:
+    """A plan: its own fields plus every field of the joint result, at the top level."""
+    stale, changed = plan_store.staleness(get_session(), plan)
+    result = {k: v for k, v in plan.result.items() if k not in ("status", "success", "message")}
+    body = {
+        "id": plan.id, "truck": truck_code, "status": plan.status, "stale": stale, "changed_sites": changed,
+        "start_date": plan.start_date.isoformat(), "created_at": plan.created_at.isoformat(),
+        "created_by": plan.created_by, "inputs": plan.inputs, "inputs_digest": plan.inputs_digest, **result,
+    }
+    return body if heavy else {k: v for k, v in body.items() if k not in HEAVY}
+
+
+def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
+    response = Response(json.dumps(body), status=status, mimetype="application/json")
+    response.headers.update(headers)
+    return response
+
+
+def _record(code: str, body: dict[str, Any]) -> tuple[Plan, Response]:
+    session = get_session()
+    truck = _truck(code, for_update=True)
+    sites = plan_store.sites_for_plan(session, truck)
+    if not sites:
+        raise Problem(422, f"Truck {code!r} has no active sites to plan.", kind="no-sites")
+    inputs = plan_store.snapshot(truck, sites)
+    try:
+        result = plan_joint(plan_store.site_inputs(inputs["sites"]), plan_store.truck_input(inputs["truck"]),
+                            method=body["method"], base_days=body["base_days"])
+    except PlanningInputError as exc:
+        raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
+    if not result.success:
+        raise Problem(422, f"No plan: {result.message}", kind="infeasible")
+    start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
+    plan = plan_store.add_plan(session, truck, sites, method=result.method, start_date=start,
+                               created_by=current_caller().name, inputs=inputs, result=result.to_dict())
+    response = _json_response(plan_json(plan, truck.code), 201,
+                              Location=url_for("plans.PlanById", plan_id=plan.id))
+    return plan, response
+
+
+@blp.route("/trucks/<string:code>/plans")
+class TruckPlans(MethodView):
+    @allow("dispatcher")
+    @blp.arguments(PlanRequestSchema)
+    @blp.response(201, PlanSchema)
+    @blp.alt_response(409, description="A request with the same Idempotency-Key is still running")
+    @blp.alt_response(422, description="Invalid body, no plannable sites, or Idempotency-Key reused with another body")
+    @blp.doc(parameters=[{"in": "header", "name": "Idempotency-Key", "required": False, "schema": {"type": "string"},
+                          "description": "Optional. Same key + same body → the first response; kept 24 h per token."}])
+    def post(self, body, code):
+        """Compute and record a plan from the truck's active sites (honours Idempotency-Key)"""
+        key = idempotency.parse_key(request.headers.get(idempotency.HEADER))
+        claim = None
+        if key is not None:
+            outcome = idempotency.begin(current_caller(), key, request.method, request.path, request.get_data())
+            if isinstance(outcome, Response):
+                return outcome
+            claim = outcome
+        try:
+            _plan_row, response = _record(code, body)
+            if claim is not None:
+                idempotency.finish(get_session(), claim, response)
+            get_session().commit()
+        except Exception:
+            get_session().rollback()
+            if claim is not None:
+                idempotency.abandon(claim)
+            raise
+        return response
+
+    @allow("viewer")
+    @blp.arguments(PlanQueryArgsSchema, location="query")
+    @blp.response(200, PlanListSchema)
+    def get(self, args, code):
+        """History of the truck's plans, newest first (items omit trips and inputs)"""
+        truck = _truck(code)
+        rows, headers = page(get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args,
+                             descending=True, key_type=int)
+        return _json_response({"items": [plan_json(p, truck.code, heavy=False) for p in rows]}, **headers)
+
+
+@blp.route("/plans/<int:plan_id>")
+class PlanById(MethodView):
+    @allow("viewer")
+    @blp.response(200, PlanSchema)
+    def get(self, plan_id):
+        """A recorded plan, exactly as recommended (plus its current status and staleness)"""
+        plan = _plan(plan_id)
+        truck = get_session().get(Truck, plan.truck_id)
+        return _json_response(plan_json(plan, truck.code))
+
+
+@blp.route("/plans/<int:plan_id>/activate")
+class PlanActivation(MethodView):
+    @allow("dispatcher")
+    @blp.response(200, PlanSchema)
+    def post(self, plan_id):
+        """Make the plan its truck's one active plan (the previous one becomes superseded)"""
+        session = get_session()
+        plan = plan_store.activate(session, _plan(plan_id))
+        session.commit()
+        truck = session.get(Truck, plan.truck_id)
+        return _json_response(plan_json(plan, truck.code))
+
+
+def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
+    if "week" in args and ("from_" in args or "to" in args):
+        raise Problem(422, "Give either week or from and to, not both.", kind="validation",
+                      errors=[{"pointer": "#/query/week", "detail": "Not with from/to."}])
+    if "week" in args:
+        try:
+            return schedule.iso_week(args["week"])
+        except ValueError as exc:
+            raise Problem(422, str(exc), kind="validation",
+                          errors=[{"pointer": "#/query/week", "detail": str(exc)}]) from exc
+    if "from_" not in args or "to" not in args:
+        raise Problem(422, "Give week=YYYY-Www, or both from and to (YYYY-MM-DD).", kind="validation",
+                      errors=[{"pointer": "#/query/week", "detail": "Missing."}])
+    first, last = args["from_"], args["to"]
+    if last < first:
+        raise Problem(422, "to is before from.", kind="validation", errors=[{"pointer": "#/query/to", "detail": "Before from."}])
+    if (last - first).days + 1 > MAX_WINDOW_DAYS:
+        raise Problem(422, f"At most {MAX_WINDOW_DAYS} days per call.", kind="validation",
+                      errors=[{"pointer": "#/query/to", "detail": f"More than {MAX_WINDOW_DAYS} days after from."}])
+    return first, last
+
+
+def notice_json(notice: schedule.Notice) -> dict[str, Any]:
+    return {"kind": notice.kind, "message": notice.message, "site": notice.site,
+            "date": notice.date.isoformat() if notice.date else None}
+
+
+def trips_json(view: schedule.TripsView) -> dict[str, Any]:
+    return {
+        "truck": view.truck_code, "plan_id": view.plan.id if view.plan else None,
+        "from": view.first.isoformat(), "to": view.last.isoformat(),
+        "trips": [{"date": t.date.isoformat(), "load": t.load, "stops": [
+            {"site": s.site, "planned_quantity": s.planned_quantity, "quantity": s.quantity,
+             "projected_level_before": s.projected_level_before, "warnings": [notice_json(n) for n in s.notices]}
+            for s in t.stops]} for t in view.trips],
+        "warnings": [notice_json(n) for n in view.notices],
+    }
+
+
+@blp.route("/trucks/<string:code>/trips")
+class TruckTrips(MethodView):
+    @allow("viewer")
+    @blp.arguments(TripsQueryArgsSchema, location="query")
+    @blp.response(200, TripsSchema)
+    @blp.alt_response(304, description="Not modified (If-None-Match)")
+    @blp.alt_response(409, description="The truck has no active plan")
+    def get(self, args, code):
+        """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
+        first, last = _window(args)
+        truck = _truck(code)
+        try:
+            view = schedule.trips_view(get_session(), truck, first, last, current_app.config["ULLAGE_SETTINGS"])
+        except schedule.NoActivePlan as exc:
+            raise Problem(409, str(exc), kind="no-active-plan") from exc
+        body = json.dumps(trips_json(view)).encode()
+        etag = content_etag(body)
+        return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})

@@ -1,0 +1,94 @@
+"""Schemas of recorded plans, the weekly trips and tank readings."""
+
+import marshmallow as ma
+
+from service.api.fields import JsonFloat, JsonInt
+from service.api.pagination import PageArgsSchema
+from service.api.schemas.calculations import JointFieldsSchema
+from service.api.schemas.common import AMOUNT_MAX, StrictSchema
+
+PLAN_METHODS = ("power_of_two", "integer", "best")
+
+
+class PlanRequestSchema(StrictSchema):
+    method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(PLAN_METHODS))
+    base_days = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=3660))
+    start_date = ma.fields.Date(load_default=None, allow_none=True,
+                                metadata={"description": "First day of the plan's calendar (default: today)"})
+
+
+class PlanSchema(JointFieldsSchema):
+    id = ma.fields.Integer()
+    truck = ma.fields.String()
+    status = ma.fields.String(validate=ma.validate.OneOf(["proposed", "active", "superseded"]))
+    stale = ma.fields.Boolean()
+    changed_sites = ma.fields.List(ma.fields.String())
+    start_date = ma.fields.Date()
+    created_at = ma.fields.DateTime()
+    created_by = ma.fields.String()
+    inputs = ma.fields.Dict(metadata={"description": "Snapshot of the truck's and every site's parameters with versions"})
+    inputs_digest = ma.fields.String(metadata={"description": "SHA-256 of the canonical JSON of inputs"})
+
+
+class PlanListSchema(ma.Schema):
+    items = ma.fields.List(ma.fields.Nested(PlanSchema))
+
+
+class PlanQueryArgsSchema(PageArgsSchema):
+    pass
+
+
+class TripsQueryArgsSchema(StrictSchema):
+    week = ma.fields.String(metadata={"description": "ISO 8601 week, e.g. 2026-W50 (Monday to Sunday)"},
+                            validate=ma.validate.Regexp(r"^\d{4}-W\d{2}$"))
+    from_ = ma.fields.Date(data_key="from")
+    to = ma.fields.Date()
+
+
+class NoticeSchema(ma.Schema):
+    kind = ma.fields.String(metadata={"description": "run_out_risk, plan_stale, no_recent_reading"})
+    message = ma.fields.String()
+    site = ma.fields.String(allow_none=True)
+    date = ma.fields.Date(allow_none=True)
+
+
+class DatedStopSchema(ma.Schema):
+    site = ma.fields.String()
+    planned_quantity = ma.fields.Float()
+    quantity = ma.fields.Float(metadata={"description": "What to load and deliver, corrected by the latest reading"})
+    projected_level_before = ma.fields.Float(allow_none=True)
+    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema))
+
+
+class DatedTripSchema(ma.Schema):
+    date = ma.fields.Date()
+    load = ma.fields.Float()
+    stops = ma.fields.List(ma.fields.Nested(DatedStopSchema))
+
+
+class TripsSchema(ma.Schema):
+    truck = ma.fields.String()
+    plan_id = ma.fields.Integer()
+    from_ = ma.fields.Date(data_key="from")
+    to = ma.fields.Date()
+    trips = ma.fields.List(ma.fields.Nested(DatedTripSchema))
+    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema))
+
+
+class ReadingRequestSchema(StrictSchema):
+    level = JsonFloat(required=True, validate=ma.validate.Range(min=0, max=AMOUNT_MAX))
+    measured_at = ma.fields.AwareDateTime(required=True, format="iso",
+                                          metadata={"description": "ISO 8601 with a UTC offset; not in the future"})
+
+
+class ReadingSchema(ma.Schema):
+    id = ma.fields.Integer()
+    site = ma.fields.String()
+    level = ma.fields.Float()
+    measured_at = ma.fields.DateTime()
+    created_at = ma.fields.DateTime()
+    created_by = ma.fields.String()
+
+
+class ReadingListSchema(ma.Schema):
+    items = ma.fields.List(ma.fields.Nested(ReadingSchema))

@@ -1,0 +1,132 @@
+"""Recorded plans, their input snapshots and staleness; tank readings. Functions never commit."""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import json
+from collections.abc import Iterable, Sequence
+from typing import Any
+
+from sqlalchemy import func, select, update
+from sqlalchemy.orm import Session
+
+from service.persistence.models import Plan, PlanSite, Reading, Site, Truck
+from service.persistence.repository import NotFound, active_sites, lock_for_update
+from service.planning import JointResult, SiteInput, SitePlan, Status, Stop, Trip, TruckInput
+
+SITE_INPUTS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
+
+
+def truck_input(snapshot: dict[str, Any]) -> TruckInput:
+    return TruckInput(dispatch_cost=snapshot["dispatch_cost"], capacity=snapshot["capacity"],
+                      max_stops=snapshot["max_stops"])
+
+
+def site_inputs(snapshot: Sequence[dict[str, Any]]) -> list[SiteInput]:
+    return [SiteInput(code=s["code"], **{k: s[k] for k in SITE_INPUTS}) for s in snapshot]
+
+
+def snapshot(truck: Truck, sites: Iterable[Site]) -> dict[str, Any]:
+    """Every input a plan is computed from, with the row versions."""
+    return {
+        "truck": {"code": truck.code, "dispatch_cost": truck.dispatch_cost, "capacity": truck.capacity,
+                  "max_stops": truck.max_stops, "version": truck.version},
+        "sites": [{"code": s.code, "name": s.name, "version": s.version, **{k: getattr(s, k) for k in SITE_INPUTS}}
+                  for s in sites],
+    }
+
+
+def digest(inputs: dict[str, Any]) -> str:
+    """SHA-256 of the canonical JSON of the inputs (sorted keys, no spaces)."""
+    return hashlib.sha256(json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
+
+
+def sites_for_plan(session: Session, truck: Truck) -> list[Site]:
+    """The truck's active sites, locked against change until the plan commits (PostgreSQL FOR SHARE)."""
+    sites = active_sites(session, truck)
+    if session.get_bind().dialect.name == "postgresql" and sites:
+        session.execute(select(Site.id).where(Site.id.in_([s.id for s in sites])).with_for_update(read=True))
+        for site in sites:
+            session.refresh(site)
+    return sites
+
+
+def add_plan(session: Session, truck: Truck, sites: Sequence[Site], *, method: str, start_date: dt.date,
+             created_by: str, inputs: dict[str, Any], result: dict[str, Any]) -> Plan:
+    plan = Plan(truck_id=truck.id, status="proposed", method=method, start_date=start_date, created_by=created_by,
+                inputs=inputs, inputs_digest=digest(inputs), result=result)
+    session.add(plan)
+    session.flush()
+    session.add_all(PlanSite(plan_id=plan.id, site_id=s.id) for s in sites)
+    session.flush()
+    return plan
+
+
+def plan_by_id(session: Session, plan_id: int) -> Plan:
+    plan = session.get(Plan, plan_id)
+    if plan is None:
+        raise NotFound(f"No plan with id {plan_id}.")
+    return plan
+
+
+def active_plan(session: Session, truck: Truck) -> Plan | None:
+    return session.scalars(select(Plan).where(Plan.truck_id == truck.id, Plan.status == "active")).one_or_none()
+
+
+def activate(session: Session, plan: Plan) -> Plan:
+    """Make ``plan`` its truck's one active plan; the previous one becomes superseded.
+
+    The truck row is locked first (PostgreSQL ``FOR UPDATE``; SQLite writers are serialised by
+    ``BEGIN IMMEDIATE``), and a partial unique index allows one active plan per truck.
+    """
+    session.scalars(lock_for_update(session, select(Truck).where(Truck.id == plan.truck_id))).one()
+    session.refresh(plan)
+    if plan.status != "active":
+        session.execute(update(Plan).where(Plan.truck_id == plan.truck_id, Plan.status == "active")
+                        .values(status="superseded"))
+        session.execute(update(Plan).where(Plan.id == plan.id).values(status="active"))
+        session.flush()
+        session.refresh(plan)
+    return plan
+
+
+def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
+    """Whether the truck or its active sites moved since the plan, and which sites changed."""
+    recorded = {s["code"]: s["version"] for s in plan.inputs["sites"]}
+    truck = session.get(Truck, plan.truck_id)
+    current = dict(session.execute(
+        select(Site.code, Site.version).where(Site.truck_id == plan.truck_id, Site.active.is_(True))).tuples().all())
+    changed = sorted(code for code in recorded.keys() | current.keys() if recorded.get(code) != current.get(code))
+    truck_moved = truck is None or truck.version != plan.inputs["truck"]["version"]
+    return bool(changed) or truck_moved, changed
+
+
+def result_of(plan: Plan) -> JointResult:
+    """The recorded result as the planning core's object (for the trips calendar)."""
+    data = dict(plan.result)
+    data["status"] = Status[data["status"].upper()]
+    data["sites"] = tuple(SitePlan(**s) for s in data["sites"])
+    data["trips"] = tuple(Trip(t["day"], t["load"], tuple(Stop(**s) for s in t["stops"])) for t in data["trips"])
+    data["warnings"] = tuple(data["warnings"])
+    fields = JointResult.__dataclass_fields__
+    return JointResult(**{k: v for k, v in data.items() if k in fields})
+
+
+def add_reading(session: Session, site: Site, level: float, measured_at: dt.datetime, created_by: str) -> Reading:
+    reading = Reading(site_id=site.id, level=level, measured_at=measured_at, created_by=created_by)
+    session.add(reading)
+    session.flush()
+    return reading
+
+
+def latest_readings(session: Session, site_ids: Iterable[int]) -> dict[int, Reading]:
+    """The newest reading of each site (by ``measured_at``, then id)."""
+    ids = list(site_ids)
+    if not ids:
+        return {}
+    newest = (select(Reading.site_id, func.max(Reading.measured_at).label("at"))
+              .where(Reading.site_id.in_(ids)).group_by(Reading.site_id).subquery())
+    rows = session.scalars(select(Reading).join(newest, (Reading.site_id == newest.c.site_id)
+                                                & (Reading.measured_at == newest.c.at)).order_by(Reading.id))
+    return {r.site_id: r for r in rows}

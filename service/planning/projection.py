@@ -1,0 +1,173 @@
+"""Tank levels projected from the latest reading, and delivery quantities corrected by them.
+
+Pure (standard library only). The rules, per site with demand ``d``, safe-fill level
+``F = safe_fill × tank_capacity``, safety stock ``s`` and cycle ``T`` days:
+
+* From a reading ``L`` taken at time ``t_r`` the level falls at ``d`` per day and never below 0.
+  A delivery on day ``D`` is projected at 00:00 of ``D`` (service time zone), before that day's
+  delivery: ``level(D) = max(0, level_prev − d·(t_D − t_prev))``. Deliveries on days before the
+  reading's own date are history and are not replayed; on the reading's date the level is carried
+  back to 00:00 (the reading is taken to precede that day's delivery).
+* The corrected quantity keeps the site at or above ``s`` until its next planned delivery
+  ``T`` days later: ``need = d·T + s − level(D)``, clamped to ``[0, min(F − level(D), free)]``
+  where ``free`` is the truck's capacity minus what earlier stops of the same trip take.
+* A stop carries ``run_out_risk`` when the site is projected below ``s`` before the delivery, or
+  when the clamped quantity cannot carry it to the next delivery above ``s``; the warning names
+  the projected date the level crosses ``s``.
+* A site without a reading gets the planned quantity and no projected level.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from zoneinfo import ZoneInfo
+
+#: Quantities closer than this (in the service unit) are equal; keeps float noise from warnings.
+TOLERANCE = 1e-6
+DAY = dt.timedelta(days=1)
+
+
+@dataclass(frozen=True)
+class Tank:
+    """What the projection needs to know about one site."""
+
+    code: str
+    demand_per_day: float
+    safe_fill_level: float
+    safety_stock: float
+    cycle_days: int
+    reading_level: float | None = None
+    reading_at: dt.datetime | None = None
+
+
+@dataclass(frozen=True)
+class PlannedTrip:
+    """One truck trip of the plan on a calendar date, stops as ``(site code, planned quantity)``."""
+
+    date: dt.date
+    stops: tuple[tuple[str, float], ...]
+
+
+@dataclass(frozen=True)
+class RunOut:
+    """The site is projected below its safety stock from ``date`` on."""
+
+    site: str
+    date: dt.date
+
+
+@dataclass(frozen=True)
+class CorrectedStop:
+    site: str
+    planned_quantity: float
+    quantity: float
+    projected_level_before: float | None
+    run_out: RunOut | None
+
+
+@dataclass(frozen=True)
+class CorrectedTrip:
+    date: dt.date
+    load: float
+    stops: tuple[CorrectedStop, ...]
+
+
+@dataclass
+class _State:
+    level: float
+    at: dt.datetime
+    events: list[tuple[dt.datetime, float]] = field(default_factory=list)
+
+
+def day_start(day: dt.date, zone: ZoneInfo) -> dt.datetime:
+    """00:00 of ``day`` in ``zone``, as an aware datetime."""
+    return dt.datetime.combine(day, dt.time(0), tzinfo=zone)
+
+
+def _days(later: dt.datetime, earlier: dt.datetime) -> float:
+    return (later - earlier).total_seconds() / 86400.0
+
+
+def _crossing(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> RunOut | None:
+    """When the level, falling from ``state``, drops below the safety stock before ``until``."""
+    margin = state.level - tank.safety_stock
+    if margin < -TOLERANCE:
+        return RunOut(tank.code, state.at.astimezone(zone).date())
+    if tank.demand_per_day <= 0:
+        return None
+    at = state.at + dt.timedelta(days=margin / tank.demand_per_day)
+    if at < until and state.level - tank.demand_per_day * _days(until, state.at) < tank.safety_stock - TOLERANCE:
+        return RunOut(tank.code, at.astimezone(zone).date())
+    return None
+
+
+class Projection:
+    """Replays the planned trips from each site's reading and corrects the quantities."""
+
+    def __init__(self, tanks: Iterable[Tank], capacity: float, zone: ZoneInfo) -> None:
+        self.tanks = {t.code: t for t in tanks}
+        self.capacity = capacity
+        self.zone = zone
+        self.run_outs: list[RunOut] = []
+        self._states: dict[str, _State] = {}
+        for tank in self.tanks.values():
+            if tank.reading_level is not None and tank.reading_at is not None:
+                self._states[tank.code] = _State(tank.reading_level, tank.reading_at,
+                                                 [(tank.reading_at, tank.reading_level)])
+
+    def _level_at(self, state: _State, tank: Tank, when: dt.datetime) -> float:
+        return max(0.0, state.level - tank.demand_per_day * _days(when, state.at))
+
+    def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float) -> CorrectedStop:
+        state = self._states.get(tank.code)
+        if state is None or when.date() < state.at.astimezone(self.zone).date():
+            return CorrectedStop(tank.code, planned, min(planned, max(free, 0.0)), None, None)
+        risk = _crossing(state, tank, when, self.zone)
+        level = self._level_at(state, tank, when)
+        need = tank.demand_per_day * tank.cycle_days + tank.safety_stock - level
+        quantity = max(0.0, min(need, tank.safe_fill_level - level, free))
+        after = _State(level + quantity, when)
+        if risk is None:
+            risk = _crossing(after, tank, when + tank.cycle_days * DAY, self.zone)
+        if risk is not None:
+            self.run_outs.append(risk)
+        state.events.append((when, level))
+        state.events.append((when, after.level))
+        state.level, state.at = after.level, when
+        return CorrectedStop(tank.code, planned, quantity, level, risk)
+
+    def correct(self, trips: Sequence[PlannedTrip]) -> list[CorrectedTrip]:
+        """Corrected trips, in date order (the trips must be given in date order)."""
+        out = []
+        for trip in trips:
+            when = day_start(trip.date, self.zone)
+            stops = []
+            load = 0.0
+            for code, planned in trip.stops:
+                stop = self._stop(self.tanks[code], planned, when, self.capacity - load)
+                load += stop.quantity
+                stops.append(stop)
+            out.append(CorrectedTrip(trip.date, load, tuple(stops)))
+        return out
+
+    def finish(self, until: dt.datetime) -> None:
+        """Note run-outs between each site's last delivery and ``until``."""
+        for code, state in self._states.items():
+            risk = _crossing(state, self.tanks[code], until, self.zone)
+            if risk is not None:
+                self.run_outs.append(risk)
+
+    def level_before(self, code: str, when: dt.datetime) -> float | None:
+        """Projected level at ``when`` (before any delivery at that instant); ``None`` without a reading."""
+        state = self._states.get(code)
+        if state is None or not state.events or when < state.events[0][0]:
+            return None
+        tank = self.tanks[code]
+        last_at, last_level = state.events[0]
+        for at, level in state.events:
+            if at >= when:
+                break
+            last_at, last_level = at, level
+        return max(0.0, last_level - tank.demand_per_day * _days(when, last_at))
