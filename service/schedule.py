@@ -22,9 +22,9 @@ from service.config import Settings
 from service.persistence import plans as plan_store
 from service.persistence.models import Plan, Site, Truck, utcnow
 from service.planning import trips_between
-from service.planning.projection import CorrectedStop, PlannedTrip, Projection, Tank, day_start
+from service.planning.projection import TOLERANCE, CorrectedStop, PlannedTrip, Projection, Tank, day_start
 
-WEEK = re.compile(r"^(\d{4})-W(\d{2})$")
+WEEK = re.compile(r"^([0-9]{4})-W([0-9]{2})$")
 #: Readings older than this many days before the window are not replayed (the projection would
 #: only repeat the plan by then); such a site counts as having no recent reading.
 LOOKBACK_DAYS = 400
@@ -106,9 +106,9 @@ def iso_week(text: str) -> tuple[dt.date, dt.date]:
     year, week = int(match[1]), int(match[2])
     try:
         monday = dt.date.fromisocalendar(year, week, 1)
-    except ValueError as exc:
+        return monday, monday + dt.timedelta(days=6)
+    except (ValueError, OverflowError) as exc:
         raise ValueError(f"{year} has no ISO week {week}.") from exc
-    return monday, monday + dt.timedelta(days=6)
 
 
 def week_of(day: dt.date) -> str:
@@ -191,10 +191,18 @@ def _stop(replay: _Replay, stop: CorrectedStop) -> PlannedStop:
 def _notices(session: Session, replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
     out: list[Notice] = []
     earliest: dict[str, dt.date] = {}
-    for run_out in replay.projection.run_outs:
-        if run_out.date <= last and (only is None or run_out.site == only):
-            shown = max(run_out.date, first)
-            earliest[run_out.site] = min(earliest.get(run_out.site, shown), shown)
+    projection = replay.projection
+    for run_out in projection.run_outs:
+        if run_out.date > last or (only is not None and run_out.site != only):
+            continue
+        if run_out.date < first:
+            # Replays start at the reading, so earlier run-outs come back on every later window:
+            # show one only while the site is still below its safety stock when the window opens.
+            level = projection.level_before(run_out.site, day_start(first, projection.zone))
+            if level is None or level >= projection.tanks[run_out.site].safety_stock - TOLERANCE:
+                continue
+        shown = max(run_out.date, first)
+        earliest[run_out.site] = min(earliest.get(run_out.site, shown), shown)
     for site, date in sorted(earliest.items(), key=lambda item: (item[1], item[0])):
         out.append(_run_out_notice(site, replay.names[site], date))
     plan_summary = summary(session, replay.plan)
@@ -203,8 +211,11 @@ def _notices(session: Session, replay: _Replay, first: dt.date, last: dt.date, o
         out.append(Notice("plan_stale", f"Plan {replay.plan.id} is stale: changed since it was computed: {which}."))
     for code, is_recent in sorted(replay.recent.items()):
         if not is_recent and (only is None or code == only):
+            # An older reading (within LOOKBACK_DAYS) is still projected; say so instead of "planned".
+            older = projection.tanks[code].reading_level is not None
+            basis = "projected from an older reading" if older else "the planned ones"
             out.append(Notice("no_recent_reading", f"{replay.names[code]} ({code}) has no reading in the last "
-                              f"{replay.stale_days} days; its quantities are the planned ones.", code))
+                              f"{replay.stale_days} days; its quantities are {basis}.", code))
     return out
 
 

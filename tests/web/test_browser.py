@@ -1,0 +1,186 @@
+"""A real browser: gunicorn on a free loopback port, Debian's Chromium headless through Playwright.
+
+Skipped only when Chromium or Playwright is missing *and* ``CI`` is unset; in CI that is a failure.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+import requests
+
+from service import schedule
+from service.config import load_settings
+
+pytestmark = pytest.mark.browser
+
+ROOT = Path(__file__).resolve().parents[2]
+ARTIFACTS = ROOT / "tests" / "artifacts"
+CHROMIUM = Path("/usr/bin/chromium")
+BIN = Path(sys.executable).parent
+CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                 "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+SITE = "HV-GAR-02"
+TRUCK = "HV-R1"
+
+
+def _missing(reason: str) -> None:
+    if os.environ.get("CI"):
+        pytest.fail(f"the browser test must run in CI: {reason}")
+    pytest.skip(reason)
+
+
+def _free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return sock.getsockname()[1]
+
+
+def _cli(env: dict[str, str], *args: str) -> str:
+    done = subprocess.run([str(BIN / "ullage"), *args], env=env, cwd=ROOT, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    return done.stdout
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory: pytest.TempPathFactory):
+    """A prepared SQLite file (migrated, demo, a token, an active plan, readings) and gunicorn serving it."""
+    if not CHROMIUM.exists():
+        _missing("/usr/bin/chromium is not installed (apt-get install chromium chromium-driver)")
+    try:
+        import playwright.sync_api  # noqa: F401, PLC0415
+    except ImportError:
+        _missing("the playwright package is not installed")
+    workdir = tmp_path_factory.mktemp("browser")
+    env = {**os.environ, "DATABASE_URL": f"sqlite:///{workdir / 'ullage.db'}", "ULLAGE_SECRET_KEY": "browser-test-key",
+           "LOG_LEVEL": "WARNING"}
+    env.pop("TEST_POSTGRES_URL", None)
+    _cli(env, "db", "upgrade")
+    _cli(env, "demo")
+    token = _cli(env, "token", "create", "browser-dispatcher", "--role", "dispatcher").strip().splitlines()[-1]
+    port = _free_port()
+    log = open(workdir / "gunicorn.log", "w")  # noqa: SIM115 - closed below
+    process = subprocess.Popen([str(BIN / "gunicorn"), "-w", "1", "-b", f"127.0.0.1:{port}", "service.app:create_app()"],
+                               env=env, cwd=workdir, stdout=log, stderr=subprocess.STDOUT)
+    base = f"http://127.0.0.1:{port}"
+    try:
+        probe = requests.Session()
+        probe.trust_env = False  # loopback only, never through a proxy from the environment
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline:
+            if process.poll() is not None:
+                pytest.fail(f"gunicorn exited: {(workdir / 'gunicorn.log').read_text()}")
+            try:
+                if probe.get(f"{base}/livez", timeout=5).status_code == 200:
+                    break
+            except requests.RequestException:
+                time.sleep(0.2)
+        else:
+            pytest.fail("gunicorn did not answer")
+        api = requests.Session()
+        api.trust_env = False
+        api.headers["Authorization"] = f"Bearer {token}"
+        created = api.post(f"{base}/api/v1/trucks/{TRUCK}/plans", json={}, timeout=30)
+        assert created.status_code == 201, created.text
+        activated = api.post(f"{base}/api/v1/plans/{created.json()['id']}/activate", timeout=30)
+        assert activated.status_code == 200, activated.text
+        now = dt.datetime.now(dt.UTC) - dt.timedelta(hours=20)  # read yesterday, before today's trip
+        for site, level in (("HV-GAR-02", 300.0), ("HV-DEP-01", 31000.0), ("HV-GAR-03", 5200.0),
+                            ("HV-HTG-06", 4100.0), ("HV-IND-07", 9000.0), ("HV-MAR-08", 2500.0)):
+            reading = api.post(f"{base}/api/v1/sites/{site}/readings",
+                               json={"level": level, "measured_at": now.isoformat()}, timeout=30)
+            assert reading.status_code == 201, reading.text
+        yield {"base": base, "token": token, "api": api, "env": env}
+    finally:
+        process.terminate()
+        try:
+            process.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            process.kill()
+        log.close()
+
+
+def test_sign_in_week_trips_and_site_chart_in_chromium(server):
+    from playwright.sync_api import sync_playwright  # noqa: PLC0415
+
+    base, api = server["base"], server["api"]
+    today = schedule.today(load_settings(environ=server["env"]))
+    year, week, _ = today.isocalendar()
+    week_text = f"{year}-W{week:02d}"
+    trips = api.get(f"{base}/api/v1/trucks/{TRUCK}/trips", params={"week": week_text}, timeout=30).json()["trips"]
+    window = api.get(f"{base}/api/v1/trucks/{TRUCK}/trips", timeout=30,
+                     params={"from": today.isoformat(), "to": (today + dt.timedelta(days=27)).isoformat()}).json()
+    expected = sum(1 for trip in window["trips"] for stop in trip["stops"] if stop["site"] == SITE)
+    assert expected > 0
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    problems: list[str] = []
+
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            context = browser.new_context(viewport={"width": 1366, "height": 900}, java_script_enabled=False)
+            page = context.new_page()
+            page.on("console", lambda message: problems.append(message.text) if message.type in ("error", "warning") else None)
+            page.on("requestfailed", lambda request: problems.append(f"failed: {request.url}"))
+
+            page.goto(f"{base}/status")
+            assert "/status/sign-in" in page.url
+            page.fill("#token", server["token"])
+            page.click("button[type=submit]")
+            page.wait_for_load_state()
+            assert page.url.rstrip("/").endswith("/status")
+            assert page.locator("h1").inner_text().startswith(f"Week {week_text}")
+            # The stylesheet loaded under the CSP.
+            assert page.locator("header.top").evaluate("e => getComputedStyle(e).display") == "flex"
+
+            # Warnings first, then the week's trips.
+            assert page.locator(".warnings-card").is_visible()
+            assert page.locator(".warning").count() >= 2
+            assert "Run-out risk" in page.locator(".warnings").inner_text()
+            table = page.locator("table.trips")
+            assert table.count() == 1
+            rows = table.locator("tbody tr")
+            assert rows.count() == len(trips) > 0
+            for index, trip in enumerate(trips):
+                row = rows.nth(index)
+                assert trip["date"] in row.locator("th").inner_text()
+                codes = row.locator(".stops .code").all_inner_texts()
+                assert codes == [s["site"] for s in trip["stops"]]
+            assert page.locator("svg.level-chart").count() == 16
+            page.screenshot(path=str(ARTIFACTS / "status-overview.png"), full_page=True)
+
+            # Tablet width: nothing overflows sideways.
+            page.set_viewport_size({"width": 820, "height": 1180})
+            assert page.evaluate("document.documentElement.scrollWidth <= window.innerWidth + 1")
+            page.screenshot(path=str(ARTIFACTS / "status-overview-tablet.png"), full_page=False)
+            page.set_viewport_size({"width": 1366, "height": 900})
+
+            # A site's page: one marker per planned delivery in the 28 days.
+            page.click(f".mini a[href='/status/sites/{SITE}']")
+            page.wait_for_load_state()
+            assert page.url.endswith(f"/status/sites/{SITE}")
+            chart = page.locator("figure.chart svg")
+            assert chart.count() == 1
+            assert chart.locator(".delivery-marker").count() == expected
+            assert chart.locator(".level-line").count() >= 1
+            assert chart.locator(".safe-fill-line").count() == 1 and chart.locator(".safety-stock-line").count() == 1
+            assert "planning aid" in page.locator(".caution").inner_text()
+            page.screenshot(path=str(ARTIFACTS / "status-site.png"), full_page=True)
+
+            # Sign out through the form.
+            page.click("header form.who button")
+            page.wait_for_load_state()
+            assert "/status/sign-in" in page.url
+            page.goto(f"{base}/status")
+            assert "/status/sign-in" in page.url
+        finally:
+            browser.close()
+    assert not [m for m in problems if "Content Security Policy" in m or "failed:" in m], problems
+    assert os.path.getsize(ARTIFACTS / "status-overview.png") > 10_000
