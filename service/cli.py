@@ -99,11 +99,17 @@ def _persistent_secret() -> str:
 
 def serve(args: argparse.Namespace) -> int:
     os.environ.setdefault("ULLAGE_SECRET_KEY", _persistent_secret())
-    argv = ["gunicorn", "--config", str(Path(__file__).resolve().parent / "gunicorn_conf.py"),
+    # Prometheus multiprocess mode (service.metrics): one directory per server, emptied at start.
+    from service.metrics import MULTIPROC_ENV, wipe_multiprocess_dir  # noqa: PLC0415
+
+    os.environ.setdefault(MULTIPROC_ENV, str(Path("var") / "prometheus"))
+    wipe_multiprocess_dir(os.environ[MULTIPROC_ENV])
+    # This interpreter's gunicorn, so `.venv/bin/ullage serve` works without the venv on PATH.
+    argv = [sys.executable, "-m", "gunicorn", "--config", str(Path(__file__).resolve().parent / "gunicorn_conf.py"),
             "--bind", f"{args.host}:{args.port}", "service.app:create_app()"]
     if args.workers:
-        argv[1:1] = ["--workers", str(args.workers)]
-    os.execvp(argv[0], argv)
+        argv[3:3] = ["--workers", str(args.workers)]
+    os.execv(argv[0], argv)
     return 0  # pragma: no cover - exec does not return
 
 

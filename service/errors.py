@@ -66,6 +66,8 @@ def problem_response(
     errors = list(errors)
     if errors:
         body["errors"] = errors
+    # Issue 6: the request id goes into problem bodies too (an extension member; clients that do
+    # not know it ignore it, RFC 9457 §3.2), besides the X-Request-ID header.
     request_id = g.get("request_id")
     if request_id:
         body["request_id"] = request_id

@@ -11,6 +11,7 @@ from sqlalchemy import text
 
 from service.auth import PUBLIC, allow
 from service.errors import problem_response
+from service.persistence.db import write_intent
 
 MIGRATIONS = Path(__file__).resolve().parent.parent / "migrations"
 bp = Blueprint("health", __name__)
@@ -41,12 +42,15 @@ def livez():
 def readyz():
     """The database answers and is at the migration head."""
     engine = current_app.extensions["ullage.engine"]
+    intent = write_intent.set(False)  # a read: SQLite's deferred BEGIN, never queued behind writers
     try:
         with engine.connect() as conn:
             current = conn.execute(text("SELECT version_num FROM alembic_version")).scalar_one_or_none()
     except Exception:  # noqa: BLE001 - any failure means not ready; details stay in the logs
         current_app.logger.warning("readiness: database not reachable")
         return problem_response(503, "The database is not reachable.", kind="not-ready", headers={"Retry-After": "2"})
+    finally:
+        write_intent.reset(intent)
     if current != current_app.extensions["ullage.migration_head"]:
         return problem_response(503, "The database schema is not at the expected migration; run `ullage db upgrade`.",
                                 kind="not-ready", headers={"Retry-After": "10"})

@@ -1,8 +1,9 @@
 """Shared fixtures: every database test runs on SQLite and on PostgreSQL.
 
-PostgreSQL comes from ``DATABASE_URL`` (or ``TEST_POSTGRES_URL``) when it names a PostgreSQL
-database; ``.ci/run`` sets it. With ``CI`` set, a missing or unreachable PostgreSQL is a failure,
-never a skip.
+PostgreSQL comes from ``TEST_POSTGRES_URL`` (or ``DATABASE_URL``) when it names a PostgreSQL
+database; ``.ci/run`` sets it. That database is only used to create this process's own database
+``<name>_<pid>`` (dropped at the end), so parallel runs on one server do not disturb each other.
+With ``CI`` set, a missing or unreachable PostgreSQL is a failure, never a skip.
 """
 
 from __future__ import annotations
@@ -14,7 +15,8 @@ from pathlib import Path
 
 import pytest
 from alembic import command
-from sqlalchemy import create_engine, text
+from sqlalchemy import create_engine, event, text
+from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session
 
 from service import create_app
@@ -45,20 +47,35 @@ def _unavailable(reason: str) -> None:
 
 @pytest.fixture(scope="session")
 def pg_migrated() -> Iterator[str]:
+    """A PostgreSQL database of this pytest process only, migrated to head, dropped at the end.
+
+    Several people (and CI jobs) share one PostgreSQL server, so the database named in
+    ``TEST_POSTGRES_URL`` is used only to create ``<name>_<pid>`` next to it (autocommit connection);
+    nothing in the named database itself is touched.
+    """
     url = postgres_url()
     if url is None:
-        _unavailable("set DATABASE_URL to a PostgreSQL database to run the PostgreSQL half")
-    engine = create_engine(url)
+        _unavailable("set TEST_POSTGRES_URL to a PostgreSQL database to run the PostgreSQL half")
+    base = make_url(url)
+    own = base.set(database=f"{base.database or 'postgres'}_{os.getpid()}")
+    admin = create_engine(base, isolation_level="AUTOCOMMIT")
     try:
-        with engine.begin() as conn:
-            conn.execute(text("DROP SCHEMA public CASCADE"))
-            conn.execute(text("CREATE SCHEMA public"))
+        with admin.connect() as conn:
+            conn.execute(text(f'DROP DATABASE IF EXISTS "{own.database}"'))
+            conn.execute(text(f'CREATE DATABASE "{own.database}"'))
     except Exception as exc:  # noqa: BLE001
-        _unavailable(f"PostgreSQL not reachable ({type(exc).__name__})")
+        admin.dispose()
+        _unavailable(f"PostgreSQL not reachable or CREATE DATABASE refused ({type(exc).__name__})")
+    own_url = own.render_as_string(hide_password=False)
+    try:
+        command.upgrade(alembic_config(own_url), "head")
+        yield own_url
     finally:
-        engine.dispose()
-    command.upgrade(alembic_config(url), "head")
-    yield url
+        try:
+            with admin.connect() as conn:
+                conn.execute(text(f'DROP DATABASE IF EXISTS "{own.database}" WITH (FORCE)'))
+        finally:
+            admin.dispose()
 
 
 @pytest.fixture(scope="session")
@@ -102,11 +119,33 @@ def client(app):
     return app.test_client()
 
 
+def _observer_engine(url: str):
+    """A plain engine on ``url`` for tests to look behind the API.
+
+    It has none of the app's SQLite transaction handling: pysqlite then runs a SELECT outside any
+    transaction and opens a deferred one only for writes, so reading here never holds a lock or an
+    old snapshot that would make the next API request wait out busy_timeout.
+    """
+    if not url.startswith("sqlite"):
+        return create_engine(url)
+    engine = create_engine(url)
+
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_connection, _record):  # type: ignore[no-untyped-def]
+        dbapi_connection.execute("PRAGMA foreign_keys=ON")
+
+    return engine
+
+
 @pytest.fixture
 def db_session(app) -> Iterator[Session]:
-    """A separate session on the app's database, to look behind the API."""
-    with Session(app.extensions["ullage.engine"], expire_on_commit=False) as session:
-        yield session
+    """A separate session on the app's database, to look behind the API (reads see every commit)."""
+    engine = _observer_engine(app.config["DATABASE_URL"])
+    try:
+        with Session(engine, expire_on_commit=False) as session:
+            yield session
+    finally:
+        engine.dispose()
 
 
 @pytest.fixture

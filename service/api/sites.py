@@ -7,8 +7,9 @@ from sqlalchemy import select
 
 from service.api import sites_csv
 from service.api.blueprint import Blueprint, accepts_body
-from service.api.etags import not_modified, require_if_match, version_etag
+from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
 from service.api.pagination import page
+from service.api.schemas.problem import ProblemSchema
 from service.api.schemas.sites import (
     ImportArgsSchema,
     ImportResultSchema,
@@ -19,12 +20,13 @@ from service.api.schemas.sites import (
     check_safety_stock,
 )
 from service.auth import allow
-from service.errors import Problem, flatten_messages
+from service.errors import PROBLEM_JSON, Problem, flatten_messages
 from service.persistence import repository as repo
 from service.persistence.db import get_session
 from service.persistence.models import Site, Truck
 
 PREFIX = "/sites"
+PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}  # documented error bodies
 blp = Blueprint("sites", __name__, description="Customer tanks and depots")
 
 
@@ -70,7 +72,7 @@ class Sites(MethodView):
     @allow("admin")
     @blp.arguments(SiteSchema)
     @blp.response(201, SiteSchema)
-    @blp.alt_response(409, description="A site with this code exists")
+    @blp.alt_response(409, description="A site with this code exists", **PROBLEM)
     def post(self, data):
         """Create a site"""
         session = get_session()
@@ -96,8 +98,9 @@ class SiteByCode(MethodView):
     @allow("admin")
     @blp.arguments(SitePatchSchema(partial=True))
     @blp.response(200, SiteSchema)
-    @blp.alt_response(412, description="ETag does not match")
-    @blp.alt_response(428, description="If-Match missing")
+    @blp.alt_response(412, description="ETag does not match", **PROBLEM)
+    @blp.alt_response(428, description="If-Match missing", **PROBLEM)
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def patch(self, data, code):
         """Change a site (needs If-Match; every change bumps version)"""
         session = get_session()
@@ -118,7 +121,10 @@ class SiteByCode(MethodView):
 
     @allow("admin")
     @blp.response(204)
-    @blp.alt_response(409, description="Recorded plans reference the site")
+    @blp.alt_response(409, description="Recorded plans reference the site", **PROBLEM)
+    @blp.alt_response(412, description="ETag does not match", **PROBLEM)
+    @blp.alt_response(428, description="If-Match missing", **PROBLEM)
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def delete(self, code):
         """Delete a site that no recorded plan references (otherwise PATCH active=false)"""
         session = get_session()
@@ -127,7 +133,7 @@ class SiteByCode(MethodView):
         if repo.site_is_planned(session, site):
             raise Problem(409, "Recorded plans reference this site, so it stays on file; PATCH it with "
                           "active=false to take it out of future plans.", kind="conflict")
-        session.delete(site)
+        repo.delete_site(session, site)
         session.commit()
 
 

@@ -8,7 +8,8 @@ NIST Handbook 44 App. C) or ``m3`` (1000 L); they are converted to the service u
 is divided by the same factor.
 
 Export: cells of text columns that start with ``= + - @`` (or tab / carriage return) get a leading
-``'`` so a spreadsheet does not read them as formulas (OWASP "CSV injection").
+``'`` so a spreadsheet does not read them as formulas (OWASP "CSV injection"); the import removes
+that one ``'`` again, so an export imports back unchanged. Number cells are never altered.
 """
 
 from __future__ import annotations
@@ -69,7 +70,7 @@ def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], 
                 continue
             data[name] = value.lower() in {"true", "1", "yes"}
         else:
-            data[name] = value
+            data[name] = _undefuse(value)
     unit = (raw.get("unit") or "").strip() or service_unit
     try:
         factor = _unit_factor(unit, service_unit)
@@ -155,12 +156,17 @@ def _defuse(value: str) -> str:
     return "'" + value if value.startswith(FORMULA_STARTS) else value
 
 
+def _undefuse(value: str) -> str:
+    """Undo :func:`_defuse` on import, so an exported file imports back to the same values."""
+    return value[1:] if value.startswith("'") and value[1:].startswith(FORMULA_STARTS) else value
+
+
 def export_sites(session: Session) -> str:
     """All sites as CSV in the service unit, ordered by code."""
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\r\n")
     writer.writerow(COLUMNS)
-    codes = dict(session.execute(select(Truck.id, Truck.code)).tuples().all())
+    codes = dict(session.execute(select(Truck.id, Truck.code)).all())
     for site in session.scalars(select(Site).order_by(Site.code)):
         row: list[Any] = [_defuse(site.code), _defuse(site.name), _defuse(codes[site.truck_id])]
         row += [repr(getattr(site, f)) for f in NUMBER_FIELDS[:6]]

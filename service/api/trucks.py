@@ -5,16 +5,18 @@ from flask.views import MethodView
 from sqlalchemy import select
 
 from service.api.blueprint import Blueprint
-from service.api.etags import not_modified, require_if_match, version_etag
+from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
 from service.api.pagination import page
+from service.api.schemas.problem import ProblemSchema
 from service.api.schemas.trucks import TruckListSchema, TruckPatchSchema, TruckQueryArgsSchema, TruckSchema
 from service.auth import allow
-from service.errors import Problem
+from service.errors import PROBLEM_JSON, Problem
 from service.persistence import repository as repo
 from service.persistence.db import get_session
 from service.persistence.models import Truck
 
 PREFIX = "/trucks"
+PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}  # documented error bodies
 blp = Blueprint("trucks", __name__, description="Trucks: dispatch cost, capacity and stop limit")
 
 
@@ -42,7 +44,7 @@ class Trucks(MethodView):
     @allow("admin")
     @blp.arguments(TruckSchema)
     @blp.response(201, TruckSchema)
-    @blp.alt_response(409, description="A truck with this code exists")
+    @blp.alt_response(409, description="A truck with this code exists", **PROBLEM)
     def post(self, data):
         """Create a truck"""
         session = get_session()
@@ -66,8 +68,9 @@ class TruckByCode(MethodView):
     @allow("admin")
     @blp.arguments(TruckPatchSchema(partial=True))
     @blp.response(200, TruckSchema)
-    @blp.alt_response(412, description="ETag does not match")
-    @blp.alt_response(428, description="If-Match missing")
+    @blp.alt_response(412, description="ETag does not match", **PROBLEM)
+    @blp.alt_response(428, description="If-Match missing", **PROBLEM)
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def patch(self, data, code):
         """Change a truck (needs If-Match)"""
         session = get_session()
@@ -79,7 +82,10 @@ class TruckByCode(MethodView):
 
     @allow("admin")
     @blp.response(204)
-    @blp.alt_response(409, description="Sites or plans still reference the truck")
+    @blp.alt_response(409, description="Sites or plans still reference the truck", **PROBLEM)
+    @blp.alt_response(412, description="ETag does not match", **PROBLEM)
+    @blp.alt_response(428, description="If-Match missing", **PROBLEM)
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def delete(self, code):
         """Delete a truck that no site or plan references"""
         session = get_session()

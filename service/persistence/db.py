@@ -86,3 +86,4 @@ def _close_session(_exc: BaseException | None) -> None:
     session = g.pop("db_session", None)
     if session is not None:
         session.close()
+    write_intent.set(True)

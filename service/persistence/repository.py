@@ -5,10 +5,10 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-from sqlalchemy import exists, func, select
+from sqlalchemy import delete, exists, func, select
 from sqlalchemy.orm import Session
 
-from service.persistence.models import Plan, PlanSite, Site, Token, Truck, utcnow
+from service.persistence.models import Plan, PlanSite, Reading, Site, Token, Truck, utcnow
 
 SITE_FIELDS = ("name", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill",
                "safety_stock", "active", "latitude", "longitude")
@@ -48,7 +48,7 @@ def truck_codes(session: Session, ids: Iterable[int]) -> dict[int, str]:
     ids = set(ids)
     if not ids:
         return {}
-    return dict(session.execute(select(Truck.id, Truck.code).where(Truck.id.in_(ids))).tuples().all())
+    return dict(session.execute(select(Truck.id, Truck.code).where(Truck.id.in_(ids))).all())
 
 
 def apply_changes(row: Site | Truck, changes: Mapping[str, Any], allowed: Iterable[str]) -> bool:
@@ -80,6 +80,13 @@ def add_site(session: Session, data: Mapping[str, Any], truck: Truck) -> Site:
 
 def site_is_planned(session: Session, site: Site) -> bool:
     return bool(session.scalar(select(exists().where(PlanSite.site_id == site.id))))
+
+
+def delete_site(session: Session, site: Site) -> None:
+    """Delete a site no plan references, with its readings (they describe only this tank)."""
+    session.execute(delete(Reading).where(Reading.site_id == site.id))
+    session.delete(site)
+    session.flush()
 
 
 def truck_is_referenced(session: Session, truck: Truck) -> bool:
