@@ -36,6 +36,8 @@ from service.persistence.models import IdempotencyRecord, utcnow
 
 HEADER = "Idempotency-Key"
 KEY = re.compile(r"^[\x21-\x7e]{1,255}$")
+#: An RFC 8941 sf-string of visible characters: ``"…"`` with ``\"`` and ``\\`` the only escapes.
+SF_STRING = re.compile(r'^"((?:[\x21\x23-\x5b\x5d-\x7e]|\\["\\])*)"$')
 TTL = dt.timedelta(hours=24)
 LEASE = dt.timedelta(seconds=15)
 
@@ -51,8 +53,11 @@ def parse_key(header: str | None) -> str | None:
     if header is None:
         return None
     value = header.strip()
-    if len(value) >= 2 and value[0] == value[-1] == '"':
-        value = re.sub(r'\\(["\\])', r"\1", value[1:-1])
+    quoted = SF_STRING.match(value)
+    if quoted:
+        value = re.sub(r'\\(["\\])', r"\1", quoted[1])
+    elif '"' in value or "\\" in value:
+        value = ""  # a broken sf-string (unbalanced quote, bad escape) is not a bare key either
     if not KEY.match(value):
         raise Problem(400, "Idempotency-Key must be 1–255 visible ASCII characters, e.g. \"8e03978e-40d5\".",
                       kind="bad-idempotency-key")

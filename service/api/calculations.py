@@ -26,10 +26,16 @@ SINGLE_CODE = "site"
 SITE_KEYS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
 
 
-def input_problem(error: PlanningInputError, *, single: bool = False) -> Problem:
+def input_problem(error: PlanningInputError, *, single: bool = False, body: dict | None = None) -> Problem:
     """A 422 whose pointer names the request field (and site index) the core refused."""
     field = API_FIELD.get(error.field, error.field)
     pointer = f"#/sites/{error.index}/{field}" if error.index is not None and not single else f"#/{field}"
+    if field == "tank_capacity" and body is not None and body.get("truck_capacity") is not None:
+        # The core names the tank when the usable stock, capped by the truck, is under one day;
+        # when the truck alone cannot carry one day of demand, the truck is the field to fix.
+        site = body if single else (body["sites"][error.index] if error.index is not None else None)
+        if site is not None and body["truck_capacity"] < site["demand_per_day"]:
+            pointer = "#/truck_capacity"
     detail = str(error).replace(f"site `{SINGLE_CODE}`: ", "") if single else str(error)
     return Problem(422, detail, kind="planning-input", errors=[{"pointer": pointer, "detail": detail}])
 
@@ -46,7 +52,7 @@ class CycleCalculation(MethodView):
         try:
             return single_site_cycle(site, truck).to_dict()
         except PlanningInputError as exc:
-            raise input_problem(exc, single=True) from exc
+            raise input_problem(exc, single=True, body=body) from exc
 
 
 @blp.route("/joint")
@@ -62,6 +68,6 @@ class JointCalculation(MethodView):
         try:
             result = plan_joint(sites, truck, method=body["method"], base_days=body["base_days"])
         except PlanningInputError as exc:
-            raise input_problem(exc) from exc
+            raise input_problem(exc, body=body) from exc
         # Serialised directly: a schema dump of 100 000 sites would cost seconds.
         return jsonify(result.to_dict())

@@ -10,7 +10,7 @@ from flask import request, url_for
 from sqlalchemy import Select
 from sqlalchemy.orm import Session
 
-from service.api.fields import JsonInt
+from service.errors import Problem
 
 MAX_LIMIT = 200
 DEFAULT_LIMIT = 50
@@ -32,10 +32,10 @@ def page(session: Session, statement: Select[Any], key: Any, args: dict[str, Any
     if after is not None:
         try:
             after_value = key_type(after)
-        except ValueError:
-            after_value = None
-        if after_value is not None:
-            statement = statement.where(key < after_value if descending else key > after_value)
+        except ValueError as exc:
+            raise Problem(422, "after must be the key of the last item of the previous page (from the Link header).",
+                          kind="validation", errors=[{"pointer": "#/query/after", "detail": "Not a valid key."}]) from exc
+        statement = statement.where(key < after_value if descending else key > after_value)
     statement = statement.order_by(key.desc() if descending else key).limit(limit + 1)
     rows = list(session.scalars(statement))
     headers: dict[str, str] = {}

@@ -14,8 +14,9 @@ from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified
 from service.api.pagination import page
 from service.api.schemas.plans import PlanListSchema, PlanQueryArgsSchema, PlanRequestSchema, PlanSchema, TripsQueryArgsSchema, TripsSchema
+from service.api.schemas.problem import ProblemSchema
 from service.auth import allow, current_caller
-from service.errors import Problem
+from service.errors import PROBLEM_JSON, Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence.db import get_session
@@ -27,6 +28,11 @@ blp = Blueprint("plans", __name__, description="Recorded plans and the trips dis
 
 MAX_WINDOW_DAYS = 92
 HEAVY = ("trips", "inputs")
+#: Error alternatives are documented as RFC 9457 problem documents, like every other error.
+PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}
+#: What the server accepts, in OpenAPI terms: 1–255 visible ASCII characters, bare or as an
+#: sf-string ``"…"`` with ``\"`` and ``\\`` escapes (service.idempotency.parse_key).
+IDEMPOTENCY_KEY_PATTERN = r'^([\x21\x23-\x5b\x5d-\x7e]{1,255}|"([\x21\x23-\x5b\x5d-\x7e]|\\["\\]){1,255}")$'
 
 
 def _truck(code: str, *, for_update: bool = False) -> Truck:
@@ -37,6 +43,8 @@ def _truck(code: str, *, for_update: bool = False) -> Truck:
 
 
 def _plan(plan_id: int) -> Plan:
+    if plan_id > 2**63 - 1:  # beyond any database integer (SQLite raised OverflowError → 500; found by fuzzing)
+        raise Problem(404, f"No plan with id {plan_id}.", kind="not-found")
     try:
         return plan_store.plan_by_id(get_session(), plan_id)
     except repo.NotFound as exc:
@@ -61,7 +69,7 @@ def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
     return response
 
 
-def _record(code: str, body: dict[str, Any]) -> tuple[Plan, Response]:
+def _record(code: str, body: dict[str, Any]) -> Response:
     session = get_session()
     truck = _truck(code, for_update=True)
     sites = plan_store.sites_for_plan(session, truck)
@@ -78,9 +86,7 @@ def _record(code: str, body: dict[str, Any]) -> tuple[Plan, Response]:
     start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
     plan = plan_store.add_plan(session, truck, sites, method=result.method, start_date=start,
                                created_by=current_caller().name, inputs=inputs, result=result.to_dict())
-    response = _json_response(plan_json(plan, truck.code), 201,
-                              Location=url_for("plans.PlanById", plan_id=plan.id))
-    return plan, response
+    return _json_response(plan_json(plan, truck.code), 201, Location=url_for("plans.PlanById", plan_id=plan.id))
 
 
 @blp.route("/trucks/<string:code>/plans")
@@ -88,9 +94,11 @@ class TruckPlans(MethodView):
     @allow("dispatcher")
     @blp.arguments(PlanRequestSchema)
     @blp.response(201, PlanSchema)
-    @blp.alt_response(409, description="A request with the same Idempotency-Key is still running")
-    @blp.alt_response(422, description="Invalid body, no plannable sites, or Idempotency-Key reused with another body")
-    @blp.doc(parameters=[{"in": "header", "name": "Idempotency-Key", "required": False, "schema": {"type": "string"},
+    @blp.alt_response(409, description="A request with the same Idempotency-Key is still running", **PROBLEM)
+    @blp.alt_response(422, description="Invalid body, no plannable sites, or Idempotency-Key reused with another body",
+                      **PROBLEM)
+    @blp.doc(parameters=[{"in": "header", "name": "Idempotency-Key", "required": False,
+                          "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
                           "description": "Optional. Same key + same body → the first response; kept 24 h per token."}])
     def post(self, body, code):
         """Compute and record a plan from the truck's active sites (honours Idempotency-Key)"""
@@ -102,7 +110,7 @@ class TruckPlans(MethodView):
                 return outcome
             claim = outcome
         try:
-            _plan_row, response = _record(code, body)
+            response = _record(code, body)
             if claim is not None:
                 idempotency.finish(get_session(), claim, response)
             get_session().commit()
@@ -193,7 +201,7 @@ class TruckTrips(MethodView):
     @blp.arguments(TripsQueryArgsSchema, location="query")
     @blp.response(200, TripsSchema)
     @blp.alt_response(304, description="Not modified (If-None-Match)")
-    @blp.alt_response(409, description="The truck has no active plan")
+    @blp.alt_response(409, description="The truck has no active plan", **PROBLEM)
     def get(self, args, code):
         """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
         first, last = _window(args)

@@ -29,7 +29,9 @@ def _site(code: str):  # type: ignore[no-untyped-def]
 
 
 def dump(reading: Reading, code: str) -> dict:
-    return {"id": reading.id, "site": code, "level": reading.level, "measured_at": reading.measured_at,
+    # In UTC, as stored: the POST answer then matches every later GET whatever offset was sent.
+    return {"id": reading.id, "site": code, "level": reading.level,
+            "measured_at": reading.measured_at.astimezone(dt.UTC),
             "created_at": reading.created_at, "created_by": reading.created_by}
 
 

@@ -96,7 +96,7 @@ def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
     recorded = {s["code"]: s["version"] for s in plan.inputs["sites"]}
     truck = session.get(Truck, plan.truck_id)
     current = dict(session.execute(
-        select(Site.code, Site.version).where(Site.truck_id == plan.truck_id, Site.active.is_(True))).tuples().all())
+        select(Site.code, Site.version).where(Site.truck_id == plan.truck_id, Site.active.is_(True))).all())
     changed = sorted(code for code in recorded.keys() | current.keys() if recorded.get(code) != current.get(code))
     truck_moved = truck is None or truck.version != plan.inputs["truck"]["version"]
     return bool(changed) or truck_moved, changed

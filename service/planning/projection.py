@@ -10,7 +10,8 @@ Pure (standard library only). The rules, per site with demand ``d``, safe-fill l
   back to 00:00 (the reading is taken to precede that day's delivery).
 * The corrected quantity keeps the site at or above ``s`` until its next planned delivery
   ``T`` days later: ``need = d·T + s − level(D)``, clamped to ``[0, min(F − level(D), free)]``
-  where ``free`` is the truck's capacity minus what earlier stops of the same trip take.
+  where ``free`` is the truck's capacity minus what earlier stops of the same trip take and minus
+  the planned quantities of the trip's stops without a reading (those keep their planned quantity).
 * A stop carries ``run_out_risk`` when the site is projected below ``s`` before the delivery, or
   when the clamped quantity cannot carry it to the next delivery above ``s``; the warning names
   the projected date the level crosses ``s``.
@@ -120,10 +121,15 @@ class Projection:
     def _level_at(self, state: _State, tank: Tank, when: dt.datetime) -> float:
         return max(0.0, state.level - tank.demand_per_day * _days(when, state.at))
 
+    def _projected(self, code: str, when: dt.datetime) -> bool:
+        """Whether the delivery at ``when`` is corrected from a reading (not history, not unread)."""
+        state = self._states.get(code)
+        return state is not None and when.date() >= state.at.astimezone(self.zone).date()
+
     def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float) -> CorrectedStop:
-        state = self._states.get(tank.code)
-        if state is None or when.date() < state.at.astimezone(self.zone).date():
+        if not self._projected(tank.code, when):
             return CorrectedStop(tank.code, planned, min(planned, max(free, 0.0)), None, None)
+        state = self._states[tank.code]
         risk = _crossing(state, tank, when, self.zone)
         level = self._level_at(state, tank, when)
         need = tank.demand_per_day * tank.cycle_days + tank.safety_stock - level
@@ -145,8 +151,12 @@ class Projection:
             when = day_start(trip.date, self.zone)
             stops = []
             load = 0.0
+            # Sites without a reading keep their planned quantity: reserve it before the others.
+            reserved = sum(planned for code, planned in trip.stops if not self._projected(code, when))
             for code, planned in trip.stops:
-                stop = self._stop(self.tanks[code], planned, when, self.capacity - load)
+                if not self._projected(code, when):
+                    reserved -= planned
+                stop = self._stop(self.tanks[code], planned, when, self.capacity - load - reserved)
                 load += stop.quantity
                 stops.append(stop)
             out.append(CorrectedTrip(trip.date, load, tuple(stops)))

@@ -40,7 +40,7 @@ class PlanQueryArgsSchema(PageArgsSchema):
 
 class TripsQueryArgsSchema(StrictSchema):
     week = ma.fields.String(metadata={"description": "ISO 8601 week, e.g. 2026-W50 (Monday to Sunday)"},
-                            validate=ma.validate.Regexp(r"^\d{4}-W\d{2}$"))
+                            validate=ma.validate.Regexp(r"^(?!0000)\d{4}-W(0[1-9]|[1-4][0-9]|5[0-3])$"))
     from_ = ma.fields.Date(data_key="from")
     to = ma.fields.Date()
 

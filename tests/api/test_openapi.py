@@ -1,0 +1,101 @@
+"""GET /api/v1/openapi.json: valid OpenAPI 3.1, problem+json errors, idempotency rules, issue 4 routes."""
+
+from __future__ import annotations
+
+import pytest
+from openapi_spec_validator import validate
+
+ROUTES = {
+    ("/api/v1/calculations/cycle", "post"),
+    ("/api/v1/calculations/joint", "post"),
+    ("/api/v1/trucks/{code}/plans", "post"),
+    ("/api/v1/trucks/{code}/plans", "get"),
+    ("/api/v1/plans/{plan_id}", "get"),
+    ("/api/v1/plans/{plan_id}/activate", "post"),
+    ("/api/v1/trucks/{code}/trips", "get"),
+    ("/api/v1/sites/{code}/readings", "post"),
+    ("/api/v1/sites/{code}/readings", "get"),
+}
+
+
+@pytest.fixture
+def spec(client, auth):
+    response = client.get("/api/v1/openapi.json", headers=auth("viewer"))
+    assert response.status_code == 200
+    assert response.mimetype == "application/json"
+    return response.get_json()
+
+
+def _resolve(spec, obj):
+    while "$ref" in obj:
+        node = spec
+        for part in obj["$ref"].removeprefix("#/").split("/"):
+            node = node[part]
+        obj = node
+    return obj
+
+
+def test_valid_openapi_3_1(spec):
+    assert spec["openapi"].startswith("3.1")
+    validate(spec)  # raises on an invalid document
+
+
+def test_issue_4_routes_present(spec):
+    present = {(path, method) for path, item in spec["paths"].items() for method in item}
+    assert ROUTES <= present, ROUTES - present
+
+
+def _error_responses(spec, paths):
+    for path in paths:
+        for method, operation in spec["paths"][path].items():
+            if not isinstance(operation, dict) or "responses" not in operation:
+                continue
+            for status, response in operation["responses"].items():
+                if status == "default" or int(status) >= 400:
+                    yield (path, method, status), set(_resolve(spec, response).get("content", {}))
+
+
+def test_issue_4_error_responses_are_problem_json(spec):
+    issue4 = sorted({path for path, _method in ROUTES})
+    found = dict(_error_responses(spec, issue4))
+    assert len(found) > 15
+    assert {where: types for where, types in found.items() if types != {"application/problem+json"}} == {}
+
+
+def test_every_error_response_is_problem_json(spec):
+    found = dict(_error_responses(spec, spec["paths"]))
+    assert {where: types for where, types in found.items() if types != {"application/problem+json"}} == {}
+
+
+def test_issue_4_error_statuses_documented(spec):
+    def statuses(path, method):
+        return set(spec["paths"][path][method]["responses"])
+
+    assert {"201", "409", "422"} <= statuses("/api/v1/trucks/{code}/plans", "post")
+    assert {"200", "304", "409", "422"} <= statuses("/api/v1/trucks/{code}/trips", "get")
+    assert "422" in statuses("/api/v1/calculations/cycle", "post")
+    assert "422" in statuses("/api/v1/calculations/joint", "post")
+    assert "422" in statuses("/api/v1/sites/{code}/readings", "post")
+
+
+def test_idempotency_rules_described(spec):
+    operation = spec["paths"]["/api/v1/trucks/{code}/plans"]["post"]
+    header = next(p for p in (_resolve(spec, p) for p in operation.get("parameters", []))
+                  if p["in"] == "header" and p["name"] == "Idempotency-Key")
+    assert header["required"] is False
+    text = spec["info"]["description"] + header.get("description", "")
+    for words in ("Idempotency-Key", "24 hours", "token", "422", "409", "Idempotent-Replayed"):
+        assert words in text, words
+
+
+def test_openapi_needs_a_viewer_token(client):
+    response = client.get("/api/v1/openapi.json")
+    assert response.status_code == 401
+    assert response.mimetype == "application/problem+json"
+
+
+def test_no_ui_loading_assets_from_the_internet(client, auth):
+    for path in ("/api/v1/swagger-ui", "/api/v1/redoc", "/api/v1/rapidoc"):
+        response = client.get(path, headers=auth("viewer"))
+        if response.status_code == 200:
+            assert b"https://" not in response.get_data() and b"//cdn" not in response.get_data(), path

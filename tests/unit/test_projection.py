@@ -1,0 +1,156 @@
+"""service.planning.projection: corrected quantities and run-out dates, computed by hand (pure, no DB).
+
+Rules (issue 4 §4 and the module docstring): level(D) = max(0, L − d·(t_D − t_r)) at 00:00 of the
+delivery day; quantity = clamp(d·T + s − level, 0, min(F − level, free space)); without a reading the
+planned quantity.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from zoneinfo import ZoneInfo
+
+import pytest
+
+from service.planning.projection import PlannedTrip, Projection, Tank, day_start
+
+UTC = ZoneInfo("UTC")
+D0 = dt.date(2026, 12, 7)
+
+
+def at(days: float = 0, day: dt.date = D0, zone: ZoneInfo = UTC) -> dt.datetime:
+    return day_start(day, zone) + dt.timedelta(days=days)
+
+
+def tank(code="A", *, d=300.0, F=9000.0, s=500.0, T=10, level=2000.0, when=None):
+    return Tank(code, d, F, s, T, level, at() if when is None and level is not None else when)
+
+
+def day(k: int) -> dt.date:
+    return D0 + dt.timedelta(days=k)
+
+
+def one(projection: Projection, trips):
+    return projection.correct(trips)
+
+
+def test_quantity_keeps_site_above_safety_stock_until_next_delivery():
+    p = Projection([tank()], 18000.0, UTC)
+    [trip] = p.correct([PlannedTrip(day(3), (("A", 3000.0),))])
+    stop = trip.stops[0]
+    # level = 2000 − 3·300 = 1100; need = 300·10 + 500 − 1100 = 2400 (room 7900, free 18000)
+    assert stop.projected_level_before == pytest.approx(1100.0)
+    assert stop.quantity == pytest.approx(2400.0)
+    assert stop.planned_quantity == 3000.0
+    assert trip.load == pytest.approx(2400.0)
+    assert stop.run_out is None and p.run_outs == []
+
+
+def test_never_negative_when_level_is_high():
+    p = Projection([tank(level=8000.0)], 18000.0, UTC)
+    stop = p.correct([PlannedTrip(day(1), (("A", 3000.0),))])[0].stops[0]
+    # level 7700; need = 3000 + 500 − 7700 = −4200 → 0
+    assert stop.projected_level_before == pytest.approx(7700.0)
+    assert stop.quantity == 0.0
+
+
+def test_capped_by_room_below_safe_fill_and_warns():
+    p = Projection([tank(T=30)], 18000.0, UTC)
+    stop = p.correct([PlannedTrip(day(3), (("A", 9000.0),))])[0].stops[0]
+    # need = 9000 + 500 − 1100 = 8400 > room 9000 − 1100 = 7900 → 7900, the tank is at F = 9000.
+    assert stop.quantity == pytest.approx(7900.0)
+    assert stop.projected_level_before + stop.quantity == pytest.approx(9000.0)
+    # From 9000 on day 3 the level reaches s = 500 after 8500/300 = 28.33 days: on day 31, before the
+    # next delivery on day 33.
+    assert stop.run_out is not None and stop.run_out.date == day(31)
+
+
+def test_capped_by_truck_free_space():
+    a, b = tank("A"), tank("B", level=1000.0)
+    p = Projection([a, b], 3000.0, UTC)
+    [trip] = p.correct([PlannedTrip(day(3), (("A", 2500.0), ("B", 2500.0)))])
+    first, second = trip.stops
+    assert first.quantity == pytest.approx(2400.0)  # as above
+    # B: level 1000 − 900 = 100, need 3000 + 500 − 100 = 3400, room 8900, free 3000 − 2400 = 600
+    assert second.projected_level_before == pytest.approx(100.0)
+    assert second.quantity == pytest.approx(600.0)
+    assert trip.load == pytest.approx(3000.0)
+    assert second.run_out is not None  # 700 cannot last 10 days above 500
+
+
+def test_planned_quantity_without_a_reading():
+    p = Projection([tank(level=None)], 18000.0, UTC)
+    stop = p.correct([PlannedTrip(day(3), (("A", 3000.0),))])[0].stops[0]
+    assert stop.quantity == 3000.0 and stop.projected_level_before is None and stop.run_out is None
+    assert p.level_before("A", at(5)) is None
+
+
+def test_run_out_date_and_level_never_below_zero():
+    p = Projection([tank()], 18000.0, UTC)
+    stop = p.correct([PlannedTrip(day(8), (("A", 3000.0),))])[0].stops[0]
+    # 2000 falls to 500 after 1500/300 = 5 days (day 5) and to 0 on day 6.67; at day 8 the level is 0.
+    assert stop.projected_level_before == 0.0
+    assert stop.run_out is not None and stop.run_out.date == day(5)
+    assert stop.quantity == pytest.approx(3500.0)  # 3000 + 500 − 0
+    assert [r.date for r in p.run_outs] == [day(5)]
+    assert p.level_before("A", at(4)) == pytest.approx(800.0)
+    assert p.level_before("A", at(7)) == 0.0
+
+
+def test_run_out_after_last_delivery_is_noted_by_finish():
+    p = Projection([tank()], 18000.0, UTC)
+    p.correct([])
+    p.finish(at(4))
+    assert p.run_outs == []
+    p.finish(at(6))
+    assert [r.date for r in p.run_outs] == [day(5)]
+
+
+def test_reading_on_the_delivery_day_precedes_the_delivery():
+    # Reading 1000 at 15:00 of day 3; the level is carried back to 00:00: 1000 + 300·15/24 = 1187.5.
+    p = Projection([tank(level=1000.0, when=at(3 + 15 / 24))], 18000.0, UTC)
+    stop = p.correct([PlannedTrip(day(3), (("A", 3000.0),))])[0].stops[0]
+    assert stop.projected_level_before == pytest.approx(1187.5)
+    assert stop.quantity == pytest.approx(3000.0 + 500.0 - 1187.5)
+
+
+def test_deliveries_before_the_readings_day_are_history():
+    p = Projection([tank(level=4000.0, when=at(3.5))], 18000.0, UTC)
+    trips = p.correct([PlannedTrip(day(2), (("A", 3000.0),)), PlannedTrip(day(12), (("A", 3000.0),))])
+    early, later = trips[0].stops[0], trips[1].stops[0]
+    assert early.quantity == 3000.0 and early.projected_level_before is None
+    # 4000 − 300·8.5 = 1450 at 00:00 of day 12; need 3000 + 500 − 1450 = 2050
+    assert later.projected_level_before == pytest.approx(1450.0)
+    assert later.quantity == pytest.approx(2050.0)
+
+
+def test_successive_deliveries_chain():
+    p = Projection([tank()], 18000.0, UTC)
+    trips = p.correct([PlannedTrip(day(3), (("A", 3000.0),)), PlannedTrip(day(13), (("A", 3000.0),))])
+    first, second = trips[0].stops[0], trips[1].stops[0]
+    # after day 3: 1100 + 2400 = 3500; ten days later 3500 − 3000 = 500 = s: exactly at the safety stock
+    assert second.projected_level_before == pytest.approx(500.0)
+    assert second.quantity == pytest.approx(3000.0)
+    assert first.run_out is None and second.run_out is None
+
+
+def test_delivery_day_starts_at_midnight_of_the_service_zone():
+    berlin = ZoneInfo("Europe/Berlin")  # UTC+1 in December
+    reading = dt.datetime(2026, 12, 7, 0, 0, tzinfo=dt.UTC)  # 01:00 in Berlin
+    p = Projection([tank(when=reading)], 18000.0, berlin)
+    stop = p.correct([PlannedTrip(day(3), (("A", 3000.0),))])[0].stops[0]
+    # 00:00 Berlin on day 3 = 23:00 UTC on day 2: 2 days 23 hours after the reading.
+    assert stop.projected_level_before == pytest.approx(2000.0 - 300.0 * (2 + 23 / 24))
+
+
+def test_unread_sites_keep_their_planned_quantity_when_read_sites_need_more():
+    # Truck 5000. A (read) comes first: level 2000 − 3·300 = 1100, need = 300·14 + 500 − 1100 = 3600.
+    # B has no reading and keeps its planned 2000 (issue 4 §4), so A gets only the 3000 left.
+    unread = Tank("B", 100.0, 5000.0, 100.0, 14, None, None)
+    p = Projection([tank(T=14), unread], 5000.0, UTC)
+    [trip] = p.correct([PlannedTrip(day(3), (("A", 3000.0), ("B", 2000.0)))])
+    a, b = trip.stops
+    assert b.quantity == 2000.0 and b.projected_level_before is None
+    assert a.quantity == pytest.approx(3000.0)
+    assert a.run_out is not None  # 3000 < 3600 needed: A falls below safety stock before its next delivery
+    assert trip.load == pytest.approx(5000.0)
