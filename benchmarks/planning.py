@@ -75,8 +75,15 @@ def slsqp(problem):
     jac = np.hstack([-np.ones((n, 1)), np.eye(n)])
     cons = {"type": "ineq", "fun": lambda x: x[1:] - x[0], "jac": lambda x: jac}
     x0 = np.concatenate([[1.0], np.clip(np.sqrt(k / H), 1.0, U)])
-    res = minimize(f, x0, jac=grad, bounds=[(1.0, U.min())] + [(1.0, u) for u in U], constraints=[cons],
-                   method="SLSQP", options={"ftol": 1e-12, "maxiter": 1000})
+    res = minimize(
+        f,
+        x0,
+        jac=grad,
+        bounds=[(1.0, U.min())] + [(1.0, u) for u in U],
+        constraints=[cons],
+        method="SLSQP",
+        options={"ftol": 1e-12, "maxiter": 1000},
+    )
     T0 = min(max(res.x[0], 1.0), U.min())
     return float(f(np.concatenate([[T0], np.clip(res.x[1:], T0, U)])))  # objective at the projected feasible point
 
@@ -103,10 +110,14 @@ def main() -> None:
     def cell(t, sort):
         return f"{t * 1e3:.3f} ms ({t / sort:.1f}×)"
 
-    print("| n | numpy.sort | validate inputs | lower bound | power_of_two (opt. base) | integer | staggering (PoT) | LB + PoT |")
+    print(
+        "| n | numpy.sort | validate inputs | lower bound | power_of_two (opt. base) | integer | staggering (PoT) | LB + PoT |"
+    )
     print("|---|---|---|---|---|---|---|---|")
     for n, s, v, lb, pot, it, st in rows:
-        print(f"| {n} | {s * 1e3:.3f} ms | {cell(v, s)} | {cell(lb, s)} | {cell(pot, s)} | {cell(it, s)} | {cell(st, s)} | {cell(lb + pot, s)} |")
+        print(
+            f"| {n} | {s * 1e3:.3f} ms | {cell(v, s)} | {cell(lb, s)} | {cell(pot, s)} | {cell(it, s)} | {cell(st, s)} | {cell(lb + pot, s)} |"
+        )
     first = next(r for r in rows if r[0] == 1_000)
     last = next(r for r in rows if r[0] == 100_000)
 
@@ -114,14 +125,18 @@ def main() -> None:
         return math.log(last[i] / first[i]) / math.log(last[0] / first[0])
 
     print()
-    print(f"log-log slope 1 000 → 100 000: lower bound {slope(3):.2f}, power_of_two {slope(4):.2f}, "
-          f"integer {slope(5):.2f}, staggering {slope(6):.2f}, LB + PoT "
-          f"{math.log((last[3] + last[4]) / (first[3] + first[4])) / math.log(100):.2f}, numpy.sort {slope(1):.2f}")
+    print(
+        f"log-log slope 1 000 → 100 000: lower bound {slope(3):.2f}, power_of_two {slope(4):.2f}, "
+        f"integer {slope(5):.2f}, staggering {slope(6):.2f}, LB + PoT "
+        f"{math.log((last[3] + last[4]) / (first[3] + first[4])) / math.log(100):.2f}, numpy.sort {slope(1):.2f}"
+    )
     print(f"LB + PoT at n = 100 000: {(last[3] + last[4]) / last[1]:.1f}× numpy.sort (target ≤ 30×)")
 
     sites, truck = instance(100_000)
     t_full = best_time(lambda: plan_joint(sites, truck), 1)
-    print(f"plan_joint(method='best') end to end at n = 100 000 (validation, both methods, staggering, listing): {t_full:.2f} s")
+    print(
+        f"plan_joint(method='best') end to end at n = 100 000 (validation, both methods, staggering, listing): {t_full:.2f} s"
+    )
 
     sites, truck = instance(200, seed=11)
     problem = validate(sites, truck)
@@ -135,7 +150,9 @@ def main() -> None:
     print(f"| breakpoint scan (ours) | {t_ours * 1e3:.3f} ms | {ours:.10f} |")
     print(f"| scipy.optimize.minimize (SLSQP) | {t_slsqp * 1e3:.1f} ms | {theirs:.10f} |")
     print()
-    print(f"speed-up {t_slsqp / t_ours:.0f}× (target ≥ 1000×); objective ours − SLSQP = {ours - theirs:.3e} (target ≤ 0)")
+    print(
+        f"speed-up {t_slsqp / t_ours:.0f}× (target ≥ 1000×); objective ours − SLSQP = {ours - theirs:.3e} (target ≤ 0)"
+    )
 
 
 if __name__ == "__main__":

@@ -118,20 +118,33 @@ def authenticate() -> None:
     if rule is None:
         raise Problem(403, "This route has no access rule; it is refused.", kind="forbidden")
     if any(k in request.args for k in ("token", "access_token", "api_key")):
-        raise Problem(401, "Tokens are accepted only in the Authorization header, never in the URL.",
-                      kind="unauthenticated", headers={"WWW-Authenticate": 'Bearer realm="ullage", error="invalid_request"'})
+        raise Problem(
+            401,
+            "Tokens are accepted only in the Authorization header, never in the URL.",
+            kind="unauthenticated",
+            headers={"WWW-Authenticate": 'Bearer realm="ullage", error="invalid_request"'},
+        )
     token = _presented_token()
     if token is None:
-        raise Problem(401, "Send 'Authorization: Bearer <token>'.", kind="unauthenticated",
-                      headers={"WWW-Authenticate": 'Bearer realm="ullage"'})
+        raise Problem(
+            401,
+            "Send 'Authorization: Bearer <token>'.",
+            kind="unauthenticated",
+            headers={"WWW-Authenticate": 'Bearer realm="ullage"'},
+        )
     caller = caller_from_token(token)
     if caller is None:
-        raise Problem(401, "The token is not valid or has been revoked.", kind="unauthenticated",
-                      headers={"WWW-Authenticate": 'Bearer realm="ullage", error="invalid_token"'})
+        raise Problem(
+            401,
+            "The token is not valid or has been revoked.",
+            kind="unauthenticated",
+            headers={"WWW-Authenticate": 'Bearer realm="ullage", error="invalid_token"'},
+        )
     g.caller = caller
     if not caller.has(rule):
-        raise Problem(403, f"This needs the {rule} role or higher; the token has the {caller.role} role.",
-                      kind="forbidden")
+        raise Problem(
+            403, f"This needs the {rule} role or higher; the token has the {caller.role} role.", kind="forbidden"
+        )
 
 
 def note_token_use(response):  # type: ignore[no-untyped-def]

@@ -105,8 +105,16 @@ def serve(args: argparse.Namespace) -> int:
     os.environ.setdefault(MULTIPROC_ENV, str(Path("var") / "prometheus"))
     wipe_multiprocess_dir(os.environ[MULTIPROC_ENV])
     # This interpreter's gunicorn, so `.venv/bin/ullage serve` works without the venv on PATH.
-    argv = [sys.executable, "-m", "gunicorn", "--config", str(Path(__file__).resolve().parent / "gunicorn_conf.py"),
-            "--bind", f"{args.host}:{args.port}", "service.app:create_app()"]
+    argv = [
+        sys.executable,
+        "-m",
+        "gunicorn",
+        "--config",
+        str(Path(__file__).resolve().parent / "gunicorn_conf.py"),
+        "--bind",
+        f"{args.host}:{args.port}",
+        "service.app:create_app()",
+    ]
     if args.workers:
         argv[3:3] = ["--workers", str(args.workers)]
     os.execv(argv[0], argv)

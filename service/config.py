@@ -46,7 +46,7 @@ def normalise_database_url(url: str) -> str:
     """
     for prefix in ("postgres://", "postgresql://"):
         if url.startswith(prefix):
-            return "postgresql+psycopg://" + url[len(prefix):]
+            return "postgresql+psycopg://" + url[len(prefix) :]
     return url
 
 
@@ -70,7 +70,9 @@ class Settings:
         if not _CURRENCY.match(self.currency):
             raise ValueError(f"ULLAGE_CURRENCY must be an ISO 4217 code such as EUR, got {self.currency!r}")
         if not _UNIT.match(self.quantity_unit):
-            raise ValueError(f"ULLAGE_QUANTITY_UNIT must be a short label such as L, gal or m3, got {self.quantity_unit!r}")
+            raise ValueError(
+                f"ULLAGE_QUANTITY_UNIT must be a short label such as L, gal or m3, got {self.quantity_unit!r}"
+            )
         try:
             zoneinfo.ZoneInfo(self.timezone)
         except (zoneinfo.ZoneInfoNotFoundError, ValueError) as exc:

@@ -16,9 +16,15 @@ def load_demo(session: Session, directory: Path, service_unit: str) -> tuple[int
     with open(directory / "trucks.csv", encoding="utf-8", newline="") as handle:
         trucks = list(csv.DictReader(handle))
     for row in trucks:
-        repo.add_truck(session, {
-            "code": row["code"], "name": row["name"], "dispatch_cost": float(row["dispatch_cost"]),
-            "capacity": float(row["capacity"]), "max_stops": int(row["max_stops"]) if row["max_stops"] else None,
-        })
+        repo.add_truck(
+            session,
+            {
+                "code": row["code"],
+                "name": row["name"],
+                "dispatch_cost": float(row["dispatch_cost"]),
+                "capacity": float(row["capacity"]),
+                "max_stops": int(row["max_stops"]) if row["max_stops"] else None,
+            },
+        )
     result = import_sites(session, (directory / "sites.csv").read_bytes(), dry_run=False, service_unit=service_unit)
     return len(trucks), result["created"]

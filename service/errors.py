@@ -137,7 +137,9 @@ def handle_problem(error: Problem) -> Response:
 def handle_planning_input(error: PlanningInputError) -> Response:
     """A planning input the core refuses (e.g. a tank that holds less than a day) → 422."""
     path = ("sites", error.index, error.field) if error.index is not None else (error.field,)
-    return problem_response(422, str(error), kind="planning-input", errors=[{"pointer": _pointer(path), "detail": str(error)}])
+    return problem_response(
+        422, str(error), kind="planning-input", errors=[{"pointer": _pointer(path), "detail": str(error)}]
+    )
 
 
 def handle_integrity(error: IntegrityError) -> Response:
@@ -156,11 +158,16 @@ def handle_database(error: DBAPIError) -> Response:
     _rollback()
     if _storage_full(error):
         log.error("storage full: %s", type(error.orig).__name__)
-        return problem_response(507, "The plan store is full; nothing was recorded.", kind="storage-full",
-                                headers={"Retry-After": "60"})
+        return problem_response(
+            507, "The plan store is full; nothing was recorded.", kind="storage-full", headers={"Retry-After": "60"}
+        )
     log.warning("database unavailable: %s", type(getattr(error, "orig", error)).__name__)
-    return problem_response(503, "The database is not available right now; nothing was recorded. Retry shortly.",
-                            kind="database-unavailable", headers={"Retry-After": "2"})
+    return problem_response(
+        503,
+        "The database is not available right now; nothing was recorded. Retry shortly.",
+        kind="database-unavailable",
+        headers={"Retry-After": "2"},
+    )
 
 
 def handle_unexpected(error: Exception) -> Response:

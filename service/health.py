@@ -52,8 +52,12 @@ def readyz():
     finally:
         write_intent.reset(intent)
     if current != current_app.extensions["ullage.migration_head"]:
-        return problem_response(503, "The database schema is not at the expected migration; run `ullage db upgrade`.",
-                                kind="not-ready", headers={"Retry-After": "10"})
+        return problem_response(
+            503,
+            "The database schema is not at the expected migration; run `ullage db upgrade`.",
+            kind="not-ready",
+            headers={"Retry-After": "10"},
+        )
     return jsonify(status="pass")
 
 

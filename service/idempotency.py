@@ -59,8 +59,11 @@ def parse_key(header: str | None) -> str | None:
     elif '"' in value or "\\" in value:
         value = ""  # a broken sf-string (unbalanced quote, bad escape) is not a bare key either
     if not KEY.match(value):
-        raise Problem(400, "Idempotency-Key must be 1–255 visible ASCII characters, e.g. \"8e03978e-40d5\".",
-                      kind="bad-idempotency-key")
+        raise Problem(
+            400,
+            'Idempotency-Key must be 1–255 visible ASCII characters, e.g. "8e03978e-40d5".',
+            kind="bad-idempotency-key",
+        )
     return value
 
 
@@ -91,18 +94,30 @@ def begin(caller: Caller, key: str, method: str, path: str, body: bytes) -> Clai
     now = utcnow()
     for _attempt in range(2):
         with _own_session() as session:
-            session.execute(delete(IdempotencyRecord).where(IdempotencyRecord.token_id == caller.token_id,
-                                                            IdempotencyRecord.created_at < now - TTL))
-            statement = select(IdempotencyRecord).where(IdempotencyRecord.token_id == caller.token_id,
-                                                        IdempotencyRecord.idempotency_key == key)
+            session.execute(
+                delete(IdempotencyRecord).where(
+                    IdempotencyRecord.token_id == caller.token_id, IdempotencyRecord.created_at < now - TTL
+                )
+            )
+            statement = select(IdempotencyRecord).where(
+                IdempotencyRecord.token_id == caller.token_id, IdempotencyRecord.idempotency_key == key
+            )
             if session.get_bind().dialect.name == "postgresql":
                 statement = statement.with_for_update()
             row = session.scalars(statement).one_or_none()
             claim = secrets.token_hex(16)
             if row is None:
-                row = IdempotencyRecord(token_id=caller.token_id, idempotency_key=key, method=method, path=path,
-                                        body_sha256=print_, state="in_progress", claim=claim, claimed_at=now,
-                                        created_at=now)
+                row = IdempotencyRecord(
+                    token_id=caller.token_id,
+                    idempotency_key=key,
+                    method=method,
+                    path=path,
+                    body_sha256=print_,
+                    state="in_progress",
+                    claim=claim,
+                    claimed_at=now,
+                    created_at=now,
+                )
                 session.add(row)
                 try:
                     session.commit()
@@ -111,39 +126,65 @@ def begin(caller: Caller, key: str, method: str, path: str, body: bytes) -> Clai
                     continue  # a concurrent request inserted the key first: look again
                 return Claim(row.id, claim)
             if row.body_sha256 != print_:
-                raise Problem(422, "This Idempotency-Key was used with a different request; use a new key.",
-                              kind="idempotency-key-reused")
+                raise Problem(
+                    422,
+                    "This Idempotency-Key was used with a different request; use a new key.",
+                    kind="idempotency-key-reused",
+                )
             if row.state == "done":
                 return _replay(row)
             if now - row.claimed_at < LEASE:
-                raise Problem(409, "A request with this Idempotency-Key is still being processed; retry shortly.",
-                              kind="idempotency-in-progress", headers={"Retry-After": "1"})
+                raise Problem(
+                    409,
+                    "A request with this Idempotency-Key is still being processed; retry shortly.",
+                    kind="idempotency-in-progress",
+                    headers={"Retry-After": "1"},
+                )
             row.claim, row.claimed_at = claim, now
             session.commit()
             return Claim(row.id, claim)
-    raise Problem(409, "A request with this Idempotency-Key is still being processed; retry shortly.",
-                  kind="idempotency-in-progress", headers={"Retry-After": "1"})
+    raise Problem(
+        409,
+        "A request with this Idempotency-Key is still being processed; retry shortly.",
+        kind="idempotency-in-progress",
+        headers={"Retry-After": "1"},
+    )
 
 
 def finish(session: Session, claim: Claim, response: Response) -> None:
     """Mark the claim done with ``response`` inside the work's transaction (before its commit)."""
     done = session.execute(
         update(IdempotencyRecord)
-        .where(IdempotencyRecord.id == claim.record_id, IdempotencyRecord.claim == claim.claim,
-               IdempotencyRecord.state == "in_progress")
-        .values(state="done", response_status=response.status_code, response_body=response.get_data(as_text=True),
-                response_location=response.headers.get("Location"))
+        .where(
+            IdempotencyRecord.id == claim.record_id,
+            IdempotencyRecord.claim == claim.claim,
+            IdempotencyRecord.state == "in_progress",
+        )
+        .values(
+            state="done",
+            response_status=response.status_code,
+            response_body=response.get_data(as_text=True),
+            response_location=response.headers.get("Location"),
+        )
     )
     if done.rowcount != 1:
         session.rollback()
-        raise Problem(409, "Another attempt with this Idempotency-Key took over; retry to get its result.",
-                      kind="idempotency-in-progress", headers={"Retry-After": "1"})
+        raise Problem(
+            409,
+            "Another attempt with this Idempotency-Key took over; retry to get its result.",
+            kind="idempotency-in-progress",
+            headers={"Retry-After": "1"},
+        )
 
 
 def abandon(claim: Claim) -> None:
     """Forget a claim whose request failed, so a corrected retry may use the key again."""
     with _own_session() as session:
-        session.execute(delete(IdempotencyRecord).where(IdempotencyRecord.id == claim.record_id,
-                                                        IdempotencyRecord.claim == claim.claim,
-                                                        IdempotencyRecord.state == "in_progress"))
+        session.execute(
+            delete(IdempotencyRecord).where(
+                IdempotencyRecord.id == claim.record_id,
+                IdempotencyRecord.claim == claim.claim,
+                IdempotencyRecord.state == "in_progress",
+            )
+        )
         session.commit()

@@ -26,8 +26,12 @@ class JsonFormatter(logging.Formatter):
     """One JSON object per line."""
 
     def format(self, record: logging.LogRecord) -> str:
-        entry = {"time": self.formatTime(record, "%Y-%m-%dT%H:%M:%S%z"), "level": record.levelname,
-                 "logger": record.name, "message": record.getMessage()}
+        entry = {
+            "time": self.formatTime(record, "%Y-%m-%dT%H:%M:%S%z"),
+            "level": record.levelname,
+            "logger": record.name,
+            "message": record.getMessage(),
+        }
         entry.update(getattr(record, "fields", {}))
         if record.exc_info:
             entry["exception"] = self.formatException(record.exc_info)
@@ -55,11 +59,19 @@ def _finish(response):  # type: ignore[no-untyped-def]
         response.headers.setdefault(name, value)
     response.headers["X-Request-ID"] = g.get("request_id", "")
     caller = g.get("caller")
-    access_log.info("request", extra={"fields": {
-        "request_id": g.get("request_id"), "method": request.method, "path": request.path,
-        "status": response.status_code, "ms": round((time.perf_counter() - g.get("started", time.perf_counter())) * 1000, 2),
-        "caller": caller.name if caller else None,
-    }})
+    access_log.info(
+        "request",
+        extra={
+            "fields": {
+                "request_id": g.get("request_id"),
+                "method": request.method,
+                "path": request.path,
+                "status": response.status_code,
+                "ms": round((time.perf_counter() - g.get("started", time.perf_counter())) * 1000, 2),
+                "caller": caller.name if caller else None,
+            }
+        },
+    )
     return response
 
 

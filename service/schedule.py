@@ -127,13 +127,26 @@ def current_week(settings: Settings) -> str:
 def summary(session: Session, plan: Plan) -> PlanSummary:
     stale, changed = plan_store.staleness(session, plan)
     r = plan.result
-    return PlanSummary(plan.id, r["method"], r["dispatch_interval_days"], r["cost_per_day"],
-                       r["lower_bound_per_day"], r["gap"], plan.start_date, stale, tuple(changed))
+    return PlanSummary(
+        plan.id,
+        r["method"],
+        r["dispatch_interval_days"],
+        r["cost_per_day"],
+        r["lower_bound_per_day"],
+        r["gap"],
+        plan.start_date,
+        stale,
+        tuple(changed),
+    )
 
 
 def _run_out_notice(site: str, name: str, date: dt.date) -> Notice:
-    return Notice("run_out_risk", f"{name} ({site}) is projected to fall below its safety stock on {date.isoformat()}.",
-                  site, date)
+    return Notice(
+        "run_out_risk",
+        f"{name} ({site}) is projected to fall below its safety stock on {date.isoformat()}.",
+        site,
+        date,
+    )
 
 
 @dataclass
@@ -163,8 +176,17 @@ def _replay(session: Session, plan: Plan, first: dt.date, last: dt.date, setting
         if reading is not None and reading.measured_at < horizon:
             reading = None
         recent[code] = reading is not None and reading.measured_at >= stale_before
-        tanks.append(Tank(code, s["demand_per_day"], s["safe_fill"] * s["tank_capacity"], s["safety_stock"],
-                          cycles[code], reading.level if reading else None, reading.measured_at if reading else None))
+        tanks.append(
+            Tank(
+                code,
+                s["demand_per_day"],
+                s["safe_fill"] * s["tank_capacity"],
+                s["safety_stock"],
+                cycles[code],
+                reading.level if reading else None,
+                reading.measured_at if reading else None,
+            )
+        )
     starts = [t.reading_at.astimezone(zone).date() for t in tanks if t.reading_at is not None]
     sim_first = max(plan.start_date, min([first, *starts]))
     sim_last = max(last, sim_first)
@@ -172,10 +194,17 @@ def _replay(session: Session, plan: Plan, first: dt.date, last: dt.date, setting
     projection = Projection(tanks, capacity, zone)
     planned: list[PlannedTrip] = []
     if sim_last >= plan.start_date:
-        for trip in trips_between(result, plan_store.truck_input(truck_snapshot),
-                                  (sim_first - plan.start_date).days, (sim_last - plan.start_date).days):
-            planned.append(PlannedTrip(plan.start_date + dt.timedelta(days=trip.day),
-                                       tuple((s.code, s.quantity) for s in trip.stops)))
+        for trip in trips_between(
+            result,
+            plan_store.truck_input(truck_snapshot),
+            (sim_first - plan.start_date).days,
+            (sim_last - plan.start_date).days,
+        ):
+            planned.append(
+                PlannedTrip(
+                    plan.start_date + dt.timedelta(days=trip.day), tuple((s.code, s.quantity) for s in trip.stops)
+                )
+            )
     corrected = projection.correct(planned)
     projection.finish(day_start(last + dt.timedelta(days=1), zone))
     names = {code: s["name"] for code, s in recorded.items()}
@@ -214,8 +243,14 @@ def _notices(session: Session, replay: _Replay, first: dt.date, last: dt.date, o
             # An older reading (within LOOKBACK_DAYS) is still projected; say so instead of "planned".
             older = projection.tanks[code].reading_level is not None
             basis = "projected from an older reading" if older else "the planned ones"
-            out.append(Notice("no_recent_reading", f"{replay.names[code]} ({code}) has no reading in the last "
-                              f"{replay.stale_days} days; its quantities are {basis}.", code))
+            out.append(
+                Notice(
+                    "no_recent_reading",
+                    f"{replay.names[code]} ({code}) has no reading in the last "
+                    f"{replay.stale_days} days; its quantities are {basis}.",
+                    code,
+                )
+            )
     return out
 
 
@@ -226,10 +261,14 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
         raise NoActivePlan(truck.code)
     replay = _replay(session, plan, first, last, settings)
     capacity = plan.inputs["truck"]["capacity"]
-    trips = tuple(DayTrip(t.date, t.load, capacity, tuple(_stop(replay, s) for s in t.stops))
-                  for t in replay.trips if first <= t.date <= last)
-    return TripsView(truck.code, summary(session, plan), first, last, trips,
-                     tuple(_notices(session, replay, first, last)))
+    trips = tuple(
+        DayTrip(t.date, t.load, capacity, tuple(_stop(replay, s) for s in t.stops))
+        for t in replay.trips
+        if first <= t.date <= last
+    )
+    return TripsView(
+        truck.code, summary(session, plan), first, last, trips, tuple(_notices(session, replay, first, last))
+    )
 
 
 def site_levels(session: Session, site: Site, first: dt.date, days: int, settings: Settings) -> SiteLevels:
@@ -242,21 +281,35 @@ def site_levels(session: Session, site: Site, first: dt.date, days: int, setting
     in_plan = plan is not None and any(s["code"] == site.code for s in plan.inputs["sites"])
     if not in_plan:
         reading = plan_store.latest_readings(session, [site.id]).get(site.id)
-        tank = Tank(site.code, site.demand_per_day, site.safe_fill * site.tank_capacity, site.safety_stock, 1,
-                    reading.level if reading else None, reading.measured_at if reading else None)
+        tank = Tank(
+            site.code,
+            site.demand_per_day,
+            site.safe_fill * site.tank_capacity,
+            site.safety_stock,
+            1,
+            reading.level if reading else None,
+            reading.measured_at if reading else None,
+        )
         alone = Projection([tank], 0.0, zone)
         levels = tuple((d, alone.level_before(site.code, day_start(d, zone))) for d in dates)
-        notice = Notice("no_active_plan", f"{site.name} ({site.code}) is in no active plan; no deliveries are planned.",
-                        site.code)
-        return SiteLevels(site.code, levels, (), site.safe_fill * site.tank_capacity, site.safety_stock,
-                          site.tank_capacity, (notice,))
+        notice = Notice(
+            "no_active_plan", f"{site.name} ({site.code}) is in no active plan; no deliveries are planned.", site.code
+        )
+        return SiteLevels(
+            site.code, levels, (), site.safe_fill * site.tank_capacity, site.safety_stock, site.tank_capacity, (notice,)
+        )
     replay = _replay(session, plan, first, last, settings)
     levels = tuple((d, replay.projection.level_before(site.code, day_start(d, zone))) for d in dates)
-    deliveries = tuple((t.date, s.quantity) for t in replay.trips if first <= t.date <= last
-                       for s in t.stops if s.site == site.code)
+    deliveries = tuple(
+        (t.date, s.quantity) for t in replay.trips if first <= t.date <= last for s in t.stops if s.site == site.code
+    )
     recorded = next(s for s in plan.inputs["sites"] if s["code"] == site.code)
-    return SiteLevels(site.code, levels, deliveries, recorded["safe_fill"] * recorded["tank_capacity"],
-                      recorded["safety_stock"], recorded["tank_capacity"],
-                      tuple(_notices(session, replay, first, last, only=site.code)))
-
-
+    return SiteLevels(
+        site.code,
+        levels,
+        deliveries,
+        recorded["safe_fill"] * recorded["tank_capacity"],
+        recorded["safety_stock"],
+        recorded["tank_capacity"],
+        tuple(_notices(session, replay, first, last, only=site.code)),
+    )

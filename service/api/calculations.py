@@ -63,8 +63,9 @@ class JointCalculation(MethodView):
     def post(self, body):
         """Joint schedule of the sites of one truck, with the lower bound and the gap"""
         sites = [SiteInput(code=s["code"], **{k: s[k] for k in SITE_KEYS}) for s in body["sites"]]
-        truck = TruckInput(dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"],
-                           max_stops=body["max_stops"])
+        truck = TruckInput(
+            dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"], max_stops=body["max_stops"]
+        )
         try:
             result = plan_joint(sites, truck, method=body["method"], base_days=body["base_days"])
         except PlanningInputError as exc:

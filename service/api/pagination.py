@@ -19,13 +19,21 @@ DEFAULT_LIMIT = 50
 class PageArgsSchema(ma.Schema):
     """``limit`` (1–200, default 50) and ``after`` (the last key of the previous page)."""
 
-    limit = ma.fields.Integer(load_default=DEFAULT_LIMIT, validate=ma.validate.Range(min=1, max=MAX_LIMIT),
-                              strict=False)
+    limit = ma.fields.Integer(
+        load_default=DEFAULT_LIMIT, validate=ma.validate.Range(min=1, max=MAX_LIMIT), strict=False
+    )
     after = ma.fields.String(validate=ma.validate.Length(min=1, max=80))
 
 
-def page(session: Session, statement: Select[Any], key: Any, args: dict[str, Any], *, descending: bool = False,
-         key_type: type = str) -> tuple[Sequence[Any], dict[str, str]]:
+def page(
+    session: Session,
+    statement: Select[Any],
+    key: Any,
+    args: dict[str, Any],
+    *,
+    descending: bool = False,
+    key_type: type = str,
+) -> tuple[Sequence[Any], dict[str, str]]:
     """Run one page of ``statement`` ordered by ``key``; returns the rows and the response headers."""
     limit = args["limit"]
     after = args.get("after")
@@ -33,8 +41,12 @@ def page(session: Session, statement: Select[Any], key: Any, args: dict[str, Any
         try:
             after_value = key_type(after)
         except ValueError as exc:
-            raise Problem(422, "after must be the key of the last item of the previous page (from the Link header).",
-                          kind="validation", errors=[{"pointer": "#/query/after", "detail": "Not a valid key."}]) from exc
+            raise Problem(
+                422,
+                "after must be the key of the last item of the previous page (from the Link header).",
+                kind="validation",
+                errors=[{"pointer": "#/query/after", "detail": "Not a valid key."}],
+            ) from exc
         statement = statement.where(key < after_value if descending else key > after_value)
     statement = statement.order_by(key.desc() if descending else key).limit(limit + 1)
     rows = list(session.scalars(statement))

@@ -13,8 +13,16 @@ from service import idempotency, schedule
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified
 from service.api.pagination import page
-from service.api.schemas.plans import PlanListSchema, PlanQueryArgsSchema, PlanRequestSchema, PlanSchema, TripsQueryArgsSchema, TripsSchema
+from service.api.schemas.plans import (
+    PlanListSchema,
+    PlanQueryArgsSchema,
+    PlanRequestSchema,
+    PlanSchema,
+    TripsQueryArgsSchema,
+    TripsSchema,
+)
 from service.api.schemas.problem import ProblemSchema
+from service.api.trucks import truck_or_404
 from service.auth import allow, current_caller
 from service.errors import PROBLEM_JSON, Problem
 from service.persistence import plans as plan_store
@@ -35,13 +43,6 @@ PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}
 IDEMPOTENCY_KEY_PATTERN = r'^([\x21\x23-\x5b\x5d-\x7e]{1,255}|"([\x21\x23-\x5b\x5d-\x7e]|\\["\\]){1,255}")$'
 
 
-def _truck(code: str, *, for_update: bool = False) -> Truck:
-    try:
-        return repo.truck_by_code(get_session(), code, for_update=for_update)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
-
-
 def _plan(plan_id: int) -> Plan:
     if plan_id > 2**63 - 1:  # beyond any database integer (SQLite raised OverflowError → 500; found by fuzzing)
         raise Problem(404, f"No plan with id {plan_id}.", kind="not-found")
@@ -56,9 +57,17 @@ def plan_json(plan: Plan, truck_code: str, *, heavy: bool = True) -> dict[str, A
     stale, changed = plan_store.staleness(get_session(), plan)
     result = {k: v for k, v in plan.result.items() if k not in ("status", "success", "message")}
     body = {
-        "id": plan.id, "truck": truck_code, "status": plan.status, "stale": stale, "changed_sites": changed,
-        "start_date": plan.start_date.isoformat(), "created_at": plan.created_at.isoformat(),
-        "created_by": plan.created_by, "inputs": plan.inputs, "inputs_digest": plan.inputs_digest, **result,
+        "id": plan.id,
+        "truck": truck_code,
+        "status": plan.status,
+        "stale": stale,
+        "changed_sites": changed,
+        "start_date": plan.start_date.isoformat(),
+        "created_at": plan.created_at.isoformat(),
+        "created_by": plan.created_by,
+        "inputs": plan.inputs,
+        "inputs_digest": plan.inputs_digest,
+        **result,
     }
     return body if heavy else {k: v for k, v in body.items() if k not in HEAVY}
 
@@ -71,21 +80,33 @@ def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
 
 def _record(code: str, body: dict[str, Any]) -> Response:
     session = get_session()
-    truck = _truck(code, for_update=True)
+    truck = truck_or_404(code, for_update=True)
     sites = plan_store.sites_for_plan(session, truck)
     if not sites:
         raise Problem(422, f"Truck {code!r} has no active sites to plan.", kind="no-sites")
     inputs = plan_store.snapshot(truck, sites)
     try:
-        result = plan_joint(plan_store.site_inputs(inputs["sites"]), plan_store.truck_input(inputs["truck"]),
-                            method=body["method"], base_days=body["base_days"])
+        result = plan_joint(
+            plan_store.site_inputs(inputs["sites"]),
+            plan_store.truck_input(inputs["truck"]),
+            method=body["method"],
+            base_days=body["base_days"],
+        )
     except PlanningInputError as exc:
         raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
     if not result.success:
         raise Problem(422, f"No plan: {result.message}", kind="infeasible")
     start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
-    plan = plan_store.add_plan(session, truck, sites, method=result.method, start_date=start,
-                               created_by=current_caller().name, inputs=inputs, result=result.to_dict())
+    plan = plan_store.add_plan(
+        session,
+        truck,
+        sites,
+        method=result.method,
+        start_date=start,
+        created_by=current_caller().name,
+        inputs=inputs,
+        result=result.to_dict(),
+    )
     return _json_response(plan_json(plan, truck.code), 201, Location=url_for("plans.PlanById", plan_id=plan.id))
 
 
@@ -95,11 +116,20 @@ class TruckPlans(MethodView):
     @blp.arguments(PlanRequestSchema)
     @blp.response(201, PlanSchema)
     @blp.alt_response(409, description="A request with the same Idempotency-Key is still running", **PROBLEM)
-    @blp.alt_response(422, description="Invalid body, no plannable sites, or Idempotency-Key reused with another body",
-                      **PROBLEM)
-    @blp.doc(parameters=[{"in": "header", "name": "Idempotency-Key", "required": False,
-                          "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
-                          "description": "Optional. Same key + same body → the first response; kept 24 h per token."}])
+    @blp.alt_response(
+        422, description="Invalid body, no plannable sites, or Idempotency-Key reused with another body", **PROBLEM
+    )
+    @blp.doc(
+        parameters=[
+            {
+                "in": "header",
+                "name": "Idempotency-Key",
+                "required": False,
+                "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
+                "description": "Optional. Same key + same body → the first response; kept 24 h per token.",
+            }
+        ]
+    )
     def post(self, body, code):
         """Compute and record a plan from the truck's active sites (honours Idempotency-Key)"""
         key = idempotency.parse_key(request.headers.get(idempotency.HEADER))
@@ -126,9 +156,10 @@ class TruckPlans(MethodView):
     @blp.response(200, PlanListSchema)
     def get(self, args, code):
         """History of the truck's plans, newest first (items omit trips and inputs)"""
-        truck = _truck(code)
-        rows, headers = page(get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args,
-                             descending=True, key_type=int)
+        truck = truck_or_404(code)
+        rows, headers = page(
+            get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args, descending=True, key_type=int
+        )
         return _json_response({"items": [plan_json(p, truck.code, heavy=False) for p in rows]}, **headers)
 
 
@@ -158,39 +189,73 @@ class PlanActivation(MethodView):
 
 def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
     if "week" in args and ("from_" in args or "to" in args):
-        raise Problem(422, "Give either week or from and to, not both.", kind="validation",
-                      errors=[{"pointer": "#/query/week", "detail": "Not with from/to."}])
+        raise Problem(
+            422,
+            "Give either week or from and to, not both.",
+            kind="validation",
+            errors=[{"pointer": "#/query/week", "detail": "Not with from/to."}],
+        )
     if "week" in args:
         try:
             return schedule.iso_week(args["week"])
         except ValueError as exc:
-            raise Problem(422, str(exc), kind="validation",
-                          errors=[{"pointer": "#/query/week", "detail": str(exc)}]) from exc
+            raise Problem(
+                422, str(exc), kind="validation", errors=[{"pointer": "#/query/week", "detail": str(exc)}]
+            ) from exc
     if "from_" not in args or "to" not in args:
-        raise Problem(422, "Give week=YYYY-Www, or both from and to (YYYY-MM-DD).", kind="validation",
-                      errors=[{"pointer": "#/query/week", "detail": "Missing."}])
+        raise Problem(
+            422,
+            "Give week=YYYY-Www, or both from and to (YYYY-MM-DD).",
+            kind="validation",
+            errors=[{"pointer": "#/query/week", "detail": "Missing."}],
+        )
     first, last = args["from_"], args["to"]
     if last < first:
-        raise Problem(422, "to is before from.", kind="validation", errors=[{"pointer": "#/query/to", "detail": "Before from."}])
+        raise Problem(
+            422, "to is before from.", kind="validation", errors=[{"pointer": "#/query/to", "detail": "Before from."}]
+        )
     if (last - first).days + 1 > MAX_WINDOW_DAYS:
-        raise Problem(422, f"At most {MAX_WINDOW_DAYS} days per call.", kind="validation",
-                      errors=[{"pointer": "#/query/to", "detail": f"More than {MAX_WINDOW_DAYS} days after from."}])
+        raise Problem(
+            422,
+            f"At most {MAX_WINDOW_DAYS} days per call.",
+            kind="validation",
+            errors=[{"pointer": "#/query/to", "detail": f"More than {MAX_WINDOW_DAYS} days after from."}],
+        )
     return first, last
 
 
 def notice_json(notice: schedule.Notice) -> dict[str, Any]:
-    return {"kind": notice.kind, "message": notice.message, "site": notice.site,
-            "date": notice.date.isoformat() if notice.date else None}
+    return {
+        "kind": notice.kind,
+        "message": notice.message,
+        "site": notice.site,
+        "date": notice.date.isoformat() if notice.date else None,
+    }
 
 
 def trips_json(view: schedule.TripsView) -> dict[str, Any]:
     return {
-        "truck": view.truck_code, "plan_id": view.plan.id if view.plan else None,
-        "from": view.first.isoformat(), "to": view.last.isoformat(),
-        "trips": [{"date": t.date.isoformat(), "load": t.load, "stops": [
-            {"site": s.site, "planned_quantity": s.planned_quantity, "quantity": s.quantity,
-             "projected_level_before": s.projected_level_before, "warnings": [notice_json(n) for n in s.notices]}
-            for s in t.stops]} for t in view.trips],
+        "truck": view.truck_code,
+        "plan_id": view.plan.id if view.plan else None,
+        "from": view.first.isoformat(),
+        "to": view.last.isoformat(),
+        "trips": [
+            {
+                "date": t.date.isoformat(),
+                "load": t.load,
+                "stops": [
+                    {
+                        "site": s.site,
+                        "planned_quantity": s.planned_quantity,
+                        "quantity": s.quantity,
+                        "projected_level_before": s.projected_level_before,
+                        "warnings": [notice_json(n) for n in s.notices],
+                    }
+                    for s in t.stops
+                ],
+            }
+            for t in view.trips
+        ],
         "warnings": [notice_json(n) for n in view.notices],
     }
 
@@ -205,7 +270,7 @@ class TruckTrips(MethodView):
     def get(self, args, code):
         """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
         first, last = _window(args)
-        truck = _truck(code)
+        truck = truck_or_404(code)
         try:
             view = schedule.trips_view(get_session(), truck, first, last, current_app.config["ULLAGE_SETTINGS"])
         except schedule.NoActivePlan as exc:

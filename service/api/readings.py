@@ -8,11 +8,11 @@ from sqlalchemy import select
 
 from service.api.blueprint import Blueprint
 from service.api.pagination import page
-from service.api.schemas.plans import PageArgsSchema, ReadingListSchema, ReadingRequestSchema, ReadingSchema
+from service.api.schemas.plans import IdPageArgsSchema, ReadingListSchema, ReadingRequestSchema, ReadingSchema
+from service.api.sites import site_or_404
 from service.auth import allow, current_caller
 from service.errors import Problem
 from service.persistence import plans as plan_store
-from service.persistence import repository as repo
 from service.persistence.db import get_session
 from service.persistence.models import Reading, utcnow
 
@@ -21,18 +21,16 @@ blp = Blueprint("readings", __name__, description="Tank level readings")
 CLOCK_SKEW = dt.timedelta(minutes=2)
 
 
-def _site(code: str):  # type: ignore[no-untyped-def]
-    try:
-        return repo.site_by_code(get_session(), code)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
-
-
 def dump(reading: Reading, code: str) -> dict:
     # In UTC, as stored: the POST answer then matches every later GET whatever offset was sent.
-    return {"id": reading.id, "site": code, "level": reading.level,
-            "measured_at": reading.measured_at.astimezone(dt.UTC),
-            "created_at": reading.created_at, "created_by": reading.created_by}
+    return {
+        "id": reading.id,
+        "site": code,
+        "level": reading.level,
+        "measured_at": reading.measured_at.astimezone(dt.UTC),
+        "created_at": reading.created_at,
+        "created_by": reading.created_by,
+    }
 
 
 @blp.route("/<string:code>/readings")
@@ -43,23 +41,37 @@ class SiteReadings(MethodView):
     def post(self, body, code):
         """Record a tank reading (0 ≤ level ≤ tank_capacity; measured_at with offset, not in the future)"""
         session = get_session()
-        site = _site(code)
+        site = site_or_404(code)
         if body["level"] > site.tank_capacity:
-            raise Problem(422, f"level {body['level']:g} is above the tank capacity {site.tank_capacity:g}.",
-                          kind="validation", errors=[{"pointer": "#/level", "detail": "Above tank_capacity."}])
+            raise Problem(
+                422,
+                f"level {body['level']:g} is above the tank capacity {site.tank_capacity:g}.",
+                kind="validation",
+                errors=[{"pointer": "#/level", "detail": "Above tank_capacity."}],
+            )
         if body["measured_at"] > utcnow() + CLOCK_SKEW:
-            raise Problem(422, "measured_at is in the future.", kind="validation",
-                          errors=[{"pointer": "#/measured_at", "detail": "In the future."}])
+            raise Problem(
+                422,
+                "measured_at is in the future.",
+                kind="validation",
+                errors=[{"pointer": "#/measured_at", "detail": "In the future."}],
+            )
         reading = plan_store.add_reading(session, site, body["level"], body["measured_at"], current_caller().name)
         session.commit()
         return dump(reading, site.code), {"Location": url_for("readings.SiteReadings", code=site.code)}
 
     @allow("viewer")
-    @blp.arguments(PageArgsSchema, location="query")
+    @blp.arguments(IdPageArgsSchema, location="query")
     @blp.response(200, ReadingListSchema)
     def get(self, args, code):
         """Readings of a site, newest first"""
-        site = _site(code)
-        rows, headers = page(get_session(), select(Reading).where(Reading.site_id == site.id), Reading.id, args,
-                             descending=True, key_type=int)
+        site = site_or_404(code)
+        rows, headers = page(
+            get_session(),
+            select(Reading).where(Reading.site_id == site.id),
+            Reading.id,
+            args,
+            descending=True,
+            key_type=int,
+        )
         return {"items": [dump(r, site.code) for r in rows]}, headers

@@ -5,7 +5,9 @@ from flask import current_app
 from flask.views import MethodView
 
 from service.api.blueprint import Blueprint
+from service.api.schemas.calculations import MAX_SITES
 from service.auth import allow
+from service.idempotency import TTL
 
 PREFIX = "/settings"
 blp = Blueprint("settings", __name__, description="Units, currency and time zone of this service")
@@ -30,6 +32,6 @@ class Settings(MethodView):
             "quantity_unit": settings.quantity_unit,
             "currency": settings.currency,
             "timezone": settings.timezone,
-            "max_sites_per_calculation": 100_000,
-            "idempotency_key_hours": 24,
+            "max_sites_per_calculation": MAX_SITES,
+            "idempotency_key_hours": int(TTL.total_seconds() // 3600),
         }

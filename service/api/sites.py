@@ -110,8 +110,12 @@ class SiteByCode(MethodView):
         try:
             check_safety_stock(merged)
         except ValidationError as exc:
-            raise Problem(422, "safety_stock must be below safe_fill × tank_capacity.", kind="validation",
-                          errors=flatten_messages(exc.normalized_messages())) from exc
+            raise Problem(
+                422,
+                "safety_stock must be below safe_fill × tank_capacity.",
+                kind="validation",
+                errors=flatten_messages(exc.normalized_messages()),
+            ) from exc
         if "truck" in data:
             data = data | {"truck_id": truck_for(data["truck"]).id}
         repo.apply_changes(site, data, (*repo.SITE_FIELDS, "truck_id"))
@@ -131,8 +135,12 @@ class SiteByCode(MethodView):
         site = site_or_404(code, for_update=True)
         require_if_match(etag(site))
         if repo.site_is_planned(session, site):
-            raise Problem(409, "Recorded plans reference this site, so it stays on file; PATCH it with "
-                          "active=false to take it out of future plans.", kind="conflict")
+            raise Problem(
+                409,
+                "Recorded plans reference this site, so it stays on file; PATCH it with "
+                "active=false to take it out of future plans.",
+                kind="conflict",
+            )
         repo.delete_site(session, site)
         session.commit()
 
@@ -148,8 +156,9 @@ class SiteImport(MethodView):
         """Create or update sites from CSV (all or nothing; ?dry_run=true checks only)"""
         session = get_session()
         unit = current_app.config["ULLAGE_SETTINGS"].quantity_unit
-        result = sites_csv.import_sites(session, request.get_data(cache=False), dry_run=args["dry_run"],
-                                        service_unit=unit)
+        result = sites_csv.import_sites(
+            session, request.get_data(cache=False), dry_run=args["dry_run"], service_unit=unit
+        )
         if args["dry_run"]:
             session.rollback()
         else:
@@ -164,5 +173,4 @@ class SiteExport(MethodView):
     def get(self):
         """All sites as CSV (text cells that could be read as formulas are defused)"""
         body = sites_csv.export_sites(get_session())
-        return Response(body, mimetype="text/csv",
-                        headers={"Content-Disposition": 'attachment; filename="sites.csv"'})
+        return Response(body, mimetype="text/csv", headers={"Content-Disposition": 'attachment; filename="sites.csv"'})

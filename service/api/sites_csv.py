@@ -31,8 +31,16 @@ from service.persistence.models import Site, Truck
 MAX_ROWS = 5000
 LITRES_PER_UNIT = {"L": 1.0, "gal": 3.785411784, "m3": 1000.0}
 VOLUME_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock")
-NUMBER_FIELDS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock",
-                 "latitude", "longitude")
+NUMBER_FIELDS = (
+    "demand_per_day",
+    "holding_cost",
+    "stop_cost",
+    "tank_capacity",
+    "safe_fill",
+    "safety_stock",
+    "latitude",
+    "longitude",
+)
 TEXT_FIELDS = ("code", "name", "truck")
 COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
@@ -88,14 +96,26 @@ def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], 
 def import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit: str) -> dict[str, Any]:
     """Validate every row, then create or update by ``code``; raise a 422 Problem naming bad rows."""
     try:
+        return _import_sites(session, body, dry_run=dry_run, service_unit=service_unit)
+    except csv.Error as exc:  # e.g. a bare CR inside a field: a 500 before (found by fuzzing)
+        raise Problem(
+            422, f"The CSV cannot be read: {exc}.", kind="validation", errors=[{"pointer": "#", "detail": str(exc)}]
+        ) from exc
+
+
+def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit: str) -> dict[str, Any]:
+    try:
         text = body.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise Problem(422, "The CSV must be UTF-8.", kind="validation") from exc
     reader = csv.DictReader(io.StringIO(text))
     header = reader.fieldnames or []
     unknown = [h for h in header if h not in (*COLUMNS, "unit")]
-    missing = [h for h in ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
-               if h not in header]
+    missing = [
+        h
+        for h in ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
+        if h not in header
+    ]
     if unknown or missing:
         errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
         errors += [{"pointer": f"#/header/{h}", "detail": "Missing column."} for h in missing]
@@ -123,19 +143,28 @@ def import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit: 
                     errors.append({"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {msg}"})
             continue
         if loaded["truck"] not in trucks:
-            errors.append({"pointer": f"#/rows/{number}/truck",
-                           "detail": f"Row {number}, truck: no truck with code {loaded['truck']!r}."})
+            errors.append(
+                {
+                    "pointer": f"#/rows/{number}/truck",
+                    "detail": f"Row {number}, truck: no truck with code {loaded['truck']!r}.",
+                }
+            )
             continue
         if loaded["code"] in seen:
-            errors.append({"pointer": f"#/rows/{number}/code",
-                           "detail": f"Row {number}, code: {loaded['code']!r} appears twice."})
+            errors.append(
+                {"pointer": f"#/rows/{number}/code", "detail": f"Row {number}, code: {loaded['code']!r} appears twice."}
+            )
             continue
         seen.add(loaded["code"])
         rows.append(loaded)
     if errors:
         bad_rows = sorted({int(e["pointer"].split("/")[2]) for e in errors})
-        raise Problem(422, f"Nothing was imported: {len(bad_rows)} bad row(s): {', '.join(map(str, bad_rows[:20]))}.",
-                      kind="validation", errors=errors)
+        raise Problem(
+            422,
+            f"Nothing was imported: {len(bad_rows)} bad row(s): {', '.join(map(str, bad_rows[:20]))}.",
+            kind="validation",
+            errors=errors,
+        )
     if not rows:
         raise Problem(422, "The CSV has no rows.", kind="validation")
     existing = {s.code: s for s in session.scalars(select(Site).where(Site.code.in_(seen)))}

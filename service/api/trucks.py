@@ -92,7 +92,10 @@ class TruckByCode(MethodView):
         truck = truck_or_404(code, for_update=True)
         require_if_match(etag(truck))
         if repo.truck_is_referenced(session, truck):
-            raise Problem(409, "Sites or recorded plans reference this truck; move its sites first, or PATCH "
-                          "it with active=false.", kind="conflict")
+            raise Problem(
+                409,
+                "Sites or recorded plans reference this truck; move its sites first, or PATCH it with active=false.",
+                kind="conflict",
+            )
         session.delete(truck)
         session.commit()

@@ -19,8 +19,9 @@ SITE_INPUTS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "
 
 
 def truck_input(snapshot: dict[str, Any]) -> TruckInput:
-    return TruckInput(dispatch_cost=snapshot["dispatch_cost"], capacity=snapshot["capacity"],
-                      max_stops=snapshot["max_stops"])
+    return TruckInput(
+        dispatch_cost=snapshot["dispatch_cost"], capacity=snapshot["capacity"], max_stops=snapshot["max_stops"]
+    )
 
 
 def site_inputs(snapshot: Sequence[dict[str, Any]]) -> list[SiteInput]:
@@ -30,10 +31,17 @@ def site_inputs(snapshot: Sequence[dict[str, Any]]) -> list[SiteInput]:
 def snapshot(truck: Truck, sites: Iterable[Site]) -> dict[str, Any]:
     """Every input a plan is computed from, with the row versions."""
     return {
-        "truck": {"code": truck.code, "dispatch_cost": truck.dispatch_cost, "capacity": truck.capacity,
-                  "max_stops": truck.max_stops, "version": truck.version},
-        "sites": [{"code": s.code, "name": s.name, "version": s.version, **{k: getattr(s, k) for k in SITE_INPUTS}}
-                  for s in sites],
+        "truck": {
+            "code": truck.code,
+            "dispatch_cost": truck.dispatch_cost,
+            "capacity": truck.capacity,
+            "max_stops": truck.max_stops,
+            "version": truck.version,
+        },
+        "sites": [
+            {"code": s.code, "name": s.name, "version": s.version, **{k: getattr(s, k) for k in SITE_INPUTS}}
+            for s in sites
+        ],
     }
 
 
@@ -52,10 +60,27 @@ def sites_for_plan(session: Session, truck: Truck) -> list[Site]:
     return sites
 
 
-def add_plan(session: Session, truck: Truck, sites: Sequence[Site], *, method: str, start_date: dt.date,
-             created_by: str, inputs: dict[str, Any], result: dict[str, Any]) -> Plan:
-    plan = Plan(truck_id=truck.id, status="proposed", method=method, start_date=start_date, created_by=created_by,
-                inputs=inputs, inputs_digest=digest(inputs), result=result)
+def add_plan(
+    session: Session,
+    truck: Truck,
+    sites: Sequence[Site],
+    *,
+    method: str,
+    start_date: dt.date,
+    created_by: str,
+    inputs: dict[str, Any],
+    result: dict[str, Any],
+) -> Plan:
+    plan = Plan(
+        truck_id=truck.id,
+        status="proposed",
+        method=method,
+        start_date=start_date,
+        created_by=created_by,
+        inputs=inputs,
+        inputs_digest=digest(inputs),
+        result=result,
+    )
     session.add(plan)
     session.flush()
     session.add_all(PlanSite(plan_id=plan.id, site_id=s.id) for s in sites)
@@ -83,8 +108,9 @@ def activate(session: Session, plan: Plan) -> Plan:
     session.scalars(lock_for_update(session, select(Truck).where(Truck.id == plan.truck_id))).one()
     session.refresh(plan)
     if plan.status != "active":
-        session.execute(update(Plan).where(Plan.truck_id == plan.truck_id, Plan.status == "active")
-                        .values(status="superseded"))
+        session.execute(
+            update(Plan).where(Plan.truck_id == plan.truck_id, Plan.status == "active").values(status="superseded")
+        )
         session.execute(update(Plan).where(Plan.id == plan.id).values(status="active"))
         session.flush()
         session.refresh(plan)
@@ -95,8 +121,11 @@ def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
     """Whether the truck or its active sites moved since the plan, and which sites changed."""
     recorded = {s["code"]: s["version"] for s in plan.inputs["sites"]}
     truck = session.get(Truck, plan.truck_id)
-    current = dict(session.execute(
-        select(Site.code, Site.version).where(Site.truck_id == plan.truck_id, Site.active.is_(True))).all())
+    current = dict(
+        session.execute(
+            select(Site.code, Site.version).where(Site.truck_id == plan.truck_id, Site.active.is_(True))
+        ).all()
+    )
     changed = sorted(code for code in recorded.keys() | current.keys() if recorded.get(code) != current.get(code))
     truck_moved = truck is None or truck.version != plan.inputs["truck"]["version"]
     return bool(changed) or truck_moved, changed
@@ -125,8 +154,15 @@ def latest_readings(session: Session, site_ids: Iterable[int]) -> dict[int, Read
     ids = list(site_ids)
     if not ids:
         return {}
-    newest = (select(Reading.site_id, func.max(Reading.measured_at).label("at"))
-              .where(Reading.site_id.in_(ids)).group_by(Reading.site_id).subquery())
-    rows = session.scalars(select(Reading).join(newest, (Reading.site_id == newest.c.site_id)
-                                                & (Reading.measured_at == newest.c.at)).order_by(Reading.id))
+    newest = (
+        select(Reading.site_id, func.max(Reading.measured_at).label("at"))
+        .where(Reading.site_id.in_(ids))
+        .group_by(Reading.site_id)
+        .subquery()
+    )
+    rows = session.scalars(
+        select(Reading)
+        .join(newest, (Reading.site_id == newest.c.site_id) & (Reading.measured_at == newest.c.at))
+        .order_by(Reading.id)
+    )
     return {r.site_id: r for r in rows}

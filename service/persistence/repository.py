@@ -10,8 +10,18 @@ from sqlalchemy.orm import Session
 
 from service.persistence.models import Plan, PlanSite, Reading, Site, Token, Truck, utcnow
 
-SITE_FIELDS = ("name", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill",
-               "safety_stock", "active", "latitude", "longitude")
+SITE_FIELDS = (
+    "name",
+    "demand_per_day",
+    "holding_cost",
+    "stop_cost",
+    "tank_capacity",
+    "safe_fill",
+    "safety_stock",
+    "active",
+    "latitude",
+    "longitude",
+)
 TRUCK_FIELDS = ("name", "dispatch_cost", "capacity", "max_stops", "active")
 
 
@@ -97,7 +107,9 @@ def truck_is_referenced(session: Session, truck: Truck) -> bool:
 
 def active_sites(session: Session, truck: Truck) -> list[Site]:
     """The truck's active sites in code order (the order plans are computed in)."""
-    return list(session.scalars(select(Site).where(Site.truck_id == truck.id, Site.active.is_(True)).order_by(Site.code)))
+    return list(
+        session.scalars(select(Site).where(Site.truck_id == truck.id, Site.active.is_(True)).order_by(Site.code))
+    )
 
 
 def count_rows(session: Session, model: type) -> int:

@@ -90,6 +90,6 @@ class Calendar:
         trips = []
         for group in self.split(sites):
             q = self.quantity[group].tolist()
-            stops = tuple(Stop(self.codes[i], x) for i, x in zip(group.tolist(), q))
+            stops = tuple(Stop(self.codes[i], x) for i, x in zip(group.tolist(), q, strict=True))
             trips.append(Trip(day=int(day), load=float(sum(q)), stops=stops))
         return trips

@@ -109,7 +109,9 @@ def check_truck_number(value, field: str, *, optional: bool, integer: bool, mini
         return None
     kind = "an integer" if integer else "a finite number"
     wording = f"{kind} {'>' if strict else '>='} {minimum:g}" + (" or null" if optional else "")
-    ok_type = isinstance(value, (int, np.integer)) if integer else isinstance(value, (int, float, np.integer, np.floating))
+    ok_type = (
+        isinstance(value, (int, np.integer)) if integer else isinstance(value, (int, float, np.integer, np.floating))
+    )
     if isinstance(value, bool) or not ok_type:
         raise PlanningInputError(f"truck: {field} must be {wording}, got {value!r}", field=field)
     x = float(value)
@@ -137,7 +139,9 @@ def validate(sites: Sequence[SiteInput], truck: TruckInput) -> Problem:
     seen: dict[str, int] = {}
     for i, site in enumerate(sites):
         if not isinstance(site.code, str) or not site.code:
-            raise PlanningInputError(f"site #{i}: code must be a non-empty string, got {site.code!r}", field="code", index=i)
+            raise PlanningInputError(
+                f"site #{i}: code must be a non-empty string, got {site.code!r}", field="code", index=i
+            )
         if site.code in seen:
             raise _site_error(sites, i, "code", f"code is a duplicate of site #{seen[site.code]}")
         seen[site.code] = i
@@ -158,7 +162,9 @@ def validate(sites: Sequence[SiteInput], truck: TruckInput) -> Problem:
     if short.any():
         i = int(np.argmax(short))
         raise _site_error(
-            sites, i, "tank_capacity",
+            sites,
+            i,
+            "tank_capacity",
             f"usable stock {usable[i]:g} holds less than one day of demand {d[i]:g} "
             "(tank_capacity × safe_fill − safety_stock, capped by truck capacity)",
         )

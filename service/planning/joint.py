@@ -8,8 +8,8 @@ from dataclasses import replace
 
 import numpy as np
 
-from service.planning.delivery_calendar import LOAD_TOLERANCE, Calendar
 from service.planning.cycle_cost import cycle_cost
+from service.planning.delivery_calendar import LOAD_TOLERANCE, Calendar
 from service.planning.errors import PlanningInputError
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
 from service.planning.integer_multiple import integer_policy
@@ -49,12 +49,24 @@ def _base_too_long(base_days: int, problem: Problem) -> str:
 
 def _infeasible(base_days: int, problem: Problem, relaxation: Relaxation) -> JointResult:
     return JointResult(
-        status=Status.INFEASIBLE, success=False, message=_base_too_long(base_days, problem), method="power_of_two",
+        status=Status.INFEASIBLE,
+        success=False,
+        message=_base_too_long(base_days, problem),
+        method="power_of_two",
         base_days=base_days,
-        dispatch_interval_days=0, repeat_days=0, trips_per_repeat=0, cost_per_day=0.0,
+        dispatch_interval_days=0,
+        repeat_days=0,
+        trips_per_repeat=0,
+        cost_per_day=0.0,
         cost_breakdown={"dispatch": 0.0, "stops": 0.0, "holding": 0.0},
-        lower_bound_per_day=relaxation.value, gap=0.0, peak_load=0.0, extra_trips=0,
-        trips_truncated=False, sites=(), trips=(), warnings=(),
+        lower_bound_per_day=relaxation.value,
+        gap=0.0,
+        peak_load=0.0,
+        extra_trips=0,
+        trips_truncated=False,
+        sites=(),
+        trips=(),
+        warnings=(),
     )
 
 
@@ -133,18 +145,34 @@ def _assemble(problem: Problem, relaxation: Relaxation, policy: Policy) -> Joint
     sites = tuple(
         SitePlan(code, T, o, q, c, b or None)
         for code, T, o, q, c, b in zip(
-            problem.codes, cycles.tolist(), offsets.tolist(), quantity.tolist(), site_cost.tolist(), binding.tolist()
+            problem.codes,
+            cycles.tolist(),
+            offsets.tolist(),
+            quantity.tolist(),
+            site_cost.tolist(),
+            binding.tolist(),
+            strict=True,
         )
     )
     return JointResult(
-        status=Status.OPTIMAL, success=True, message=f"optimal {policy.method} policy", method=policy.method,
-        base_days=policy.base_days, dispatch_interval_days=T0, repeat_days=repeat,
-        trips_per_repeat=period + extra, cost_per_day=cost,
+        status=Status.OPTIMAL,
+        success=True,
+        message=f"optimal {policy.method} policy",
+        method=policy.method,
+        base_days=policy.base_days,
+        dispatch_interval_days=T0,
+        repeat_days=repeat,
+        trips_per_repeat=period + extra,
+        cost_per_day=cost,
         cost_breakdown={"dispatch": dispatch, "stops": stops, "holding": holding},
         lower_bound_per_day=relaxation.value,
         gap=cost / relaxation.value - 1.0 if relaxation.value > 0 else 0.0,
-        peak_load=peak, extra_trips=extra, trips_truncated=truncated,
-        sites=sites, trips=tuple(trips), warnings=tuple(warnings),
+        peak_load=peak,
+        extra_trips=extra,
+        trips_truncated=truncated,
+        sites=sites,
+        trips=tuple(trips),
+        warnings=tuple(warnings),
     )
 
 
@@ -188,6 +216,7 @@ def plan_joint(
         results.append(_assemble(problem, relaxation, integer_policy(problem, relaxation)))
     chosen = min(results, key=lambda r: r.cost_per_day)
     if not base_fits:
-        chosen = replace(chosen, warnings=chosen.warnings + (f"power_of_two skipped: {_base_too_long(int(base_days), problem)}",))
+        chosen = replace(
+            chosen, warnings=chosen.warnings + (f"power_of_two skipped: {_base_too_long(int(base_days), problem)}",)
+        )
     return chosen
-

@@ -73,7 +73,9 @@ def _whole_day_exponent_caps(whole_days: np.ndarray, base: int) -> np.ndarray:
 
 def _policy_for_base(problem: Problem, base: int) -> Policy:
     p_hi = _whole_day_exponent_caps(problem.whole_days, base)
-    cost, q, p = _best_for_base(problem.dispatch_cost, problem.stop_cost, problem.H, float(base), 0, int(p_hi.min()), p_hi)
+    cost, q, p = _best_for_base(
+        problem.dispatch_cost, problem.stop_cost, problem.H, float(base), 0, int(p_hi.min()), p_hi
+    )
     cycles = base << p
     return Policy("power_of_two", base, int(base << q), cycles, 2 * cycles, cost)
 

@@ -115,8 +115,9 @@ class Projection:
         self._states: dict[str, _State] = {}
         for tank in self.tanks.values():
             if tank.reading_level is not None and tank.reading_at is not None:
-                self._states[tank.code] = _State(tank.reading_level, tank.reading_at,
-                                                 [(tank.reading_at, tank.reading_level)])
+                self._states[tank.code] = _State(
+                    tank.reading_level, tank.reading_at, [(tank.reading_at, tank.reading_level)]
+                )
 
     def _level_at(self, state: _State, tank: Tank, when: dt.datetime) -> float:
         return max(0.0, state.level - tank.demand_per_day * _days(when, state.at))

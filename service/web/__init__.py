@@ -50,7 +50,7 @@ from service.auth import SESSION, Caller, allow, caller_from_token
 from service.errors import Problem
 from service.persistence import repository as repo
 from service.persistence.db import get_session
-from service.persistence.models import Site, Token, Truck
+from service.persistence.models import Token, Truck
 from service.web import formatting
 from service.web.chart import chart_id, level_svg
 
@@ -63,7 +63,7 @@ FIRST_YEAR, LAST_YEAR = 1900, 2999  # weeks the page shows (and their neighbours
 
 PAGE_HEADERS = {
     "Content-Security-Policy": "default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; "
-                               "frame-ancestors 'none'; base-uri 'none'",
+    "frame-ancestors 'none'; base-uri 'none'",
     "X-Content-Type-Options": "nosniff",
     "Cache-Control": "no-store",
     "Referrer-Policy": "no-referrer",
@@ -150,11 +150,16 @@ def csrf_token() -> str:
 def check_csrf() -> None:
     sent = request.form.get("csrf", "")
     expected = session.get("csrf")
-    if not isinstance(expected, str) or not expected or not hmac.compare_digest(
-        sent.encode("utf-8"), expected.encode("utf-8")
+    if (
+        not isinstance(expected, str)
+        or not expected
+        or not hmac.compare_digest(sent.encode("utf-8"), expected.encode("utf-8"))
     ):
-        raise Problem(400, "The form had expired or did not come from this page. Reload the page and try again.",
-                      title="Form expired")
+        raise Problem(
+            400,
+            "The form had expired or did not come from this page. Reload the page and try again.",
+            title="Form expired",
+        )
 
 
 def signed_in() -> Caller | None:
@@ -237,11 +242,13 @@ def sign_in() -> Any:
     caller = caller_from_token(token) if token and len(token) <= MAX_TOKEN_CHARS else None
     if caller is None:
         log.info("status page: sign-in refused")
-        return render_template("status_sign_in.html", next=target, already=None,
-                               error="That token is not valid or has been revoked."), 401
+        return render_template(
+            "status_sign_in.html", next=target, already=None, error="That token is not valid or has been revoked."
+        ), 401
     session.clear()
-    session.update(uid=caller.token_id, name=caller.name, role=caller.role, at=int(time.time()),
-                   csrf=secrets.token_urlsafe(32))
+    session.update(
+        uid=caller.token_id, name=caller.name, role=caller.role, at=int(time.time()), csrf=secrets.token_urlsafe(32)
+    )
     g.caller = caller
     return redirect(target or url_for("status.overview"), 303)
 
@@ -280,11 +287,15 @@ def overview() -> Any:
         warnings.extend(panel["warnings"])
     return render_template(
         "status_overview.html",
-        week=week, monday=monday, sunday=sunday,
+        week=week,
+        monday=monday,
+        sunday=sunday,
         previous_week=formatting.iso_week_of(monday - dt.timedelta(days=7)),
         next_week=formatting.iso_week_of(monday + dt.timedelta(days=7)),
         this_week=sched.current_week(config),
-        panels=panels, warnings=_sorted_warnings(warnings), chart_days=CHART_DAYS,
+        panels=panels,
+        warnings=_sorted_warnings(warnings),
+        chart_days=CHART_DAYS,
     )
 
 
@@ -306,8 +317,15 @@ def site_page(code: str) -> Any:
     last = first + dt.timedelta(days=CHART_DAYS - 1)
     deliveries = [(d, q) for d, q in levels.deliveries if first <= d <= last]
     return render_template(
-        "status_site.html", site=site, truck=truck, levels=levels, chart=chart, first=first, last=last,
-        deliveries=deliveries, delivery_dates={d for d, _ in deliveries},
+        "status_site.html",
+        site=site,
+        truck=truck,
+        levels=levels,
+        chart=chart,
+        first=first,
+        last=last,
+        deliveries=deliveries,
+        delivery_dates={d for d, _ in deliveries},
         has_level=any(v is not None for _, v in levels.days),
         warnings=_sorted_warnings(_dedupe(levels.notices)),
         week=formatting.iso_week_of(first),
@@ -327,7 +345,9 @@ def today(config: Any) -> dt.date:
     return dt.datetime.now(zoneinfo.ZoneInfo(config.timezone)).date()
 
 
-def _truck_panel(sched: ModuleType, db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config: Any) -> dict[str, Any]:
+def _truck_panel(
+    sched: ModuleType, db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config: Any
+) -> dict[str, Any]:
     view, notices = None, []
     try:
         view = sched.trips_view(db, truck, monday, sunday, config)
@@ -340,22 +360,34 @@ def _truck_panel(sched: ModuleType, db: Any, truck: Truck, monday: dt.date, sund
             for stop in trip.stops:
                 notices.extend(stop.notices)
         if plan is None:
-            notices.append(_notice("no_active_plan", f"Truck {truck.code} has no active plan, so no trips are scheduled."))
+            notices.append(
+                _notice("no_active_plan", f"Truck {truck.code} has no active plan, so no trips are scheduled.")
+            )
         elif plan.stale and not any(n.kind == "plan_stale" for n in notices):
             changed = ", ".join(plan.changed_sites) or "some sites"
-            notices.append(_notice("plan_stale", f"The plan for {truck.code} is out of date: {changed} changed since it was made."))
+            notices.append(
+                _notice("plan_stale", f"The plan for {truck.code} is out of date: {changed} changed since it was made.")
+            )
     sites = repo.active_sites(db, truck)
     charts = []
     for site in sites:
         levels = sched.site_levels(db, site, monday, CHART_DAYS, config)
         notices.extend(levels.notices)
         label = f"{site.name} ({site.code})"
-        charts.append({
-            "site": site, "levels": levels,
-            "svg": level_svg(levels, unit=config.quantity_unit, site_label=label,
-                             element_id=chart_id(f"mini-{truck.code}", site.code), small=True),
-            "has_level": any(v is not None for _, v in levels.days),
-        })
+        charts.append(
+            {
+                "site": site,
+                "levels": levels,
+                "svg": level_svg(
+                    levels,
+                    unit=config.quantity_unit,
+                    site_label=label,
+                    element_id=chart_id(f"mini-{truck.code}", site.code),
+                    small=True,
+                ),
+                "has_level": any(v is not None for _, v in levels.days),
+            }
+        )
     if plan is None:  # the truck's own notice says it; one per site would only repeat it
         notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
     warnings = [dict(w, truck=truck.code) for w in _group_readings(_dedupe(notices), truck)]
@@ -369,8 +401,11 @@ def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[st
     if len(missing) <= 2:
         return notices
     sites = [n["site"] for n in missing]
-    merged = _notice("no_recent_reading", f"{len(sites)} sites of truck {truck.code} have no recent reading; "
-                     "their levels and quantities follow the plan, not a gauge:")
+    merged = _notice(
+        "no_recent_reading",
+        f"{len(sites)} sites of truck {truck.code} have no recent reading; "
+        "their levels and quantities follow the plan, not a gauge:",
+    )
     merged["sites"] = sites
     out = [n for n in notices if n not in missing]
     out.append(merged)
@@ -402,8 +437,10 @@ def _sorted_warnings(notices: list[dict[str, Any]]) -> list[dict[str, Any]]:
         order = NOTICE_KINDS.get(notice["kind"], (notice["kind"], 9))[1]
         return (order, notice["date"] or dt.date.max, notice.get("truck") or "", notice["site"] or "")
 
-    return [dict(n, label=NOTICE_KINDS.get(n["kind"], (n["kind"].replace("_", " ").capitalize(), 9))[0])
-            for n in sorted(notices, key=key)]
+    return [
+        dict(n, label=NOTICE_KINDS.get(n["kind"], (n["kind"].replace("_", " ").capitalize(), 9))[0])
+        for n in sorted(notices, key=key)
+    ]
 
 
 def init_app(app: Flask) -> None:

@@ -43,7 +43,9 @@ class Size:
 
 
 FULL = Size(width=760, height=320, left=86, right=112, top=18, bottom=46, x_ticks_every=7, y_ticks=5, line_labels=True)
-SMALL = Size(width=360, height=150, left=78, right=12, top=10, bottom=30, x_ticks_every=None, y_ticks=2, line_labels=False)
+SMALL = Size(
+    width=360, height=150, left=78, right=12, top=10, bottom=30, x_ticks_every=None, y_ticks=2, line_labels=False
+)
 
 _ID_SAFE = re.compile(r"[^A-Za-z0-9_-]")
 
@@ -107,8 +109,10 @@ def level_svg(levels: Any, *, unit: str, site_label: str, element_id: str, small
     while tick <= top_value + 1e-9:
         ty = y(tick)
         parts.append(f'<line class="grid" x1="{size.left}" x2="{size.left + plot_w}" y1="{_num(ty)}" y2="{_num(ty)}"/>')
-        parts.append(f'<text class="tick-label" x="{size.left - 6}" y="{_num(ty + 4)}" text-anchor="end">'
-                     f'{escape(quantity(tick, unit))}</text>')
+        parts.append(
+            f'<text class="tick-label" x="{size.left - 6}" y="{_num(ty + 4)}" text-anchor="end">'
+            f"{escape(quantity(tick, unit))}</text>"
+        )
         tick += step
     parts.append("</g>")
 
@@ -127,7 +131,9 @@ def level_svg(levels: Any, *, unit: str, site_label: str, element_id: str, small
         tx = x(offset)
         anchor = "start" if offset == 0 else ("end" if offset == count - 1 and small else "middle")
         parts.append(f'<line class="tick" x1="{_num(tx)}" x2="{_num(tx)}" y1="{base}" y2="{base + 5}"/>')
-        parts.append(f'<text class="tick-label" x="{_num(tx)}" y="{base + 18}" text-anchor="{anchor}">{day.isoformat()}</text>')
+        parts.append(
+            f'<text class="tick-label" x="{_num(tx)}" y="{base + 18}" text-anchor="{anchor}">{day.isoformat()}</text>'
+        )
     parts.append("</g>")
 
     # Reference lines.
@@ -137,11 +143,15 @@ def level_svg(levels: Any, *, unit: str, site_label: str, element_id: str, small
         ("safety-stock-line", float(levels.safety_stock), "safety stock"),
     ):
         ly = _num(y(value))
-        parts.append(f'<line class="{css}" x1="{size.left}" x2="{size.left + plot_w}" y1="{ly}" y2="{ly}">'
-                     f'<title>{escape(label)}: {escape(quantity(value, unit))}</title></line>')
+        parts.append(
+            f'<line class="{css}" x1="{size.left}" x2="{size.left + plot_w}" y1="{ly}" y2="{ly}">'
+            f"<title>{escape(label)}: {escape(quantity(value, unit))}</title></line>"
+        )
         if size.line_labels:
-            parts.append(f'<text class="line-label {css}-label" x="{size.left + plot_w + 6}" y="{_num(y(value) + 4)}">'
-                         f'{escape(label)}</text>')
+            parts.append(
+                f'<text class="line-label {css}-label" x="{size.left + plot_w + 6}" y="{_num(y(value) + 4)}">'
+                f"{escape(label)}</text>"
+            )
 
     # Level line, broken where there is no projected level.
     segment: list[str] = []
@@ -162,8 +172,10 @@ def level_svg(levels: Any, *, unit: str, site_label: str, element_id: str, small
         else:
             parts.append(f'<polyline class="level-line" points="{" ".join(points)}"/>')
     if not known:
-        parts.append(f'<text class="no-level" x="{_num(size.left + plot_w / 2)}" y="{_num(size.top + plot_h / 2)}" '
-                     f'text-anchor="middle">No reading: no level projected</text>')
+        parts.append(
+            f'<text class="no-level" x="{_num(size.left + plot_w / 2)}" y="{_num(size.top + plot_h / 2)}" '
+            f'text-anchor="middle">No reading: no level projected</text>'
+        )
 
     # Planned deliveries: one marker each, a triangle on the date axis and a faint guide.
     half = 4 if small else 6
@@ -171,7 +183,7 @@ def level_svg(levels: Any, *, unit: str, site_label: str, element_id: str, small
         mx = x((day - first).days + 0.5)
         parts.append(
             f'<g class="delivery-marker" data-date="{day.isoformat()}">'
-            f'<title>Planned delivery {day.isoformat()}: {escape(quantity(float(amount), unit))}</title>'
+            f"<title>Planned delivery {day.isoformat()}: {escape(quantity(float(amount), unit))}</title>"
             f'<line class="delivery-guide" x1="{_num(mx)}" x2="{_num(mx)}" y1="{size.top}" y2="{base}"/>'
             f'<path class="delivery-shape" d="M{_num(mx)},{_num(base - 2 * half)} l{half},{2 * half} l{-2 * half},0 z"/>'
             f"</g>"
@@ -180,8 +192,9 @@ def level_svg(levels: Any, *, unit: str, site_label: str, element_id: str, small
     return Markup("".join(parts))
 
 
-def _describe(levels: Any, days: Sequence[tuple[dt.date, float | None]], deliveries: Sequence[tuple[dt.date, float]],
-              unit: str) -> str:
+def _describe(
+    levels: Any, days: Sequence[tuple[dt.date, float | None]], deliveries: Sequence[tuple[dt.date, float]], unit: str
+) -> str:
     known = [(d, v) for d, v in days if v is not None]
     words = [
         f"Tank capacity {quantity(float(levels.tank_capacity), unit)}, safe fill level "

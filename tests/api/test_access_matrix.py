@@ -50,8 +50,10 @@ def routes(app):
 def concrete_url(app, rule, method: str) -> str:
     """A URL for ``rule`` with made-up path values (codes that do not exist)."""
     adapter = app.url_map.bind("localhost")
-    candidates = {name: (["999999"] if isinstance(conv, IntegerConverter) else ["NOPE", "2026-W01", "1"])
-                  for name, conv in rule._converters.items()}
+    candidates = {
+        name: (["999999"] if isinstance(conv, IntegerConverter) else ["NOPE", "2026-W01", "1"])
+        for name, conv in rule._converters.items()
+    }
     for attempt in range(3):
         values = {name: options[min(attempt, len(options) - 1)] for name, options in candidates.items()}
         try:
@@ -119,11 +121,17 @@ def test_matrix_on_every_token_route(client, app, auth):
     assert deviations == []
 
 
-@pytest.mark.parametrize(("method", "url", "role"), [
-    ("post", "/api/v1/sites", "viewer"), ("post", "/api/v1/sites", "dispatcher"),
-    ("post", "/api/v1/trucks", "dispatcher"), ("patch", "/api/v1/sites/X", "dispatcher"),
-    ("delete", "/api/v1/trucks/X", "viewer"), ("post", "/api/v1/sites/import", "dispatcher"),
-])
+@pytest.mark.parametrize(
+    ("method", "url", "role"),
+    [
+        ("post", "/api/v1/sites", "viewer"),
+        ("post", "/api/v1/sites", "dispatcher"),
+        ("post", "/api/v1/trucks", "dispatcher"),
+        ("patch", "/api/v1/sites/X", "dispatcher"),
+        ("delete", "/api/v1/trucks/X", "viewer"),
+        ("post", "/api/v1/sites/import", "dispatcher"),
+    ],
+)
 def test_wrong_role_is_403_problem(client, auth, method, url, role):
     response = getattr(client, method)(url, headers=auth(role), json={})
     assert response.status_code == 403

@@ -14,13 +14,34 @@ from sqlalchemy import func, select
 from service.persistence.models import Site, Truck
 
 TRUCK = {"code": "T1", "name": "Truck one", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
-SITE = {"code": "S1", "name": "Site one", "truck": "T0", "demand_per_day": 300.0, "holding_cost": 0.001,
-        "stop_cost": 30.0, "tank_capacity": 10000.0, "safe_fill": 0.9, "safety_stock": 100.0,
-        "latitude": 51.7, "longitude": -3.4}
+SITE = {
+    "code": "S1",
+    "name": "Site one",
+    "truck": "T0",
+    "demand_per_day": 300.0,
+    "holding_cost": 0.001,
+    "stop_cost": 30.0,
+    "tank_capacity": 10000.0,
+    "safe_fill": 0.9,
+    "safety_stock": 100.0,
+    "latitude": 51.7,
+    "longitude": -3.4,
+}
 
-SPECIAL = {"NaN": "NaN", "Infinity": "Infinity", "-Infinity": "-Infinity", "1e400": "1e400", "-1e400": "-1e400",
-           "10**400": "1" + "0" * 400, "string 5": '"5"', "string 12.5": '" 12.5 "', "true": "true",
-           "false": "false", "list": "[]", "object": "{}"}
+SPECIAL = {
+    "NaN": "NaN",
+    "Infinity": "Infinity",
+    "-Infinity": "-Infinity",
+    "1e400": "1e400",
+    "-1e400": "-1e400",
+    "10**400": "1" + "0" * 400,
+    "string 5": '"5"',
+    "string 12.5": '" 12.5 "',
+    "true": "true",
+    "false": "false",
+    "list": "[]",
+    "object": "{}",
+}
 
 #: field → (required, must be > 0, may be negative, is integer)
 SITE_NUMBERS = {
@@ -42,8 +63,8 @@ NULLABLE = {"latitude", "longitude", "max_stops"}
 
 
 def _cases():
-    for path, numbers, base in (("/api/v1/sites", SITE_NUMBERS, SITE), ("/api/v1/trucks", TRUCK_NUMBERS, TRUCK)):
-        for field, (required, positive, signed, integer) in numbers.items():
+    for path, numbers, _base in (("/api/v1/sites", SITE_NUMBERS, SITE), ("/api/v1/trucks", TRUCK_NUMBERS, TRUCK)):
+        for field, (_required, positive, signed, integer) in numbers.items():
             for label, raw in SPECIAL.items():
                 yield pytest.param(path, field, raw, id=f"{path.rsplit('/', 1)[1]}-{field}-{label}")
             if field not in NULLABLE:
@@ -79,8 +100,10 @@ def counted(client, auth, db_session):
     assert client.post("/api/v1/trucks", json=body, headers=auth("admin")).status_code == 201
 
     def counts():
-        return (db_session.scalar(select(func.count()).select_from(Truck)),
-                db_session.scalar(select(func.count()).select_from(Site)))
+        return (
+            db_session.scalar(select(func.count()).select_from(Truck)),
+            db_session.scalar(select(func.count()).select_from(Site)),
+        )
 
     return counts
 
@@ -107,8 +130,9 @@ def test_the_table_is_large_enough():
 def test_bad_number_is_422_naming_the_field_and_writes_nothing(client, auth, counted, path, field, raw):
     base = SITE if path.endswith("sites") else TRUCK
     before = counted()
-    response = client.post(path, data=raw_body(base, field, raw), headers=auth("admin"),
-                           content_type="application/json")
+    response = client.post(
+        path, data=raw_body(base, field, raw), headers=auth("admin"), content_type="application/json"
+    )
     body = assert_problem(response, 422, field)
     assert [e["pointer"] for e in body["errors"]] == [f"#/{field}"]
     assert counted() == before
@@ -132,8 +156,9 @@ def test_bad_code_is_422(client, auth, counted, code):
 
 
 @pytest.mark.parametrize("path", ["/api/v1/sites", "/api/v1/trucks"])
-@pytest.mark.parametrize("field", ["id", "version", "created_at", "updated_at", "truck_id", "demand_gal_per_day",
-                                   "unit", "currency"])
+@pytest.mark.parametrize(
+    "field", ["id", "version", "created_at", "updated_at", "truck_id", "demand_gal_per_day", "unit", "currency"]
+)
 def test_unknown_and_read_only_fields_are_refused(client, auth, counted, path, field):
     base = SITE if path.endswith("sites") else TRUCK
     before = counted()
@@ -146,8 +171,9 @@ def test_unknown_and_read_only_fields_are_refused(client, auth, counted, path, f
 def test_patch_refuses_read_only_and_unknown_fields(client, auth, counted, db_session, field):
     created = client.post("/api/v1/sites", json=SITE, headers=auth("admin"))
     etag = created.headers["ETag"]
-    response = client.patch("/api/v1/sites/S1", json={field: 5, "name": "changed"},
-                            headers=auth("admin", **{"If-Match": etag}))
+    response = client.patch(
+        "/api/v1/sites/S1", json={field: 5, "name": "changed"}, headers=auth("admin", **{"If-Match": etag})
+    )
     assert_problem(response, 422, field)
     assert db_session.scalars(select(Site.name)).one() == "Site one"
 
@@ -155,14 +181,19 @@ def test_patch_refuses_read_only_and_unknown_fields(client, auth, counted, db_se
 @pytest.mark.parametrize("raw", ["NaN", "Infinity", "1e400", '"5"', "true", "null", "0", "-1"])
 def test_patch_bad_numbers_are_422(client, auth, counted, db_session, raw):
     etag = client.post("/api/v1/sites", json=SITE, headers=auth("admin")).headers["ETag"]
-    response = client.patch("/api/v1/sites/S1", data=raw_body({}, "demand_per_day", raw),
-                            headers=auth("admin", **{"If-Match": etag}), content_type="application/json")
+    response = client.patch(
+        "/api/v1/sites/S1",
+        data=raw_body({}, "demand_per_day", raw),
+        headers=auth("admin", **{"If-Match": etag}),
+        content_type="application/json",
+    )
     assert_problem(response, 422, "demand_per_day")
     assert db_session.scalars(select(Site.version)).one() == 1
 
 
-@pytest.mark.parametrize("content_type", ["text/plain", "application/x-www-form-urlencoded", "text/csv",
-                                          "application/xml"])
+@pytest.mark.parametrize(
+    "content_type", ["text/plain", "application/x-www-form-urlencoded", "text/csv", "application/xml"]
+)
 def test_wrong_content_type_is_415(client, auth, counted, content_type):
     before = counted()
     response = client.post("/api/v1/trucks", data=json.dumps(TRUCK), headers=auth("admin"), content_type=content_type)
@@ -193,7 +224,9 @@ def test_oversized_json_body_is_413(client, app, auth, counted):
     assert limit == 1 << 20
     body = json.dumps(TRUCK | {"name": "x" * limit})
     before = counted()
-    assert_problem(client.post("/api/v1/trucks", data=body, headers=auth("admin"), content_type="application/json"), 413)
+    assert_problem(
+        client.post("/api/v1/trucks", data=body, headers=auth("admin"), content_type="application/json"), 413
+    )
     assert counted() == before
 
 
@@ -207,21 +240,27 @@ def test_oversized_csv_body_is_413(client, auth, counted):
     assert counted() == before
 
 
-@pytest.mark.parametrize(("method", "url"), [
-    ("get", "/api/v1/sites?wek=2026-W01"),
-    ("get", "/api/v1/sites?truck=T0&limt=5"),
-    ("get", "/api/v1/trucks?page=2"),
-    ("get", "/api/v1/trucks/T0?verbose=1"),
-    ("get", "/api/v1/settings?x=1"),
-    ("get", "/api/v1/sites/export?format=xlsx"),
-    ("post", "/api/v1/trucks?dry_run=true"),
-    ("post", "/api/v1/sites/import?dryrun=true"),
-])
+@pytest.mark.parametrize(
+    ("method", "url"),
+    [
+        ("get", "/api/v1/sites?wek=2026-W01"),
+        ("get", "/api/v1/sites?truck=T0&limt=5"),
+        ("get", "/api/v1/trucks?page=2"),
+        ("get", "/api/v1/trucks/T0?verbose=1"),
+        ("get", "/api/v1/settings?x=1"),
+        ("get", "/api/v1/sites/export?format=xlsx"),
+        ("post", "/api/v1/trucks?dry_run=true"),
+        ("post", "/api/v1/sites/import?dryrun=true"),
+    ],
+)
 def test_unknown_query_parameter_is_422(client, auth, counted, method, url):
     before = counted()
     kwargs = {"json": TRUCK} if url.startswith("/api/v1/trucks?") else {}
     if "import" in url:
-        kwargs = {"data": "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity\n", "content_type": "text/csv"}
+        kwargs = {
+            "data": "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity\n",
+            "content_type": "text/csv",
+        }
     response = getattr(client, method)(url, headers=auth("admin"), **kwargs)
     body = assert_problem(response, 422)
     name = url.split("?", 1)[1].split("&")[-1].split("=")[0]

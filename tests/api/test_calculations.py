@@ -13,24 +13,49 @@ CYCLE = "/api/v1/calculations/cycle"
 JOINT = "/api/v1/calculations/joint"
 
 JOINT_FIELDS = {
-    "method", "base_days", "dispatch_interval_days", "repeat_days", "cost_per_day", "cost_breakdown",
-    "lower_bound_per_day", "gap", "peak_load", "extra_trips", "trips_truncated", "sites", "trips", "warnings",
+    "method",
+    "base_days",
+    "dispatch_interval_days",
+    "repeat_days",
+    "cost_per_day",
+    "cost_breakdown",
+    "lower_bound_per_day",
+    "gap",
+    "peak_load",
+    "extra_trips",
+    "trips_truncated",
+    "sites",
+    "trips",
+    "warnings",
 }
-CYCLE_FIELDS = {"cycle_days_continuous", "cost_per_day_continuous", "cycle_days", "quantity", "cost_per_day",
-                "binding"}
+CYCLE_FIELDS = {"cycle_days_continuous", "cost_per_day_continuous", "cycle_days", "quantity", "cost_per_day", "binding"}
 TABLES = (Truck, Site, Plan, PlanSite, Reading, IdempotencyRecord)
 
 
 def c2(**extra):
     """Check value C2 of /work/shared/reference/check-values.md §1 (DERIVED, recomputed there):
     d = 1200 L/day, h = 0.002 $/L/day, K + k = 350, safe cap 20 000 L."""
-    return {"demand_per_day": 1200, "holding_cost": 0.002, "stop_cost": 50, "dispatch_cost": 300,
-            "tank_capacity": 20000, "safe_fill": 1.0, "safety_stock": 0} | extra
+    return {
+        "demand_per_day": 1200,
+        "holding_cost": 0.002,
+        "stop_cost": 50,
+        "dispatch_cost": 300,
+        "tank_capacity": 20000,
+        "safe_fill": 1.0,
+        "safety_stock": 0,
+    } | extra
 
 
 def joint_site(code: str, **extra):
-    return {"code": code, "demand_per_day": 500.0, "holding_cost": 0.002, "stop_cost": 25.0,
-            "tank_capacity": 20000.0, "safe_fill": 0.9, "safety_stock": 1000.0} | extra
+    return {
+        "code": code,
+        "demand_per_day": 500.0,
+        "holding_cost": 0.002,
+        "stop_cost": 25.0,
+        "tank_capacity": 20000.0,
+        "safe_fill": 0.9,
+        "safety_stock": 1000.0,
+    } | extra
 
 
 def joint_body(n: int = 4, **extra):
@@ -90,8 +115,11 @@ def test_cycle_tank_smaller_than_one_day_is_422_naming_the_field(client, auth, d
     assert [e["pointer"] for e in response.get_json()["errors"]] == ["#/tank_capacity"]
     assert "less than one day" in response.get_json()["detail"]
     # Safety stock eating the usable stock (0.5 × 1000 − 450 = 50 < 100 a day) is the same refusal.
-    response = client.post(CYCLE, json=c2(demand_per_day=100, tank_capacity=1000, safe_fill=0.5, safety_stock=450),
-                           headers=auth("dispatcher"))
+    response = client.post(
+        CYCLE,
+        json=c2(demand_per_day=100, tank_capacity=1000, safe_fill=0.5, safety_stock=450),
+        headers=auth("dispatcher"),
+    )
     assert response.status_code == 422
     assert [e["pointer"] for e in response.get_json()["errors"]] == ["#/tank_capacity"]
     assert counts(db_session) == before
@@ -170,10 +198,10 @@ def test_joint_breakdown_sums_to_cost_and_bound(client, auth):
         body = response.get_json()
         breakdown = body["cost_breakdown"]
         assert breakdown["dispatch"] + breakdown["stops"] + breakdown["holding"] == pytest.approx(
-            body["cost_per_day"], rel=1e-9)
+            body["cost_per_day"], rel=1e-9
+        )
         assert body["lower_bound_per_day"] <= body["cost_per_day"] * (1 + 1e-9)
-        assert body["gap"] == pytest.approx(body["cost_per_day"] / body["lower_bound_per_day"] - 1, rel=1e-6,
-                                            abs=1e-12)
+        assert body["gap"] == pytest.approx(body["cost_per_day"] / body["lower_bound_per_day"] - 1, rel=1e-6, abs=1e-12)
         if method != "best":
             assert body["method"] == method
         # Every site's quantity = demand × cycle (the definition of the planning core).

@@ -12,8 +12,9 @@ from service.health import migration_head
 
 UNREACHABLE = "postgresql+psycopg://postgres@127.0.0.1:1/none"
 #: Things a health answer must never show: connection strings, hosts, file paths, versions.
-LEAKS = re.compile(r"postgres|sqlite|psycopg|127\.0\.0\.1|/tmp|\.db\b|alembic|werkzeug|flask|python|\d+\.\d+\.\d+",
-                   re.IGNORECASE)
+LEAKS = re.compile(
+    r"postgres|sqlite|psycopg|127\.0\.0\.1|/tmp|\.db\b|alembic|werkzeug|flask|python|\d+\.\d+\.\d+", re.IGNORECASE
+)
 
 
 @pytest.fixture

@@ -80,8 +80,11 @@ def test_issue_4_error_statuses_documented(spec):
 
 def test_idempotency_rules_described(spec):
     operation = spec["paths"]["/api/v1/trucks/{code}/plans"]["post"]
-    header = next(p for p in (_resolve(spec, p) for p in operation.get("parameters", []))
-                  if p["in"] == "header" and p["name"] == "Idempotency-Key")
+    header = next(
+        p
+        for p in (_resolve(spec, p) for p in operation.get("parameters", []))
+        if p["in"] == "header" and p["name"] == "Idempotency-Key"
+    )
     assert header["required"] is False
     text = spec["info"]["description"] + header.get("description", "")
     for words in ("Idempotency-Key", "24 hours", "token", "422", "409", "Idempotent-Replayed"):

@@ -13,11 +13,33 @@ from service import idempotency
 from service.persistence.models import IdempotencyRecord, Plan, Token
 
 JOINT_FIELDS = {
-    "method", "base_days", "dispatch_interval_days", "repeat_days", "cost_per_day", "cost_breakdown",
-    "lower_bound_per_day", "gap", "peak_load", "extra_trips", "trips_truncated", "sites", "trips", "warnings",
+    "method",
+    "base_days",
+    "dispatch_interval_days",
+    "repeat_days",
+    "cost_per_day",
+    "cost_breakdown",
+    "lower_bound_per_day",
+    "gap",
+    "peak_load",
+    "extra_trips",
+    "trips_truncated",
+    "sites",
+    "trips",
+    "warnings",
 }
-PLAN_FIELDS = {"id", "truck", "status", "stale", "changed_sites", "start_date", "created_at", "created_by",
-               "inputs", "inputs_digest"}
+PLAN_FIELDS = {
+    "id",
+    "truck",
+    "status",
+    "stale",
+    "changed_sites",
+    "start_date",
+    "created_at",
+    "created_by",
+    "inputs",
+    "inputs_digest",
+}
 SITE_PARAMS = {"demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock"}
 START = "2026-12-07"  # a Monday
 
@@ -27,8 +49,16 @@ def truck(code: str):
 
 
 def site(code: str, truck_code: str = "T1", **extra):
-    return {"code": code, "name": f"Site {code}", "truck": truck_code, "demand_per_day": 300.0,
-            "holding_cost": 0.002, "stop_cost": 30.0, "tank_capacity": 10000.0, "safety_stock": 500.0} | extra
+    return {
+        "code": code,
+        "name": f"Site {code}",
+        "truck": truck_code,
+        "demand_per_day": 300.0,
+        "holding_cost": 0.002,
+        "stop_cost": 30.0,
+        "tank_capacity": 10000.0,
+        "safety_stock": 500.0,
+    } | extra
 
 
 @pytest.fixture
@@ -46,8 +76,11 @@ def plans_count(db_session) -> int:
 
 
 def record(client, auth, code="T1", body=None, role="dispatcher", **headers):
-    response = client.post(f"/api/v1/trucks/{code}/plans", json={"start_date": START} if body is None else body,
-                           headers=auth(role, **headers))
+    response = client.post(
+        f"/api/v1/trucks/{code}/plans",
+        json={"start_date": START} if body is None else body,
+        headers=auth(role, **headers),
+    )
     assert response.status_code == 201, response.get_json()
     return response
 
@@ -60,8 +93,10 @@ def patch_site(client, auth, code, **changes):
 
 
 def recorded_numbers(body):
-    return {k: body[k] for k in (*JOINT_FIELDS, "inputs", "inputs_digest", "start_date", "created_at", "created_by",
-                                 "id", "truck")}
+    return {
+        k: body[k]
+        for k in (*JOINT_FIELDS, "inputs", "inputs_digest", "start_date", "created_at", "created_by", "id", "truck")
+    }
 
 
 # --- create & read ----------------------------------------------------------------------------
@@ -151,7 +186,7 @@ def test_history_newest_first_with_keyset_pages(client, auth, network):
         link = response.headers.get("Link")
         if link:
             assert link.endswith('>; rel="next"')
-            url = link[link.index("<") + 1:link.index(">")]
+            url = link[link.index("<") + 1 : link.index(">")]
             assert "after=" in url and "limit=2" in url
         else:
             url = None
@@ -242,8 +277,9 @@ def test_deactivated_site_makes_plan_stale(client, auth, network):
 def test_changed_truck_makes_plan_stale(client, auth, network):
     original = record(client, auth).get_json()
     etag = client.get("/api/v1/trucks/T1", headers=auth("admin")).headers["ETag"]
-    response = client.patch("/api/v1/trucks/T1", json={"capacity": 20000.0},
-                            headers=auth("admin", **{"If-Match": etag}))
+    response = client.patch(
+        "/api/v1/trucks/T1", json={"capacity": 20000.0}, headers=auth("admin", **{"If-Match": etag})
+    )
     assert response.status_code == 200, response.get_json()
     now = client.get(f"/api/v1/plans/{original['id']}", headers=auth("viewer")).get_json()
     assert now["stale"] is True and now["changed_sites"] == []
@@ -266,8 +302,11 @@ def test_site_moved_to_another_truck_makes_both_stale(client, auth, network):
 
 def test_same_key_same_body_replays(client, auth, network, db_session):
     first = record(client, auth, **{"Idempotency-Key": '"key-1"'})
-    again = client.post("/api/v1/trucks/T1/plans", json={"start_date": START},
-                        headers=auth("dispatcher", **{"Idempotency-Key": '"key-1"'}))
+    again = client.post(
+        "/api/v1/trucks/T1/plans",
+        json={"start_date": START},
+        headers=auth("dispatcher", **{"Idempotency-Key": '"key-1"'}),
+    )
     assert again.status_code == 201
     assert again.headers.get("Idempotent-Replayed") == "true"
     assert again.get_json() == first.get_json()
@@ -275,21 +314,30 @@ def test_same_key_same_body_replays(client, auth, network, db_session):
     assert "Idempotent-Replayed" not in first.headers
     assert plans_count(db_session) == 1
     # The bare form of the same key is the same key.
-    bare = client.post("/api/v1/trucks/T1/plans", json={"start_date": START},
-                       headers=auth("dispatcher", **{"Idempotency-Key": "key-1"}))
+    bare = client.post(
+        "/api/v1/trucks/T1/plans",
+        json={"start_date": START},
+        headers=auth("dispatcher", **{"Idempotency-Key": "key-1"}),
+    )
     assert bare.status_code == 201 and bare.get_json()["id"] == first.get_json()["id"]
     assert plans_count(db_session) == 1
 
 
 def test_same_key_different_body_is_422(client, auth, network, db_session):
     record(client, auth, **{"Idempotency-Key": '"key-2"'})
-    response = client.post("/api/v1/trucks/T1/plans", json={"start_date": "2026-12-14"},
-                           headers=auth("dispatcher", **{"Idempotency-Key": '"key-2"'}))
+    response = client.post(
+        "/api/v1/trucks/T1/plans",
+        json={"start_date": "2026-12-14"},
+        headers=auth("dispatcher", **{"Idempotency-Key": '"key-2"'}),
+    )
     assert response.status_code == 422
     assert response.mimetype == "application/problem+json"
     # Another truck (another path) with the same key is a different request too.
-    response = client.post("/api/v1/trucks/T2/plans", json={"start_date": START},
-                           headers=auth("dispatcher", **{"Idempotency-Key": '"key-2"'}))
+    response = client.post(
+        "/api/v1/trucks/T2/plans",
+        json={"start_date": START},
+        headers=auth("dispatcher", **{"Idempotency-Key": '"key-2"'}),
+    )
     assert response.status_code == 422
     assert plans_count(db_session) == 1
 
@@ -320,17 +368,29 @@ def _token_id(db_session, name="test-dispatcher") -> int:
 
 def _claim(db_session, key: str, claimed_at: dt.datetime) -> None:
     body = json.dumps({"start_date": START}).encode()
-    db_session.add(IdempotencyRecord(
-        token_id=_token_id(db_session), idempotency_key=key, method="POST", path="/api/v1/trucks/T1/plans",
-        body_sha256=idempotency.fingerprint("POST", "/api/v1/trucks/T1/plans", body), state="in_progress",
-        claim="0" * 32, claimed_at=claimed_at, created_at=claimed_at))
+    db_session.add(
+        IdempotencyRecord(
+            token_id=_token_id(db_session),
+            idempotency_key=key,
+            method="POST",
+            path="/api/v1/trucks/T1/plans",
+            body_sha256=idempotency.fingerprint("POST", "/api/v1/trucks/T1/plans", body),
+            state="in_progress",
+            claim="0" * 32,
+            claimed_at=claimed_at,
+            created_at=claimed_at,
+        )
+    )
     db_session.commit()
 
 
 def test_held_claim_is_409_with_retry_after(client, auth, network, db_session):
     _claim(db_session, "busy", dt.datetime.now(dt.UTC))
-    response = client.post("/api/v1/trucks/T1/plans", json={"start_date": START},
-                           headers=auth("dispatcher", **{"Idempotency-Key": '"busy"'}))
+    response = client.post(
+        "/api/v1/trucks/T1/plans",
+        json={"start_date": START},
+        headers=auth("dispatcher", **{"Idempotency-Key": '"busy"'}),
+    )
     assert response.status_code == 409
     assert response.mimetype == "application/problem+json"
     assert int(response.headers["Retry-After"]) >= 0
@@ -366,8 +426,11 @@ def test_overtaken_original_cannot_finish(app, client, auth, network, db_session
     row = db_session.get(IdempotencyRecord, original.record_id)
     row.claimed_at = dt.datetime.now(dt.UTC) - idempotency.LEASE - dt.timedelta(seconds=1)
     db_session.commit()
-    retry = client.post("/api/v1/trucks/T1/plans", json={"start_date": START},
-                        headers=auth("dispatcher", **{"Idempotency-Key": "overtaken"}))
+    retry = client.post(
+        "/api/v1/trucks/T1/plans",
+        json={"start_date": START},
+        headers=auth("dispatcher", **{"Idempotency-Key": "overtaken"}),
+    )
     assert retry.status_code == 201
     with app.test_request_context("/api/v1/trucks/T1/plans", method="POST"):
         session = app.extensions["ullage.sessionmaker"]()
@@ -378,8 +441,11 @@ def test_overtaken_original_cannot_finish(app, client, auth, network, db_session
         finally:
             session.close()
     assert plans_count(db_session) == 1
-    replay = client.post("/api/v1/trucks/T1/plans", json={"start_date": START},
-                         headers=auth("dispatcher", **{"Idempotency-Key": "overtaken"}))
+    replay = client.post(
+        "/api/v1/trucks/T1/plans",
+        json={"start_date": START},
+        headers=auth("dispatcher", **{"Idempotency-Key": "overtaken"}),
+    )
     assert replay.get_json()["id"] == retry.get_json()["id"]
 
 
@@ -394,8 +460,12 @@ def test_key_expires_after_24_hours(client, auth, network, db_session):
     assert again.get_json()["id"] != first["id"]
     assert plans_count(db_session) == 2
     # Within 24 h the (new) key replays, even with a different body it is still refused.
-    assert client.post("/api/v1/trucks/T1/plans", json={"start_date": START},
-                       headers=headers).headers.get("Idempotent-Replayed") == "true"
+    assert (
+        client.post("/api/v1/trucks/T1/plans", json={"start_date": START}, headers=headers).headers.get(
+            "Idempotent-Replayed"
+        )
+        == "true"
+    )
     assert client.post("/api/v1/trucks/T1/plans", json={}, headers=headers).status_code == 422
 
 

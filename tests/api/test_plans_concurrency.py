@@ -44,8 +44,9 @@ def servers(request, app):
         return
     context = multiprocessing.get_context("spawn")
     ports = context.Queue()
-    children = [context.Process(target=_serve, args=(app.config["DATABASE_URL"], ports), daemon=True)
-                for _ in range(PROCESSES)]
+    children = [
+        context.Process(target=_serve, args=(app.config["DATABASE_URL"], ports), daemon=True) for _ in range(PROCESSES)
+    ]
     for child in children:
         child.start()
     try:
@@ -62,8 +63,16 @@ def network(client, auth):
     truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     for i in range(4):
-        site = {"code": f"A{i}", "name": f"Site {i}", "truck": "T1", "demand_per_day": 150.0 + 100 * i,
-                "holding_cost": 0.002, "stop_cost": 30.0, "tank_capacity": 10000.0, "safety_stock": 500.0}
+        site = {
+            "code": f"A{i}",
+            "name": f"Site {i}",
+            "truck": "T1",
+            "demand_per_day": 150.0 + 100 * i,
+            "holding_cost": 0.002,
+            "stop_cost": 30.0,
+            "tank_capacity": 10000.0,
+            "safety_stock": 500.0,
+        }
         assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
 
 
@@ -72,8 +81,12 @@ def _post_until_done(base, headers, key, barrier, deadline):
     statuses = []
     with requests.Session() as http:
         while True:
-            response = http.post(f"{base}/api/v1/trucks/T1/plans", json={"start_date": START},
-                                 headers=headers | {"Idempotency-Key": f'"{key}"'}, timeout=60)
+            response = http.post(
+                f"{base}/api/v1/trucks/T1/plans",
+                json={"start_date": START},
+                headers=headers | {"Idempotency-Key": f'"{key}"'},
+                timeout=60,
+            )
             statuses.append(response.status_code)
             if response.status_code != 409 or time.monotonic() > deadline:
                 return key, statuses, response
@@ -87,8 +100,12 @@ def test_50_requests_10_keys_make_10_plans(servers, auth, network, db_session):
     deadline = time.monotonic() + 120
     headers = auth("dispatcher")
     with ThreadPoolExecutor(len(jobs)) as pool:
-        results = list(pool.map(lambda job: _post_until_done(servers[job[0] % len(servers)], headers, job[1], barrier,
-                                                             deadline), enumerate(jobs)))
+        results = list(
+            pool.map(
+                lambda job: _post_until_done(servers[job[0] % len(servers)], headers, job[1], barrier, deadline),
+                enumerate(jobs),
+            )
+        )
     every = [s for _key, statuses, _r in results for s in statuses]
     assert not [s for s in every if s >= 500], every
     assert {r.status_code for _k, _s, r in results} == {201}, [(k, s) for k, s, _r in results]
@@ -99,8 +116,9 @@ def test_50_requests_10_keys_make_10_plans(servers, auth, network, db_session):
     assert len({next(iter(v)) for v in ids.values()}) == 10
     db_session.expire_all()
     assert db_session.scalar(select(func.count()).select_from(Plan)) == 10
-    done = db_session.scalar(select(func.count()).select_from(IdempotencyRecord)
-                             .where(IdempotencyRecord.state == "done"))
+    done = db_session.scalar(
+        select(func.count()).select_from(IdempotencyRecord).where(IdempotencyRecord.state == "done")
+    )
     assert done == 10
     replayed = sum(1 for _k, _s, r in results if r.headers.get("Idempotent-Replayed") == "true")
     assert replayed == 40
@@ -127,8 +145,11 @@ def test_20_concurrent_activations_leave_one_active(servers, client, auth, netwo
     assert set(codes) <= {200, 409}, codes
     assert 200 in codes
     db_session.expire_all()
-    active = db_session.scalars(select(Plan.id).where(Plan.truck_id == db_session.scalar(
-        select(Plan.truck_id).where(Plan.id == ids[0])), Plan.status == "active")).all()
+    active = db_session.scalars(
+        select(Plan.id).where(
+            Plan.truck_id == db_session.scalar(select(Plan.truck_id).where(Plan.id == ids[0])), Plan.status == "active"
+        )
+    ).all()
     assert len(active) == 1
     others = db_session.scalars(select(Plan.status).where(Plan.id.in_(ids), Plan.id != active[0])).all()
     assert set(others) <= {"superseded", "proposed"}

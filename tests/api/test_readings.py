@@ -17,8 +17,16 @@ def network(client, auth):
     truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     for i in range(3):
-        site = {"code": f"A{i}", "name": f"Site {i}", "truck": "T1", "demand_per_day": 200.0 + 100 * i,
-                "holding_cost": 0.002, "stop_cost": 30.0, "tank_capacity": 10000.0, "safety_stock": 500.0}
+        site = {
+            "code": f"A{i}",
+            "name": f"Site {i}",
+            "truck": "T1",
+            "demand_per_day": 200.0 + 100 * i,
+            "holding_cost": 0.002,
+            "stop_cost": 30.0,
+            "tank_capacity": 10000.0,
+            "safety_stock": 500.0,
+        }
         assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
 
 
@@ -32,8 +40,7 @@ def count(db_session) -> int:
 
 def test_post_201(client, auth, network, db_session):
     measured = (dt.datetime.now(dt.UTC) - dt.timedelta(hours=3)).replace(microsecond=0)
-    response = client.post(URL, json={"level": 4200.5, "measured_at": measured.isoformat()},
-                           headers=auth("dispatcher"))
+    response = client.post(URL, json={"level": 4200.5, "measured_at": measured.isoformat()}, headers=auth("dispatcher"))
     assert response.status_code == 201, response.get_json()
     body = response.get_json()
     assert {"id", "site", "level", "measured_at", "created_at", "created_by"} <= set(body)
@@ -55,18 +62,21 @@ def test_post_201(client, auth, network, db_session):
     assert count(db_session) == 3
 
 
-@pytest.mark.parametrize("body, pointer", [
-    ({"level": 10000.01, "measured_at": None}, "#/level"),
-    ({"level": -1, "measured_at": None}, "#/level"),
-    ({"level": 100, "measured_at": "2026-01-05T10:00:00"}, "#/measured_at"),
-    ({"level": 100, "measured_at": "2026-01-05"}, "#/measured_at"),
-    ({"level": 100, "measured_at": "yesterday"}, "#/measured_at"),
-    ({"level": 100, "measured_at": "future"}, "#/measured_at"),
-    ({"measured_at": None}, "#/level"),
-    ({"level": 100}, "#/measured_at"),
-    ({"level": "100", "measured_at": None}, "#/level"),
-    ({"level": 100, "measured_at": None, "note": "x"}, "#/note"),
-])
+@pytest.mark.parametrize(
+    "body, pointer",
+    [
+        ({"level": 10000.01, "measured_at": None}, "#/level"),
+        ({"level": -1, "measured_at": None}, "#/level"),
+        ({"level": 100, "measured_at": "2026-01-05T10:00:00"}, "#/measured_at"),
+        ({"level": 100, "measured_at": "2026-01-05"}, "#/measured_at"),
+        ({"level": 100, "measured_at": "yesterday"}, "#/measured_at"),
+        ({"level": 100, "measured_at": "future"}, "#/measured_at"),
+        ({"measured_at": None}, "#/level"),
+        ({"level": 100}, "#/measured_at"),
+        ({"level": "100", "measured_at": None}, "#/level"),
+        ({"level": 100, "measured_at": None, "note": "x"}, "#/note"),
+    ],
+)
 def test_post_422(client, auth, network, db_session, body, pointer):
     body = dict(body)
     if body.get("measured_at") is None and "measured_at" in body:
@@ -106,14 +116,17 @@ def test_get_newest_first_paginated_viewer_allowed(client, auth, network):
     first = client.get(f"{URL}?limit=2", headers=auth("viewer"))
     link = first.headers["Link"]
     assert link.endswith('rel="next"')
-    nxt = client.get(link[link.index("<") + 1:link.index(">")], headers=auth("viewer")).get_json()["items"]
+    nxt = client.get(link[link.index("<") + 1 : link.index(">")], headers=auth("viewer")).get_json()["items"]
     assert [i["level"] for i in first.get_json()["items"] + nxt] == [1012, 1001, 1050, 1005]
 
 
 def test_reading_never_changes_a_recorded_plan(client, auth, network):
     today = dt.datetime.now(dt.UTC).date()
-    plan = client.post("/api/v1/trucks/T1/plans", json={"start_date": (today - dt.timedelta(days=2)).isoformat()},
-                       headers=auth("dispatcher"))
+    plan = client.post(
+        "/api/v1/trucks/T1/plans",
+        json={"start_date": (today - dt.timedelta(days=2)).isoformat()},
+        headers=auth("dispatcher"),
+    )
     assert plan.status_code == 201
     url = plan.headers["Location"]
     assert client.post(f"{url}/activate", headers=auth("dispatcher")).status_code == 200
@@ -121,8 +134,9 @@ def test_reading_never_changes_a_recorded_plan(client, auth, network):
     for code, level in (("A0", 600.0), ("A1", 9000.0), ("A2", 0.0)):
         body = {"level": level, "measured_at": ago(hours=2)}
         assert client.post(f"/api/v1/sites/{code}/readings", json=body, headers=auth("dispatcher")).status_code == 201
-    week = client.get(f"/api/v1/trucks/T1/trips?from={today}&to={today + dt.timedelta(days=30)}",
-                      headers=auth("viewer"))
+    week = client.get(
+        f"/api/v1/trucks/T1/trips?from={today}&to={today + dt.timedelta(days=30)}", headers=auth("viewer")
+    )
     assert week.status_code == 200
     after = client.get(url, headers=auth("viewer")).get_json()
     assert after == before

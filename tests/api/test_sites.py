@@ -17,8 +17,15 @@ def truck(code: str):
 
 
 def site(code: str, truck_code: str = "T1", **extra):
-    return {"code": code, "name": f"Site {code}", "truck": truck_code, "demand_per_day": 300.0,
-            "holding_cost": 0.001, "stop_cost": 30.0, "tank_capacity": 10000.0} | extra
+    return {
+        "code": code,
+        "name": f"Site {code}",
+        "truck": truck_code,
+        "demand_per_day": 300.0,
+        "holding_cost": 0.001,
+        "stop_cost": 30.0,
+        "tank_capacity": 10000.0,
+    } | extra
 
 
 @pytest.fixture
@@ -40,8 +47,16 @@ def count(db_session, model=Site) -> int:
 def record_plan(db_session, site_code: str) -> None:
     """A recorded plan referencing the site (as the plans module writes them)."""
     row = db_session.scalars(select(Site).where(Site.code == site_code)).one()
-    plan = Plan(truck_id=row.truck_id, status="proposed", method="test", start_date=dt.date(2026, 12, 7),
-                created_by="test", inputs={}, inputs_digest="0" * 64, result={})
+    plan = Plan(
+        truck_id=row.truck_id,
+        status="proposed",
+        method="test",
+        start_date=dt.date(2026, 12, 7),
+        created_by="test",
+        inputs={},
+        inputs_digest="0" * 64,
+        result={},
+    )
     db_session.add(plan)
     db_session.flush()
     db_session.add(PlanSite(plan_id=plan.id, site_id=row.id))
@@ -88,11 +103,11 @@ def test_list_filters_by_truck_and_pages_with_link(client, auth, trucks):
     assert [s["code"] for s in first.get_json()["items"]] == ["A0", "A1"]
     link = first.headers["Link"]
     assert link.endswith('rel="next"')
-    next_url = link[1:link.index(">")]
+    next_url = link[1 : link.index(">")]
     assert "truck=T1" in next_url and "after=A1" in next_url
     second = client.get(next_url, headers=auth("viewer"))
     assert [s["code"] for s in second.get_json()["items"]] == ["A2", "A3"]
-    third = client.get(second.headers["Link"][1:second.headers["Link"].index(">")], headers=auth("viewer"))
+    third = client.get(second.headers["Link"][1 : second.headers["Link"].index(">")], headers=auth("viewer"))
     assert [s["code"] for s in third.get_json()["items"]] == ["A4"]
     assert "Link" not in third.headers
 
@@ -112,8 +127,9 @@ def test_get_and_if_none_match(client, auth, trucks):
 
 def test_patch_bumps_version_new_etag_and_can_move_truck(client, auth, trucks, db_session):
     etag = create(client, auth, site("S-1")).headers["ETag"]
-    response = client.patch(f"{BASE}/S-1", json={"demand_per_day": 350.5, "truck": "T2"},
-                            headers=auth("admin", **{"If-Match": etag}))
+    response = client.patch(
+        f"{BASE}/S-1", json={"demand_per_day": 350.5, "truck": "T2"}, headers=auth("admin", **{"If-Match": etag})
+    )
     assert response.status_code == 200, response.get_json()
     body = response.get_json()
     assert body["version"] == 2 and body["demand_per_day"] == 350.5 and body["truck"] == "T2"
@@ -130,23 +146,30 @@ def test_patch_precondition_412_and_428(client, auth, trucks, db_session):
     assert stale.status_code == 412
     assert stale.get_json()["status"] == 412
     assert db_session.scalars(select(Site.version).where(Site.code == "S-1")).one() == 1
-    assert client.patch(f"{BASE}/S-1", json={"name": "x"}, headers=auth("admin", **{"If-Match": etag})).status_code == 200
-    assert client.patch(f"{BASE}/S-1", json={"name": "y"}, headers=auth("admin", **{"If-Match": etag})).status_code == 412
+    assert (
+        client.patch(f"{BASE}/S-1", json={"name": "x"}, headers=auth("admin", **{"If-Match": etag})).status_code == 200
+    )
+    assert (
+        client.patch(f"{BASE}/S-1", json={"name": "y"}, headers=auth("admin", **{"If-Match": etag})).status_code == 412
+    )
 
 
 def test_patch_unknown_truck_is_422_and_changes_nothing(client, auth, trucks, db_session):
     etag = create(client, auth, site("S-1")).headers["ETag"]
-    response = client.patch(f"{BASE}/S-1", json={"truck": "NOPE", "name": "x"},
-                            headers=auth("admin", **{"If-Match": etag}))
+    response = client.patch(
+        f"{BASE}/S-1", json={"truck": "NOPE", "name": "x"}, headers=auth("admin", **{"If-Match": etag})
+    )
     assert response.status_code == 422
     assert response.get_json()["errors"][0]["pointer"] == "#/truck"
     assert db_session.scalars(select(Site.name).where(Site.code == "S-1")).one() == "Site S-1"
 
 
 def test_safety_stock_must_stay_below_safe_fill_times_capacity_on_post(client, auth, trucks, db_session):
-    for body in (site("S-1", safety_stock=9000.0),  # 0.9 × 10000 = 9000: equal is refused
-                 site("S-2", safety_stock=5000.0, safe_fill=0.5),
-                 site("S-3", safety_stock=20000.0)):
+    for body in (
+        site("S-1", safety_stock=9000.0),  # 0.9 × 10000 = 9000: equal is refused
+        site("S-2", safety_stock=5000.0, safe_fill=0.5),
+        site("S-3", safety_stock=20000.0),
+    ):
         response = client.post(BASE, json=body, headers=auth("admin"))
         assert response.status_code == 422, body
         assert [e["pointer"] for e in response.get_json()["errors"]] == ["#/safety_stock"]
@@ -154,8 +177,15 @@ def test_safety_stock_must_stay_below_safe_fill_times_capacity_on_post(client, a
     assert create(client, auth, site("S-4", safety_stock=8999.0)).get_json()["safety_stock"] == 8999.0
 
 
-@pytest.mark.parametrize("change", [{"safety_stock": 9000.0}, {"safe_fill": 0.2}, {"tank_capacity": 2000.0},
-                                    {"safe_fill": 0.5, "safety_stock": 6000.0}])
+@pytest.mark.parametrize(
+    "change",
+    [
+        {"safety_stock": 9000.0},
+        {"safe_fill": 0.2},
+        {"tank_capacity": 2000.0},
+        {"safe_fill": 0.5, "safety_stock": 6000.0},
+    ],
+)
 def test_safety_stock_checked_on_patch_against_stored_values(client, auth, trucks, db_session, change):
     etag = create(client, auth, site("S-1", safety_stock=2500.0)).headers["ETag"]
     response = client.patch(f"{BASE}/S-1", json=change, headers=auth("admin", **{"If-Match": etag}))

@@ -26,7 +26,9 @@ def trucks(client, auth):
 
 
 def rows(n: int, *, truck: str = "T1", demand: float = 100.0) -> list[str]:
-    return [f"S{i:03d},Site {i},{truck},{demand + i},0.001,30,{10000 + i},0.9,500,true,51.5,-3.25" for i in range(1, n + 1)]
+    return [
+        f"S{i:03d},Site {i},{truck},{demand + i},0.001,30,{10000 + i},0.9,500,true,51.5,-3.25" for i in range(1, n + 1)
+    ]
 
 
 def post_csv(client, auth, lines, query="", role="admin", content_type="text/csv"):
@@ -61,8 +63,14 @@ def test_every_bad_row_and_column_is_named(client, auth, trucks, db_session):
     response = post_csv(client, auth, lines)
     assert response.status_code == 422
     pointers = {e["pointer"] for e in response.get_json()["errors"]}
-    assert pointers == {"#/rows/2/truck", "#/rows/5/safety_stock", "#/rows/7/holding_cost", "#/rows/7/active",
-                        "#/rows/9/code", "#/rows/10/latitude"}
+    assert pointers == {
+        "#/rows/2/truck",
+        "#/rows/5/safety_stock",
+        "#/rows/7/holding_cost",
+        "#/rows/7/active",
+        "#/rows/9/code",
+        "#/rows/10/latitude",
+    }
     assert count(db_session) == 0
 
 
@@ -96,11 +104,13 @@ def test_import_creates_then_updates_with_version_bump(client, auth, trucks, db_
 
 def test_unit_column_converts_gallons_and_cubic_metres_exactly(client, auth, trucks, db_session):
     header = "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity,safety_stock,unit"
-    lines = [header,
-             "G,Tote,T1,10,0.01,20,250,25,gal",
-             "M,Depot,T1,2.5,1.2,60,60,8,m3",
-             "L,Plain,T1,100,0.001,30,5000,0,L",
-             "D,Default,T1,100,0.001,30,5000,0,"]
+    lines = [
+        header,
+        "G,Tote,T1,10,0.01,20,250,25,gal",
+        "M,Depot,T1,2.5,1.2,60,60,8,m3",
+        "L,Plain,T1,100,0.001,30,5000,0,L",
+        "D,Default,T1,100,0.001,30,5000,0,",
+    ]
     assert post_csv(client, auth, lines).status_code == 200
     got = {s.code: s for s in db_session.scalars(select(Site))}
     assert got["G"].demand_per_day == pytest.approx(10 * LITRES_PER_US_GALLON, rel=1e-15)
@@ -122,8 +132,10 @@ def test_unit_conversion_into_a_gallon_service(database_url, tokens, db_session)
         headers = {"Authorization": f"Bearer {tokens['admin']}"}
         truck = {"code": "T1", "name": "t", "dispatch_cost": 1, "capacity": 5000}
         assert client.post("/api/v1/trucks", json=truck, headers=headers).status_code == 201
-        body = ("code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity,unit\n"
-                f"A,a,T1,{LITRES_PER_US_GALLON * 10},0.5,1,{LITRES_PER_US_GALLON * 100},L\n")
+        body = (
+            "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity,unit\n"
+            f"A,a,T1,{LITRES_PER_US_GALLON * 10},0.5,1,{LITRES_PER_US_GALLON * 100},L\n"
+        )
         assert client.post(IMPORT, data=body, headers=headers, content_type="text/csv").status_code == 200
         bad = client.post(IMPORT, data=body.replace(",L\n", ",barrel\n"), headers=headers, content_type="text/csv")
         assert bad.status_code == 422 and bad.get_json()["errors"][0]["pointer"] == "#/rows/1/unit"
@@ -142,7 +154,11 @@ def test_header_problems_are_named(client, auth, trucks, db_session):
     missing = post_csv(client, auth, ["code,name,truck", "A,a,T1"])
     assert missing.status_code == 422
     assert {e["pointer"] for e in missing.get_json()["errors"]} == {
-        "#/header/demand_per_day", "#/header/holding_cost", "#/header/stop_cost", "#/header/tank_capacity"}
+        "#/header/demand_per_day",
+        "#/header/holding_cost",
+        "#/header/stop_cost",
+        "#/header/tank_capacity",
+    }
     assert post_csv(client, auth, [HEADER]).status_code == 422  # no rows
     extra_cell = post_csv(client, auth, [HEADER, rows(1)[0] + ",surprise"])
     assert extra_cell.get_json()["errors"][0]["pointer"] == "#/rows/1"
@@ -165,13 +181,29 @@ def test_import_is_admin_only_and_needs_text_csv(client, auth, trucks):
 
 
 def test_export_defuses_formula_cells_and_round_trips(client, auth, trucks, db_session):
-    names = {"F1": "=HYPERLINK(\"http://x\",\"y\")", "F2": "+SUM(A1)", "F3": "-2+3", "F4": "@cmd", "F5": "plain"}
+    names = {"F1": '=HYPERLINK("http://x","y")', "F2": "+SUM(A1)", "F3": "-2+3", "F4": "@cmd", "F5": "plain"}
     for code, name in names.items():
-        body = {"code": code, "name": name, "truck": "T1", "demand_per_day": 12.5, "holding_cost": 0.0015,
-                "stop_cost": 30, "tank_capacity": 1000, "longitude": -3.25, "latitude": 51.1}
+        body = {
+            "code": code,
+            "name": name,
+            "truck": "T1",
+            "demand_per_day": 12.5,
+            "holding_cost": 0.0015,
+            "stop_cost": 30,
+            "tank_capacity": 1000,
+            "longitude": -3.25,
+            "latitude": 51.1,
+        }
         assert client.post("/api/v1/sites", json=body, headers=auth("admin")).status_code == 201
-    body = {"code": "-dash", "name": "code starting with a dash", "truck": "T1", "demand_per_day": 1,
-            "holding_cost": 0, "stop_cost": 0, "tank_capacity": 10}
+    body = {
+        "code": "-dash",
+        "name": "code starting with a dash",
+        "truck": "T1",
+        "demand_per_day": 1,
+        "holding_cost": 0,
+        "stop_cost": 0,
+        "tank_capacity": 10,
+    }
     assert client.post("/api/v1/sites", json=body, headers=auth("admin")).status_code == 201
 
     response = client.get(EXPORT, headers=auth("viewer"))
@@ -188,12 +220,16 @@ def test_export_defuses_formula_cells_and_round_trips(client, auth, trucks, db_s
     assert by_code["F1"]["longitude"] == "-3.25"  # numbers are never defused
     assert all(not (v or "").startswith(("=", "+", "@")) for row in exported for v in row.values())
 
-    before = {s.code: (s.name, s.demand_per_day, s.holding_cost, s.longitude, s.version)
-              for s in db_session.scalars(select(Site))}
+    before = {
+        s.code: (s.name, s.demand_per_day, s.holding_cost, s.longitude, s.version)
+        for s in db_session.scalars(select(Site))
+    }
     back = client.post(IMPORT, data=response.get_data(), headers=auth("admin"), content_type="text/csv")
     assert back.status_code == 200, back.get_json()
     assert back.get_json() == {"dry_run": False, "created": 0, "updated": 0, "rows": 6}
     db_session.expire_all()
-    after = {s.code: (s.name, s.demand_per_day, s.holding_cost, s.longitude, s.version)
-             for s in db_session.scalars(select(Site))}
+    after = {
+        s.code: (s.name, s.demand_per_day, s.holding_cost, s.longitude, s.version)
+        for s in db_session.scalars(select(Site))
+    }
     assert after == before

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import itertools
 from collections import Counter
 
 import pytest
@@ -18,15 +19,24 @@ def network(client, auth):
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     assert client.post("/api/v1/trucks", json=truck | {"code": "T2"}, headers=auth("admin")).status_code == 201
     for i, demand in enumerate((300.0, 120.0, 650.0, 90.0)):
-        site = {"code": f"A{i}", "name": f"Site {i}", "truck": "T1", "demand_per_day": demand,
-                "holding_cost": 0.002, "stop_cost": 30.0, "tank_capacity": 10000.0, "safety_stock": 500.0}
+        site = {
+            "code": f"A{i}",
+            "name": f"Site {i}",
+            "truck": "T1",
+            "demand_per_day": demand,
+            "holding_cost": 0.002,
+            "stop_cost": 30.0,
+            "tank_capacity": 10000.0,
+            "safety_stock": 500.0,
+        }
         assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
 
 
 @pytest.fixture
 def plan(client, auth, network):
-    response = client.post("/api/v1/trucks/T1/plans", json={"start_date": START.isoformat()},
-                           headers=auth("dispatcher"))
+    response = client.post(
+        "/api/v1/trucks/T1/plans", json={"start_date": START.isoformat()}, headers=auth("dispatcher")
+    )
     assert response.status_code == 201
     body = response.get_json()
     assert client.post(f"/api/v1/plans/{body['id']}/activate", headers=auth("dispatcher")).status_code == 200
@@ -91,7 +101,7 @@ def test_dates_follow_start_date_and_repeat(client, auth, plan):
     cycles = {s["code"]: s["cycle_days"] for s in plan["sites"]}
     for code, cycle in cycles.items():
         dates = [dt.date.fromisoformat(t["date"]) for t in body["trips"] for s in t["stops"] if s["site"] == code]
-        assert dates and all((b - a).days == cycle for a, b in zip(dates, dates[1:]))
+        assert dates and all((b - a).days == cycle for a, b in itertools.pairwise(dates))
 
 
 def test_week_53(client, auth, plan):
@@ -105,11 +115,24 @@ def test_week_53(client, auth, plan):
     assert "#/query/week" in [e["pointer"] for e in response.get_json()["errors"]]
 
 
-@pytest.mark.parametrize("query", ["week=2026-W00", "week=2026-W54", "week=2026W50", "week=26-W50",
-                                   "from=2026-12-07&to=2027-03-09",  # 93 days
-                                   "from=2026-12-10&to=2026-12-09", "week=2026-W50&from=2026-12-07",
-                                   "week=2026-W50&to=2026-12-07", "from=2026-12-07", "", "wek=2026-W50",
-                                   "week=2026-W50&colour=red", "from=2026-13-01&to=2026-12-31"])
+@pytest.mark.parametrize(
+    "query",
+    [
+        "week=2026-W00",
+        "week=2026-W54",
+        "week=2026W50",
+        "week=26-W50",
+        "from=2026-12-07&to=2027-03-09",  # 93 days
+        "from=2026-12-10&to=2026-12-09",
+        "week=2026-W50&from=2026-12-07",
+        "week=2026-W50&to=2026-12-07",
+        "from=2026-12-07",
+        "",
+        "wek=2026-W50",
+        "week=2026-W50&colour=red",
+        "from=2026-13-01&to=2026-12-31",
+    ],
+)
 def test_bad_windows_are_422(client, auth, plan, query):
     response = trips(client, auth, query)
     assert response.status_code == 422, query
@@ -160,8 +183,12 @@ def test_strong_etag_and_304(client, auth, plan):
 def test_stale_plan_is_flagged_in_warnings(client, auth, plan):
     assert not [w for w in trips(client, auth, "week=2026-W50").get_json()["warnings"] if w["kind"] == "plan_stale"]
     etag = client.get("/api/v1/sites/A1", headers=auth("admin")).headers["ETag"]
-    assert client.patch("/api/v1/sites/A1", json={"stop_cost": 40.0},
-                        headers=auth("admin", **{"If-Match": etag})).status_code == 200
+    assert (
+        client.patch(
+            "/api/v1/sites/A1", json={"stop_cost": 40.0}, headers=auth("admin", **{"If-Match": etag})
+        ).status_code
+        == 200
+    )
     body = trips(client, auth, "week=2026-W50").get_json()
     stale = [w for w in body["warnings"] if w["kind"] == "plan_stale"]
     assert len(stale) == 1 and "A1" in stale[0]["message"]
@@ -171,8 +198,9 @@ def test_stale_plan_is_flagged_in_warnings(client, auth, plan):
 def test_old_reading_is_projected_and_said_so(client, auth, network):
     today = dt.datetime.now(dt.UTC).date()
     start = today - dt.timedelta(days=20)
-    plan = client.post("/api/v1/trucks/T1/plans", json={"start_date": start.isoformat()},
-                       headers=auth("dispatcher")).get_json()
+    plan = client.post(
+        "/api/v1/trucks/T1/plans", json={"start_date": start.isoformat()}, headers=auth("dispatcher")
+    ).get_json()
     assert client.post(f"/api/v1/plans/{plan['id']}/activate", headers=auth("dispatcher")).status_code == 200
     reading = {"level": 5000.0, "measured_at": f"{start}T06:00:00+00:00"}  # 20 days old: not recent
     assert client.post("/api/v1/sites/A0/readings", json=reading, headers=auth("dispatcher")).status_code == 201
@@ -194,8 +222,9 @@ def test_reading_corrects_quantity(client, auth, network):
     # Readings may not be in the future, so this plan starts on the Monday of the current week.
     today = dt.datetime.now(dt.UTC).date()
     monday = today - dt.timedelta(days=today.weekday())
-    plan = client.post("/api/v1/trucks/T1/plans", json={"start_date": monday.isoformat()},
-                       headers=auth("dispatcher")).get_json()
+    plan = client.post(
+        "/api/v1/trucks/T1/plans", json={"start_date": monday.isoformat()}, headers=auth("dispatcher")
+    ).get_json()
     assert client.post(f"/api/v1/plans/{plan['id']}/activate", headers=auth("dispatcher")).status_code == 200
     # A0: demand 300/day, safe fill 9000, safety stock 500. Reading 2000 at 00:00 UTC of the start day.
     reading = {"level": 2000.0, "measured_at": f"{monday}T00:00:00+00:00"}

@@ -53,8 +53,9 @@ def plans(app, client, auth, demo):
     start = now.date() - dt.timedelta(days=now.weekday())
     out = {}
     for truck in ("HV-R1", "HV-R2"):
-        response = client.post(f"/api/v1/trucks/{truck}/plans", json={"start_date": start.isoformat()},
-                               headers=auth("dispatcher"))
+        response = client.post(
+            f"/api/v1/trucks/{truck}/plans", json={"start_date": start.isoformat()}, headers=auth("dispatcher")
+        )
         assert response.status_code == 201, response.get_json()
         plan = response.get_json()
         assert client.post(f"/api/v1/plans/{plan['id']}/activate", headers=auth("dispatcher")).status_code == 200
@@ -164,11 +165,21 @@ def test_eight_weeks_no_overfill_and_every_run_out_flagged(client, auth, plans, 
             for _shown, date in flagged[code]:
                 if date >= start:
                     assert date in below_set or date - dt.timedelta(days=1) in below_set, (
-                        truck, code, date, below_all, readings[code])
+                        truck,
+                        code,
+                        date,
+                        below_all,
+                        readings[code],
+                    )
             for day in below:
                 # Flagged by a warning shown on or before `day` (a stop dated on or before it, or the
                 # top-level warnings of its week or an earlier one) whose date is on or before `day`.
                 assert any(shown <= day and date <= day for shown, date in flagged[code]), (
-                    truck, code, day, sorted(flagged[code]), readings[code])
+                    truck,
+                    code,
+                    day,
+                    sorted(flagged[code]),
+                    readings[code],
+                )
     assert total_warnings > 0, "the low readings must produce run_out_risk warnings"
     assert corrected > 0, "readings must correct some quantities"

@@ -14,8 +14,15 @@ def truck(code: str = "T1", **extra):
 
 
 def site(code: str, truck_code: str = "T1"):
-    return {"code": code, "name": f"Site {code}", "truck": truck_code, "demand_per_day": 300.0,
-            "holding_cost": 0.001, "stop_cost": 30.0, "tank_capacity": 10000.0}
+    return {
+        "code": code,
+        "name": f"Site {code}",
+        "truck": truck_code,
+        "demand_per_day": 300.0,
+        "holding_cost": 0.001,
+        "stop_cost": 30.0,
+        "tank_capacity": 10000.0,
+    }
 
 
 def create(client, auth, body, path=BASE):
@@ -76,7 +83,7 @@ def test_list_keyset_pages_with_link_until_the_last_page(client, auth):
             url = None
         else:
             assert link.endswith('; rel="next"') and link.startswith("<")
-            url = link[1:link.index(">")]
+            url = link[1 : link.index(">")]
             assert "limit=3" in url and "after=" in url
     assert pages == 3
     assert seen == codes

@@ -127,8 +127,9 @@ def test_serve_execs_gunicorn_on_the_loopback_by_default(monkeypatch, tmp_path):
 
 
 def test_python_dash_m_service_help():
-    result = subprocess.run([sys.executable, "-m", "service", "--help"], cwd=ROOT, capture_output=True, text=True,
-                            timeout=60, check=False)
+    result = subprocess.run(
+        [sys.executable, "-m", "service", "--help"], cwd=ROOT, capture_output=True, text=True, timeout=60, check=False
+    )
     assert result.returncode == 0, result.stderr
     for command in ("db", "token", "demo", "serve"):
         assert command in result.stdout

@@ -81,8 +81,14 @@ def test_compose_healthcheck_command_is_valid_python():
 
 def _run_entrypoint(tmp_path: Path, url: str, *command: str) -> subprocess.CompletedProcess:
     env = {"PATH": f"{Path(sys.executable).parent}:/usr/bin:/bin", "DATABASE_URL": url, "HOME": str(tmp_path)}
-    process = subprocess.Popen(["sh", str(DOCKER / "entrypoint"), *command], cwd=ROOT, env=env,
-                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    process = subprocess.Popen(
+        ["sh", str(DOCKER / "entrypoint"), *command],
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     out, err = process.communicate(timeout=120)
     return subprocess.CompletedProcess(process.args, process.returncode, out, err), process.pid
 

@@ -51,8 +51,11 @@ def test_tokens_are_stored_as_sha256_and_never_logged(monkeypatch, capsys, caplo
                 response = client.get(url, headers={"Authorization": f"Bearer {token}"})
                 assert response.status_code in (200, 404)
                 bodies.append(response.get_data(as_text=True))
-        posted = client.post("/api/v1/trucks", headers={"Authorization": f"Bearer {admin}"},
-                             json={"code": "T1", "name": "x", "dispatch_cost": 1, "capacity": 2})
+        posted = client.post(
+            "/api/v1/trucks",
+            headers={"Authorization": f"Bearer {admin}"},
+            json={"code": "T1", "name": "x", "dispatch_cost": 1, "capacity": 2},
+        )
         assert posted.status_code == 201
         refused = client.post("/api/v1/trucks", headers={"Authorization": f"Bearer {viewer}"}, json={})
         assert refused.status_code == 403
@@ -71,7 +74,7 @@ def test_tokens_are_stored_as_sha256_and_never_logged(monkeypatch, capsys, caplo
     assert "at-rest-admin" in dump  # the dump saw the token rows
 
     for token in (admin, viewer):
-        secret = token[len(TOKEN_PREFIX):]
+        secret = token[len(TOKEN_PREFIX) :]
         assert secret not in dump
         assert secret not in captured
         assert secret[:16] not in captured + dump  # not even a prefix of the secret

@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 import pytest
-
-
 from status_helpers import LOW_SITE, PLANNED_TRUCK, add_reading, record_plan, sign_in, today
+
 
 @pytest.fixture
 def planned(app, client, auth, demo) -> int:

@@ -98,8 +98,9 @@ def today(app) -> dt.date:
 
 
 def record_plan(client, auth, truck: str, start: dt.date) -> int:
-    response = client.post(f"/api/v1/trucks/{truck}/plans", json={"start_date": start.isoformat()},
-                           headers=auth("dispatcher"))
+    response = client.post(
+        f"/api/v1/trucks/{truck}/plans", json={"start_date": start.isoformat()}, headers=auth("dispatcher")
+    )
     assert response.status_code == 201, response.get_data(as_text=True)
     plan_id = response.get_json()["id"]
     activated = client.post(f"/api/v1/plans/{plan_id}/activate", headers=auth("dispatcher"))
@@ -109,8 +110,11 @@ def record_plan(client, auth, truck: str, start: dt.date) -> int:
 
 def add_reading(client, auth, site: str, level: float, when: dt.datetime | None = None) -> None:
     when = when or dt.datetime.now(dt.UTC) - dt.timedelta(minutes=5)
-    response = client.post(f"/api/v1/sites/{site}/readings", json={"level": level, "measured_at": when.isoformat()},
-                           headers=auth("dispatcher"))
+    response = client.post(
+        f"/api/v1/sites/{site}/readings",
+        json={"level": level, "measured_at": when.isoformat()},
+        headers=auth("dispatcher"),
+    )
     assert response.status_code == 201, response.get_data(as_text=True)
 
 
@@ -121,5 +125,3 @@ def sign_in(client, token: str, next_path: str | None = None):
     if next_path:
         data["next"] = next_path
     return client.post("/status/sign-in", data=data)
-
-

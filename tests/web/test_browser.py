@@ -25,8 +25,16 @@ ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "tests" / "artifacts"
 CHROMIUM = Path("/usr/bin/chromium")
 BIN = Path(sys.executable).parent
-CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                 "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+CHROMIUM_ARGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
 SITE = "HV-GAR-02"
 TRUCK = "HV-R1"
 
@@ -59,16 +67,25 @@ def server(tmp_path_factory: pytest.TempPathFactory):
     except ImportError:
         _missing("the playwright package is not installed")
     workdir = tmp_path_factory.mktemp("browser")
-    env = {**os.environ, "DATABASE_URL": f"sqlite:///{workdir / 'ullage.db'}", "ULLAGE_SECRET_KEY": "browser-test-key",
-           "LOG_LEVEL": "WARNING"}
+    env = {
+        **os.environ,
+        "DATABASE_URL": f"sqlite:///{workdir / 'ullage.db'}",
+        "ULLAGE_SECRET_KEY": "browser-test-key",
+        "LOG_LEVEL": "WARNING",
+    }
     env.pop("TEST_POSTGRES_URL", None)
     _cli(env, "db", "upgrade")
     _cli(env, "demo")
     token = _cli(env, "token", "create", "browser-dispatcher", "--role", "dispatcher").strip().splitlines()[-1]
     port = _free_port()
     log = open(workdir / "gunicorn.log", "w")  # noqa: SIM115 - closed below
-    process = subprocess.Popen([str(BIN / "gunicorn"), "-w", "1", "-b", f"127.0.0.1:{port}", "service.app:create_app()"],
-                               env=env, cwd=workdir, stdout=log, stderr=subprocess.STDOUT)
+    process = subprocess.Popen(
+        [str(BIN / "gunicorn"), "-w", "1", "-b", f"127.0.0.1:{port}", "service.app:create_app()"],
+        env=env,
+        cwd=workdir,
+        stdout=log,
+        stderr=subprocess.STDOUT,
+    )
     base = f"http://127.0.0.1:{port}"
     try:
         probe = requests.Session()
@@ -92,10 +109,19 @@ def server(tmp_path_factory: pytest.TempPathFactory):
         activated = api.post(f"{base}/api/v1/plans/{created.json()['id']}/activate", timeout=30)
         assert activated.status_code == 200, activated.text
         now = dt.datetime.now(dt.UTC) - dt.timedelta(hours=20)  # read yesterday, before today's trip
-        for site, level in (("HV-GAR-02", 300.0), ("HV-DEP-01", 31000.0), ("HV-GAR-03", 5200.0),
-                            ("HV-HTG-06", 4100.0), ("HV-IND-07", 9000.0), ("HV-MAR-08", 2500.0)):
-            reading = api.post(f"{base}/api/v1/sites/{site}/readings",
-                               json={"level": level, "measured_at": now.isoformat()}, timeout=30)
+        for site, level in (
+            ("HV-GAR-02", 300.0),
+            ("HV-DEP-01", 31000.0),
+            ("HV-GAR-03", 5200.0),
+            ("HV-HTG-06", 4100.0),
+            ("HV-IND-07", 9000.0),
+            ("HV-MAR-08", 2500.0),
+        ):
+            reading = api.post(
+                f"{base}/api/v1/sites/{site}/readings",
+                json={"level": level, "measured_at": now.isoformat()},
+                timeout=30,
+            )
             assert reading.status_code == 201, reading.text
         yield {"base": base, "token": token, "api": api, "env": env}
     finally:
@@ -115,8 +141,11 @@ def test_sign_in_week_trips_and_site_chart_in_chromium(server):
     year, week, _ = today.isocalendar()
     week_text = f"{year}-W{week:02d}"
     trips = api.get(f"{base}/api/v1/trucks/{TRUCK}/trips", params={"week": week_text}, timeout=30).json()["trips"]
-    window = api.get(f"{base}/api/v1/trucks/{TRUCK}/trips", timeout=30,
-                     params={"from": today.isoformat(), "to": (today + dt.timedelta(days=27)).isoformat()}).json()
+    window = api.get(
+        f"{base}/api/v1/trucks/{TRUCK}/trips",
+        timeout=30,
+        params={"from": today.isoformat(), "to": (today + dt.timedelta(days=27)).isoformat()},
+    ).json()
     expected = sum(1 for trip in window["trips"] for stop in trip["stops"] if stop["site"] == SITE)
     assert expected > 0
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
@@ -127,7 +156,10 @@ def test_sign_in_week_trips_and_site_chart_in_chromium(server):
         try:
             context = browser.new_context(viewport={"width": 1366, "height": 900}, java_script_enabled=False)
             page = context.new_page()
-            page.on("console", lambda message: problems.append(message.text) if message.type in ("error", "warning") else None)
+            page.on(
+                "console",
+                lambda message: problems.append(message.text) if message.type in ("error", "warning") else None,
+            )
             page.on("requestfailed", lambda request: problems.append(f"failed: {request.url}"))
 
             page.goto(f"{base}/status")

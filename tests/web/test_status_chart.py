@@ -21,8 +21,9 @@ def levels(days=28, missing=(), deliveries=((2, 4000.0), (10, 4000.0), (27, 3900
     dated = [(FIRST + dt.timedelta(days=k), q) for k, q in deliveries]
     if outside:
         dated.append((FIRST + dt.timedelta(days=days + 3), 1000.0))
-    return SiteLevels("S-1", tuple(values), tuple(dated), 9000.0, 1000.0, 10000.0,
-                      (Notice("run_out_risk", "low", "S-1", FIRST),))
+    return SiteLevels(
+        "S-1", tuple(values), tuple(dated), 9000.0, 1000.0, 10000.0, (Notice("run_out_risk", "low", "S-1", FIRST),)
+    )
 
 
 def test_one_marker_per_delivery_in_the_window_and_the_three_lines():
@@ -48,8 +49,14 @@ def test_days_without_a_level_break_the_line_and_no_level_draws_none():
 
 
 def test_text_from_data_is_escaped_and_ids_are_safe():
-    svg = str(level_svg(levels(), unit="L", site_label='<script>alert(1)</script>"><img src=x onerror=alert(1)>',
-                        element_id=chart_id("chart", '"><x y="')))
+    svg = str(
+        level_svg(
+            levels(),
+            unit="L",
+            site_label='<script>alert(1)</script>"><img src=x onerror=alert(1)>',
+            element_id=chart_id("chart", '"><x y="'),
+        )
+    )
     page = Page(svg)
     assert not page.find("script") and not page.find("img") and not page.find("x")
     assert all(not a.startswith("on") for e in page.elements for a in e.attrs)

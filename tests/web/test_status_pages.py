@@ -28,8 +28,10 @@ from service.auth import SESSION, rule_for
 from service.persistence import repository as repo
 from service.persistence.models import Site, Token, utcnow
 
-CAUTION = re.compile(r"planning aid.*safe fill levels.*overfill prevention.*hazardous liquids.*local codes.*licensed practice",
-                     re.I | re.S)
+CAUTION = re.compile(
+    r"planning aid.*safe fill levels.*overfill prevention.*hazardous liquids.*local codes.*licensed practice",
+    re.I | re.S,
+)
 
 
 def html(response) -> str:
@@ -83,7 +85,10 @@ def test_sign_in_form_sets_a_strict_cookie_without_the_token(app, client, tokens
         assert tokens["dispatcher"] not in repr(dict(stored))
 
 
-@pytest.mark.parametrize("target", ["//evil.example/x", "https://evil.example/", "/api/v1/trucks", "/status/sign-out", "/statusx", "/status\\\\evil"])
+@pytest.mark.parametrize(
+    "target",
+    ["//evil.example/x", "https://evil.example/", "/api/v1/trucks", "/status/sign-out", "/statusx", "/status\\\\evil"],
+)
 def test_sign_in_never_redirects_off_the_page(client, tokens, target):
     response = sign_in(client, tokens["viewer"], next_path=target)
     assert response.status_code == 303
@@ -157,9 +162,17 @@ def check_headers(response) -> None:
 
 
 def test_every_response_carries_the_strict_headers(browser_client, planned):
-    for path, status in [("/status", 200), ("/status?week=2026-W50", 200), (f"/status/sites/{LOW_SITE}", 200),
-                         ("/status/sign-in", 200), ("/status/sign-out", 200), ("/status/static/ullage.css", 200),
-                         ("/status/sites/NO-SUCH", 404), ("/status/nothing/here", 404), ("/status?week=2026-W99", 400)]:
+    for path, status in [
+        ("/status", 200),
+        ("/status?week=2026-W50", 200),
+        (f"/status/sites/{LOW_SITE}", 200),
+        ("/status/sign-in", 200),
+        ("/status/sign-out", 200),
+        ("/status/static/ullage.css", 200),
+        ("/status/sites/NO-SUCH", 404),
+        ("/status/nothing/here", 404),
+        ("/status?week=2026-W99", 400),
+    ]:
         response = browser_client.get(path)
         assert response.status_code == status, path
         check_headers(response)
@@ -291,7 +304,7 @@ def test_site_page_chart_has_lines_axes_and_one_marker_per_delivery(app, browser
         assert f'data-date="{day.isoformat()}"' in body
     for css in ("level-line", "safe-fill-line", "safety-stock-line"):
         assert page.by_class(css), css
-    svg_text = body[body.index("<svg"):body.index("</svg>")]
+    svg_text = body[body.index("<svg") : body.index("</svg>")]
     assert first.isoformat() in svg_text and (first + dt.timedelta(days=27)).isoformat() in svg_text
     assert re.search(r"<text[^>]*>\d[\d\u00a0]*\u00a0L</text>", svg_text)
     assert "<title" in svg_text and "<desc" in svg_text
@@ -333,9 +346,20 @@ EVIL = ("<script>alert(1)</script>", '"><img src=x onerror=alert(1)>')
 def test_hostile_site_names_are_shown_as_text(app, client, auth, demo, db_session, tokens):
     truck = repo.truck_by_code(db_session, PLANNED_TRUCK)
     for index, name in enumerate(EVIL):
-        repo.add_site(db_session, {"code": f"EVIL-{index}", "name": name, "demand_per_day": 50.0, "holding_cost": 0.001,
-                                   "stop_cost": 10.0, "tank_capacity": 3000.0, "safe_fill": 0.9, "safety_stock": 100.0},
-                      truck)
+        repo.add_site(
+            db_session,
+            {
+                "code": f"EVIL-{index}",
+                "name": name,
+                "demand_per_day": 50.0,
+                "holding_cost": 0.001,
+                "stop_cost": 10.0,
+                "tank_capacity": 3000.0,
+                "safe_fill": 0.9,
+                "safety_stock": 100.0,
+            },
+            truck,
+        )
     db_session.commit()
     record_plan(client, auth, PLANNED_TRUCK, today(app))
     add_reading(client, auth, "EVIL-0", 200.0)
@@ -402,8 +426,15 @@ def test_no_script_no_inline_style_and_only_our_stylesheet(browser_client, plann
         assert not [e for e in page.elements if "style" in e.attrs]
         links = page.find("link", rel="stylesheet")
         assert [link.attrs["href"] for link in links] == ["/status/static/ullage.css"]
-        assert not [e for e in page.elements if any((v or "").startswith(("http:", "https:", "//"))
-                                                    for k, v in e.attrs.items() if k in ("href", "src", "action"))]
+        assert not [
+            e
+            for e in page.elements
+            if any(
+                (v or "").startswith(("http:", "https:", "//"))
+                for k, v in e.attrs.items()
+                if k in ("href", "src", "action")
+            )
+        ]
 
 
 def test_tables_have_header_cells_with_scope(browser_client, planned):
@@ -415,8 +446,9 @@ def test_tables_have_header_cells_with_scope(browser_client, planned):
 
 
 def test_quantities_carry_the_configured_unit_and_money_the_currency(database_url, tokens, demo):
-    application = create_app({"DATABASE_URL": database_url, "TESTING": True, "ULLAGE_QUANTITY_UNIT": "m3",
-                              "ULLAGE_CURRENCY": "GBP"})
+    application = create_app(
+        {"DATABASE_URL": database_url, "TESTING": True, "ULLAGE_QUANTITY_UNIT": "m3", "ULLAGE_CURRENCY": "GBP"}
+    )
     try:
         client = application.test_client()
         sign_in(client, tokens["viewer"])

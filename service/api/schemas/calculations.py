@@ -42,8 +42,9 @@ class JointRequestSchema(StrictSchema):
     max_stops = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=1000))
     method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(METHODS))
     base_days = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=3660))
-    sites = ma.fields.List(ma.fields.Nested(JointSiteSchema), required=True,
-                           validate=ma.validate.Length(min=1, max=MAX_SITES))
+    sites = ma.fields.List(
+        ma.fields.Nested(JointSiteSchema), required=True, validate=ma.validate.Length(min=1, max=MAX_SITES)
+    )
 
 
 class BreakdownSchema(ma.Schema):

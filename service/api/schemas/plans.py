@@ -13,8 +13,11 @@ PLAN_METHODS = ("power_of_two", "integer", "best")
 class PlanRequestSchema(StrictSchema):
     method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(PLAN_METHODS))
     base_days = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=3660))
-    start_date = ma.fields.Date(load_default=None, allow_none=True,
-                                metadata={"description": "First day of the plan's calendar (default: today)"})
+    start_date = ma.fields.Date(
+        load_default=None,
+        allow_none=True,
+        metadata={"description": "First day of the plan's calendar (default: today)"},
+    )
 
 
 class PlanSchema(JointFieldsSchema):
@@ -26,7 +29,9 @@ class PlanSchema(JointFieldsSchema):
     start_date = ma.fields.Date()
     created_at = ma.fields.DateTime()
     created_by = ma.fields.String()
-    inputs = ma.fields.Dict(metadata={"description": "Snapshot of the truck's and every site's parameters with versions"})
+    inputs = ma.fields.Dict(
+        metadata={"description": "Snapshot of the truck's and every site's parameters with versions"}
+    )
     inputs_digest = ma.fields.String(metadata={"description": "SHA-256 of the canonical JSON of inputs"})
 
 
@@ -34,13 +39,24 @@ class PlanListSchema(ma.Schema):
     items = ma.fields.List(ma.fields.Nested(PlanSchema))
 
 
-class PlanQueryArgsSchema(PageArgsSchema):
+class IdPageArgsSchema(PageArgsSchema):
+    """Pages keyed by a numeric id: ``after`` is that id (18 digits at most: a database integer)."""
+
+    after = ma.fields.String(
+        validate=ma.validate.Regexp(r"^[0-9]{1,18}$"),
+        metadata={"description": "The id of the last item of the previous page (Link header)"},
+    )
+
+
+class PlanQueryArgsSchema(IdPageArgsSchema):
     pass
 
 
 class TripsQueryArgsSchema(StrictSchema):
-    week = ma.fields.String(metadata={"description": "ISO 8601 week, e.g. 2026-W50 (Monday to Sunday)"},
-                            validate=ma.validate.Regexp(r"^(?!0000)\d{4}-W(0[1-9]|[1-4][0-9]|5[0-3])$"))
+    week = ma.fields.String(
+        metadata={"description": "ISO 8601 week, e.g. 2026-W50 (Monday to Sunday)"},
+        validate=ma.validate.Regexp(r"^(?!0000)\d{4}-W(0[1-9]|[1-4][0-9]|5[0-3])$"),
+    )
     from_ = ma.fields.Date(data_key="from")
     to = ma.fields.Date()
 
@@ -77,8 +93,9 @@ class TripsSchema(ma.Schema):
 
 class ReadingRequestSchema(StrictSchema):
     level = JsonFloat(required=True, validate=ma.validate.Range(min=0, max=AMOUNT_MAX))
-    measured_at = ma.fields.AwareDateTime(required=True, format="iso",
-                                          metadata={"description": "ISO 8601 with a UTC offset; not in the future"})
+    measured_at = ma.fields.AwareDateTime(
+        required=True, format="iso", metadata={"description": "ISO 8601 with a UTC offset; not in the future"}
+    )
 
 
 class ReadingSchema(ma.Schema):

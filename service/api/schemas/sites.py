@@ -17,17 +17,25 @@ from service.api.schemas.common import (
 class SiteSchema(StrictSchema):
     code = ma.fields.String(required=True, validate=code_field_validate)
     name = ma.fields.String(required=True, validate=name_validate)
-    truck = ma.fields.String(required=True, validate=code_field_validate,
-                             metadata={"description": "Code of the truck that serves the site"})
+    truck = ma.fields.String(
+        required=True, validate=code_field_validate, metadata={"description": "Code of the truck that serves the site"}
+    )
     demand_per_day = JsonFloat(required=True, validate=positive(), metadata={"description": "Quantity used per day"})
-    holding_cost = JsonFloat(required=True, validate=nonnegative(),
-                             metadata={"description": "Currency per quantity unit per day"})
+    holding_cost = JsonFloat(
+        required=True, validate=nonnegative(), metadata={"description": "Currency per quantity unit per day"}
+    )
     stop_cost = JsonFloat(required=True, validate=nonnegative(), metadata={"description": "Currency per delivery"})
     tank_capacity = JsonFloat(required=True, validate=positive(), metadata={"description": "Nominal tank size"})
-    safe_fill = JsonFloat(load_default=0.9, validate=ma.validate.Range(min=0.01, max=1.0),
-                          metadata={"description": "Fraction of the tank that may be filled, (0, 1]"})
-    safety_stock = JsonFloat(load_default=0.0, validate=ma.validate.Range(min=0, max=AMOUNT_MAX),
-                             metadata={"description": "Stock kept in reserve; below safe_fill × tank_capacity"})
+    safe_fill = JsonFloat(
+        load_default=0.9,
+        validate=ma.validate.Range(min=0.01, max=1.0),
+        metadata={"description": "Fraction of the tank that may be filled, (0, 1]"},
+    )
+    safety_stock = JsonFloat(
+        load_default=0.0,
+        validate=ma.validate.Range(min=0, max=AMOUNT_MAX),
+        metadata={"description": "Stock kept in reserve; below safe_fill × tank_capacity"},
+    )
     active = JsonBool(load_default=True)
     latitude = JsonFloat(load_default=None, allow_none=True, validate=ma.validate.Range(min=-90, max=90))
     longitude = JsonFloat(load_default=None, allow_none=True, validate=ma.validate.Range(min=-180, max=180))

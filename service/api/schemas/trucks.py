@@ -10,10 +10,14 @@ from service.api.schemas.common import StrictSchema, code_field_validate, name_v
 class TruckSchema(StrictSchema):
     code = ma.fields.String(required=True, validate=code_field_validate)
     name = ma.fields.String(required=True, validate=name_validate)
-    dispatch_cost = JsonFloat(required=True, validate=nonnegative(),
-                              metadata={"description": "Cost of one truck trip, in the service currency"})
-    capacity = JsonFloat(required=True, validate=positive(),
-                         metadata={"description": "Quantity one trip can carry, in the service unit"})
+    dispatch_cost = JsonFloat(
+        required=True,
+        validate=nonnegative(),
+        metadata={"description": "Cost of one truck trip, in the service currency"},
+    )
+    capacity = JsonFloat(
+        required=True, validate=positive(), metadata={"description": "Quantity one trip can carry, in the service unit"}
+    )
     max_stops = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=1000))
     active = JsonBool(load_default=True)
     version = ma.fields.Integer(dump_only=True)

@@ -51,6 +51,8 @@ def power_of_two_optimised_base(K, k, H, grid=2000):
     step = bases[1] / bases[0]
     res = minimize_scalar(
         lambda b: _power_of_two_continuous(K, k, H, float(b))[0],
-        bounds=(bases[j] / step, bases[j] * step), method="bounded", options={"xatol": 1e-12 * bases[j]},
+        bounds=(bases[j] / step, bases[j] * step),
+        method="bounded",
+        options={"xatol": 1e-12 * bases[j]},
     )
     return min(costs[j], float(res.fun))

@@ -16,7 +16,9 @@ def _instance(seed):
     U = rng.uniform(1.0, u_max + 0.99, n)
     h = np.exp(rng.uniform(np.log(1e-4), np.log(2e-2), n))
     k = rng.uniform(0, 80, n)
-    sites = [SiteInput(f"s{i}", float(d[i]), float(h[i]), float(k[i]), float(d[i] * U[i]), safe_fill=1.0) for i in range(n)]
+    sites = [
+        SiteInput(f"s{i}", float(d[i]), float(h[i]), float(k[i]), float(d[i] * U[i]), safe_fill=1.0) for i in range(n)
+    ]
     K = float(rng.uniform(0, 300))
     return sites, TruckInput(K), K, k, h * d / 2, np.floor(U).astype(int)
 
@@ -66,7 +68,14 @@ def _larger_instance(seed):
     d = rng.uniform(50, 2000, n)
     U = np.exp(rng.uniform(np.log(8), np.log(120), n))
     sites = [
-        SiteInput(f"s{i}", float(d[i]), float(rng.uniform(1e-4, 3e-3)), float(rng.uniform(0, 200)), float(d[i] * U[i]), safe_fill=1.0)
+        SiteInput(
+            f"s{i}",
+            float(d[i]),
+            float(rng.uniform(1e-4, 3e-3)),
+            float(rng.uniform(0, 200)),
+            float(d[i] * U[i]),
+            safe_fill=1.0,
+        )
         for i in range(n)
     ]
     return sites, TruckInput(float(np.exp(rng.uniform(0, 9))))
@@ -89,5 +98,8 @@ def test_integer_search_equals_trying_every_dispatch_interval(seed):
     k = np.array([s.stop_cost for s in sites])
     H = np.array([s.holding_cost * s.demand_per_day / 2 for s in sites])
     u = np.array([int(s.tank_capacity // s.demand_per_day) for s in sites])
-    every = [_class_cost(truck.dispatch_cost, k, H, float(T0), _multiples_for(k, H, float(T0), u // T0)) for T0 in range(1, u.min() + 1)]
+    every = [
+        _class_cost(truck.dispatch_cost, k, H, float(T0), _multiples_for(k, H, float(T0), u // T0))
+        for T0 in range(1, u.min() + 1)
+    ]
     assert plan_joint(sites, truck, method="integer").cost_per_day == pytest.approx(min(every), rel=1e-12)

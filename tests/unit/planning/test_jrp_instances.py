@@ -42,7 +42,9 @@ def test_exact_integer_multiple_optimum(name):
 def test_j1_beats_silver_heuristic():
     # J1: Silver heuristic m = [1,1,1,3,3], cost 218.68632025498687 (PUBLISHED, stockpyl test)
     K, k, H = arrays(JRP["J1"])
-    assert _class_cost(K, k, H, 0.2813771490671472, np.array([1, 1, 1, 3, 3])) == pytest.approx(218.68632025498687, rel=1e-9)
+    assert _class_cost(K, k, H, 0.2813771490671472, np.array([1, 1, 1, 3, 3])) == pytest.approx(
+        218.68632025498687, rel=1e-9
+    )
     assert integer_optimum(K, k, H)[0] < 218.68632025498687 * (1 - 1e-3)
 
 

@@ -93,7 +93,9 @@ def test_scaling_costs_scales_cost_and_bound_and_keeps_the_policy(problem, expon
     sites, truck, method = problem
     c = 2.0**exponent  # a power of two scales every float exactly
     scaled_sites = [
-        SiteInput(s.code, s.demand_per_day, s.holding_cost * c, s.stop_cost * c, s.tank_capacity, s.safe_fill, s.safety_stock)
+        SiteInput(
+            s.code, s.demand_per_day, s.holding_cost * c, s.stop_cost * c, s.tank_capacity, s.safe_fill, s.safety_stock
+        )
         for s in sites
     ]
     scaled_truck = TruckInput(truck.dispatch_cost * c, truck.capacity, truck.max_stops)

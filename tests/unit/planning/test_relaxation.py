@@ -15,7 +15,14 @@ def _random_instance(rng, n):
     d = rng.uniform(50, 5000, n)
     cap = np.exp(rng.uniform(np.log(1.5), np.log(40), n))
     sites = [
-        SiteInput(f"s{i}", float(d[i]), float(rng.uniform(1e-4, 5e-3)), float(rng.uniform(0, 60)), float(d[i] * cap[i]), safe_fill=1.0)
+        SiteInput(
+            f"s{i}",
+            float(d[i]),
+            float(rng.uniform(1e-4, 5e-3)),
+            float(rng.uniform(0, 60)),
+            float(d[i] * cap[i]),
+            safe_fill=1.0,
+        )
         for i in range(n)
     ]
     return sites, TruckInput(float(rng.uniform(0, 400)))
@@ -40,7 +47,9 @@ def _scipy_relaxation(sites, truck):
     best = np.inf
     for t in (1.0, np.sqrt(U.min()), U.min()):
         x0 = np.concatenate([[t], np.clip(np.sqrt(k / H), t, U)])
-        res = minimize(f, x0, jac=grad, bounds=bounds, constraints=[cons], method="SLSQP", options={"ftol": 1e-14, "maxiter": 500})
+        res = minimize(
+            f, x0, jac=grad, bounds=bounds, constraints=[cons], method="SLSQP", options={"ftol": 1e-14, "maxiter": 500}
+        )
         best = min(best, f(np.clip(res.x, [b[0] for b in bounds], [b[1] for b in bounds])))
     return best
 
@@ -99,7 +108,14 @@ def test_fixed_base_bound_is_tight():
 @pytest.mark.parametrize(
     "t_star, chosen, ratio",
     # check-values 1b single-item rounding on base 1 (DERIVED); "1.41421" there means just below √2
-    [(1.0, 1, 1.0), (1.2, 1, 1.016667), (np.sqrt(2) * (1 - 1e-12), 1, 1.060660), (1.5, 2, 1.041667), (2.0, 2, 1.0), (2.9, 4, 1.052155)],
+    [
+        (1.0, 1, 1.0),
+        (1.2, 1, 1.016667),
+        (np.sqrt(2) * (1 - 1e-12), 1, 1.060660),
+        (1.5, 2, 1.041667),
+        (2.0, 2, 1.0),
+        (2.9, 4, 1.052155),
+    ],
 )
 def test_single_item_rounding_table(t_star, chosen, ratio):
     k, H = np.array([t_star**2]), np.array([1.0])

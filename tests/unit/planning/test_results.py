@@ -8,15 +8,38 @@ import time
 import pytest
 
 from service.planning import (
-    CycleResult, SiteInput, SitePlan, Status, Stop, Trip, TruckInput, plan_joint, single_site_cycle,
+    CycleResult,
+    SiteInput,
+    SitePlan,
+    Status,
+    Stop,
+    Trip,
+    TruckInput,
+    joint,
+    plan_joint,
+    single_site_cycle,
     trips_between,
 )
-from service.planning import joint
 
 JOINT_FIELDS = [
-    "status", "success", "message", "method", "base_days", "dispatch_interval_days", "repeat_days", "trips_per_repeat",
-    "cost_per_day", "cost_breakdown", "lower_bound_per_day", "gap", "peak_load", "extra_trips", "trips_truncated",
-    "sites", "trips", "warnings",
+    "status",
+    "success",
+    "message",
+    "method",
+    "base_days",
+    "dispatch_interval_days",
+    "repeat_days",
+    "trips_per_repeat",
+    "cost_per_day",
+    "cost_breakdown",
+    "lower_bound_per_day",
+    "gap",
+    "peak_load",
+    "extra_trips",
+    "trips_truncated",
+    "sites",
+    "trips",
+    "warnings",
 ]
 
 
@@ -48,7 +71,10 @@ def test_joint_to_dict_is_plain_json():
     assert data["status"] == "optimal" and data["success"] is True
     assert set(data["cost_breakdown"]) == {"dispatch", "stops", "holding"}
     assert list(data["sites"][0]) == ["code", "cycle_days", "offset_days", "quantity", "cost_per_day", "binding"]
-    assert list(data["trips"][0]) == ["day", "load", "stops"] and list(data["trips"][0]["stops"][0]) == ["code", "quantity"]
+    assert list(data["trips"][0]) == ["day", "load", "stops"] and list(data["trips"][0]["stops"][0]) == [
+        "code",
+        "quantity",
+    ]
     text = json.dumps(data, allow_nan=False)
     assert json.loads(text) == data
     assert type(data["repeat_days"]) is int and type(data["sites"][0]["cycle_days"]) is int
@@ -63,11 +89,13 @@ def test_cycle_to_dict():
 
 def test_site_cost_share_and_breakdown():
     result = plan_joint(_sites(), TruckInput(100.0))
-    for plan, site in zip(result.sites, _sites()):
+    for plan, site in zip(result.sites, _sites(), strict=True):
         H = site.holding_cost * site.demand_per_day / 2
         assert plan.cost_per_day == pytest.approx(site.stop_cost / plan.cycle_days + H * plan.cycle_days, rel=1e-12)
         assert plan.quantity == pytest.approx(site.demand_per_day * plan.cycle_days, rel=1e-12)
-    assert result.cost_breakdown["stops"] + result.cost_breakdown["holding"] == pytest.approx(sum(p.cost_per_day for p in result.sites))
+    assert result.cost_breakdown["stops"] + result.cost_breakdown["holding"] == pytest.approx(
+        sum(p.cost_per_day for p in result.sites)
+    )
     assert result.gap == pytest.approx(result.cost_per_day / result.lower_bound_per_day - 1, rel=1e-12)
 
 
@@ -159,5 +187,7 @@ def test_extra_trips_beyond_the_evaluated_window_are_estimated_with_a_warning():
     assert result.extra_trips > 0 and result.trips_per_repeat == period + result.extra_trips
     assert any("estimated from the first 131072 dispatch days" in w for w in result.warnings)
     assert any("peak load over the whole period is at most" in w for w in result.warnings)
-    assert result.cost_breakdown["dispatch"] == pytest.approx(5.0 * result.trips_per_repeat / result.repeat_days, rel=1e-12)
+    assert result.cost_breakdown["dispatch"] == pytest.approx(
+        5.0 * result.trips_per_repeat / result.repeat_days, rel=1e-12
+    )
     assert all(t.load <= 1000.0 for t in trips_between(result, truck, 0, 4000))

@@ -119,8 +119,12 @@ def test_free_optimum_not_binding_and_whole_day_rounding():
 
 
 def test_both_caps_below_free_optimum_the_smaller_binds():
-    tank_smaller = single_site_cycle(SiteInput("s", 100, 0.0001, 50, 1000, safe_fill=1.0), TruckInput(300, capacity=1500))
-    truck_smaller = single_site_cycle(SiteInput("s", 100, 0.0001, 50, 2000, safe_fill=1.0), TruckInput(300, capacity=1500))
+    tank_smaller = single_site_cycle(
+        SiteInput("s", 100, 0.0001, 50, 1000, safe_fill=1.0), TruckInput(300, capacity=1500)
+    )
+    truck_smaller = single_site_cycle(
+        SiteInput("s", 100, 0.0001, 50, 2000, safe_fill=1.0), TruckInput(300, capacity=1500)
+    )
     assert (tank_smaller.binding, tank_smaller.cycle_days) == ("tank", 10)
     assert (truck_smaller.binding, truck_smaller.cycle_days) == ("truck", 15)
 
@@ -147,6 +151,8 @@ def test_no_ordering_cost_delivers_daily():
 
 def test_safety_stock_and_safe_fill_reduce_usable_stock():
     # usable = 10000 × 0.9 − 1000 = 8000 L = 8 days at 1000 L/day
-    result = single_site_cycle(SiteInput("s", 1000, 0.0001, 10, 10000, safe_fill=0.9, safety_stock=1000), TruckInput(200))
+    result = single_site_cycle(
+        SiteInput("s", 1000, 0.0001, 10, 10000, safe_fill=0.9, safety_stock=1000), TruckInput(200)
+    )
     assert result.cycle_days_continuous == pytest.approx(8.0, rel=REL)
     assert result.cycle_days == 8

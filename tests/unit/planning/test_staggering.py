@@ -18,7 +18,9 @@ def _loads(m, Q):
 
 def _best_peak(m, Q):
     m, Q = np.asarray(m), np.asarray(Q, float)
-    return min(_per_trip(m, np.array(r), Q, int(np.lcm.reduce(m))).max() for r in itertools.product(*[range(x) for x in m]))
+    return min(
+        _per_trip(m, np.array(r), Q, int(np.lcm.reduce(m))).max() for r in itertools.product(*[range(x) for x in m])
+    )
 
 
 def test_s1_s3_coprime_multiples_always_coincide():
@@ -28,7 +30,7 @@ def test_s1_s3_coprime_multiples_always_coincide():
     assert loads.max() == pytest.approx(8615.2118, abs=1e-9)
     assert _best_peak(m, Q) == pytest.approx(8615.2118, abs=1e-9)
     # S1: average trip load A = Σ Q_i / m_i
-    assert loads.mean() == pytest.approx(sum(q / x for q, x in zip(Q, m)), rel=1e-12)
+    assert loads.mean() == pytest.approx(sum(q / x for q, x in zip(Q, m, strict=True)), rel=1e-12)
 
 
 def test_s4_nested_example_reaches_the_best_staggered_peak():

@@ -6,20 +6,38 @@ import re
 import pytest
 
 from service.planning import (
-    JointResult, PlanningInputError, SiteInput, TruckInput, lower_bound, plan_joint, single_site_cycle, trips_between,
+    JointResult,
+    PlanningInputError,
+    SiteInput,
+    TruckInput,
+    lower_bound,
+    plan_joint,
+    single_site_cycle,
+    trips_between,
 )
 
 GOOD = SiteInput("farm-01", 100.0, 0.001, 20.0, 2000.0)
 TRUCK = TruckInput(100.0)
 
 
-
 @pytest.mark.parametrize(
     "changes, field, message",
     [
-        ({"demand_per_day": 0.0}, "demand_per_day", "site `farm-03`: demand_per_day must be a finite number > 0, got 0.0"),
-        ({"demand_per_day": math.nan}, "demand_per_day", "site `farm-03`: demand_per_day must be a finite number > 0, got nan"),
-        ({"demand_per_day": "95"}, "demand_per_day", "site `farm-03`: demand_per_day must be a finite number > 0, got '95'"),
+        (
+            {"demand_per_day": 0.0},
+            "demand_per_day",
+            "site `farm-03`: demand_per_day must be a finite number > 0, got 0.0",
+        ),
+        (
+            {"demand_per_day": math.nan},
+            "demand_per_day",
+            "site `farm-03`: demand_per_day must be a finite number > 0, got nan",
+        ),
+        (
+            {"demand_per_day": "95"},
+            "demand_per_day",
+            "site `farm-03`: demand_per_day must be a finite number > 0, got '95'",
+        ),
         ({"holding_cost": -0.1}, "holding_cost", "site `farm-03`: holding_cost must be a finite number >= 0, got -0.1"),
         ({"stop_cost": math.inf}, "stop_cost", "site `farm-03`: stop_cost must be a finite number >= 0, got inf"),
         ({"tank_capacity": 0}, "tank_capacity", "site `farm-03`: tank_capacity must be a finite number > 0, got 0"),
@@ -45,7 +63,9 @@ def test_site_field_errors(changes, field, message):
 
 
 def test_truck_capacity_below_one_day_of_demand():
-    with pytest.raises(PlanningInputError, match=re.escape("site `farm-01`: usable stock 60 holds less than one day of demand 100")) as info:
+    with pytest.raises(
+        PlanningInputError, match=re.escape("site `farm-01`: usable stock 60 holds less than one day of demand 100")
+    ) as info:
         single_site_cycle(GOOD, TruckInput(100.0, capacity=60.0))
     assert (info.value.field, info.value.index, info.value.code) == ("tank_capacity", 0, "farm-01")
 
@@ -56,7 +76,11 @@ def test_truck_capacity_below_one_day_of_demand():
         (TruckInput(-1.0), "dispatch_cost", "truck: dispatch_cost must be a finite number >= 0, got -1.0"),
         (TruckInput(math.nan), "dispatch_cost", "truck: dispatch_cost must be a finite number >= 0, got nan"),
         (TruckInput(1.0, capacity=0.0), "capacity", "truck: capacity must be a finite number > 0 or null, got 0.0"),
-        (TruckInput(1.0, capacity=math.inf), "capacity", "truck: capacity must be a finite number > 0 or null, got inf"),
+        (
+            TruckInput(1.0, capacity=math.inf),
+            "capacity",
+            "truck: capacity must be a finite number > 0 or null, got inf",
+        ),
         (TruckInput(1.0, max_stops=0), "max_stops", "truck: max_stops must be an integer >= 1 or null, got 0"),
         (TruckInput(1.0, max_stops=2.5), "max_stops", "truck: max_stops must be an integer >= 1 or null, got 2.5"),
         (TruckInput(1.0, max_stops=True), "max_stops", "truck: max_stops must be an integer >= 1 or null, got True"),
@@ -87,7 +111,11 @@ def test_duplicate_and_missing_codes_and_empty_list():
         ({"base_days": 0}, "base_days", "base_days must be an integer >= 1 or null, got 0"),
         ({"base_days": 2.0}, "base_days", "base_days must be an integer >= 1 or null, got 2.0"),
         ({"base_days": True}, "base_days", "base_days must be an integer >= 1 or null, got True"),
-        ({"method": "integer", "base_days": 7}, "base_days", "base_days applies to methods power_of_two and best, not integer"),
+        (
+            {"method": "integer", "base_days": 7},
+            "base_days",
+            "base_days applies to methods power_of_two and best, not integer",
+        ),
     ],
 )
 def test_option_errors(kwargs, field, message):
