@@ -1,0 +1,203 @@
+"""The pages: every truck's week (warnings, plan line, trips, small charts) and one site's chart."""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+from typing import Any
+
+from flask import render_template, request
+from sqlalchemy import select
+
+from service import schedule
+from service.auth import SESSION, allow
+from service.errors import Problem
+from service.persistence import repository as repo
+from service.persistence.db import get_session
+from service.persistence.models import Truck
+from service.web import bp, error_page, formatting, settings
+from service.web.access import page
+from service.web.chart import chart_id, level_svg
+
+CHART_DAYS = 28
+ASCII_WEEK = re.compile(r"[0-9]{4}-W[0-9]{2}")
+FIRST_YEAR, LAST_YEAR = 1900, 2999  # weeks the page shows (and their neighbours) stay far from date.min/max
+
+#: Warning kinds: a word for the badge and an order (most urgent first).
+NOTICE_KINDS = {
+    "run_out_risk": ("Run-out risk", 0),
+    "no_active_plan": ("No active plan", 1),
+    "plan_stale": ("Plan out of date", 2),
+    "no_recent_reading": ("No recent reading", 3),
+}
+
+
+@bp.get("")
+@allow(SESSION)
+@page
+def overview() -> Any:
+    """Every truck: warnings first, the active plan in one line, the week's trips, small level charts."""
+    config, db = settings(), get_session()
+    week = request.args.get("week") or schedule.current_week(config)
+    try:
+        if not ASCII_WEEK.fullmatch(week):
+            raise ValueError(week)
+        monday, sunday = schedule.iso_week(week)
+    except (ValueError, TypeError, LookupError, OverflowError) as exc:
+        raise Problem(400, "The week must be an ISO week such as 2026-W49.", title="Unknown week") from exc
+    if not FIRST_YEAR <= monday.year <= LAST_YEAR:
+        raise Problem(400, f"Choose a week from {FIRST_YEAR} to {LAST_YEAR}.", title="Unknown week")
+    week = formatting.iso_week_of(monday)
+    trucks = list(db.scalars(select(Truck).where(Truck.active.is_(True)).order_by(Truck.code)))
+    panels, warnings = [], []
+    for truck in trucks:
+        panel = _truck_panel(db, truck, monday, sunday, config)
+        panels.append(panel)
+        warnings.extend(panel["warnings"])
+    return render_template(
+        "status_overview.html",
+        week=week,
+        monday=monday,
+        sunday=sunday,
+        previous_week=formatting.iso_week_of(monday - dt.timedelta(days=7)),
+        next_week=formatting.iso_week_of(monday + dt.timedelta(days=7)),
+        this_week=schedule.current_week(config),
+        panels=panels,
+        warnings=_sorted_warnings(warnings),
+        chart_days=CHART_DAYS,
+    )
+
+
+@bp.get("/sites/<code>")
+@allow(SESSION)
+@page
+def site_page(code: str) -> Any:
+    """One site's projected tank level for the next 28 days."""
+    config, db = settings(), get_session()
+    try:
+        site = repo.site_by_code(db, code)
+    except repo.NotFound as exc:
+        raise Problem(404, "There is no site with this code.", title="Not found") from exc
+    truck = db.get(Truck, site.truck_id)
+    first = schedule.today(config)
+    levels = schedule.site_levels(db, site, first, CHART_DAYS, config)
+    label = f"{site.name} ({site.code})"
+    chart = level_svg(levels, unit=config.quantity_unit, site_label=label, element_id=chart_id("chart", site.code))
+    last = first + dt.timedelta(days=CHART_DAYS - 1)
+    deliveries = [(d, q) for d, q in levels.deliveries if first <= d <= last]
+    return render_template(
+        "status_site.html",
+        site=site,
+        truck=truck,
+        levels=levels,
+        chart=chart,
+        first=first,
+        last=last,
+        deliveries=deliveries,
+        delivery_dates={d for d, _ in deliveries},
+        has_level=any(v is not None for _, v in levels.days),
+        warnings=_sorted_warnings(_dedupe(levels.notices)),
+        week=formatting.iso_week_of(first),
+    )
+
+
+@bp.route("/<path:rest>", methods=["GET", "POST"])
+@allow(SESSION)
+def not_found(rest: str) -> Any:
+    return error_page(404, "Not Found", "There is no such page or site.")
+
+
+def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config: Any) -> dict[str, Any]:
+    view, notices = None, []
+    try:
+        view = schedule.trips_view(db, truck, monday, sunday, config)
+    except schedule.NoActivePlan:
+        notices.append(_notice("no_active_plan", f"Truck {truck.code} has no active plan, so no trips are scheduled."))
+    plan = view.plan if view is not None else None
+    if view is not None:
+        notices.extend(view.notices)
+        for trip in view.trips:
+            for stop in trip.stops:
+                notices.extend(stop.notices)
+        if plan is None:
+            notices.append(
+                _notice("no_active_plan", f"Truck {truck.code} has no active plan, so no trips are scheduled.")
+            )
+        elif plan.stale and not any(n.kind == "plan_stale" for n in notices):
+            changed = ", ".join(plan.changed_sites) or "some sites"
+            notices.append(
+                _notice("plan_stale", f"The plan for {truck.code} is out of date: {changed} changed since it was made.")
+            )
+    sites = repo.active_sites(db, truck)
+    charts = []
+    for site in sites:
+        levels = schedule.site_levels(db, site, monday, CHART_DAYS, config)
+        notices.extend(levels.notices)
+        label = f"{site.name} ({site.code})"
+        charts.append(
+            {
+                "site": site,
+                "levels": levels,
+                "svg": level_svg(
+                    levels,
+                    unit=config.quantity_unit,
+                    site_label=label,
+                    element_id=chart_id(f"mini-{truck.code}", site.code),
+                    small=True,
+                ),
+                "has_level": any(v is not None for _, v in levels.days),
+            }
+        )
+    if plan is None:  # the truck's own notice says it; one per site would only repeat it
+        notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
+    warnings = [dict(w, truck=truck.code) for w in _group_readings(_dedupe(notices), truck)]
+    gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
+    return {"truck": truck, "view": view, "plan": plan, "gap": gap, "charts": charts, "warnings": warnings}
+
+
+def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[str, Any]]:
+    """Several "no recent reading" notices of one truck become one line naming the sites."""
+    missing = [n for n in notices if n["kind"] == "no_recent_reading" and n["site"]]
+    if len(missing) <= 2:
+        return notices
+    sites = [n["site"] for n in missing]
+    merged = _notice(
+        "no_recent_reading",
+        f"{len(sites)} sites of truck {truck.code} have no recent reading; "
+        "their levels and quantities follow the plan, not a gauge:",
+    )
+    merged["sites"] = sites
+    out = [n for n in notices if n not in missing]
+    out.append(merged)
+    return out
+
+
+def _notice(kind: str, message: str, site: str | None = None, date: dt.date | None = None) -> Any:
+    return {"kind": kind, "message": message, "site": site, "date": date}
+
+
+def _as_dict(notice: Any) -> dict[str, Any]:
+    if isinstance(notice, dict):
+        return notice
+    return {"kind": notice.kind, "message": notice.message, "site": notice.site, "date": notice.date}
+
+
+def _dedupe(notices: Any) -> list[dict[str, Any]]:
+    seen, out = set(), []
+    for notice in map(_as_dict, notices):
+        key = (notice["kind"], notice["site"], notice["date"])
+        if key not in seen:
+            seen.add(key)
+            out.append(notice)
+    return out
+
+
+def _sorted_warnings(notices: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    def key(notice: dict[str, Any]) -> tuple[Any, ...]:
+        order = NOTICE_KINDS.get(notice["kind"], (notice["kind"], 9))[1]
+        return (order, notice["date"] or dt.date.max, notice.get("truck") or "", notice["site"] or "")
+
+    return [
+        dict(n, label=NOTICE_KINDS.get(n["kind"], (n["kind"].replace("_", " ").capitalize(), 9))[0])
+        for n in sorted(notices, key=key)
+    ]
