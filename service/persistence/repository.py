@@ -34,24 +34,22 @@ def lock_for_update(session: Session, statement: Any) -> Any:
     return statement.with_for_update() if session.get_bind().dialect.name == "postgresql" else statement
 
 
-def truck_by_code(session: Session, code: str, *, for_update: bool = False) -> Truck:
-    statement = select(Truck).where(Truck.code == code)
+def _by_code(session: Session, model: type[Truck] | type[Site], code: str, for_update: bool) -> Any:
+    statement = select(model).where(model.code == code)
     if for_update:
         statement = lock_for_update(session, statement)
-    truck = session.scalars(statement).one_or_none()
-    if truck is None:
-        raise NotFound(f"No truck with code {code!r}.")
-    return truck
+    row = session.scalars(statement).one_or_none()
+    if row is None:
+        raise NotFound(f"No {model.__tablename__[:-1]} with code {code!r}.")
+    return row
+
+
+def truck_by_code(session: Session, code: str, *, for_update: bool = False) -> Truck:
+    return _by_code(session, Truck, code, for_update)
 
 
 def site_by_code(session: Session, code: str, *, for_update: bool = False) -> Site:
-    statement = select(Site).where(Site.code == code)
-    if for_update:
-        statement = lock_for_update(session, statement)
-    site = session.scalars(statement).one_or_none()
-    if site is None:
-        raise NotFound(f"No site with code {code!r}.")
-    return site
+    return _by_code(session, Site, code, for_update)
 
 
 def truck_codes(session: Session, ids: Iterable[int]) -> dict[int, str]:
