@@ -9,7 +9,7 @@ from typing import Any
 from flask import Flask
 from flask.json.provider import DefaultJSONProvider
 
-from service import api, auth, errors, health, observability, web
+from service import api, auth, errors, health, metrics, observability, web
 from service.api.blueprint import guard_request
 from service.config import load_settings
 from service.persistence import db
@@ -50,5 +50,6 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.before_request(guard_request)
     health.init_app(app)
     api.init_app(app)
+    metrics.init_app(app)
     web.init_app(app)
     return app

@@ -156,7 +156,10 @@ def note_token_use(response):  # type: ignore[no-untyped-def]
             # The view has committed what it meant to; anything still open (an error path after the
             # token lookup) is abandoned anyway. Ending it first matters on SQLite, where the open
             # BEGIN IMMEDIATE would make the write below wait out busy_timeout (5 s) and fail.
-            request_session.rollback()
+            try:
+                request_session.rollback()
+            except Exception:  # noqa: BLE001 - a dead connection (database restarted) must not turn the answer into a 500
+                request_session.invalidate()
         intent = write_intent.set(True)
         session = current_app.extensions["ullage.sessionmaker"]()
         try:

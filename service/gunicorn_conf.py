@@ -20,3 +20,10 @@ errorlog = "-"
 
 def post_worker_init(worker):  # type: ignore[no-untyped-def]
     configure_logging(os.environ.get("LOG_LEVEL", "INFO"))
+
+
+def child_exit(server, worker):  # type: ignore[no-untyped-def]
+    """Prometheus multiprocess mode: forget the dead worker's live files (service.metrics)."""
+    from service.metrics import mark_process_dead  # noqa: PLC0415
+
+    mark_process_dead(worker.pid)

@@ -20,7 +20,11 @@ JSON = "application/json"
 
 
 class StrictParser(FlaskParser):
-    DEFAULT_UNKNOWN_BY_LOCATION = {**FlaskParser.DEFAULT_UNKNOWN_BY_LOCATION, "query": ma.RAISE, "querystring": ma.RAISE}
+    DEFAULT_UNKNOWN_BY_LOCATION = {
+        **FlaskParser.DEFAULT_UNKNOWN_BY_LOCATION,
+        "query": ma.RAISE,
+        "querystring": ma.RAISE,
+    }
 
 
 class Blueprint(SmorestBlueprint):
@@ -63,9 +67,20 @@ def guard_request() -> None:
     locations = _locations(handler)
     if request.args and "query" not in locations:
         names = ", ".join(sorted(request.args))
-        raise Problem(422, f"Unknown query parameter(s): {names}.", kind="validation",
-                      errors=[{"pointer": f"#/query/{n}", "detail": "Unknown field."} for n in sorted(request.args)])
+        raise Problem(
+            422,
+            f"Unknown query parameter(s): {names}.",
+            kind="validation",
+            errors=[{"pointer": f"#/query/{n}", "detail": "Unknown field."} for n in sorted(request.args)],
+        )
     expected = getattr(handler, "_ullage_body", None) or (JSON if "json" in locations else None)
+    if expected == JSON and request.method == "PATCH" and not request.content_length and not request.data:
+        raise Problem(
+            422,
+            "Send the changes as a JSON object.",
+            kind="validation",
+            errors=[{"pointer": "#", "detail": "Missing request body."}],
+        )
     if expected and request.method in {"POST", "PUT", "PATCH"} and request.mimetype != expected:
         if request.mimetype or request.content_length:
             raise Problem(415, f"Send the body as {expected}.", kind="unsupported-media-type")

@@ -28,17 +28,32 @@ def _tags(header: str) -> list[str]:
     return [part.strip() for part in header.split(",") if part.strip()]
 
 
+#: OpenAPI parameter for the changes that need ``If-Match`` (documented as required: 428 without it).
+IF_MATCH_PARAMETER = {
+    "in": "header",
+    "name": "If-Match",
+    "required": True,
+    "schema": {"type": "string"},
+    "description": "The ETag of your last GET of this resource (412 when it moved on).",
+}
+
+
 def require_if_match(etag: str) -> None:
     """Refuse a change unless ``If-Match`` carries the current tag."""
     header = request.headers.get("If-Match")
     if header is None:
-        raise Problem(428, "Send If-Match with the ETag from your last GET of this resource.",
-                      kind="precondition-required")
+        raise Problem(
+            428, "Send If-Match with the ETag from your last GET of this resource.", kind="precondition-required"
+        )
     tags = _tags(header)
     if "*" in tags or etag in tags:
         return
-    raise Problem(412, "The resource has changed since you read it; GET it again and retry.",
-                  kind="precondition-failed", headers={"ETag": etag})
+    raise Problem(
+        412,
+        "The resource has changed since you read it; GET it again and retry.",
+        kind="precondition-failed",
+        headers={"ETag": etag},
+    )
 
 
 def not_modified(etag: str) -> Response | None:

@@ -48,3 +48,14 @@ class JsonInt(ma.fields.Integer):
         if abs(value) > 2**53:
             raise self.make_error("invalid")
         return int(value)
+
+
+class JsonBool(ma.fields.Boolean):
+    """A JSON ``true``/``false``; marshmallow's Boolean would also take 0, 1, "yes", "on" (found by fuzzing)."""
+
+    default_error_messages = {"invalid": "Not a boolean (send JSON true or false)."}
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> bool:
+        if not isinstance(value, bool):
+            raise self.make_error("invalid")
+        return value

@@ -85,5 +85,10 @@ def get_session() -> Session:
 def _close_session(_exc: BaseException | None) -> None:
     session = g.pop("db_session", None)
     if session is not None:
-        session.close()
+        try:
+            session.close()
+        except Exception:  # noqa: BLE001 - e.g. PostgreSQL restarted: the ROLLBACK of close() fails
+            # Raising from teardown would replace the answer already built with gunicorn's HTML 500
+            # (found by the PostgreSQL-restart fault test); drop the dead connection instead.
+            session.invalidate()
     write_intent.set(True)

@@ -235,3 +235,21 @@ def test_truck_with_a_recorded_plan_cannot_be_deleted(client, auth, trucks, db_s
     assert count(db_session, Truck) == 2
     etag2 = client.get("/api/v1/trucks/T2", headers=auth("viewer")).headers["ETag"]
     assert client.delete("/api/v1/trucks/T2", headers=auth("admin", **{"If-Match": etag2})).status_code == 204
+
+
+@pytest.mark.parametrize("code", ["import", "export"])
+def test_route_names_are_not_site_codes(client, auth, demo, code):
+    # /api/v1/sites/import and /export are fixed routes (issue 2); a site with such a code could
+    # never be read at /api/v1/sites/{code}.
+    body = {
+        "code": code,
+        "name": "x",
+        "truck": "HV-R1",
+        "demand_per_day": 10,
+        "holding_cost": 0.001,
+        "stop_cost": 5,
+        "tank_capacity": 1000,
+    }
+    response = client.post("/api/v1/sites", json=body, headers=auth("admin"))
+    assert response.status_code == 422
+    assert response.get_json()["errors"][0]["pointer"] == "#/code"

@@ -14,8 +14,18 @@ from service.api.schemas.common import (
 )
 
 
+#: Codes that would shadow the fixed routes /api/v1/sites/import and /api/v1/sites/export.
+RESERVED_SITE_CODES = ("import", "export")
+
+
 class SiteSchema(StrictSchema):
-    code = ma.fields.String(required=True, validate=code_field_validate)
+    code = ma.fields.String(
+        required=True,
+        validate=[
+            code_field_validate,
+            ma.validate.NoneOf(RESERVED_SITE_CODES, error="'import' and 'export' are reserved route names."),
+        ],
+    )
     name = ma.fields.String(required=True, validate=name_validate)
     truck = ma.fields.String(
         required=True, validate=code_field_validate, metadata={"description": "Code of the truck that serves the site"}

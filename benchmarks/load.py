@@ -1,0 +1,445 @@
+"""Load benchmark on loopback: prints figures, it is not a test.
+
+For SQLite and, separately, PostgreSQL (a fresh database ``ullage_bench`` on the server of
+``--pg-url``, dropped afterwards), it migrates, loads the demo network, records and activates a plan,
+starts gunicorn with the project's config on a free 127.0.0.1 port and runs bounded scenarios:
+
+* ``GET /livez`` (the framework's ceiling), ``GET`` a site, ``GET`` the weekly trips — with ``wrk``
+  when installed (``--no-wrk`` to use the Python generator), else the Python generator;
+* ``POST`` a joint calculation of 50 sites and ``POST`` plan creation with Idempotency-Keys — Python
+  generator (threads, one keep-alive ``http.client`` connection each).
+
+Every scenario runs ``--seconds`` (default 10, at most 30). It prints requests per second, p50/p99
+and error counts, and checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count.
+
+    .venv/bin/python benchmarks/load.py [--seconds 10] [--db sqlite|postgresql|both]
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import datetime as dt
+import http.client
+import json
+import os
+import re
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+import uuid
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from alembic import command  # noqa: E402
+from sqlalchemy import create_engine, text  # noqa: E402
+from sqlalchemy.engine import make_url  # noqa: E402
+from sqlalchemy.orm import Session  # noqa: E402
+
+from service.auth import new_token, token_hash  # noqa: E402
+from service.demo import load_demo  # noqa: E402
+from service.health import alembic_config  # noqa: E402
+from service.persistence import repository as repo  # noqa: E402
+
+HOST = "127.0.0.1"
+TRUCK, SITE = "HV-R1", "HV-GAR-02"
+MAX_SECONDS = 30
+MAX_REQUESTS = 2_000_000  # a hard cap per scenario, whatever the speed
+
+
+@dataclass
+class Figures:
+    scenario: str
+    database: str
+    tool: str
+    connections: int
+    requests: int
+    rps: float
+    p50_ms: float
+    p99_ms: float
+    errors: int
+    ok: int
+
+
+def free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind((HOST, 0))
+        return sock.getsockname()[1]
+
+
+def percentile(sorted_values: list[float], q: float) -> float:
+    if not sorted_values:
+        return float("nan")
+    index = min(len(sorted_values) - 1, max(0, round(q * (len(sorted_values) - 1))))
+    return sorted_values[index]
+
+
+def python_load(
+    port: int,
+    method: str,
+    path: str,
+    headers: dict[str, str],
+    seconds: float,
+    connections: int,
+    body: Callable[[int], tuple[bytes, dict[str, str]]] | None = None,
+) -> tuple[int, int, int, list[float]]:
+    """(requests, 2xx, errors, latencies in ms) from ``connections`` keep-alive threads."""
+    latencies: list[list[float]] = [[] for _ in range(connections)]
+    counts = [[0, 0, 0] for _ in range(connections)]
+    deadline = time.monotonic() + seconds
+    per_thread_cap = MAX_REQUESTS // connections
+
+    def run(n: int) -> None:
+        conn = http.client.HTTPConnection(HOST, port, timeout=30)
+        i = 0
+        while time.monotonic() < deadline and i < per_thread_cap:
+            payload, extra = body(n * per_thread_cap + i) if body else (None, {})
+            started = time.perf_counter()
+            try:
+                conn.request(method, path, body=payload, headers={**headers, **extra})
+                response = conn.getresponse()
+                response.read()
+                status = response.status
+            except (OSError, http.client.HTTPException):
+                conn.close()
+                conn = http.client.HTTPConnection(HOST, port, timeout=30)
+                status = 0
+            latencies[n].append((time.perf_counter() - started) * 1000)
+            counts[n][0] += 1
+            if 200 <= status < 300:
+                counts[n][1] += 1
+            else:
+                counts[n][2] += 1
+            i += 1
+        conn.close()
+
+    threads = [threading.Thread(target=run, args=(n,)) for n in range(connections)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join(seconds + 60)
+    total = [sum(c[k] for c in counts) for k in range(3)]
+    return total[0], total[1], total[2], sorted(x for lat in latencies for x in lat)
+
+
+def _ms(value: str) -> float:
+    match = re.match(r"([\d.]+)(us|ms|s|m)$", value)
+    if not match:
+        return float("nan")
+    number, unit = match.groups()
+    return float(number) * {"us": 0.001, "ms": 1.0, "s": 1000.0, "m": 60000.0}[unit]
+
+
+def wrk_load(
+    port: int, path: str, headers: dict[str, str], seconds: float, connections: int
+) -> tuple[int, int, float, float, float]:
+    """(requests, non-2xx/3xx + socket errors, rps, p50, p99) from wrk."""
+    argv = ["wrk", "-t1", f"-c{connections}", f"-d{int(seconds)}s", "--latency", "--timeout", "10s"]
+    for name, value in headers.items():
+        argv += ["-H", f"{name}: {value}"]
+    out = subprocess.run(
+        [*argv, f"http://{HOST}:{port}{path}"], capture_output=True, text=True, timeout=seconds + 30, check=True
+    ).stdout
+    requests_ = int(re.search(r"(\d+) requests in", out).group(1))
+    rps = float(re.search(r"Requests/sec:\s+([\d.]+)", out).group(1))
+    found50, found99 = re.search(r"50%\s+(\S+)", out), re.search(r"99%\s+(\S+)", out)
+    p50 = _ms(found50.group(1)) if found50 else float("nan")
+    p99 = _ms(found99.group(1)) if found99 else float("nan")
+    if not (found50 and found99):
+        print("wrk output without a latency distribution:\n" + out, file=sys.stderr)
+    errors = 0
+    if match := re.search(r"Non-2xx or 3xx responses: (\d+)", out):
+        errors += int(match.group(1))
+    if match := re.search(r"Socket errors: connect (\d+), read (\d+), write (\d+), timeout (\d+)", out):
+        errors += sum(int(g) for g in match.groups())
+    return requests_, errors, rps, p50, p99
+
+
+@contextlib.contextmanager
+def gunicorn(url: str, workdir: Path, workers: int) -> Iterator[int]:
+    port = free_port()
+    metrics_dir = workdir / "prometheus"
+    metrics_dir.mkdir(exist_ok=True)
+    env = {
+        **os.environ,
+        "DATABASE_URL": url,
+        "WEB_CONCURRENCY": str(workers),
+        "ULLAGE_SECRET_KEY": "bench",
+        "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
+        "LOG_LEVEL": "WARNING",
+    }
+    log = open(workdir / "gunicorn.log", "wb")  # noqa: SIM115
+    process = subprocess.Popen(
+        [
+            str(Path(sys.executable).parent / "gunicorn"),
+            "--config",
+            str(ROOT / "service" / "gunicorn_conf.py"),
+            "--bind",
+            f"{HOST}:{port}",
+            "service.app:create_app()",
+        ],
+        cwd=workdir,
+        env=env,
+        stdout=log,
+        stderr=subprocess.STDOUT,
+    )
+    log.close()
+    try:
+        deadline = time.monotonic() + 30
+        while True:
+            try:
+                conn = http.client.HTTPConnection(HOST, port, timeout=2)
+                conn.request("GET", "/readyz")
+                if conn.getresponse().status == 200:
+                    break
+            except OSError:
+                pass
+            if process.poll() is not None or time.monotonic() > deadline:
+                raise RuntimeError("gunicorn did not become ready:\n" + (workdir / "gunicorn.log").read_text()[-2000:])
+            time.sleep(0.1)
+        yield port
+    finally:
+        process.send_signal(signal.SIGTERM)
+        try:
+            process.wait(30)
+        except subprocess.TimeoutExpired:
+            process.kill()
+            process.wait(5)
+
+
+def prepare(url: str) -> dict[str, str]:
+    command.upgrade(alembic_config(url), "head")
+    engine = create_engine(url)
+    tokens = {}
+    with Session(engine) as session:
+        load_demo(session, ROOT / "sample_data", "L")
+        for role in ("viewer", "dispatcher", "admin"):
+            tokens[role] = new_token()
+            repo.add_token(session, f"bench-{role}", role, token_hash(tokens[role]))
+        session.commit()
+    engine.dispose()
+    return tokens
+
+
+def count_plans(url: str) -> int:
+    engine = create_engine(url)
+    try:
+        with engine.connect() as conn:
+            return conn.execute(text("SELECT count(*) FROM plans")).scalar_one()
+    finally:
+        engine.dispose()
+
+
+def request_json(
+    port: int, method: str, path: str, headers: dict[str, str], body: object | None = None
+) -> tuple[int, dict]:
+    conn = http.client.HTTPConnection(HOST, port, timeout=30)
+    payload = json.dumps(body).encode() if body is not None else None
+    conn.request(
+        method, path, body=payload, headers={**headers, **({"Content-Type": "application/json"} if payload else {})}
+    )
+    response = conn.getresponse()
+    data = response.read()
+    conn.close()
+    return response.status, (json.loads(data) if data else {})
+
+
+def joint_body() -> bytes:
+    sites = [
+        {
+            "code": f"S{i:02d}",
+            "demand_per_day": 50 + 37 * (i % 9),
+            "holding_cost": 0.002 + 0.0003 * (i % 5),
+            "stop_cost": 12 + i % 7,
+            "tank_capacity": 4000 + 900 * (i % 11),
+            "safe_fill": 0.9,
+            "safety_stock": 200,
+        }
+        for i in range(50)
+    ]
+    return json.dumps({"dispatch_cost": 150, "truck_capacity": 36000, "max_stops": 10, "sites": sites}).encode()
+
+
+def run_database(name: str, url: str, seconds: float, use_wrk: bool, workers: int) -> list[Figures]:
+    tokens = prepare(url)
+    out: list[Figures] = []
+    with (
+        tempfile.TemporaryDirectory(prefix=f"ullage-bench-{name}-") as workdir,
+        gunicorn(url, Path(workdir), workers) as port,
+    ):
+        viewer = {"Authorization": f"Bearer {tokens['viewer']}"}
+        dispatcher = {"Authorization": f"Bearer {tokens['dispatcher']}"}
+        status, plan = request_json(port, "POST", f"/api/v1/trucks/{TRUCK}/plans", dispatcher, {})
+        assert status == 201, plan
+        status, _ = request_json(port, "POST", f"/api/v1/plans/{plan['id']}/activate", dispatcher)
+        assert status == 200
+        iso = dt.date.today().isocalendar()
+        week = f"{iso.year}-W{iso.week:02d}"
+        gets = [
+            ("GET /livez", "/livez", {}, 16),
+            ("GET site", f"/api/v1/sites/{SITE}", viewer, 16),
+            ("GET weekly trips", f"/api/v1/trucks/{TRUCK}/trips?week={week}", viewer, 8),
+        ]
+        for label, path, headers, connections in gets:
+            if use_wrk:
+                total, errors, rps, p50, p99 = wrk_load(port, path, headers, seconds, connections)
+                out.append(Figures(label, name, "wrk", connections, total, rps, p50, p99, errors, total - errors))
+            else:
+                total, ok, errors, lat = python_load(port, "GET", path, headers, seconds, connections)
+                out.append(
+                    Figures(
+                        label,
+                        name,
+                        "python",
+                        connections,
+                        total,
+                        total / seconds,
+                        percentile(lat, 0.5),
+                        percentile(lat, 0.99),
+                        errors,
+                        ok,
+                    )
+                )
+        joint = joint_body()
+        total, ok, errors, lat = python_load(
+            port,
+            "POST",
+            "/api/v1/calculations/joint",
+            {**dispatcher, "Content-Type": "application/json"},
+            seconds,
+            4,
+            body=lambda _i: (joint, {}),
+        )
+        out.append(
+            Figures(
+                "POST joint calc (50 sites)",
+                name,
+                "python",
+                4,
+                total,
+                total / seconds,
+                percentile(lat, 0.5),
+                percentile(lat, 0.99),
+                errors,
+                ok,
+            )
+        )
+        before = count_plans(url)
+        run_id = uuid.uuid4().hex[:8]
+        total, ok, errors, lat = python_load(
+            port,
+            "POST",
+            f"/api/v1/trucks/{TRUCK}/plans",
+            {**dispatcher, "Content-Type": "application/json"},
+            seconds,
+            8,
+            body=lambda i: (b"{}", {"Idempotency-Key": f'"bench-{run_id}-{i}"'}),
+        )
+        out.append(
+            Figures(
+                "POST plan (Idempotency-Key)",
+                name,
+                "python",
+                8,
+                total,
+                total / seconds,
+                percentile(lat, 0.5),
+                percentile(lat, 0.99),
+                errors,
+                ok,
+            )
+        )
+        log = (Path(workdir) / "gunicorn.log").read_text(errors="replace")
+    recorded = count_plans(url) - before
+    out[-1].scenario += f" rows={recorded}"
+    if recorded != ok:
+        print(f"!! {name}: {recorded} plan rows for {ok} 2xx answers", file=sys.stderr)
+    for marker in ("database is locked", "WORKER TIMEOUT", "Traceback"):
+        if marker in log:
+            print(f"!! {name}: server log contains {marker!r}", file=sys.stderr)
+    return out
+
+
+@contextlib.contextmanager
+def bench_postgres(base_url: str) -> Iterator[str]:
+    base = make_url(base_url)
+    own = base.set(database="ullage_bench")
+    admin = create_engine(base, isolation_level="AUTOCOMMIT")
+    with admin.connect() as conn:
+        conn.execute(text('DROP DATABASE IF EXISTS "ullage_bench" WITH (FORCE)'))
+        conn.execute(text('CREATE DATABASE "ullage_bench"'))
+    try:
+        yield own.render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.execute(text('DROP DATABASE IF EXISTS "ullage_bench" WITH (FORCE)'))
+        admin.dispose()
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--seconds", type=float, default=10.0, help=f"per scenario (≤ {MAX_SECONDS})")
+    parser.add_argument("--db", choices=("sqlite", "postgresql", "both"), default="both")
+    parser.add_argument(
+        "--pg-url",
+        default=os.environ.get("BENCH_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"),
+    )
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--no-wrk", action="store_true", help="use the Python generator for the GETs too")
+    args = parser.parse_args(argv)
+    seconds = min(max(args.seconds, 1.0), MAX_SECONDS)
+    use_wrk = not args.no_wrk and shutil.which("wrk") is not None
+    figures: list[Figures] = []
+    if args.db in ("sqlite", "both"):
+        with tempfile.TemporaryDirectory(prefix="ullage-bench-db-") as directory:
+            figures += run_database("sqlite", f"sqlite:///{directory}/bench.db", seconds, use_wrk, args.workers)
+    if args.db in ("postgresql", "both"):
+        with bench_postgres(args.pg_url) as url:
+            figures += run_database("postgresql", url, seconds, use_wrk, args.workers)
+
+    print(
+        f"\nUllage load benchmark: gunicorn {args.workers} workers (gthread), loopback, {seconds:g} s per scenario, "
+        f"{os.cpu_count()} CPUs shared with the load generator\n"
+    )
+    header = (
+        f"| {'scenario':<38} | {'db':<10} | {'tool':<6} | {'conn':>4} | {'requests':>8} | {'req/s':>8} | "
+        f"{'p50 ms':>7} | {'p99 ms':>7} | {'errors':>6} |"
+    )
+    print(header)
+    print("|" + "|".join("-" * (len(cell)) for cell in header.split("|")[1:-1]) + "|")
+    for f in figures:
+        print(
+            f"| {f.scenario:<38} | {f.database:<10} | {f.tool:<6} | {f.connections:>4} | {f.requests:>8} | "
+            f"{f.rps:>8.0f} | {f.p50_ms:>7.2f} | {f.p99_ms:>7.2f} | {f.errors:>6} |"
+        )
+    failures = []
+    for database in {f.database for f in figures}:
+        rows = {f.scenario.split(" rows=")[0]: f for f in figures if f.database == database}
+        livez, trips = rows["GET /livez"], rows["GET weekly trips"]
+        ratio = trips.rps / livez.rps if livez.rps else 0
+        print(f"\n{database}: trips / livez throughput = {ratio:.2f} (target ≥ 0.50)")
+        if ratio < 0.5:
+            failures.append(f"{database}: trips throughput {ratio:.2f} of /livez")
+        plan = next(f for f in figures if f.database == database and f.scenario.startswith("POST plan"))
+        rows_recorded = int(plan.scenario.split("rows=")[1])
+        print(f"{database}: plan rows {rows_recorded} == 2xx {plan.ok}: {rows_recorded == plan.ok}")
+        if rows_recorded != plan.ok:
+            failures.append(f"{database}: plan rows {rows_recorded} != 2xx {plan.ok}")
+    errors = [f for f in figures if f.errors]
+    for f in errors:
+        failures.append(f"{f.database} {f.scenario}: {f.errors} errors")
+    print("\nall targets met" if not failures else "\nTARGETS MISSED:\n  " + "\n  ".join(failures))
+    return 0 if not failures else 1
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
