@@ -157,6 +157,7 @@ class _Replay:
     names: dict[str, str]
     recent: dict[str, bool]
     stale_days: int
+    summary: PlanSummary
 
 
 def _replay(session: Session, plan: Plan, first: dt.date, last: dt.date, settings: Settings) -> _Replay:
@@ -208,7 +209,7 @@ def _replay(session: Session, plan: Plan, first: dt.date, last: dt.date, setting
     corrected = projection.correct(planned)
     projection.finish(day_start(last + dt.timedelta(days=1), zone))
     names = {code: s["name"] for code, s in recorded.items()}
-    return _Replay(plan, projection, corrected, names, recent, settings.reading_stale_days)
+    return _Replay(plan, projection, corrected, names, recent, settings.reading_stale_days, summary(session, plan))
 
 
 def _stop(replay: _Replay, stop: CorrectedStop) -> PlannedStop:
@@ -217,7 +218,7 @@ def _stop(replay: _Replay, stop: CorrectedStop) -> PlannedStop:
     return PlannedStop(stop.site, name, stop.planned_quantity, stop.quantity, stop.projected_level_before, notices)
 
 
-def _notices(session: Session, replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
+def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
     out: list[Notice] = []
     earliest: dict[str, dt.date] = {}
     projection = replay.projection
@@ -234,7 +235,7 @@ def _notices(session: Session, replay: _Replay, first: dt.date, last: dt.date, o
         earliest[run_out.site] = min(earliest.get(run_out.site, shown), shown)
     for site, date in sorted(earliest.items(), key=lambda item: (item[1], item[0])):
         out.append(_run_out_notice(site, replay.names[site], date))
-    plan_summary = summary(session, replay.plan)
+    plan_summary = replay.summary
     if plan_summary.stale and only is None:
         which = ", ".join(plan_summary.changed_sites) or "the truck's own parameters"
         out.append(Notice("plan_stale", f"Plan {replay.plan.id} is stale: changed since it was computed: {which}."))
@@ -266,9 +267,7 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
         for t in replay.trips
         if first <= t.date <= last
     )
-    return TripsView(
-        truck.code, summary(session, plan), first, last, trips, tuple(_notices(session, replay, first, last))
-    )
+    return TripsView(truck.code, replay.summary, first, last, trips, tuple(_notices(replay, first, last)))
 
 
 def site_levels(session: Session, site: Site, first: dt.date, days: int, settings: Settings) -> SiteLevels:
@@ -311,5 +310,5 @@ def site_levels(session: Session, site: Site, first: dt.date, days: int, setting
         recorded["safe_fill"] * recorded["tank_capacity"],
         recorded["safety_stock"],
         recorded["tank_capacity"],
-        tuple(_notices(session, replay, first, last, only=site.code)),
+        tuple(_notices(replay, first, last, only=site.code)),
     )

@@ -11,6 +11,7 @@ from sqlalchemy import select
 
 from service import idempotency, schedule
 from service.api.blueprint import Blueprint
+from service.api.cache import LruCache
 from service.api.etags import content_etag, not_modified
 from service.api.pagination import page
 from service.api.schemas.plans import (
@@ -35,6 +36,9 @@ PREFIX = ""
 blp = Blueprint("plans", __name__, description="Recorded plans and the trips dispatch software loads each week")
 
 MAX_WINDOW_DAYS = 92
+#: Per-process cache of trips answers, keyed by the window, the day and the store's change marker
+#: (service.persistence.plans.change_marker): repeated weekly calls skip the replay.
+TRIPS_CACHE = LruCache(256)
 HEAVY = ("trips", "inputs")
 #: Error alternatives are documented as RFC 9457 problem documents, like every other error.
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}
@@ -270,11 +274,16 @@ class TruckTrips(MethodView):
     def get(self, args, code):
         """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
         first, last = _window(args)
+        session, settings = get_session(), current_app.config["ULLAGE_SETTINGS"]
         truck = truck_or_404(code)
-        try:
-            view = schedule.trips_view(get_session(), truck, first, last, current_app.config["ULLAGE_SETTINGS"])
-        except schedule.NoActivePlan as exc:
-            raise Problem(409, str(exc), kind="no-active-plan") from exc
-        body = json.dumps(trips_json(view)).encode()
-        etag = content_etag(body)
+        key = (truck.id, first, last, schedule.today(settings), plan_store.change_marker(session, truck))
+        cached = TRIPS_CACHE.get(key)
+        if cached is None:
+            try:
+                view = schedule.trips_view(session, truck, first, last, settings)
+            except schedule.NoActivePlan as exc:
+                raise Problem(409, str(exc), kind="no-active-plan") from exc
+            body = json.dumps(trips_json(view)).encode()
+            cached = TRIPS_CACHE.put(key, (body, content_etag(body)))
+        body, etag = cached
         return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})

@@ -8,7 +8,7 @@ import json
 from collections.abc import Iterable, Sequence
 from typing import Any
 
-from sqlalchemy import func, select, update
+from sqlalchemy import bindparam, func, select, update
 from sqlalchemy.orm import Session
 
 from service.persistence.models import Plan, PlanSite, Reading, Site, Truck
@@ -129,6 +129,26 @@ def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
     changed = sorted(code for code in recorded.keys() | current.keys() if recorded.get(code) != current.get(code))
     truck_moved = truck is None or truck.version != plan.inputs["truck"]["version"]
     return bool(changed) or truck_moved, changed
+
+
+#: Built once (statement construction costs more than running it): see change_marker.
+_CHANGE_MARKER = select(
+    select(func.max(Reading.id)).scalar_subquery(),
+    select(func.max(Site.updated_at)).scalar_subquery(),
+    select(func.count(Site.id)).scalar_subquery(),
+    select(func.max(Truck.updated_at)).scalar_subquery(),
+    select(Plan.id).where(Plan.truck_id == bindparam("truck_id"), Plan.status == "active").scalar_subquery(),
+)
+
+
+def change_marker(session: Session, truck: Truck) -> tuple[Any, ...]:
+    """One cheap query whose answer changes whenever a trips view of ``truck`` could change.
+
+    Readings only ever get new ids; every site or truck change moves ``updated_at`` (deletions move
+    the count); activation changes the active plan's id. Deliberately coarse: a change anywhere
+    invalidates every truck's cached trips, which keeps the marker one round trip.
+    """
+    return tuple(session.execute(_CHANGE_MARKER, {"truck_id": truck.id}).one())
 
 
 def result_of(plan: Plan) -> JointResult:

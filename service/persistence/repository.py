@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-from sqlalchemy import delete, exists, func, select
+from sqlalchemy import bindparam, delete, exists, func, select
 from sqlalchemy.orm import Session
 
 from service.persistence.models import Plan, PlanSite, Reading, Site, Token, Truck, utcnow
@@ -34,11 +34,14 @@ def lock_for_update(session: Session, statement: Any) -> Any:
     return statement.with_for_update() if session.get_bind().dialect.name == "postgresql" else statement
 
 
+_BY_CODE = {model: select(model).where(model.code == bindparam("code")) for model in (Truck, Site)}
+
+
 def _by_code(session: Session, model: type[Truck] | type[Site], code: str, for_update: bool) -> Any:
-    statement = select(model).where(model.code == code)
+    statement = _BY_CODE[model]
     if for_update:
         statement = lock_for_update(session, statement)
-    row = session.scalars(statement).one_or_none()
+    row = session.scalars(statement, {"code": code}).one_or_none()
     if row is None:
         raise NotFound(f"No {model.__tablename__[:-1]} with code {code!r}.")
     return row

@@ -251,3 +251,24 @@ def test_reading_corrects_quantity(client, auth, network):
         for s in t["stops"]:
             if s["site"] != "A0":
                 assert s["quantity"] == s["planned_quantity"] and s["projected_level_before"] is None
+
+
+def test_cached_answer_follows_every_change_that_matters(client, auth, plan):
+    # The trips answer is cached per process (service.api.plans.TRIPS_CACHE); a reading, a site edit
+    # and an activation must each be visible on the very next call.
+    first = trips(client, auth, "week=2026-W50").get_json()
+    assert trips(client, auth, "week=2026-W50").get_json() == first
+    reading = {"level": 9000.0, "measured_at": "2026-11-30T12:00:00+00:00"}
+    assert client.post("/api/v1/sites/A0/readings", json=reading, headers=auth("dispatcher")).status_code == 201
+    after_reading = trips(client, auth, "week=2026-W50").get_json()
+    levels = [s["projected_level_before"] for t in after_reading["trips"] for s in t["stops"] if s["site"] == "A0"]
+    assert (
+        levels
+        and levels[0] is not None
+        and all(s["projected_level_before"] is None for t in first["trips"] for s in t["stops"])
+    )
+    etag = client.get("/api/v1/sites/A1", headers=auth("admin")).headers["ETag"]
+    patched = client.patch("/api/v1/sites/A1", json={"stop_cost": 31.0}, headers=auth("admin", **{"If-Match": etag}))
+    assert patched.status_code == 200
+    kinds = [w["kind"] for w in trips(client, auth, "week=2026-W50").get_json()["warnings"]]
+    assert "plan_stale" in kinds

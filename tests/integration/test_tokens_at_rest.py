@@ -84,13 +84,29 @@ def test_tokens_are_stored_as_sha256_and_never_logged(monkeypatch, capsys, caplo
         assert row.last_used_at is not None
 
 
-def test_token_lookup_is_by_hash_not_by_comparing_secrets():
-    import inspect
+def test_token_lookup_is_by_hash_not_by_comparing_secrets(app, client, tokens):
+    # Every statement the app sends during an authenticated request, with its parameters: the
+    # token itself never reaches the database, its SHA-256 does (a lookup on the unique index).
+    from sqlalchemy import event
 
-    from service import auth
+    sent = []
+    engine = app.extensions["ullage.engine"]
 
-    source = inspect.getsource(auth.caller_from_token)
-    assert "token_hash(token)" in source and "secret_hash ==" in source
+    def capture(conn, cursor, statement, parameters, context, executemany):  # noqa: ANN001
+        sent.append((statement, repr(parameters)))
+
+    event.listen(engine, "before_cursor_execute", capture)
+    try:
+        assert (
+            client.get("/api/v1/settings", headers={"Authorization": f"Bearer {tokens['viewer']}"}).status_code == 200
+        )
+    finally:
+        event.remove(engine, "before_cursor_execute", capture)
+    assert not any(tokens["viewer"] in statement or tokens["viewer"] in params for statement, params in sent)
+    lookups = [
+        (statement, params) for statement, params in sent if "secret_hash" in statement and "tokens" in statement
+    ]
+    assert lookups and any(token_hash(tokens["viewer"]) in params for _, params in lookups)
 
 
 def test_token_list_shows_no_secrets(monkeypatch, capsys, database_url, db_session):

@@ -13,7 +13,6 @@ from service.api.schemas.common import (
     positive,
 )
 
-
 #: Codes that would shadow the fixed routes /api/v1/sites/import and /api/v1/sites/export.
 RESERVED_SITE_CODES = ("import", "export")
 
