@@ -22,6 +22,7 @@ run: $(VENV)/.installed
 ## test: venv, install, system packages the tests need, the whole suite on SQLite and PostgreSQL
 test: $(VENV)/.installed system-deps
 	$(VENV)/bin/lint-imports
+	$(VENV)/bin/ruff check service tests benchmarks migrations
 	$(VENV)/bin/python -m pytest
 
 system-deps:
