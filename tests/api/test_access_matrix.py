@@ -7,6 +7,7 @@ the code fails this test instead of quietly becoming the expectation.
 from __future__ import annotations
 
 import pytest
+from contract import ROUTE_ROLES
 from sqlalchemy import select
 from werkzeug.routing import BuildError, IntegerConverter
 
@@ -14,25 +15,8 @@ from service.auth import PUBLIC, ROLES, SESSION, new_token, rule_for, token_hash
 from service.persistence import repository as repo
 from service.persistence.models import Token
 
-#: (method, rule) → least role, for every route issue 2 defines.
-EXPECTED = {
-    ("GET", "/livez"): PUBLIC,
-    ("GET", "/readyz"): PUBLIC,
-    ("GET", "/api/v1/openapi.json"): "viewer",
-    ("GET", "/api/v1/settings"): "viewer",
-    ("GET", "/api/v1/trucks"): "viewer",
-    ("POST", "/api/v1/trucks"): "admin",
-    ("GET", "/api/v1/trucks/<string:code>"): "viewer",
-    ("PATCH", "/api/v1/trucks/<string:code>"): "admin",
-    ("DELETE", "/api/v1/trucks/<string:code>"): "admin",
-    ("GET", "/api/v1/sites"): "viewer",
-    ("POST", "/api/v1/sites"): "admin",
-    ("GET", "/api/v1/sites/<string:code>"): "viewer",
-    ("PATCH", "/api/v1/sites/<string:code>"): "admin",
-    ("DELETE", "/api/v1/sites/<string:code>"): "admin",
-    ("POST", "/api/v1/sites/import"): "admin",
-    ("GET", "/api/v1/sites/export"): "viewer",
-}
+#: (method, rule) → least role, for every route the issues define (tests/contract.py).
+EXPECTED = ROUTE_ROLES
 #: Routes that may be public or signed in by the status page's own session.
 PUBLIC_ROUTES = {"/livez", "/readyz"}
 SESSION_PREFIX = "/status"
@@ -68,7 +52,7 @@ def test_every_route_has_an_explicit_rule(app):
     assert missing == []
 
 
-def test_issue_2_routes_have_the_expected_roles(app):
+def test_routes_have_the_expected_roles(app):
     declared = {(m, r): rule_for(app, endpoint, m) for m, r, endpoint, _ in routes(app)}
     for key, role in EXPECTED.items():
         assert key in declared, f"route {key} is missing"

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 
 import pytest
+from contract import JOINT_FIELDS
 from sqlalchemy import func, select
 
 from service.persistence.models import IdempotencyRecord, Plan, PlanSite, Reading, Site, Truck
@@ -12,22 +13,6 @@ from service.persistence.models import IdempotencyRecord, Plan, PlanSite, Readin
 CYCLE = "/api/v1/calculations/cycle"
 JOINT = "/api/v1/calculations/joint"
 
-JOINT_FIELDS = {
-    "method",
-    "base_days",
-    "dispatch_interval_days",
-    "repeat_days",
-    "cost_per_day",
-    "cost_breakdown",
-    "lower_bound_per_day",
-    "gap",
-    "peak_load",
-    "extra_trips",
-    "trips_truncated",
-    "sites",
-    "trips",
-    "warnings",
-}
 CYCLE_FIELDS = {"cycle_days_continuous", "cost_per_day_continuous", "cycle_days", "quantity", "cost_per_day", "binding"}
 TABLES = (Truck, Site, Plan, PlanSite, Reading, IdempotencyRecord)
 

@@ -7,27 +7,12 @@ import hashlib
 import json
 
 import pytest
+from contract import JOINT_FIELDS
 from sqlalchemy import func, select
 
 from service import idempotency
 from service.persistence.models import IdempotencyRecord, Plan, Token
 
-JOINT_FIELDS = {
-    "method",
-    "base_days",
-    "dispatch_interval_days",
-    "repeat_days",
-    "cost_per_day",
-    "cost_breakdown",
-    "lower_bound_per_day",
-    "gap",
-    "peak_load",
-    "extra_trips",
-    "trips_truncated",
-    "sites",
-    "trips",
-    "warnings",
-}
 PLAN_FIELDS = {
     "id",
     "truck",

@@ -1,0 +1,61 @@
+"""Contracts the issues spell out, shared by the tests that check them."""
+
+from service.auth import PUBLIC, SESSION
+
+#: Fields of every joint result (issue 4 §1), also at the top level of a recorded plan.
+JOINT_FIELDS = {
+    "method",
+    "base_days",
+    "dispatch_interval_days",
+    "repeat_days",
+    "cost_per_day",
+    "cost_breakdown",
+    "lower_bound_per_day",
+    "gap",
+    "peak_load",
+    "extra_trips",
+    "trips_truncated",
+    "sites",
+    "trips",
+    "warnings",
+}
+
+#: (method, rule) → least role, per issues 2, 4, 5 and 6.
+ROUTE_ROLES = {
+    ("GET", "/livez"): PUBLIC,
+    ("GET", "/readyz"): PUBLIC,
+    ("GET", "/metrics"): "viewer",
+    ("GET", "/api/v1/openapi.json"): "viewer",
+    ("GET", "/api/v1/settings"): "viewer",
+    ("GET", "/api/v1/trucks"): "viewer",
+    ("POST", "/api/v1/trucks"): "admin",
+    ("GET", "/api/v1/trucks/<string:code>"): "viewer",
+    ("PATCH", "/api/v1/trucks/<string:code>"): "admin",
+    ("DELETE", "/api/v1/trucks/<string:code>"): "admin",
+    ("GET", "/api/v1/sites"): "viewer",
+    ("POST", "/api/v1/sites"): "admin",
+    ("GET", "/api/v1/sites/<string:code>"): "viewer",
+    ("PATCH", "/api/v1/sites/<string:code>"): "admin",
+    ("DELETE", "/api/v1/sites/<string:code>"): "admin",
+    ("POST", "/api/v1/sites/import"): "admin",
+    ("GET", "/api/v1/sites/export"): "viewer",
+    ("POST", "/api/v1/calculations/cycle"): "dispatcher",
+    ("POST", "/api/v1/calculations/joint"): "dispatcher",
+    ("POST", "/api/v1/trucks/<string:code>/plans"): "dispatcher",
+    ("GET", "/api/v1/trucks/<string:code>/plans"): "viewer",
+    ("GET", "/api/v1/plans/<int:plan_id>"): "viewer",
+    ("POST", "/api/v1/plans/<int:plan_id>/activate"): "dispatcher",
+    ("GET", "/api/v1/trucks/<string:code>/trips"): "viewer",
+    ("GET", "/api/v1/sites/<string:code>/readings"): "viewer",
+    ("POST", "/api/v1/sites/<string:code>/readings"): "dispatcher",
+    # The status page signs people in with its own cookie session (issue 5); bearer roles do not apply.
+    ("GET", "/status"): SESSION,
+    ("GET", "/status/sites/<code>"): SESSION,
+    ("GET", "/status/sign-in"): SESSION,
+    ("POST", "/status/sign-in"): SESSION,
+    ("GET", "/status/sign-out"): SESSION,
+    ("POST", "/status/sign-out"): SESSION,
+    ("GET", "/status/static/<path:filename>"): SESSION,
+    ("GET", "/status/<path:rest>"): SESSION,
+    ("POST", "/status/<path:rest>"): SESSION,
+}
