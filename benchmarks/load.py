@@ -70,6 +70,14 @@ class Figures:
     ok: int
 
 
+def python_figures(
+    scenario: str, database: str, connections: int, seconds: float, total: int, ok: int, errors: int, lat: list
+) -> Figures:
+    """The figures of one run of the Python load generator."""
+    p50, p99 = percentile(lat, 0.5), percentile(lat, 0.99)
+    return Figures(scenario, database, "python", connections, total, total / seconds, p50, p99, errors, ok)
+
+
 def free_port() -> int:
     with socket.socket() as sock:
         sock.bind((HOST, 0))
@@ -295,20 +303,7 @@ def run_database(name: str, url: str, seconds: float, use_wrk: bool, workers: in
                 out.append(Figures(label, name, "wrk", connections, total, rps, p50, p99, errors, total - errors))
             else:
                 total, ok, errors, lat = python_load(port, "GET", path, headers, seconds, connections)
-                out.append(
-                    Figures(
-                        label,
-                        name,
-                        "python",
-                        connections,
-                        total,
-                        total / seconds,
-                        percentile(lat, 0.5),
-                        percentile(lat, 0.99),
-                        errors,
-                        ok,
-                    )
-                )
+                out.append(python_figures(label, name, connections, seconds, total, ok, errors, lat))
         joint = joint_body()
         total, ok, errors, lat = python_load(
             port,
@@ -319,20 +314,7 @@ def run_database(name: str, url: str, seconds: float, use_wrk: bool, workers: in
             4,
             body=lambda _i: (joint, {}),
         )
-        out.append(
-            Figures(
-                "POST joint calc (50 sites)",
-                name,
-                "python",
-                4,
-                total,
-                total / seconds,
-                percentile(lat, 0.5),
-                percentile(lat, 0.99),
-                errors,
-                ok,
-            )
-        )
+        out.append(python_figures("POST joint calc (50 sites)", name, 4, seconds, total, ok, errors, lat))
         before = count_plans(url)
         run_id = uuid.uuid4().hex[:8]
         total, ok, errors, lat = python_load(
@@ -344,20 +326,7 @@ def run_database(name: str, url: str, seconds: float, use_wrk: bool, workers: in
             8,
             body=lambda i: (b"{}", {"Idempotency-Key": f'"bench-{run_id}-{i}"'}),
         )
-        out.append(
-            Figures(
-                "POST plan (Idempotency-Key)",
-                name,
-                "python",
-                8,
-                total,
-                total / seconds,
-                percentile(lat, 0.5),
-                percentile(lat, 0.99),
-                errors,
-                ok,
-            )
-        )
+        out.append(python_figures("POST plan (Idempotency-Key)", name, 8, seconds, total, ok, errors, lat))
         log = (Path(workdir) / "gunicorn.log").read_text(errors="replace")
     recorded = count_plans(url) - before
     out[-1].scenario += f" rows={recorded}"

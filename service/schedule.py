@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
 from zoneinfo import ZoneInfo
 
@@ -270,45 +271,64 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
     return TripsView(truck.code, replay.summary, first, last, trips, tuple(_notices(replay, first, last)))
 
 
-def site_levels(session: Session, site: Site, first: dt.date, days: int, settings: Settings) -> SiteLevels:
-    """Projected level at 00:00 of each of ``days`` days from ``first``, and the planned deliveries."""
+def _unplanned_levels(session: Session, site: Site, dates: list[dt.date], zone: ZoneInfo) -> SiteLevels:
+    """A site in no active plan: its reading falling at ``demand_per_day``, no deliveries."""
+    reading = plan_store.latest_readings(session, [site.id]).get(site.id)
+    safe_fill_level = site.safe_fill * site.tank_capacity
+    tank = Tank(
+        site.code,
+        site.demand_per_day,
+        safe_fill_level,
+        site.safety_stock,
+        1,
+        reading.level if reading else None,
+        reading.measured_at if reading else None,
+    )
+    alone = Projection([tank], 0.0, zone)
+    levels = tuple((d, alone.level_before(site.code, day_start(d, zone))) for d in dates)
+    notice = Notice(
+        "no_active_plan", f"{site.name} ({site.code}) is in no active plan; no deliveries are planned.", site.code
+    )
+    return SiteLevels(site.code, levels, (), safe_fill_level, site.safety_stock, site.tank_capacity, (notice,))
+
+
+def truck_levels(
+    session: Session, truck: Truck, sites: Sequence[Site], first: dt.date, days: int, settings: Settings
+) -> dict[str, SiteLevels]:
+    """:func:`site_levels` for several sites of one truck, from a single replay of its active plan."""
     zone = ZoneInfo(settings.timezone)
     last = first + dt.timedelta(days=days - 1)
     dates = [first + dt.timedelta(days=k) for k in range(days)]
-    truck = session.get(Truck, site.truck_id)
-    plan = plan_store.active_plan(session, truck) if truck is not None else None
-    in_plan = plan is not None and any(s["code"] == site.code for s in plan.inputs["sites"])
-    if not in_plan:
-        reading = plan_store.latest_readings(session, [site.id]).get(site.id)
-        tank = Tank(
+    plan = plan_store.active_plan(session, truck)
+    recorded = {s["code"]: s for s in plan.inputs["sites"]} if plan is not None else {}
+    replay = _replay(session, plan, first, last, settings) if any(s.code in recorded for s in sites) else None
+    out = {}
+    for site in sites:
+        if replay is None or site.code not in recorded:
+            out[site.code] = _unplanned_levels(session, site, dates, zone)
+            continue
+        levels = tuple((d, replay.projection.level_before(site.code, day_start(d, zone))) for d in dates)
+        deliveries = tuple(
+            (t.date, s.quantity)
+            for t in replay.trips
+            if first <= t.date <= last
+            for s in t.stops
+            if s.site == site.code
+        )
+        snapshot = recorded[site.code]
+        out[site.code] = SiteLevels(
             site.code,
-            site.demand_per_day,
-            site.safe_fill * site.tank_capacity,
-            site.safety_stock,
-            1,
-            reading.level if reading else None,
-            reading.measured_at if reading else None,
+            levels,
+            deliveries,
+            snapshot["safe_fill"] * snapshot["tank_capacity"],
+            snapshot["safety_stock"],
+            snapshot["tank_capacity"],
+            tuple(_notices(replay, first, last, only=site.code)),
         )
-        alone = Projection([tank], 0.0, zone)
-        levels = tuple((d, alone.level_before(site.code, day_start(d, zone))) for d in dates)
-        notice = Notice(
-            "no_active_plan", f"{site.name} ({site.code}) is in no active plan; no deliveries are planned.", site.code
-        )
-        return SiteLevels(
-            site.code, levels, (), site.safe_fill * site.tank_capacity, site.safety_stock, site.tank_capacity, (notice,)
-        )
-    replay = _replay(session, plan, first, last, settings)
-    levels = tuple((d, replay.projection.level_before(site.code, day_start(d, zone))) for d in dates)
-    deliveries = tuple(
-        (t.date, s.quantity) for t in replay.trips if first <= t.date <= last for s in t.stops if s.site == site.code
-    )
-    recorded = next(s for s in plan.inputs["sites"] if s["code"] == site.code)
-    return SiteLevels(
-        site.code,
-        levels,
-        deliveries,
-        recorded["safe_fill"] * recorded["tank_capacity"],
-        recorded["safety_stock"],
-        recorded["tank_capacity"],
-        tuple(_notices(replay, first, last, only=site.code)),
-    )
+    return out
+
+
+def site_levels(session: Session, site: Site, first: dt.date, days: int, settings: Settings) -> SiteLevels:
+    """Projected level at 00:00 of each of ``days`` days from ``first``, and the planned deliveries."""
+    truck = session.get(Truck, site.truck_id)
+    return truck_levels(session, truck, [site], first, days, settings)[site.code]

@@ -130,8 +130,9 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
             )
     sites = repo.active_sites(db, truck)
     charts = []
+    all_levels = schedule.truck_levels(db, truck, sites, monday, CHART_DAYS, config)
     for site in sites:
-        levels = schedule.site_levels(db, site, monday, CHART_DAYS, config)
+        levels = all_levels[site.code]
         notices.extend(levels.notices)
         label = f"{site.name} ({site.code})"
         charts.append(
