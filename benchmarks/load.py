@@ -5,7 +5,8 @@ For SQLite and, separately, PostgreSQL (a fresh database ``ullage_bench`` on the
 starts gunicorn with the project's config on a free 127.0.0.1 port and runs bounded scenarios:
 
 * ``GET /livez`` (the framework's ceiling), ``GET`` a site, ``GET`` the weekly trips — with ``wrk``
-  when installed (``--no-wrk`` to use the Python generator), else the Python generator;
+  when installed (``--no-wrk`` to use the Python generator), else the Python generator; 8
+  connections each, interleaved in 2 s slices so that the machine's drift weighs on each alike;
 * ``POST`` a joint calculation of 50 sites and ``POST`` plan creation with Idempotency-Keys — Python
   generator (threads, one keep-alive ``http.client`` connection each).
 
@@ -27,6 +28,7 @@ import re
 import shutil
 import signal
 import socket
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -54,6 +56,8 @@ HOST = "127.0.0.1"
 TRUCK, SITE = "HV-R1", "HV-GAR-02"
 MAX_SECONDS = 30
 MAX_REQUESTS = 2_000_000  # a hard cap per scenario, whatever the speed
+SLICE_SECONDS = 2  # the GET scenarios alternate in slices this long (interleaved_gets)
+GET_CONNECTIONS = 8
 
 
 @dataclass
@@ -293,17 +297,11 @@ def run_database(name: str, url: str, seconds: float, use_wrk: bool, workers: in
         iso = dt.date.today().isocalendar()
         week = f"{iso.year}-W{iso.week:02d}"
         gets = [
-            ("GET /livez", "/livez", {}, 16),
-            ("GET site", f"/api/v1/sites/{SITE}", viewer, 16),
-            ("GET weekly trips", f"/api/v1/trucks/{TRUCK}/trips?week={week}", viewer, 8),
+            ("GET /livez", "/livez", {}),
+            ("GET site", f"/api/v1/sites/{SITE}", viewer),
+            ("GET weekly trips", f"/api/v1/trucks/{TRUCK}/trips?week={week}", viewer),
         ]
-        for label, path, headers, connections in gets:
-            if use_wrk:
-                total, errors, rps, p50, p99 = wrk_load(port, path, headers, seconds, connections)
-                out.append(Figures(label, name, "wrk", connections, total, rps, p50, p99, errors, total - errors))
-            else:
-                total, ok, errors, lat = python_load(port, "GET", path, headers, seconds, connections)
-                out.append(python_figures(label, name, connections, seconds, total, ok, errors, lat))
+        out += interleaved_gets(port, gets, name, seconds, use_wrk)
         joint = joint_body()
         total, ok, errors, lat = python_load(
             port,
@@ -335,6 +333,43 @@ def run_database(name: str, url: str, seconds: float, use_wrk: bool, workers: in
     for marker in ("database is locked", "WORKER TIMEOUT", "Traceback"):
         if marker in log:
             print(f"!! {name}: server log contains {marker!r}", file=sys.stderr)
+    return out
+
+
+def interleaved_gets(
+    port: int, gets: list[tuple[str, str, dict[str, str]]], database: str, seconds: float, use_wrk: bool
+) -> list[Figures]:
+    """The GET scenarios in alternating slices of ``SLICE_SECONDS`` (A B C A B C …), same connections.
+
+    This machine's speed drifts by a factor of two within minutes (measured: /livez alone gave 1 000
+    and 2 600 req/s in runs a few minutes apart), so scenarios run one after the other would compare
+    different machines; interleaved, the drift weighs on each alike. p50 is the median of the
+    slices' p50s and p99 the largest slice p99 (wrk reports percentiles per run).
+    """
+    rounds = max(1, round(seconds / SLICE_SECONDS))
+    slices: dict[str, list[tuple[int, int, float, float, float]]] = {label: [] for label, _, _ in gets}
+    latencies: dict[str, list[float]] = {label: [] for label, _, _ in gets}
+    for _ in range(rounds):
+        for label, path, headers in gets:
+            if use_wrk:
+                slices[label].append(wrk_load(port, path, headers, SLICE_SECONDS, GET_CONNECTIONS))
+            else:
+                total, ok, errors, lat = python_load(port, "GET", path, headers, SLICE_SECONDS, GET_CONNECTIONS)
+                slices[label].append((total, errors, total / SLICE_SECONDS, 0.0, 0.0))
+                latencies[label] += lat
+    out = []
+    for label, parts in slices.items():
+        total, errors = sum(p[0] for p in parts), sum(p[1] for p in parts)
+        elapsed = sum(p[0] / p[2] for p in parts if p[2]) or rounds * SLICE_SECONDS
+        if use_wrk:
+            p50, p99 = statistics.median(p[3] for p in parts), max(p[4] for p in parts)
+        else:
+            lat = sorted(latencies[label])
+            p50, p99 = percentile(lat, 0.5), percentile(lat, 0.99)
+        tool = "wrk" if use_wrk else "python"
+        out.append(
+            Figures(label, database, tool, GET_CONNECTIONS, total, total / elapsed, p50, p99, errors, total - errors)
+        )
     return out
 
 

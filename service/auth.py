@@ -2,8 +2,10 @@
 
 Tokens look like ``ull_<43 url-safe characters>`` (256 random bits, Python ``secrets``). Only the
 SHA-256 of the whole token is stored and tokens are looked up by that hash on a unique index, so no
-secret is compared in Python. Nothing is cached per process: a revocation is refused on the next
-request in every worker.
+secret is compared in Python. A valid token's caller is kept per process for at most
+``ULLAGE_TOKEN_CACHE_SECONDS`` (default 2, at most 5; 0 looks every request up): a revocation is
+refused in every worker within that time, the bound the conventions set (SEC-3, "no per-process
+cache, or a TTL ≤ 5 s"). Unknown and revoked tokens are never cached, so a new token works at once.
 
 Every route declares who may call it with :func:`allow` (or :data:`EXTRA_RULES` for routes that
 libraries register). A route without a rule is refused (default deny) and the role-matrix test
@@ -15,6 +17,7 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import secrets
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TypeVar
@@ -22,8 +25,9 @@ from typing import TypeVar
 from flask import Flask, current_app, g, request
 from sqlalchemy import bindparam, select, update
 
+from service.cache import LruCache
 from service.errors import Problem
-from service.persistence.db import get_session, write_intent
+from service.persistence.db import read_engine, read_one, write_intent
 from service.persistence.models import Token, utcnow
 
 ROLES = ("viewer", "dispatcher", "admin")
@@ -31,6 +35,8 @@ PUBLIC = "public"
 SESSION = "session"  # the status page signs people in with its own cookie (service.web)
 TOKEN_PREFIX = "ull_"
 LAST_USED_RESOLUTION = dt.timedelta(minutes=1)
+TOKEN_CACHE_SIZE = 1024
+_clock = time.monotonic  # the token cache's clock (tests move it instead of sleeping)
 
 F = TypeVar("F", bound=Callable[..., object])
 
@@ -93,15 +99,25 @@ def rule_for(app: Flask, endpoint: str, method: str) -> str | None:
 
 
 def caller_from_token(token: str) -> Caller | None:
-    """Look a presented token up; ``None`` when unknown or revoked. Notes the last use (per minute)."""
-    session = get_session()
-    row = session.execute(_TOKEN_BY_HASH, {"secret_hash": token_hash(token)}).one_or_none()
+    """The caller of a presented token; ``None`` when unknown or revoked.
+
+    A cached caller younger than ``token_cache_seconds`` answers at once; otherwise the token is
+    looked up, and its last use noted (at most once a minute).
+    """
+    digest = token_hash(token)
+    cache: LruCache[tuple[Caller, float]] = current_app.extensions["ullage.token_cache"]
+    now = _clock()
+    hit = cache.get(digest)
+    if hit is not None and hit[1] > now:
+        return hit[0]
+    row = read_one(read_engine(), _TOKEN_BY_HASH, {"secret_hash": digest})
     caller = None if row is None or row.revoked_at is not None else Caller(row.id, row.name, row.role)
-    if caller is not None and (row.last_used_at is None or utcnow() - row.last_used_at > LAST_USED_RESOLUTION):
-        g.touch_token = row.id
-    # End the lookup's transaction: on SQLite a write request's BEGIN IMMEDIATE must not hold the
-    # write lock while the request opens its own short transactions (idempotency, last-used note).
-    session.rollback()
+    if caller is not None:
+        if row.last_used_at is None or utcnow() - row.last_used_at > LAST_USED_RESOLUTION:
+            g.touch_token = row.id
+        ttl = current_app.config["ULLAGE_SETTINGS"].token_cache_seconds
+        if ttl > 0:
+            cache.put(digest, (caller, now + ttl))
     return caller
 
 
@@ -184,5 +200,6 @@ def current_caller() -> Caller:
 
 
 def init_app(app: Flask) -> None:
+    app.extensions["ullage.token_cache"] = LruCache(TOKEN_CACHE_SIZE)
     app.before_request(authenticate)
     app.after_request(note_token_use)

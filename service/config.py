@@ -20,6 +20,9 @@ from typing import Any
 _CURRENCY = re.compile(r"^[A-Z]{3}$")
 _UNIT = re.compile(r"^[A-Za-z0-9³]{1,8}$")
 
+#: A revoked token must be refused in every worker within this time (conventions, SEC-3).
+MAX_TOKEN_CACHE_SECONDS = 5
+
 #: Environment variable → settings field.
 ENVIRONMENT = {
     "DATABASE_URL": "database_url",
@@ -30,6 +33,7 @@ ENVIRONMENT = {
     "ULLAGE_MAX_BODY_BYTES": "max_body_bytes",
     "ULLAGE_MAX_CALCULATION_BYTES": "max_calculation_bytes",
     "ULLAGE_READING_STALE_DAYS": "reading_stale_days",
+    "ULLAGE_TOKEN_CACHE_SECONDS": "token_cache_seconds",
     "LOG_LEVEL": "log_level",
 }
 
@@ -62,6 +66,7 @@ class Settings:
     max_body_bytes: int = 1 << 20
     max_calculation_bytes: int = 32 << 20
     reading_stale_days: int = 7
+    token_cache_seconds: int = 2
     log_level: str = "INFO"
     testing: bool = False
 
@@ -80,6 +85,8 @@ class Settings:
         for name in ("max_body_bytes", "max_calculation_bytes", "reading_stale_days"):
             if getattr(self, name) < 1:
                 raise ValueError(f"{name} must be at least 1")
+        if not 0 <= self.token_cache_seconds <= MAX_TOKEN_CACHE_SECONDS:
+            raise ValueError(f"ULLAGE_TOKEN_CACHE_SECONDS must be 0 to {MAX_TOKEN_CACHE_SECONDS}")
         return self
 
 

@@ -21,10 +21,11 @@ from sqlalchemy.orm import Session
 
 from service import create_app
 from service.auth import new_token, token_hash
-from service.config import normalise_database_url
+from service.config import MAX_TOKEN_CACHE_SECONDS, normalise_database_url
 from service.demo import load_demo
 from service.health import alembic_config
 from service.persistence import repository as repo
+from service.persistence.db import dispose
 from service.persistence.models import Base
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -111,12 +112,26 @@ def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
 def app(database_url: str):
     application = create_app({"DATABASE_URL": database_url, "TESTING": True})
     yield application
-    application.extensions["ullage.engine"].dispose()
+    dispose(application)
 
 
 @pytest.fixture
 def client(app):
     return app.test_client()
+
+
+@pytest.fixture
+def expire_token_cache(monkeypatch: pytest.MonkeyPatch):
+    """Call it to move the token cache's clock past every entry's lifetime (instead of sleeping)."""
+    import service.auth as auth  # noqa: PLC0415
+
+    real, shift = auth._clock, [0.0]
+
+    def expire() -> None:
+        shift[0] += MAX_TOKEN_CACHE_SECONDS + 1
+        monkeypatch.setattr(auth, "_clock", lambda: real() + shift[0])
+
+    return expire
 
 
 def _observer_engine(url: str):

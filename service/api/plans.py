@@ -11,7 +11,6 @@ from sqlalchemy import select
 
 from service import idempotency, schedule
 from service.api.blueprint import Blueprint
-from service.api.cache import LruCache
 from service.api.etags import content_etag, not_modified
 from service.api.pagination import page
 from service.api.schemas.plans import (
@@ -25,10 +24,11 @@ from service.api.schemas.plans import (
 from service.api.schemas.problem import ProblemSchema
 from service.api.trucks import truck_or_404
 from service.auth import allow, current_caller
+from service.cache import LruCache
 from service.errors import PROBLEM_JSON, Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import get_session
+from service.persistence.db import get_session, read_engine
 from service.persistence.models import Plan, Truck
 from service.planning import PlanningInputError, plan_joint
 
@@ -274,11 +274,18 @@ class TruckTrips(MethodView):
     def get(self, args, code):
         """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
         first, last = _window(args)
-        session, settings = get_session(), current_app.config["ULLAGE_SETTINGS"]
-        truck = truck_or_404(code)
-        key = (truck.id, first, last, schedule.today(settings), plan_store.change_marker(session, truck))
+        settings = current_app.config["ULLAGE_SETTINGS"]
+        try:
+            truck_id, marker = plan_store.trips_marker(read_engine(), code)
+        except repo.NotFound as exc:
+            raise Problem(404, str(exc), kind="not-found") from exc
+        key = (truck_id, first, last, schedule.today(settings), marker)
         cached = TRIPS_CACHE.get(key)
         if cached is None:
+            session = get_session()
+            truck = session.get(Truck, truck_id)
+            if truck is None:  # deleted since the marker was read
+                raise Problem(404, f"No truck with code {code!r}.", kind="not-found")
             try:
                 view = schedule.trips_view(session, truck, first, last, settings)
             except schedule.NoActivePlan as exc:

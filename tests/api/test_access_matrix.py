@@ -11,8 +11,10 @@ from contract import ROUTE_ROLES
 from sqlalchemy import select
 from werkzeug.routing import BuildError, IntegerConverter
 
+from service import create_app
 from service.auth import PUBLIC, ROLES, SESSION, new_token, rule_for, token_hash
 from service.persistence import repository as repo
+from service.persistence.db import dispose
 from service.persistence.models import Token
 
 #: (method, rule) → least role, for every route the issues define (tests/contract.py).
@@ -123,18 +125,56 @@ def test_wrong_role_is_403_problem(client, auth, method, url, role):
     assert body["status"] == 403 and "admin" in body["detail"]
 
 
-def test_revoked_token_fails_on_the_next_request(client, db_session):
+def _short_lived(db_session) -> dict[str, str]:
     token = new_token()
     repo.add_token(db_session, "short-lived", "viewer", token_hash(token))
     db_session.commit()
-    headers = {"Authorization": f"Bearer {token}"}
+    return {"Authorization": f"Bearer {token}"}
+
+
+def _assert_refused_as_revoked(response) -> None:
+    assert response.status_code == 401
+    assert 'error="invalid_token"' in response.headers["WWW-Authenticate"]
+
+
+def test_revoked_token_fails_once_its_cache_entry_is_older_than_the_ttl(client, db_session, expire_token_cache):
+    headers = _short_lived(db_session)
     assert client.get("/api/v1/sites", headers=headers).status_code == 200
     repo.revoke_token(db_session, "short-lived")
     db_session.commit()
-    response = client.get("/api/v1/sites", headers=headers)
-    assert response.status_code == 401
-    assert 'error="invalid_token"' in response.headers["WWW-Authenticate"]
+    expire_token_cache()  # ULLAGE_TOKEN_CACHE_SECONDS (≤ 5 s, conventions SEC-3) have passed
+    _assert_refused_as_revoked(client.get("/api/v1/sites", headers=headers))
     assert db_session.scalars(select(Token.revoked_at).where(Token.name == "short-lived")).one() is not None
+
+
+def test_without_the_token_cache_a_revocation_fails_on_the_very_next_request(database_url, db_session):
+    app = create_app({"DATABASE_URL": database_url, "TESTING": True, "ULLAGE_TOKEN_CACHE_SECONDS": "0"})
+    try:
+        client = app.test_client()
+        headers = _short_lived(db_session)
+        assert client.get("/api/v1/sites", headers=headers).status_code == 200
+        repo.revoke_token(db_session, "short-lived")
+        db_session.commit()
+        _assert_refused_as_revoked(client.get("/api/v1/sites", headers=headers))
+    finally:
+        dispose(app)
+
+
+def test_an_unknown_token_is_not_cached_so_a_new_token_works_at_once(client, db_session):
+    token = new_token()
+    headers = {"Authorization": f"Bearer {token}"}
+    assert client.get("/api/v1/sites", headers=headers).status_code == 401
+    repo.add_token(db_session, "just-made", "viewer", token_hash(token))
+    db_session.commit()
+    assert client.get("/api/v1/sites", headers=headers).status_code == 200
+
+
+def test_the_token_cache_keeps_hashes_and_callers_never_the_token(app, client, tokens):
+    assert client.get("/api/v1/sites", headers={"Authorization": f"Bearer {tokens['viewer']}"}).status_code == 200
+    cache = app.extensions["ullage.token_cache"]
+    kept = repr(cache._items)
+    assert token_hash(tokens["viewer"]) in kept
+    assert tokens["viewer"] not in kept and tokens["viewer"].removeprefix("ull_") not in kept
 
 
 @pytest.mark.parametrize("name", ["token", "access_token", "api_key"])

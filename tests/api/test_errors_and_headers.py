@@ -11,6 +11,7 @@ from sqlalchemy import select
 from service import create_app
 from service.auth import PUBLIC, allow, new_token, token_hash
 from service.persistence import repository as repo
+from service.persistence.db import dispose
 from service.persistence.models import Token
 
 API_HEADERS = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
@@ -125,7 +126,7 @@ def failing_app(database_url):
     app.add_url_rule("/test-only/explode", "explode", explode)
     app.add_url_rule("/test-only/not-finite", "not_finite", not_finite)
     yield app
-    app.extensions["ullage.engine"].dispose()
+    dispose(app)
 
 
 def test_a_forced_500_shows_no_stack_trace(failing_app, caplog):
@@ -180,7 +181,7 @@ def test_debug_is_off_by_default(database_url, monkeypatch):
     try:
         assert app.debug is False and app.testing is False
     finally:
-        app.extensions["ullage.engine"].dispose()
+        dispose(app)
 
 
 def test_openapi_documents_problem_json(client, auth):

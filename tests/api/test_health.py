@@ -9,6 +9,7 @@ from sqlalchemy import create_engine, text
 
 from service import create_app
 from service.health import migration_head
+from service.persistence.db import dispose
 
 UNREACHABLE = "postgresql+psycopg://postgres@127.0.0.1:1/none"
 #: Things a health answer must never show: connection strings, hosts, file paths, versions.
@@ -21,7 +22,7 @@ LEAKS = re.compile(
 def down_app():
     app = create_app({"DATABASE_URL": UNREACHABLE, "TESTING": True})
     yield app
-    app.extensions["ullage.engine"].dispose()
+    dispose(app)
 
 
 def assert_not_ready(response) -> dict:
@@ -68,7 +69,7 @@ def test_readyz_is_503_on_an_empty_sqlite_file(tmp_path):
     try:
         assert_not_ready(app.test_client().get("/readyz"))
     finally:
-        app.extensions["ullage.engine"].dispose()
+        dispose(app)
 
 
 def test_readyz_is_503_when_the_schema_is_not_at_head(app, database_url):

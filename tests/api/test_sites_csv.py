@@ -8,6 +8,7 @@ import io
 import pytest
 from sqlalchemy import func, select
 
+from service.persistence.db import dispose
 from service.persistence.models import Site
 
 IMPORT = "/api/v1/sites/import"
@@ -140,7 +141,7 @@ def test_unit_conversion_into_a_gallon_service(database_url, tokens, db_session)
         bad = client.post(IMPORT, data=body.replace(",L\n", ",barrel\n"), headers=headers, content_type="text/csv")
         assert bad.status_code == 422 and bad.get_json()["errors"][0]["pointer"] == "#/rows/1/unit"
     finally:
-        app.extensions["ullage.engine"].dispose()
+        dispose(app)
     site = db_session.scalars(select(Site)).one()
     assert site.demand_per_day == pytest.approx(10, rel=1e-15)
     assert site.tank_capacity == pytest.approx(100, rel=1e-15)

@@ -272,3 +272,18 @@ def test_cached_answer_follows_every_change_that_matters(client, auth, plan):
     assert patched.status_code == 200
     kinds = [w["kind"] for w in trips(client, auth, "week=2026-W50").get_json()["warnings"]]
     assert "plan_stale" in kinds
+
+
+def test_query_schemas_are_built_once_not_per_request(client, auth, plan, monkeypatch):
+    # service.api.blueprint.Blueprint.arguments instantiates a schema class at import; webargs would
+    # otherwise build one per request. Validation still happens on every request.
+    from service.api.schemas.plans import TripsQueryArgsSchema
+
+    built = []
+    original = TripsQueryArgsSchema.__init__
+    monkeypatch.setattr(
+        TripsQueryArgsSchema, "__init__", lambda self, *a, **k: built.append(1) or original(self, *a, **k)
+    )
+    assert trips(client, auth, "week=2026-W50").status_code == 200
+    assert trips(client, auth, "week=2026-W99").status_code == 422
+    assert built == []

@@ -23,6 +23,7 @@ from zoneinfo import ZoneInfo
 import pytest
 
 from service import create_app
+from service.persistence.db import dispose
 
 WEEKS = 8
 TOL = 1e-6
@@ -43,7 +44,7 @@ def app(request, database_url):
     """The conftest app, with the service time zone as a parameter."""
     application = create_app({"DATABASE_URL": database_url, "TESTING": True, "ULLAGE_TIMEZONE": request.param})
     yield application
-    application.extensions["ullage.engine"].dispose()
+    dispose(application)
 
 
 @pytest.fixture

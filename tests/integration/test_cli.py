@@ -13,6 +13,7 @@ from sqlalchemy import create_engine, func, inspect, select
 from service import cli, create_app
 from service.auth import token_hash
 from service.health import migration_head
+from service.persistence.db import dispose
 from service.persistence.models import Site, Token, Truck
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -74,13 +75,14 @@ def test_unknown_role_is_refused(env_db, capsys):
     assert exc.value.code == 2
 
 
-def test_revoke_makes_the_token_fail_on_the_next_request(env_db, capsys, client):
+def test_revoke_makes_the_token_fail_once_the_cache_entry_expires(env_db, capsys, client, expire_token_cache):
     assert cli.main(["token", "create", "soon-gone", "--role", "viewer"]) == 0
     token = capsys.readouterr().out.strip().splitlines()[-1]
     headers = {"Authorization": f"Bearer {token}"}
     assert client.get("/api/v1/settings", headers=headers).status_code == 200
     assert cli.main(["token", "revoke", "soon-gone"]) == 0
     assert "revoked" in capsys.readouterr().out
+    expire_token_cache()
     assert client.get("/api/v1/settings", headers=headers).status_code == 401
     assert cli.main(["token", "revoke", "no-such-token"]) == 1
     assert "no-such-token" in capsys.readouterr().err
@@ -159,4 +161,4 @@ def test_create_app_then_serve_does_not_need_the_cli(env_db):
     try:
         assert app.config["DATABASE_URL"] == env_db
     finally:
-        app.extensions["ullage.engine"].dispose()
+        dispose(app)

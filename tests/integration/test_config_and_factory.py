@@ -14,6 +14,7 @@ from service import create_app
 from service.auth import new_token, token_hash
 from service.config import default_database_url, load_settings, normalise_database_url
 from service.persistence import repository as repo
+from service.persistence.db import dispose
 
 ROOT = Path(__file__).resolve().parents[2]
 UNREACHABLE = "postgresql+psycopg://postgres@127.0.0.1:1/none"
@@ -30,7 +31,7 @@ def make_app():
 
     yield build
     for app in made:
-        app.extensions["ullage.engine"].dispose()
+        dispose(app)
 
 
 def test_database_url_from_the_environment(monkeypatch, tmp_path, make_app):
@@ -78,10 +79,11 @@ def test_default_is_a_sqlite_file_under_var(monkeypatch, tmp_path, make_app):
 
 def test_nothing_connects_in_create_app(make_app):
     app = make_app({"DATABASE_URL": UNREACHABLE})  # would raise if it connected
-    engine = app.extensions["ullage.engine"]
-    assert engine.pool.checkedout() == 0
     connects = []
-    event.listen(engine, "connect", lambda *a: connects.append(a))
+    for name in ("ullage.engine", "ullage.read_engine"):
+        engine = app.extensions[name]
+        assert engine.pool.checkedout() == 0
+        event.listen(engine, "connect", lambda *a: connects.append(a))
     assert app.test_client().get("/livez").status_code == 200
     assert connects == []
 
@@ -125,11 +127,12 @@ def test_sqlite_connections_have_wal_busy_timeout_foreign_keys_and_full_sync(sql
 def test_sqlite_write_requests_begin_immediate_and_reads_begin_deferred(sqlite_app):
     app = sqlite_app
     headers = app.config["TEST_ADMIN_HEADERS"]
+    # What SQLite itself runs (its trace hook), BEGIN included: it is sent straight to the driver.
     statements = []
     event.listen(
         app.extensions["ullage.engine"],
-        "before_cursor_execute",
-        lambda conn, cursor, statement, *rest: statements.append(statement),
+        "checkout",
+        lambda dbapi_connection, *rest: dbapi_connection.set_trace_callback(statements.append),
     )
     client = app.test_client()
     body = {"code": "T1", "name": "x", "dispatch_cost": 1, "capacity": 2}
@@ -191,6 +194,8 @@ def test_postgresql_engine_pre_pings(make_app, app, database_url):
         ("ULLAGE_MAX_BODY_BYTES", "0"),
         ("ULLAGE_MAX_BODY_BYTES", "lots"),
         ("ULLAGE_READING_STALE_DAYS", "-1"),
+        ("ULLAGE_TOKEN_CACHE_SECONDS", "6"),
+        ("ULLAGE_TOKEN_CACHE_SECONDS", "-1"),
     ],
 )
 def test_invalid_settings_fail_fast(monkeypatch, tmp_path, name, value):
@@ -214,7 +219,7 @@ def test_settings_endpoint_reports_unit_currency_and_zone(tmp_path, monkeypatch,
     try:
         body = app.test_client().get("/api/v1/settings", headers=auth("viewer")).get_json()
     finally:
-        app.extensions["ullage.engine"].dispose()
+        dispose(app)
     assert (body["quantity_unit"], body["currency"], body["timezone"]) == ("m3", "NOK", "Europe/Oslo")
 
 

@@ -90,18 +90,20 @@ def test_token_lookup_is_by_hash_not_by_comparing_secrets(app, client, tokens):
     from sqlalchemy import event
 
     sent = []
-    engine = app.extensions["ullage.engine"]
+    engines = (app.extensions["ullage.engine"], app.extensions["ullage.read_engine"])
 
     def capture(conn, cursor, statement, parameters, context, executemany):  # noqa: ANN001
         sent.append((statement, repr(parameters)))
 
-    event.listen(engine, "before_cursor_execute", capture)
+    for engine in engines:
+        event.listen(engine, "before_cursor_execute", capture)
     try:
         assert (
             client.get("/api/v1/settings", headers={"Authorization": f"Bearer {tokens['viewer']}"}).status_code == 200
         )
     finally:
-        event.remove(engine, "before_cursor_execute", capture)
+        for engine in engines:
+            event.remove(engine, "before_cursor_execute", capture)
     assert not any(tokens["viewer"] in statement or tokens["viewer"] in params for statement, params in sent)
     lookups = [
         (statement, params) for statement, params in sent if "secret_hash" in statement and "tokens" in statement

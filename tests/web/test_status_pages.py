@@ -26,6 +26,7 @@ from status_helpers import (
 from service import create_app, schedule
 from service.auth import SESSION, rule_for
 from service.persistence import repository as repo
+from service.persistence.db import dispose
 from service.persistence.models import Site, Token, utcnow
 
 CAUTION = re.compile(
@@ -415,7 +416,7 @@ def test_the_database_password_never_reaches_a_page(database_url, tmp_path, toke
                     assert response.status_code == 503
                     assert "database is not available" in body
         finally:
-            application.extensions["ullage.engine"].dispose()
+            dispose(application)
 
 
 def test_no_script_no_inline_style_and_only_our_stylesheet(browser_client, planned):
@@ -464,4 +465,4 @@ def test_quantities_carry_the_configured_unit_and_money_the_currency(database_ur
         assert re.search(r"\d m3 of [\d ]+ m3", text)
         assert not re.search(r"\d L\b", text)
     finally:
-        application.extensions["ullage.engine"].dispose()
+        dispose(application)
