@@ -5,7 +5,7 @@ For SQLite and, separately, PostgreSQL (a fresh database ``ullage_bench`` on the
 starts gunicorn with the project's config on a free 127.0.0.1 port and runs bounded scenarios:
 
 * ``GET /livez`` (the framework's ceiling), ``GET`` a site, ``GET`` the weekly trips — with ``wrk``
-  when installed (``--no-wrk`` to use the Python generator), else the Python generator; 8
+  when installed (``--no-wrk`` to use the Python generator), else the Python generator; 32
   connections each, interleaved in 2 s slices so that the machine's drift weighs on each alike;
 * ``POST`` a joint calculation of 50 sites and ``POST`` plan creation with Idempotency-Keys — Python
   generator (threads, one keep-alive ``http.client`` connection each).
@@ -23,6 +23,7 @@ import contextlib
 import datetime as dt
 import http.client
 import json
+import math
 import os
 import re
 import shutil
@@ -57,7 +58,7 @@ TRUCK, SITE = "HV-R1", "HV-GAR-02"
 MAX_SECONDS = 30
 MAX_REQUESTS = 2_000_000  # a hard cap per scenario, whatever the speed
 SLICE_SECONDS = 2  # the GET scenarios alternate in slices this long (interleaved_gets)
-GET_CONNECTIONS = 8
+GET_CONNECTIONS = 32  # with 8, one worker sometimes accepted every connection (seen in top): a one-core test
 
 
 @dataclass
@@ -188,6 +189,9 @@ def gunicorn(url: str, workdir: Path, workers: int) -> Iterator[int]:
         "ULLAGE_SECRET_KEY": "bench",
         "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
         "LOG_LEVEL": "WARNING",
+        # No worker recycling while measuring: a worker's start costs about 1.8 s of CPU and would
+        # land in one scenario's slice at random (in service, 20 000 requests amortise it, < 0.1 ms each).
+        "GUNICORN_CMD_ARGS": "--max-requests 0",
     }
     log = open(workdir / "gunicorn.log", "wb")  # noqa: SIM115
     process = subprocess.Popen(
@@ -362,7 +366,10 @@ def interleaved_gets(
         total, errors = sum(p[0] for p in parts), sum(p[1] for p in parts)
         elapsed = sum(p[0] / p[2] for p in parts if p[2]) or rounds * SLICE_SECONDS
         if use_wrk:
-            p50, p99 = statistics.median(p[3] for p in parts), max(p[4] for p in parts)
+            p50s = [p[3] for p in parts if not math.isnan(p[3])]  # a slice wrk printed no distribution for
+            p99s = [p[4] for p in parts if not math.isnan(p[4])]
+            p50 = statistics.median(p50s) if p50s else float("nan")
+            p99 = max(p99s) if p99s else float("nan")
         else:
             lat = sorted(latencies[label])
             p50, p99 = percentile(lat, 0.5), percentile(lat, 0.99)

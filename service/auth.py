@@ -98,6 +98,15 @@ def rule_for(app: Flask, endpoint: str, method: str) -> str | None:
     return getattr(view, "_ullage_role", None)
 
 
+def _declared_rule(endpoint: str, method: str) -> str | None:
+    """:func:`rule_for`, remembered per app (the routes do not change once requests arrive)."""
+    rules: dict[tuple[str, str], str | None] = current_app.extensions["ullage.route_rules"]
+    key = (endpoint, method)
+    if key not in rules:
+        rules[key] = rule_for(current_app, endpoint, method)
+    return rules[key]
+
+
 def caller_from_token(token: str) -> Caller | None:
     """The caller of a presented token; ``None`` when unknown or revoked.
 
@@ -133,7 +142,7 @@ def authenticate() -> None:
     """``before_request``: enforce the route's rule for bearer-token routes."""
     if request.endpoint is None or request.method == "OPTIONS":
         return
-    rule = rule_for(current_app, request.endpoint, request.method)
+    rule = _declared_rule(request.endpoint, request.method)
     if rule in (PUBLIC, SESSION):
         return
     if rule is None:
@@ -201,5 +210,6 @@ def current_caller() -> Caller:
 
 def init_app(app: Flask) -> None:
     app.extensions["ullage.token_cache"] = LruCache(TOKEN_CACHE_SIZE)
+    app.extensions["ullage.route_rules"] = {}
     app.before_request(authenticate)
     app.after_request(note_token_use)
