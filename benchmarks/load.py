@@ -189,7 +189,7 @@ def gunicorn(url: str, workdir: Path, workers: int) -> Iterator[int]:
         "ULLAGE_SECRET_KEY": "bench",
         "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
         "LOG_LEVEL": "WARNING",
-        # No worker recycling while measuring: a worker's start costs about 1.8 s of CPU and would
+        # No worker recycling while measuring: a worker's start costs about 1.7 s of CPU and would
         # land in one scenario's slice at random (in service, 20 000 requests amortise it, < 0.1 ms each).
         "GUNICORN_CMD_ARGS": "--max-requests 0",
     }
@@ -345,8 +345,8 @@ def interleaved_gets(
 ) -> list[Figures]:
     """The GET scenarios in alternating slices of ``SLICE_SECONDS`` (A B C A B C …), same connections.
 
-    This machine's speed drifts by a factor of two within minutes (measured: /livez alone gave 1 000
-    and 2 600 req/s in runs a few minutes apart), so scenarios run one after the other would compare
+    This machine's speed drifts by a factor of two within minutes (this script printed /livez at
+    1 064 and 2 599 req/s in runs a few minutes apart), so scenarios run one after the other would compare
     different machines; interleaved, the drift weighs on each alike. p50 is the median of the
     slices' p50s and p99 the largest slice p99 (wrk reports percentiles per run).
     """

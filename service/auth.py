@@ -20,14 +20,14 @@ import secrets
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TypeVar
+from typing import Any, TypeVar
 
 from flask import Flask, current_app, g, request
 from sqlalchemy import bindparam, select, update
 
 from service.cache import LruCache
 from service.errors import Problem
-from service.persistence.db import read_engine, read_one, write_intent
+from service.persistence.db import read_engine, read_one, rollback_request_session, write_intent
 from service.persistence.models import Token, utcnow
 
 ROLES = ("viewer", "dispatcher", "admin")
@@ -83,19 +83,20 @@ def token_hash(token: str) -> str:
     return hashlib.sha256(token.encode("utf-8")).hexdigest()
 
 
+def handler_for(app: Flask, endpoint: str, method: str) -> Any:
+    """The function that answers ``method`` on ``endpoint``: the view, or its MethodView method."""
+    view = app.view_functions.get(endpoint)
+    view_class = getattr(view, "view_class", None)
+    if view_class is None:
+        return view
+    return getattr(view_class, "get" if method == "HEAD" else method.lower(), None)
+
+
 def rule_for(app: Flask, endpoint: str, method: str) -> str | None:
     """The declared rule of ``endpoint`` for ``method`` (``None`` if there is none)."""
     if endpoint in EXTRA_RULES:
         return EXTRA_RULES[endpoint]
-    view = app.view_functions.get(endpoint)
-    if view is None:
-        return None
-    view_class = getattr(view, "view_class", None)
-    if view_class is not None:
-        name = "get" if method == "HEAD" else method.lower()
-        handler = getattr(view_class, name, None)
-        return getattr(handler, "_ullage_role", None)
-    return getattr(view, "_ullage_role", None)
+    return getattr(handler_for(app, endpoint, method), "_ullage_role", None)
 
 
 def _declared_rule(endpoint: str, method: str) -> str | None:
@@ -181,15 +182,10 @@ def note_token_use(response):  # type: ignore[no-untyped-def]
     """``after_request``: record ``last_used_at`` at most once a minute per token (own transaction)."""
     token_id = g.pop("touch_token", None)
     if token_id is not None and response.status_code < 500:
-        request_session = g.get("db_session")
-        if request_session is not None:
-            # The view has committed what it meant to; anything still open (an error path after the
-            # token lookup) is abandoned anyway. Ending it first matters on SQLite, where the open
-            # BEGIN IMMEDIATE would make the write below wait out busy_timeout (5 s) and fail.
-            try:
-                request_session.rollback()
-            except Exception:  # noqa: BLE001 - a dead connection (database restarted) must not turn the answer into a 500
-                request_session.invalidate()
+        # The view has committed what it meant to; anything still open (an error path) is abandoned
+        # anyway. Ending it first matters on SQLite, where an open BEGIN IMMEDIATE would make the
+        # write below wait out busy_timeout (5 s) and fail; a dead connection must not make a 500.
+        rollback_request_session()
         intent = write_intent.set(True)
         session = current_app.extensions["ullage.sessionmaker"]()
         try:

@@ -17,6 +17,7 @@ from flask import Flask, Response, g, json, request
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 from werkzeug.exceptions import HTTPException
 
+from service.persistence.db import rollback_request_session
 from service.planning import PlanningInputError
 
 PROBLEM_JSON = "application/problem+json"
@@ -143,7 +144,7 @@ def handle_planning_input(error: PlanningInputError) -> Response:
 
 
 def handle_integrity(error: IntegrityError) -> Response:
-    _rollback()
+    rollback_request_session()
     log.info("integrity error: %s", type(error.orig).__name__)
     return problem_response(409, "The change conflicts with data already stored.", kind="conflict")
 
@@ -155,7 +156,7 @@ def _storage_full(error: DBAPIError) -> bool:
 
 def handle_database(error: DBAPIError) -> Response:
     """Database unreachable, locked too long or full: 503 (507 when full) with Retry-After."""
-    _rollback()
+    rollback_request_session()
     if _storage_full(error):
         log.error("storage full: %s", type(error.orig).__name__)
         return problem_response(
@@ -171,18 +172,9 @@ def handle_database(error: DBAPIError) -> Response:
 
 
 def handle_unexpected(error: Exception) -> Response:
-    _rollback()
+    rollback_request_session()
     log.exception("unhandled error")
     return problem_response(500, "Something went wrong on our side; nothing was recorded.")
-
-
-def _rollback() -> None:
-    session = g.get("db_session")
-    if session is not None:
-        try:
-            session.rollback()
-        except Exception:  # noqa: BLE001 - the connection may already be gone
-            session.invalidate()
 
 
 def init_app(app: Flask) -> None:

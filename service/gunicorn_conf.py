@@ -11,9 +11,9 @@ timeout = 30
 graceful_timeout = 20
 keepalive = 5
 preload_app = False  # each worker opens its own database connections after the fork
-# Workers are recycled against slow leaks, but a worker's start costs about 1.8 s of CPU (imports,
-# app, OpenAPI document; measured): at 2 000 requests that was 0.9 ms per request, more than a /livez
-# answer itself. At 20 000 it is under 0.1 ms.
+# Workers are recycled against slow leaks, but a worker's start costs about 1.7 s of CPU (imports,
+# app, OpenAPI document; benchmarks/reads.py prints it): at 2 000 requests that was 0.85 ms per
+# request, more than a /livez answer itself. At 20 000 it is under 0.1 ms.
 max_requests = 20000
 max_requests_jitter = 2000
 worker_tmp_dir = "/dev/shm" if os.path.isdir("/dev/shm") else None

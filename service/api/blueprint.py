@@ -14,6 +14,7 @@ from flask import current_app, request
 from flask_smorest import Blueprint as SmorestBlueprint
 from webargs.flaskparser import FlaskParser
 
+from service.auth import handler_for
 from service.cache import LruCache
 from service.errors import Problem
 
@@ -38,9 +39,9 @@ class StrictParser(FlaskParser):
         """As webargs', but a query string this schema already accepted is answered from memory.
 
         Our query schemas are pure functions of the query string (no context, no clock), and the
-        same few strings come back (``week=2026-W49`` every week from every dispatcher): loading
-        one costs about 0.09 ms (measured), the lookup a microsecond. Refused strings are not kept;
-        each caller gets its own copy of the dict.
+        same few strings come back (``week=2026-W49`` every week from every dispatcher), so a
+        dictionary lookup replaces a schema load. Refused strings are not kept; each caller gets
+        its own copy of the dict.
         """
         if (location or self.location) not in QUERY_LOCATIONS or any(
             isinstance(v, list | dict) for v in kwargs.values()
@@ -60,8 +61,8 @@ class Blueprint(SmorestBlueprint):
     def arguments(self, schema: Any, *args: Any, **kwargs: Any) -> Any:
         """As flask-smorest's, but a schema class is instantiated once, here.
 
-        webargs builds a new instance of a schema class on every request (about 0.1 ms each,
-        measured); marshmallow 4 schemas keep no per-load state, so one instance serves all.
+        webargs builds a new instance of a schema class on every request; marshmallow 4 schemas
+        keep no per-load state, so one instance serves all.
         """
         return super().arguments(schema() if isinstance(schema, type) else schema, *args, **kwargs)
 
@@ -76,14 +77,6 @@ def accepts_body(media_type: str):  # type: ignore[no-untyped-def]
     return mark
 
 
-def _handler() -> Any:
-    view = current_app.view_functions.get(request.endpoint or "")
-    view_class = getattr(view, "view_class", None)
-    if view_class is None:
-        return view
-    return getattr(view_class, "get" if request.method == "HEAD" else request.method.lower(), None)
-
-
 def _locations(handler: Any) -> set[str]:
     params = getattr(handler, "_apidoc", {}).get("arguments", {}).get("parameters", [])
     return {p.get("in") for p in params if isinstance(p, dict)}
@@ -95,7 +88,7 @@ def _expectations(endpoint: str, method: str) -> tuple[set[str], str | None] | N
     known: dict[tuple[str, str], Any] = current_app.extensions.setdefault("ullage.route_guards", {})
     key = (endpoint, method)
     if key not in known:
-        handler = _handler()
+        handler = handler_for(current_app, endpoint, method)
         if handler is None:
             known[key] = None
         else:

@@ -282,12 +282,9 @@ class TruckTrips(MethodView):
         key = (truck_id, first, last, schedule.today(settings), marker)
         cached = TRIPS_CACHE.get(key)
         if cached is None:
-            session = get_session()
-            truck = session.get(Truck, truck_id)
-            if truck is None:  # deleted since the marker was read
-                raise Problem(404, f"No truck with code {code!r}.", kind="not-found")
+            truck = truck_or_404(code)  # 404 too if it was deleted since the marker was read
             try:
-                view = schedule.trips_view(session, truck, first, last, settings)
+                view = schedule.trips_view(get_session(), truck, first, last, settings)
             except schedule.NoActivePlan as exc:
                 raise Problem(409, str(exc), kind="no-active-plan") from exc
             body = json.dumps(trips_json(view)).encode()

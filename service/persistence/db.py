@@ -9,8 +9,8 @@ Nothing connects until the first request (engines are lazy; safe under gunicorn'
 A second, autocommit engine serves :func:`read_one`: the single SELECTs that run on (nearly) every
 request — a token lookup, the trips change marker. One statement sees one consistent snapshot by
 itself on both databases, so it needs no BEGIN/ROLLBACK, no ORM session and no pre-ping round
-trip; on PostgreSQL that is one round trip instead of four (measured 0.42 ms against 1.45 ms on
-this machine, SQLite 0.23 ms against 0.32 ms; benchmarks/load.py shows the effect end to end).
+trip; on PostgreSQL that is one round trip instead of four (``benchmarks/reads.py`` printed 0.38 ms
+against 1.46 ms per marker read on this machine, SQLite 0.16 ms against 0.40 ms).
 """
 
 from __future__ import annotations
@@ -37,34 +37,28 @@ write_intent: ContextVar[bool] = ContextVar("write_intent", default=True)
 
 def make_engine(url: str) -> Engine:
     """Create the engine for ``url`` with the per-backend settings above."""
-    parsed = make_url(url)
-    if parsed.get_backend_name() == "sqlite":
-        if parsed.database and parsed.database != ":memory:":
-            Path(parsed.database).parent.mkdir(parents=True, exist_ok=True)
-        engine = create_engine(url, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000})
-        event.listen(engine, "connect", _sqlite_pragmas)
+    engine = _engine(url, sqlite={}, postgresql={"pool_pre_ping": True, "pool_size": 5, "max_overflow": 5})
+    if engine.dialect.name == "sqlite":
         event.listen(engine, "begin", _sqlite_begin)
-        return engine
-    return create_engine(
-        url,
-        pool_pre_ping=True,
-        pool_size=5,
-        max_overflow=5,
-        pool_timeout=5,
-        connect_args={"connect_timeout": 3},
-    )
+    return engine
 
 
 def make_read_engine(url: str) -> Engine:
     """The engine of :func:`read_one`: autocommit, nothing to reset on return, no pre-ping."""
-    options: dict[str, Any] = {"isolation_level": "AUTOCOMMIT", "pool_reset_on_return": None}
-    if make_url(url).get_backend_name() == "sqlite":
-        engine = create_engine(url, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000}, **options)
-        event.listen(engine, "connect", _sqlite_pragmas)
-        return engine
-    return create_engine(
-        url, pool_size=4, max_overflow=4, pool_timeout=5, connect_args={"connect_timeout": 3}, **options
-    )
+    options = {"isolation_level": "AUTOCOMMIT", "pool_reset_on_return": None}
+    return _engine(url, sqlite=options, postgresql={**options, "pool_size": 4, "max_overflow": 4})
+
+
+def _engine(url: str, *, sqlite: dict[str, Any], postgresql: dict[str, Any]) -> Engine:
+    """An engine with what both of ours share: SQLite's busy timeout and pragmas, PostgreSQL's timeouts."""
+    parsed = make_url(url)
+    if parsed.get_backend_name() != "sqlite":
+        return create_engine(url, pool_timeout=5, connect_args={"connect_timeout": 3}, **postgresql)
+    if parsed.database and parsed.database != ":memory:":
+        Path(parsed.database).parent.mkdir(parents=True, exist_ok=True)
+    engine = create_engine(url, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000}, **sqlite)
+    event.listen(engine, "connect", _sqlite_pragmas)
+    return engine
 
 
 def _sqlite_pragmas(dbapi_connection, _record):  # type: ignore[no-untyped-def]
@@ -97,8 +91,8 @@ class RawRead:
     """One prebuilt SELECT, compiled once per dialect and run straight on a pooled DBAPI connection.
 
     For the one statement that runs on every weekly-trips call (the change marker): SQLAlchemy's
-    statement execution costs more than the query itself (measured on this machine: 0.57 ms
-    against 0.25 ms on PostgreSQL, 0.23 against 0.16 ms on SQLite). The row holds the driver's own
+    statement execution costs more than the query itself (``benchmarks/reads.py`` printed 0.21 ms
+    against 0.38 ms on PostgreSQL, 0.05 against 0.16 ms on SQLite). The row holds the driver's own
     values, untouched by column types, so it suits values that are only compared for equality.
     Driver errors come out as SQLAlchemy's ``DBAPIError`` like any other (→ 503).
     """
@@ -165,11 +159,6 @@ def dispose(app: Flask) -> None:
     app.extensions["ullage.read_engine"].dispose()
 
 
-def is_sqlite(session: Session) -> bool:
-    """True when the session talks to SQLite."""
-    return session.get_bind().dialect.name == "sqlite"
-
-
 def init_app(app: Flask) -> None:
     """Create the (lazy) engine and session factory and close the request's session at teardown."""
     engine = make_engine(app.config["DATABASE_URL"])
@@ -185,6 +174,16 @@ def get_session() -> Session:
         write_intent.set(not has_request_context() or request.method not in SAFE_METHODS)
         g.db_session = current_app.extensions["ullage.sessionmaker"]()
     return g.db_session
+
+
+def rollback_request_session() -> None:
+    """Abandon whatever the request's session has open; a dead connection is dropped instead."""
+    session = g.get("db_session")
+    if session is not None:
+        try:
+            session.rollback()
+        except Exception:  # noqa: BLE001 - the connection may already be gone (database restarted)
+            session.invalidate()
 
 
 def _close_session(_exc: BaseException | None) -> None:

@@ -22,11 +22,12 @@ from __future__ import annotations
 import logging
 from typing import Any
 
-from flask import Blueprint, Flask, Response, current_app, g, render_template
+from flask import Blueprint, Flask, Response, current_app, render_template
 from sqlalchemy.exc import DBAPIError
 from werkzeug.exceptions import HTTPException
 
 from service.errors import Problem
+from service.persistence.db import rollback_request_session
 
 PAGE_HEADERS = {
     "Content-Security-Policy": "default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; "
@@ -73,12 +74,7 @@ def _problem(error: Problem) -> tuple[str, int]:
 
 @bp.errorhandler(Exception)
 def _unexpected(error: Exception) -> tuple[str, int]:
-    db_session = g.get("db_session")
-    if db_session is not None:
-        try:
-            db_session.rollback()
-        except Exception:  # noqa: BLE001 - the connection may already be gone
-            db_session.invalidate()
+    rollback_request_session()
     if isinstance(error, DBAPIError):
         log.warning("status page: database unavailable: %s", type(getattr(error, "orig", error)).__name__)
         return error_page(503, "Database unavailable", "The database is not available right now. Try again shortly.")

@@ -42,10 +42,6 @@ def percent(value: float | None, decimals: int = 1) -> str:
     return f"{value:.{decimals}f}{GROUP}%"
 
 
-def iso(value: dt.date | None) -> str:
-    return value.isoformat() if value is not None else "–"
-
-
 def weekday(value: dt.date) -> str:
     return ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")[value.weekday()]
 

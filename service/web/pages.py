@@ -94,7 +94,6 @@ def site_page(code: str) -> Any:
         first=first,
         last=last,
         deliveries=deliveries,
-        delivery_dates={d for d, _ in deliveries},
         has_level=any(v is not None for _, v in levels.days),
         warnings=_sorted_warnings(_dedupe(levels.notices)),
         week=formatting.iso_week_of(first),
@@ -119,15 +118,6 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
         for trip in view.trips:
             for stop in trip.stops:
                 notices.extend(stop.notices)
-        if plan is None:
-            notices.append(
-                _notice("no_active_plan", f"Truck {truck.code} has no active plan, so no trips are scheduled.")
-            )
-        elif plan.stale and not any(n.kind == "plan_stale" for n in notices):
-            changed = ", ".join(plan.changed_sites) or "some sites"
-            notices.append(
-                _notice("plan_stale", f"The plan for {truck.code} is out of date: {changed} changed since it was made.")
-            )
     sites = repo.active_sites(db, truck)
     charts = []
     all_levels = schedule.truck_levels(db, truck, sites, monday, CHART_DAYS, config)

@@ -1,0 +1,177 @@
+"""The hot path's single reads, measured: prints figures, it is not a test.
+
+On a migrated demo database (SQLite file and, separately, a fresh PostgreSQL database
+``ullage_reads`` on ``--pg-url``, dropped afterwards), per call:
+
+* the trips change marker through an ORM session (checkout, BEGIN, SELECT, ROLLBACK; pre-ping on
+  PostgreSQL), through ``read_one`` on the autocommit engine, and through ``RawRead`` on the driver;
+* the token lookup through an ORM session and through ``read_one``;
+* on SQLite, the marker's SQL with ``plans.status`` bound as a parameter and written as a literal;
+
+and once, the CPU a gunicorn worker spends to start (``import service.app; create_app()`` in a
+fresh interpreter), which ``max_requests`` amortises.
+
+    .venv/bin/python benchmarks/reads.py [--calls 3000] [--db sqlite|postgresql|both]
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable, Iterator
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from alembic import command  # noqa: E402
+from sqlalchemy import create_engine, text  # noqa: E402
+from sqlalchemy.engine import make_url  # noqa: E402
+from sqlalchemy.orm import Session, sessionmaker  # noqa: E402
+
+from service.auth import _TOKEN_BY_HASH, new_token, token_hash  # noqa: E402
+from service.demo import load_demo  # noqa: E402
+from service.health import alembic_config  # noqa: E402
+from service.persistence import repository as repo  # noqa: E402
+from service.persistence.db import make_engine, make_read_engine, read_one  # noqa: E402
+from service.persistence.plans import _TRIPS_MARKER  # noqa: E402
+
+TRUCK = "HV-R1"
+
+
+def per_call_us(fn: Callable[[], object], calls: int) -> float:
+    """Best of three runs of ``calls`` calls, in microseconds per call (the machine drifts)."""
+    for _ in range(min(calls, 100)):
+        fn()
+    best = float("inf")
+    for _ in range(3):
+        started = time.perf_counter()
+        for _ in range(calls):
+            fn()
+        best = min(best, (time.perf_counter() - started) / calls * 1e6)
+    return best
+
+
+def prepare(url: str) -> str:
+    command.upgrade(alembic_config(url), "head")
+    engine = create_engine(url)
+    with Session(engine) as session:
+        load_demo(session, ROOT / "sample_data", "L")
+        token = new_token()
+        repo.add_token(session, "reads", "viewer", token_hash(token))
+        session.commit()
+    engine.dispose()
+    return token_hash(token)
+
+
+def measure(name: str, url: str, calls: int) -> list[tuple[str, str, float]]:
+    digest = prepare(url)
+    main, read = make_engine(url), make_read_engine(url)
+    sessions = sessionmaker(main)
+    marker_statement = _TRIPS_MARKER.statement
+
+    def session_read(statement, params):  # noqa: ANN001, ANN202
+        def run() -> None:
+            with sessions() as session:
+                session.execute(statement, params).one_or_none()
+
+        return run
+
+    rows = [
+        (name, "marker, ORM session", per_call_us(session_read(marker_statement, {"code": TRUCK}), calls)),
+        (name, "marker, read_one", per_call_us(lambda: read_one(read, marker_statement, {"code": TRUCK}), calls)),
+        (name, "marker, RawRead", per_call_us(lambda: _TRIPS_MARKER.first(read, {"code": TRUCK}), calls)),
+        (name, "token, ORM session", per_call_us(session_read(_TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
+        (name, "token, read_one", per_call_us(lambda: read_one(read, _TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
+    ]
+    if name == "sqlite":
+        literal = marker_statement.compile(dialect=read.dialect).string
+        bound = literal.replace("'active'", "?")
+        raw = read.raw_connection()
+        try:
+            cursor = raw.cursor()
+            rows.append(
+                (
+                    name,
+                    "marker SQL, status bound",
+                    per_call_us(lambda: cursor.execute(bound, ("active", TRUCK)).fetchone(), calls),
+                )
+            )
+            rows.append(
+                (
+                    name,
+                    "marker SQL, status literal",
+                    per_call_us(lambda: cursor.execute(literal, (TRUCK,)).fetchone(), calls),
+                )
+            )
+            cursor.close()
+        finally:
+            raw.close()
+    main.dispose()
+    read.dispose()
+    return rows
+
+
+def worker_start_cpu_s(url: str) -> float:
+    """CPU seconds of a fresh interpreter that imports the app and builds it (a worker's start)."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    subprocess.run(
+        [sys.executable, "-c", "import service.app as a; a.create_app()"],
+        cwd=ROOT,
+        env={**os.environ, "DATABASE_URL": url},
+        check=True,
+    )
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+
+
+@contextlib.contextmanager
+def scratch_postgres(base_url: str) -> Iterator[str]:
+    own = make_url(base_url).set(database="ullage_reads")
+    admin = create_engine(make_url(base_url), isolation_level="AUTOCOMMIT")
+    with admin.connect() as conn:
+        conn.execute(text('DROP DATABASE IF EXISTS "ullage_reads" WITH (FORCE)'))
+        conn.execute(text('CREATE DATABASE "ullage_reads"'))
+    try:
+        yield own.render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.execute(text('DROP DATABASE IF EXISTS "ullage_reads" WITH (FORCE)'))
+        admin.dispose()
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--calls", type=int, default=3000)
+    parser.add_argument("--db", choices=("sqlite", "postgresql", "both"), default="both")
+    parser.add_argument(
+        "--pg-url",
+        default=os.environ.get("BENCH_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"),
+    )
+    args = parser.parse_args(argv)
+    rows: list[tuple[str, str, float]] = []
+    with tempfile.TemporaryDirectory(prefix="ullage-reads-") as directory:
+        sqlite_url = f"sqlite:///{directory}/reads.db"
+        if args.db in ("sqlite", "both"):
+            rows += measure("sqlite", sqlite_url, args.calls)
+        if args.db in ("postgresql", "both"):
+            with scratch_postgres(args.pg_url) as url:
+                rows += measure("postgresql", url, args.calls)
+        start = worker_start_cpu_s(sqlite_url)
+    print(f"\nUllage single reads: best of 3 × {args.calls} calls, demo network\n")
+    print(f"| {'db':<10} | {'read':<28} | {'µs per call':>11} |")
+    print(f"|{'-' * 12}|{'-' * 30}|{'-' * 13}|")
+    for database, label, us in rows:
+        print(f"| {database:<10} | {label:<28} | {us:>11.1f} |")
+    print(f"\nworker start (import service.app + create_app): {start:.2f} s of CPU")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
