@@ -381,18 +381,18 @@ def interleaved_gets(
 
 
 @contextlib.contextmanager
-def bench_postgres(base_url: str) -> Iterator[str]:
-    base = make_url(base_url)
-    own = base.set(database="ullage_bench")
-    admin = create_engine(base, isolation_level="AUTOCOMMIT")
+def bench_postgres(base_url: str, name: str = "ullage_bench") -> Iterator[str]:
+    """A fresh database ``name`` on the server of ``base_url``, dropped afterwards (also benchmarks/reads.py)."""
+    own = make_url(base_url).set(database=name)
+    admin = create_engine(make_url(base_url), isolation_level="AUTOCOMMIT")
     with admin.connect() as conn:
-        conn.execute(text('DROP DATABASE IF EXISTS "ullage_bench" WITH (FORCE)'))
-        conn.execute(text('CREATE DATABASE "ullage_bench"'))
+        conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+        conn.execute(text(f'CREATE DATABASE "{name}"'))
     try:
         yield own.render_as_string(hide_password=False)
     finally:
         with admin.connect() as conn:
-            conn.execute(text('DROP DATABASE IF EXISTS "ullage_bench" WITH (FORCE)'))
+            conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
         admin.dispose()
 
 

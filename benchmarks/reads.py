@@ -17,22 +17,21 @@ fresh interpreter), which ``max_requests`` amortises.
 from __future__ import annotations
 
 import argparse
-import contextlib
 import os
 import resource
 import subprocess
 import sys
 import tempfile
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from alembic import command  # noqa: E402
-from sqlalchemy import create_engine, text  # noqa: E402
-from sqlalchemy.engine import make_url  # noqa: E402
+from load import bench_postgres  # noqa: E402 - this directory is on the path when run as a script
+from sqlalchemy import create_engine  # noqa: E402
 from sqlalchemy.orm import Session, sessionmaker  # noqa: E402
 
 from service.auth import _TOKEN_BY_HASH, new_token, token_hash  # noqa: E402
@@ -131,21 +130,6 @@ def worker_start_cpu_s(url: str) -> float:
     return (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
 
 
-@contextlib.contextmanager
-def scratch_postgres(base_url: str) -> Iterator[str]:
-    own = make_url(base_url).set(database="ullage_reads")
-    admin = create_engine(make_url(base_url), isolation_level="AUTOCOMMIT")
-    with admin.connect() as conn:
-        conn.execute(text('DROP DATABASE IF EXISTS "ullage_reads" WITH (FORCE)'))
-        conn.execute(text('CREATE DATABASE "ullage_reads"'))
-    try:
-        yield own.render_as_string(hide_password=False)
-    finally:
-        with admin.connect() as conn:
-            conn.execute(text('DROP DATABASE IF EXISTS "ullage_reads" WITH (FORCE)'))
-        admin.dispose()
-
-
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--calls", type=int, default=3000)
@@ -161,7 +145,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.db in ("sqlite", "both"):
             rows += measure("sqlite", sqlite_url, args.calls)
         if args.db in ("postgresql", "both"):
-            with scratch_postgres(args.pg_url) as url:
+            with bench_postgres(args.pg_url, "ullage_reads") as url:
                 rows += measure("postgresql", url, args.calls)
         start = worker_start_cpu_s(sqlite_url)
     print(f"\nUllage single reads: best of 3 × {args.calls} calls, demo network\n")
