@@ -6,7 +6,6 @@ On a migrated demo database (SQLite file and, separately, a fresh PostgreSQL dat
 * the trips change marker through an ORM session (checkout, BEGIN, SELECT, ROLLBACK; pre-ping on
   PostgreSQL), through ``read_one`` on the autocommit engine, and through ``RawRead`` on the driver;
 * the token lookup through an ORM session and through ``read_one``;
-* on SQLite, the marker's SQL with ``plans.status`` bound as a parameter and written as a literal;
 
 and once, the CPU a gunicorn worker spends to start (``import service.app; create_app()`` in a
 fresh interpreter), which ``max_requests`` amortises.
@@ -89,29 +88,6 @@ def measure(name: str, url: str, calls: int) -> list[tuple[str, str, float]]:
         (name, "token, ORM session", per_call_us(session_read(_TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
         (name, "token, read_one", per_call_us(lambda: read_one(read, _TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
     ]
-    if name == "sqlite":
-        literal = marker_statement.compile(dialect=read.dialect).string
-        bound = literal.replace("'active'", "?")
-        raw = read.raw_connection()
-        try:
-            cursor = raw.cursor()
-            rows.append(
-                (
-                    name,
-                    "marker SQL, status bound",
-                    per_call_us(lambda: cursor.execute(bound, ("active", TRUCK)).fetchone(), calls),
-                )
-            )
-            rows.append(
-                (
-                    name,
-                    "marker SQL, status literal",
-                    per_call_us(lambda: cursor.execute(literal, (TRUCK,)).fetchone(), calls),
-                )
-            )
-            cursor.close()
-        finally:
-            raw.close()
     main.dispose()
     read.dispose()
     return rows

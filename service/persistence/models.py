@@ -205,3 +205,22 @@ class IdempotencyRecord(Base):
     response_body: Mapped[str | None] = mapped_column(Text)
     response_location: Mapped[str | None] = mapped_column(String(400))
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow, index=True)
+
+
+class ChangeStamp(Base):
+    """One row whose ``stamp`` is a fresh random value after every commit that changed what a
+    weekly-trips answer reads: any row of ``trucks``, ``sites``, ``readings`` or ``plans``.
+
+    Written by triggers (migration 0002), so no code path can forget it; read as the trips cache's
+    marker (:func:`service.persistence.plans.trips_marker`). A random stamp, not a counter, so that
+    a value never comes back: not after a restore from backup, nor in a test database rebuilt under
+    a running process. On PostgreSQL the triggers are deferred to commit, so a transaction takes the
+    row's lock last and holds it only while it commits (no lock-order deadlocks with row locks on
+    sites); they write the row once per transaction.
+    """
+
+    __tablename__ = "change_stamp"
+    __table_args__ = (CheckConstraint("id = 1", name="single_row"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True, autoincrement=False)
+    stamp: Mapped[str] = mapped_column(String(32))

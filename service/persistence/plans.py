@@ -8,11 +8,11 @@ import json
 from collections.abc import Iterable, Sequence
 from typing import Any
 
-from sqlalchemy import Engine, bindparam, func, literal_column, select, update
+from sqlalchemy import Engine, bindparam, func, select, update
 from sqlalchemy.orm import Session
 
 from service.persistence.db import RawRead
-from service.persistence.models import Plan, PlanSite, Reading, Site, Truck
+from service.persistence.models import ChangeStamp, Plan, PlanSite, Reading, Site, Truck
 from service.persistence.repository import NotFound, active_sites, lock_for_update
 from service.planning import JointResult, SiteInput, SitePlan, Status, Stop, Trip, TruckInput
 
@@ -132,35 +132,29 @@ def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
     return bool(changed) or truck_moved, changed
 
 
-#: Built once (statement construction costs more than running it): see trips_marker. The trucks
-#: subquery must not correlate with the outer ``trucks`` row; the active plan's must. ``'active'``
-#: is written into the SQL: SQLite uses the partial index of active plans only for a literal
-#: (``benchmarks/reads.py`` printed 24 µs for the statement against 120 µs with a bound parameter).
+#: Built once (statement construction costs more than running it): see trips_marker.
 _TRIPS_MARKER = RawRead(
-    select(
-        Truck.id,
-        select(func.max(Reading.id)).scalar_subquery(),
-        select(func.max(Site.updated_at)).scalar_subquery(),
-        select(func.count(Site.id)).scalar_subquery(),
-        select(func.max(Truck.updated_at)).correlate(None).scalar_subquery(),
-        select(Plan.id).where(Plan.truck_id == Truck.id, Plan.status == literal_column("'active'")).scalar_subquery(),
-    ).where(Truck.code == bindparam("code"))
+    select(Truck.id, select(ChangeStamp.stamp).where(ChangeStamp.id == 1).scalar_subquery()).where(
+        Truck.code == bindparam("code")
+    )
 )
 
 
-def trips_marker(engine: Engine, code: str) -> tuple[int, tuple[Any, ...]]:
-    """The truck's id and one cheap marker that changes whenever a trips view of it could change.
+def trips_marker(engine: Engine, code: str) -> tuple[int, str | None]:
+    """The truck's id and a marker that changes with every commit that could change a trips view of it.
 
-    Readings only ever get new ids; every site or truck change moves ``updated_at`` (deletions move
-    the count); activation changes the active plan's id. Deliberately coarse: a change anywhere
-    invalidates every truck's cached trips, which keeps the marker one round trip. It runs on every
-    weekly call, so it is one autocommit statement run on the driver (:class:`~service.persistence.db.RawRead`):
-    its values are the driver's own, fit for comparing. Raises :class:`NotFound` when there is no truck ``code``.
+    The marker is the :class:`~service.persistence.models.ChangeStamp`: triggers give it a fresh
+    random value in every transaction that changes a truck, site, reading or plan, and it becomes
+    visible with that transaction's commit. A view read after the marker is therefore at least as
+    new as the marker says. Deliberately coarse: a change anywhere invalidates every truck's cached
+    trips, which keeps the marker two primary-key lookups in one statement. It runs on every weekly
+    call, so it is one autocommit statement run on the driver (:class:`~service.persistence.db.RawRead`).
+    Raises :class:`NotFound` when there is no truck ``code``.
     """
     row = _TRIPS_MARKER.first(engine, {"code": code})
     if row is None:
         raise NotFound(f"No truck with code {code!r}.")
-    return row[0], tuple(row[1:])
+    return row[0], row[1]
 
 
 def result_of(plan: Plan) -> JointResult:

@@ -8,17 +8,10 @@ from sqlalchemy.exc import DBAPIError
 
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import RawRead, make_read_engine, read_one
+from service.persistence.db import RawRead, read_one
 from service.persistence.models import Truck
 
 BY_CODE = select(Truck.id, Truck.name).where(Truck.code == bindparam("code"))
-
-
-@pytest.fixture
-def read_engine(database_url):
-    engine = make_read_engine(database_url)
-    yield engine
-    engine.dispose()
 
 
 @pytest.fixture
