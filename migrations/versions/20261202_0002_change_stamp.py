@@ -24,12 +24,13 @@ WATCHED = ("trucks", "sites", "readings", "plans")
 EVENTS = ("insert", "update", "delete")
 
 SQLITE_NEW_STAMP = "INSERT OR REPLACE INTO change_stamp (id, stamp) VALUES (1, lower(hex(randomblob(16))))"
+POSTGRESQL_STAMP = "replace(gen_random_uuid()::text, '-', '')"  # 32 hex digits, as SQLite's
 
-POSTGRESQL_FUNCTION = """
+POSTGRESQL_FUNCTION = f"""
 CREATE FUNCTION ullage_new_change_stamp() RETURNS trigger LANGUAGE plpgsql AS $$
 BEGIN
     IF current_setting('ullage.change_stamped', true) IS DISTINCT FROM 'yes' THEN
-        INSERT INTO change_stamp (id, stamp) VALUES (1, replace(gen_random_uuid()::text, '-', ''))
+        INSERT INTO change_stamp (id, stamp) VALUES (1, {POSTGRESQL_STAMP})
             ON CONFLICT (id) DO UPDATE SET stamp = excluded.stamp;
         PERFORM set_config('ullage.change_stamped', 'yes', true);
     END IF;
@@ -37,6 +38,11 @@ BEGIN
 END
 $$
 """
+
+
+def _sqlite_triggers() -> list[tuple[str, str, str]]:
+    """(name, table, event) of each SQLite trigger: SQLite has one event per trigger."""
+    return [(f"trg_{table}_{event}_stamp", table, event) for table in WATCHED for event in EVENTS]
 
 
 def upgrade() -> None:
@@ -49,14 +55,10 @@ def upgrade() -> None:
     )
     if op.get_bind().dialect.name == "sqlite":
         op.execute(SQLITE_NEW_STAMP)
-        for table in WATCHED:
-            for event in EVENTS:
-                op.execute(
-                    f"CREATE TRIGGER trg_{table}_{event}_stamp AFTER {event.upper()} ON {table} "
-                    f"BEGIN {SQLITE_NEW_STAMP}; END"
-                )
+        for name, table, event in _sqlite_triggers():
+            op.execute(f"CREATE TRIGGER {name} AFTER {event.upper()} ON {table} BEGIN {SQLITE_NEW_STAMP}; END")
         return
-    op.execute("INSERT INTO change_stamp (id, stamp) VALUES (1, replace(gen_random_uuid()::text, '-', ''))")
+    op.execute(f"INSERT INTO change_stamp (id, stamp) VALUES (1, {POSTGRESQL_STAMP})")
     op.execute(POSTGRESQL_FUNCTION)
     for table in WATCHED:
         op.execute(
@@ -67,9 +69,8 @@ def upgrade() -> None:
 
 def downgrade() -> None:
     if op.get_bind().dialect.name == "sqlite":
-        for table in WATCHED:
-            for event in EVENTS:
-                op.execute(f"DROP TRIGGER trg_{table}_{event}_stamp")
+        for name, _table, _event in _sqlite_triggers():
+            op.execute(f"DROP TRIGGER {name}")
     else:
         for table in WATCHED:
             op.execute(f"DROP TRIGGER trg_{table}_stamp ON {table}")

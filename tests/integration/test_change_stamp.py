@@ -45,7 +45,7 @@ def stamp(read_engine) -> str | None:
 
 def test_a_stamp_is_a_32_digit_hex_and_steady_while_nothing_changes(read_engine, network, db_session):
     first = stamp(read_engine)
-    assert first is not None and len(first) == 32 and int(first, 16) >= 0
+    assert first is not None and len(first) == 32 and set(first) <= set("0123456789abcdef")
     db_session.execute(text("SELECT count(*) FROM sites")).scalar_one()  # a read
     repo.add_token(db_session, "stamp-test", "viewer", "0" * 64)  # a table trips do not read
     db_session.commit()
