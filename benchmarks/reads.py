@@ -38,9 +38,7 @@ from service.demo import load_demo  # noqa: E402
 from service.health import alembic_config  # noqa: E402
 from service.persistence import repository as repo  # noqa: E402
 from service.persistence.db import make_engine, make_read_engine, read_one  # noqa: E402
-from service.persistence.plans import _TRIPS_MARKER  # noqa: E402
-
-TRUCK = "HV-R1"
+from service.persistence.plans import _CHANGE_STAMP  # noqa: E402
 
 
 def per_call_us(fn: Callable[[], object], calls: int) -> float:
@@ -72,7 +70,7 @@ def measure(name: str, url: str, calls: int) -> list[tuple[str, str, float]]:
     digest = prepare(url)
     main, read = make_engine(url), make_read_engine(url)
     sessions = sessionmaker(main)
-    marker_statement = _TRIPS_MARKER.statement
+    marker_statement = _CHANGE_STAMP.statement
 
     def session_read(statement, params):  # noqa: ANN001, ANN202
         def run() -> None:
@@ -82,9 +80,9 @@ def measure(name: str, url: str, calls: int) -> list[tuple[str, str, float]]:
         return run
 
     rows = [
-        (name, "marker, ORM session", per_call_us(session_read(marker_statement, {"code": TRUCK}), calls)),
-        (name, "marker, read_one", per_call_us(lambda: read_one(read, marker_statement, {"code": TRUCK}), calls)),
-        (name, "marker, RawRead", per_call_us(lambda: _TRIPS_MARKER.first(read, {"code": TRUCK}), calls)),
+        (name, "marker, ORM session", per_call_us(session_read(marker_statement, {}), calls)),
+        (name, "marker, read_one", per_call_us(lambda: read_one(read, marker_statement, {}), calls)),
+        (name, "marker, RawRead", per_call_us(lambda: _CHANGE_STAMP.first(read, {}), calls)),
         (name, "token, ORM session", per_call_us(session_read(_TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
         (name, "token, read_one", per_call_us(lambda: read_one(read, _TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
     ]

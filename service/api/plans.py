@@ -37,7 +37,7 @@ blp = Blueprint("plans", __name__, description="Recorded plans and the trips dis
 
 MAX_WINDOW_DAYS = 92
 #: Per-process cache of trips answers, keyed by the window, the day and the store's change marker
-#: (service.persistence.plans.change_marker): repeated weekly calls skip the replay.
+#: (service.persistence.plans.change_stamp): repeated weekly calls skip the replay.
 TRIPS_CACHE = LruCache(256)
 HEAVY = ("trips", "inputs")
 #: Error alternatives are documented as RFC 9457 problem documents, like every other error.
@@ -275,14 +275,10 @@ class TruckTrips(MethodView):
         """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
         first, last = _window(args)
         settings = current_app.config["ULLAGE_SETTINGS"]
-        try:
-            truck_id, marker = plan_store.trips_marker(read_engine(), code)
-        except repo.NotFound as exc:
-            raise Problem(404, str(exc), kind="not-found") from exc
-        key = (truck_id, first, last, schedule.today(settings), marker)
+        key = (code, first, last, schedule.today(settings), plan_store.change_stamp(read_engine()))
         cached = TRIPS_CACHE.get(key)
         if cached is None:
-            truck = truck_or_404(code)  # 404 too if it was deleted since the marker was read
+            truck = truck_or_404(code)
             try:
                 view = schedule.trips_view(get_session(), truck, first, last, settings)
             except schedule.NoActivePlan as exc:

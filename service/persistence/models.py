@@ -212,7 +212,7 @@ class ChangeStamp(Base):
     weekly-trips answer reads: any row of ``trucks``, ``sites``, ``readings`` or ``plans``.
 
     Written by triggers (migration 0002), so no code path can forget it; read as the trips cache's
-    marker (:func:`service.persistence.plans.trips_marker`). A random stamp, not a counter, so that
+    marker (:func:`service.persistence.plans.change_stamp`). A random stamp, not a counter, so that
     a value never comes back: not after a restore from backup, nor in a test database rebuilt under
     a running process. On PostgreSQL the triggers are deferred to commit, so a transaction takes the
     row's lock last and holds it only while it commits (no lock-order deadlocks with row locks on

@@ -7,13 +7,15 @@ import hashlib
 import json
 from collections.abc import Iterable, Sequence
 from typing import Any
+from weakref import WeakKeyDictionary
 
-from sqlalchemy import Engine, bindparam, func, select, update
+from sqlalchemy import Engine, func, select, update
 from sqlalchemy.orm import Session
 
 from service.persistence.db import RawRead
 from service.persistence.models import ChangeStamp, Plan, PlanSite, Reading, Site, Truck
 from service.persistence.repository import NotFound, active_sites, lock_for_update
+from service.persistence.shared_read import SharedRead
 from service.planning import JointResult, SiteInput, SitePlan, Status, Stop, Trip, TruckInput
 
 SITE_INPUTS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
@@ -132,29 +134,30 @@ def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
     return bool(changed) or truck_moved, changed
 
 
-#: Built once (statement construction costs more than running it): see trips_marker.
-_TRIPS_MARKER = RawRead(
-    select(Truck.id, select(ChangeStamp.stamp).where(ChangeStamp.id == 1).scalar_subquery()).where(
-        Truck.code == bindparam("code")
-    )
-)
+#: Built once (statement construction costs more than running it): see change_stamp.
+_CHANGE_STAMP = RawRead(select(ChangeStamp.stamp).where(ChangeStamp.id == 1))
+#: One barrier per engine (tests run many apps in one process, each on its own database).
+_STAMP_READS: WeakKeyDictionary[Engine, SharedRead] = WeakKeyDictionary()
 
 
-def trips_marker(engine: Engine, code: str) -> tuple[int, str | None]:
-    """The truck's id and a marker that changes with every commit that could change a trips view of it.
+def change_stamp(engine: Engine) -> str | None:
+    """The store's change marker: it moves with every commit that could change a trips view.
 
     The marker is the :class:`~service.persistence.models.ChangeStamp`: triggers give it a fresh
     random value in every transaction that changes a truck, site, reading or plan, and it becomes
     visible with that transaction's commit. A view read after the marker is therefore at least as
     new as the marker says. Deliberately coarse: a change anywhere invalidates every truck's cached
-    trips, which keeps the marker two primary-key lookups in one statement. It runs on every weekly
-    call, so it is one autocommit statement run on the driver (:class:`~service.persistence.db.RawRead`).
-    Raises :class:`NotFound` when there is no truck ``code``.
+    trips (a truck's own change included, so a cached view also vouches for its truck code), which
+    keeps the marker one primary-key lookup. It runs on every weekly call: one autocommit statement
+    run on the driver (:class:`~service.persistence.db.RawRead`), shared by the concurrent callers
+    of this process that arrived before it started (:class:`SharedRead`), so each still sees every
+    commit acknowledged before its request arrived. ``None`` only if the row was deleted.
     """
-    row = _TRIPS_MARKER.first(engine, {"code": code})
-    if row is None:
-        raise NotFound(f"No truck with code {code!r}.")
-    return row[0], row[1]
+    shared = _STAMP_READS.get(engine)
+    if shared is None:
+        shared = _STAMP_READS.setdefault(engine, SharedRead())
+    row = shared(lambda: _CHANGE_STAMP.first(engine, {}))
+    return None if row is None else row[0]
 
 
 def result_of(plan: Plan) -> JointResult:

@@ -40,7 +40,7 @@ def network(db_session: Session) -> dict[str, int]:
 
 
 def stamp(read_engine) -> str | None:
-    return plan_store.trips_marker(read_engine, "ST-1")[1]
+    return plan_store.change_stamp(read_engine)
 
 
 def test_a_stamp_is_a_32_digit_hex_and_steady_while_nothing_changes(read_engine, network, db_session):

@@ -134,6 +134,18 @@ def _port_free(port: int) -> bool:
         return sock.connect_ex(("127.0.0.1", port)) != 0
 
 
+def _below_ephemeral_ports() -> range:
+    """Ports the kernel never gives a client socket as its local port.
+
+    While the cluster is down, the workers keep reconnecting to its port; a connect from an
+    ephemeral port equal to the target port on loopback connects the socket to itself (TCP
+    simultaneous open), which then holds the port so that the restart cannot bind it: the likely
+    cause of one failed restart in the suite, on port 55432, inside Linux's default 32768–60999.
+    """
+    low = int(Path("/proc/sys/net/ipv4/ip_local_port_range").read_text().split()[0])
+    return range(low - 1000, low)
+
+
 class OwnPostgres:
     """A throwaway PostgreSQL 15 cluster on loopback, run as the ``postgres`` OS user when we are root."""
 
@@ -182,7 +194,7 @@ class OwnPostgres:
 def own_postgres():
     if not PG_BIN.joinpath("initdb").exists():
         pytest.skip("PostgreSQL 15 server binaries not installed")
-    port = 55432 if _port_free(55432) else next(p for p in range(55433, 55500) if _port_free(p))
+    port = next(p for p in _below_ephemeral_ports() if _port_free(p))
     cluster = OwnPostgres(port)
     try:
         cluster.ctl("start")
