@@ -2,7 +2,8 @@
 
 For SQLite and, separately, PostgreSQL (a fresh database ``ullage_bench`` on the server of
 ``--pg-url``, dropped afterwards), it migrates, loads the demo network, records and activates a plan,
-starts gunicorn with the project's config on a free 127.0.0.1 port and runs bounded scenarios:
+starts gunicorn with the project's config on a free 127.0.0.1 port (a listening socket per worker;
+``--shared-socket`` for gunicorn's one shared socket) and runs bounded scenarios:
 
 * ``GET /livez`` (the framework's ceiling), ``GET`` a site, ``GET`` the weekly trips — with ``wrk``
   when installed (``--no-wrk`` to use the Python generator), else the Python generator; 32
@@ -13,7 +14,7 @@ starts gunicorn with the project's config on a free 127.0.0.1 port and runs boun
 Every scenario runs ``--seconds`` (default 10, at most 30). It prints requests per second, p50/p99
 and error counts, and checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count.
 
-    .venv/bin/python benchmarks/load.py [--seconds 10] [--db sqlite|postgresql|both]
+    .venv/bin/python benchmarks/load.py [--seconds 10] [--db sqlite|postgresql|both] [--shared-socket]
 """
 
 from __future__ import annotations
@@ -58,7 +59,7 @@ TRUCK, SITE = "HV-R1", "HV-GAR-02"
 MAX_SECONDS = 30
 MAX_REQUESTS = 2_000_000  # a hard cap per scenario, whatever the speed
 SLICE_SECONDS = 2  # the GET scenarios alternate in slices this long (interleaved_gets)
-GET_CONNECTIONS = 32  # with 8, one worker sometimes accepted every connection (seen in top): a one-core test
+GET_CONNECTIONS = 32  # several per thread of 2 workers × 4 threads, so no thread waits for a client
 
 
 @dataclass
@@ -178,7 +179,7 @@ def wrk_load(
 
 
 @contextlib.contextmanager
-def gunicorn(url: str, workdir: Path, workers: int) -> Iterator[int]:
+def gunicorn(url: str, workdir: Path, workers: int, shared_socket: bool) -> Iterator[int]:
     port = free_port()
     metrics_dir = workdir / "prometheus"
     metrics_dir.mkdir(exist_ok=True)
@@ -192,6 +193,11 @@ def gunicorn(url: str, workdir: Path, workers: int) -> Iterator[int]:
         # No worker recycling while measuring: a worker's start costs about 1.7 s of CPU and would
         # land in one scenario's slice at random (in service, 20 000 requests amortise it, < 0.1 ms each).
         "GUNICORN_CMD_ARGS": "--max-requests 0",
+        # A listening socket per worker unless --shared-socket, as in docker/compose.yaml: with one
+        # shared socket a slice's 32 connections can all land on one worker and leave the other
+        # idle (docs/reliability.md). No worker stops during a run, so the kernel setting that
+        # decides it in service (service/gunicorn_conf.py) does not matter here.
+        "ULLAGE_REUSE_PORT": "0" if shared_socket else "1",
     }
     log = open(workdir / "gunicorn.log", "wb")  # noqa: SIM115
     process = subprocess.Popen(
@@ -285,12 +291,14 @@ def joint_body() -> bytes:
     return json.dumps({"dispatch_cost": 150, "truck_capacity": 36000, "max_stops": 10, "sites": sites}).encode()
 
 
-def run_database(name: str, url: str, seconds: float, use_wrk: bool, workers: int) -> list[Figures]:
+def run_database(
+    name: str, url: str, seconds: float, use_wrk: bool, workers: int, shared_socket: bool
+) -> list[Figures]:
     tokens = prepare(url)
     out: list[Figures] = []
     with (
         tempfile.TemporaryDirectory(prefix=f"ullage-bench-{name}-") as workdir,
-        gunicorn(url, Path(workdir), workers) as port,
+        gunicorn(url, Path(workdir), workers, shared_socket) as port,
     ):
         viewer = {"Authorization": f"Bearer {tokens['viewer']}"}
         dispatcher = {"Authorization": f"Bearer {tokens['dispatcher']}"}
@@ -406,20 +414,26 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--no-wrk", action="store_true", help="use the Python generator for the GETs too")
+    parser.add_argument(
+        "--shared-socket", action="store_true", help="one listening socket for all workers (gunicorn's default)"
+    )
     args = parser.parse_args(argv)
     seconds = min(max(args.seconds, 1.0), MAX_SECONDS)
     use_wrk = not args.no_wrk and shutil.which("wrk") is not None
+    sockets = "one shared listening socket" if args.shared_socket else "a listening socket each"
     figures: list[Figures] = []
     if args.db in ("sqlite", "both"):
         with tempfile.TemporaryDirectory(prefix="ullage-bench-db-") as directory:
-            figures += run_database("sqlite", f"sqlite:///{directory}/bench.db", seconds, use_wrk, args.workers)
+            figures += run_database(
+                "sqlite", f"sqlite:///{directory}/bench.db", seconds, use_wrk, args.workers, args.shared_socket
+            )
     if args.db in ("postgresql", "both"):
         with bench_postgres(args.pg_url) as url:
-            figures += run_database("postgresql", url, seconds, use_wrk, args.workers)
+            figures += run_database("postgresql", url, seconds, use_wrk, args.workers, args.shared_socket)
 
     print(
-        f"\nUllage load benchmark: gunicorn {args.workers} workers (gthread), loopback, {seconds:g} s per scenario, "
-        f"{os.cpu_count()} CPUs shared with the load generator\n"
+        f"\nUllage load benchmark: gunicorn {args.workers} workers (gthread, {sockets}), loopback, "
+        f"{seconds:g} s per scenario, {os.cpu_count()} CPUs shared with the load generator\n"
     )
     header = (
         f"| {'scenario':<38} | {'db':<10} | {'tool':<6} | {'conn':>4} | {'requests':>8} | {'req/s':>8} | "

@@ -136,6 +136,27 @@ class Server:
                 pids.append(int(entry.name))
         return sorted(pids)
 
+    def connections_per_worker(self) -> dict[int, int]:
+        """Established connections on the server's port held by each worker (from /proc/net/tcp and fds)."""
+        established: set[str] = set()
+        for table in ("/proc/net/tcp", "/proc/net/tcp6"):
+            with contextlib.suppress(OSError):
+                for line in Path(table).read_text().splitlines()[1:]:
+                    fields = line.split()
+                    # local address "HEX_IP:HEX_PORT", state 01 = ESTABLISHED, inode in column 10
+                    if int(fields[1].rsplit(":", 1)[1], 16) == self.port and fields[3] == "01":
+                        established.add(fields[9])
+        counts = {}
+        for pid in self.worker_pids():
+            held = 0
+            with contextlib.suppress(OSError):
+                for fd in Path(f"/proc/{pid}/fd").iterdir():
+                    with contextlib.suppress(OSError):
+                        target = os.readlink(fd)
+                        held += target.startswith("socket:[") and target[8:-1] in established
+            counts[pid] = held
+        return counts
+
     def wait_workers(self, count: int, timeout: float = 15.0) -> list[int]:
         deadline = time.monotonic() + timeout
         while time.monotonic() < deadline:
