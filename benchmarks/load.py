@@ -12,9 +12,10 @@ starts gunicorn with the project's config on a free 127.0.0.1 port (a listening 
   generator (threads, one keep-alive ``http.client`` connection each).
 
 Every scenario runs ``--seconds`` (default 10, at most 30). It prints requests per second, p50/p99
-and error counts, and checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count.
+and error counts (and, per ``wrk`` slice, how its connections were split over the workers), and checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count.
 
     .venv/bin/python benchmarks/load.py [--seconds 10] [--db sqlite|postgresql|both] [--shared-socket]
+                                        [--max-requests N]
 """
 
 from __future__ import annotations
@@ -53,6 +54,7 @@ from service.auth import new_token, token_hash  # noqa: E402
 from service.demo import load_demo  # noqa: E402
 from service.health import alembic_config  # noqa: E402
 from service.persistence import repository as repo  # noqa: E402
+from tests.reliability.helpers import connections_per_worker  # noqa: E402
 
 HOST = "127.0.0.1"
 TRUCK, SITE = "HV-R1", "HV-GAR-02"
@@ -74,6 +76,7 @@ class Figures:
     p99_ms: float
     errors: int
     ok: int
+    slices: str = ""  # per slice: req/s [connections per worker]
 
 
 def python_figures(
@@ -154,15 +157,18 @@ def _ms(value: str) -> float:
 
 
 def wrk_load(
-    port: int, path: str, headers: dict[str, str], seconds: float, connections: int
-) -> tuple[int, int, float, float, float]:
-    """(requests, non-2xx/3xx + socket errors, rps, p50, p99) from wrk."""
+    port: int, path: str, headers: dict[str, str], seconds: float, connections: int, midway: Callable[[], str]
+) -> tuple[int, int, float, float, float, str]:
+    """(requests, non-2xx/3xx + socket errors, rps, p50, p99, what ``midway()`` said halfway) from wrk."""
     argv = ["wrk", "-t1", f"-c{connections}", f"-d{int(seconds)}s", "--latency", "--timeout", "10s"]
     for name, value in headers.items():
         argv += ["-H", f"{name}: {value}"]
-    out = subprocess.run(
-        [*argv, f"http://{HOST}:{port}{path}"], capture_output=True, text=True, timeout=seconds + 30, check=True
-    ).stdout
+    process = subprocess.Popen([*argv, f"http://{HOST}:{port}{path}"], stdout=subprocess.PIPE, text=True)
+    time.sleep(seconds / 2)
+    said = midway()
+    out, _ = process.communicate(timeout=seconds + 30)
+    if process.returncode:
+        raise subprocess.CalledProcessError(process.returncode, argv, out)
     requests_ = int(re.search(r"(\d+) requests in", out).group(1))
     rps = float(re.search(r"Requests/sec:\s+([\d.]+)", out).group(1))
     found50, found99 = re.search(r"50%\s+(\S+)", out), re.search(r"99%\s+(\S+)", out)
@@ -175,11 +181,14 @@ def wrk_load(
         errors += int(match.group(1))
     if match := re.search(r"Socket errors: connect (\d+), read (\d+), write (\d+), timeout (\d+)", out):
         errors += sum(int(g) for g in match.groups())
-    return requests_, errors, rps, p50, p99
+    return requests_, errors, rps, p50, p99, said
 
 
 @contextlib.contextmanager
-def gunicorn(url: str, workdir: Path, workers: int, shared_socket: bool) -> Iterator[int]:
+def gunicorn(
+    url: str, workdir: Path, workers: int, shared_socket: bool, max_requests: int
+) -> Iterator[tuple[int, int]]:
+    """gunicorn on a free loopback port, ready: yields (port, master pid)."""
     port = free_port()
     metrics_dir = workdir / "prometheus"
     metrics_dir.mkdir(exist_ok=True)
@@ -190,13 +199,15 @@ def gunicorn(url: str, workdir: Path, workers: int, shared_socket: bool) -> Iter
         "ULLAGE_SECRET_KEY": "bench",
         "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
         "LOG_LEVEL": "WARNING",
-        # No worker recycling while measuring: a worker's start costs about 1.7 s of CPU and would
-        # land in one scenario's slice at random (in service, 20 000 requests amortise it, < 0.1 ms each).
-        "GUNICORN_CMD_ARGS": "--max-requests 0",
-        # A listening socket per worker unless --shared-socket, as in docker/compose.yaml: with one
+        # No worker recycling while measuring (unless --max-requests): a worker's start costs about
+        # 1.7 s of CPU and would land in one scenario's slice at random (in service, 20 000 requests
+        # amortise it, < 0.1 ms each).
+        "GUNICORN_CMD_ARGS": f"--max-requests {max_requests}",
+        # A listening socket per worker unless --shared-socket (the service's default): with one
         # shared socket a slice's 32 connections can all land on one worker and leave the other
-        # idle (docs/reliability.md). No worker stops during a run, so the kernel setting that
-        # decides it in service (service/gunicorn_conf.py) does not matter here.
+        # idle, which measures accept-queue luck rather than the request path. Each slice prints
+        # its split either way; docs/reliability.md has both, and the cost of per-worker sockets
+        # when workers restart (--max-requests).
         "ULLAGE_REUSE_PORT": "0" if shared_socket else "1",
     }
     log = open(workdir / "gunicorn.log", "wb")  # noqa: SIM115
@@ -221,14 +232,16 @@ def gunicorn(url: str, workdir: Path, workers: int, shared_socket: bool) -> Iter
             try:
                 conn = http.client.HTTPConnection(HOST, port, timeout=2)
                 conn.request("GET", "/readyz")
-                if conn.getresponse().status == 200:
+                ready = conn.getresponse().status == 200
+                conn.close()
+                if ready:
                     break
             except OSError:
                 pass
             if process.poll() is not None or time.monotonic() > deadline:
                 raise RuntimeError("gunicorn did not become ready:\n" + (workdir / "gunicorn.log").read_text()[-2000:])
             time.sleep(0.1)
-        yield port
+        yield port, process.pid
     finally:
         process.send_signal(signal.SIGTERM)
         try:
@@ -292,13 +305,13 @@ def joint_body() -> bytes:
 
 
 def run_database(
-    name: str, url: str, seconds: float, use_wrk: bool, workers: int, shared_socket: bool
+    name: str, url: str, seconds: float, use_wrk: bool, workers: int, shared_socket: bool, max_requests: int
 ) -> list[Figures]:
     tokens = prepare(url)
     out: list[Figures] = []
     with (
         tempfile.TemporaryDirectory(prefix=f"ullage-bench-{name}-") as workdir,
-        gunicorn(url, Path(workdir), workers, shared_socket) as port,
+        gunicorn(url, Path(workdir), workers, shared_socket, max_requests) as (port, master),
     ):
         viewer = {"Authorization": f"Bearer {tokens['viewer']}"}
         dispatcher = {"Authorization": f"Bearer {tokens['dispatcher']}"}
@@ -313,7 +326,11 @@ def run_database(
             ("GET site", f"/api/v1/sites/{SITE}", viewer),
             ("GET weekly trips", f"/api/v1/trucks/{TRUCK}/trips?week={week}", viewer),
         ]
-        out += interleaved_gets(port, gets, name, seconds, use_wrk)
+
+        def split() -> str:
+            return "/".join(str(n) for n in sorted(connections_per_worker(master, port).values()))
+
+        out += interleaved_gets(port, gets, name, seconds, use_wrk, split)
         joint = joint_body()
         total, ok, errors, lat = python_load(
             port,
@@ -349,25 +366,31 @@ def run_database(
 
 
 def interleaved_gets(
-    port: int, gets: list[tuple[str, str, dict[str, str]]], database: str, seconds: float, use_wrk: bool
+    port: int,
+    gets: list[tuple[str, str, dict[str, str]]],
+    database: str,
+    seconds: float,
+    use_wrk: bool,
+    split: Callable[[], str],
 ) -> list[Figures]:
     """The GET scenarios in alternating slices of ``SLICE_SECONDS`` (A B C A B C …), same connections.
 
     This machine's speed drifts by a factor of two within minutes (this script printed /livez at
     1 064 and 2 599 req/s in runs a few minutes apart), so scenarios run one after the other would compare
     different machines; interleaved, the drift weighs on each alike. p50 is the median of the
-    slices' p50s and p99 the largest slice p99 (wrk reports percentiles per run).
+    slices' p50s and p99 the largest slice p99 (wrk reports percentiles per run). With wrk, each
+    slice also notes how its connections were split over the workers halfway through (``split``).
     """
     rounds = max(1, round(seconds / SLICE_SECONDS))
-    slices: dict[str, list[tuple[int, int, float, float, float]]] = {label: [] for label, _, _ in gets}
+    slices: dict[str, list[tuple[int, int, float, float, float, str]]] = {label: [] for label, _, _ in gets}
     latencies: dict[str, list[float]] = {label: [] for label, _, _ in gets}
     for _ in range(rounds):
         for label, path, headers in gets:
             if use_wrk:
-                slices[label].append(wrk_load(port, path, headers, SLICE_SECONDS, GET_CONNECTIONS))
+                slices[label].append(wrk_load(port, path, headers, SLICE_SECONDS, GET_CONNECTIONS, split))
             else:
                 total, ok, errors, lat = python_load(port, "GET", path, headers, SLICE_SECONDS, GET_CONNECTIONS)
-                slices[label].append((total, errors, total / SLICE_SECONDS, 0.0, 0.0))
+                slices[label].append((total, errors, total / SLICE_SECONDS, 0.0, 0.0, ""))
                 latencies[label] += lat
     out = []
     for label, parts in slices.items():
@@ -382,9 +405,12 @@ def interleaved_gets(
             lat = sorted(latencies[label])
             p50, p99 = percentile(lat, 0.5), percentile(lat, 0.99)
         tool = "wrk" if use_wrk else "python"
-        out.append(
-            Figures(label, database, tool, GET_CONNECTIONS, total, total / elapsed, p50, p99, errors, total - errors)
+        figures = Figures(
+            label, database, tool, GET_CONNECTIONS, total, total / elapsed, p50, p99, errors, total - errors
         )
+        if use_wrk:
+            figures.slices = ", ".join(f"{p[2]:.0f} [{p[5]}]" for p in parts)
+        out.append(figures)
     return out
 
 
@@ -417,23 +443,35 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument(
         "--shared-socket", action="store_true", help="one listening socket for all workers (gunicorn's default)"
     )
+    parser.add_argument(
+        "--max-requests", type=int, default=0, help="recycle each worker after this many requests (0: never)"
+    )
     args = parser.parse_args(argv)
     seconds = min(max(args.seconds, 1.0), MAX_SECONDS)
     use_wrk = not args.no_wrk and shutil.which("wrk") is not None
     sockets = "one shared listening socket" if args.shared_socket else "a listening socket each"
+    recycling = f"recycled every {args.max_requests} requests" if args.max_requests else "never recycled"
     figures: list[Figures] = []
     if args.db in ("sqlite", "both"):
         with tempfile.TemporaryDirectory(prefix="ullage-bench-db-") as directory:
             figures += run_database(
-                "sqlite", f"sqlite:///{directory}/bench.db", seconds, use_wrk, args.workers, args.shared_socket
+                "sqlite",
+                f"sqlite:///{directory}/bench.db",
+                seconds,
+                use_wrk,
+                args.workers,
+                args.shared_socket,
+                args.max_requests,
             )
     if args.db in ("postgresql", "both"):
         with bench_postgres(args.pg_url) as url:
-            figures += run_database("postgresql", url, seconds, use_wrk, args.workers, args.shared_socket)
+            figures += run_database(
+                "postgresql", url, seconds, use_wrk, args.workers, args.shared_socket, args.max_requests
+            )
 
     print(
-        f"\nUllage load benchmark: gunicorn {args.workers} workers (gthread, {sockets}), loopback, "
-        f"{seconds:g} s per scenario, {os.cpu_count()} CPUs shared with the load generator\n"
+        f"\nUllage load benchmark: gunicorn {args.workers} workers (gthread, {sockets}, {recycling}), "
+        f"loopback, {seconds:g} s per scenario, {os.cpu_count()} CPUs shared with the load generator\n"
     )
     header = (
         f"| {'scenario':<38} | {'db':<10} | {'tool':<6} | {'conn':>4} | {'requests':>8} | {'req/s':>8} | "
@@ -446,6 +484,10 @@ def main(argv: list[str] | None = None) -> int:
             f"| {f.scenario:<38} | {f.database:<10} | {f.tool:<6} | {f.connections:>4} | {f.requests:>8} | "
             f"{f.rps:>8.0f} | {f.p50_ms:>7.2f} | {f.p99_ms:>7.2f} | {f.errors:>6} |"
         )
+    print("\nslices, req/s [connections per worker, halfway through]:")
+    for f in figures:
+        if f.slices:
+            print(f"  {f.database} {f.scenario}: {f.slices}")
     failures = []
     for database in {f.database for f in figures}:
         rows = {f.scenario.split(" rows=")[0]: f for f in figures if f.database == database}

@@ -1,34 +1,34 @@
 """gunicorn settings for Ullage (see conventions: graceful shutdown, no preload, heartbeat in /dev/shm)."""
 
 import os
-from pathlib import Path
 
 from service.observability import configure_logging
 
-MIGRATE_REQUESTS = Path("/proc/sys/net/ipv4/tcp_migrate_req")
 
-
-def listener_per_worker(setting: str | None, migrate_requests: Path = MIGRATE_REQUESTS) -> bool:
+def listener_per_worker(setting: str | None) -> bool:
     """Whether each worker listens on its own ``SO_REUSEPORT`` socket (gunicorn's ``reuse_port``).
 
-    With one shared listening socket, whichever worker wakes first accepts a burst of connections
-    and keep-alive pins them there: this machine showed all 32 of a load run's connections on one
-    of two workers, the other idle and weekly trips at half their rate (docs/reliability.md). With
-    a socket per worker, the kernel spreads new connections over the workers by a hash of their
-    addresses. The catch: a worker that stops (recycling after ``max_requests``, shutdown) keeps
-    its socket until its in-flight requests finish, and connections queued on it meanwhile are reset
-    unless the kernel hands them to another worker's socket (``net.ipv4.tcp_migrate_req = 1``,
-    Linux 5.14 and later). So ``ULLAGE_REUSE_PORT`` unset means: on where the kernel migrates them;
-    ``1`` or ``0`` decides outright.
+    ``ULLAGE_REUSE_PORT=1`` turns it on; unset or ``0`` keeps gunicorn's one shared socket, which
+    the master holds for the service's whole life. The trade-off, as ``benchmarks/load.py`` printed
+    it (docs/reliability.md):
+
+    * shared socket: whichever worker wakes first accepts a burst of connections and keep-alive
+      pins them there; with 32 connections, some slices ran with all 32 on one of two workers and
+      weekly trips at 380–400 req/s against 610–700 in the other slices;
+    * a socket per worker: the kernel spreads new connections over the workers by a hash of their
+      addresses, but a socket lives and dies with its worker. While a worker restarts (recycled
+      after ``max_requests``, or crashed) connections queued on its socket are reset, and while
+      every worker restarts at once nothing listens: recycling every 1 500 requests gave thousands
+      of connection errors in a run where the shared socket gave none.
+
+    So the safe one is the default, and a socket per worker is for many long-lived connections
+    where throughput matters more than a rare refused connection that a client retries.
     """
-    if setting in ("1", "0"):
-        return setting == "1"
-    if setting not in (None, ""):
-        raise ValueError(f"ULLAGE_REUSE_PORT must be 1, 0 or unset, not {setting!r}")
-    try:
-        return migrate_requests.read_text().strip() == "1"
-    except OSError:  # not Linux, or a kernel without request migration
+    if setting in (None, "", "0"):
         return False
+    if setting == "1":
+        return True
+    raise ValueError(f"ULLAGE_REUSE_PORT must be 1, 0 or unset, not {setting!r}")
 
 
 workers = int(os.environ.get("WEB_CONCURRENCY", "2"))

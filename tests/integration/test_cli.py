@@ -156,31 +156,18 @@ def test_gunicorn_settings_are_importable_and_sane(monkeypatch):
     assert conf.workers == 2 and conf.worker_class == "gthread"
 
 
-@pytest.mark.parametrize(
-    ("setting", "sysctl", "expected"),
-    [
-        (None, "1\n", True),
-        (None, "0\n", False),
-        (None, None, False),
-        ("", "1\n", True),
-        ("1", "0\n", True),
-        ("0", "1\n", False),
-    ],
-)
-def test_a_listener_per_worker_only_where_the_kernel_migrates_queued_connections(tmp_path, setting, sysctl, expected):
+@pytest.mark.parametrize(("setting", "expected"), [(None, False), ("", False), ("0", False), ("1", True)])
+def test_a_listener_per_worker_only_when_asked_for(setting, expected):
     from service.gunicorn_conf import listener_per_worker
 
-    migrate = tmp_path / "tcp_migrate_req"  # absent: a kernel without request migration
-    if sysctl is not None:
-        migrate.write_text(sysctl)
-    assert listener_per_worker(setting, migrate) is expected
+    assert listener_per_worker(setting) is expected
 
 
-def test_a_listener_per_worker_setting_refuses_other_values(tmp_path):
+def test_a_listener_per_worker_setting_refuses_other_values():
     from service.gunicorn_conf import listener_per_worker
 
     with pytest.raises(ValueError, match="ULLAGE_REUSE_PORT"):
-        listener_per_worker("yes", tmp_path / "absent")
+        listener_per_worker("yes")
 
 
 def test_create_app_then_serve_does_not_need_the_cli(env_db):

@@ -92,6 +92,48 @@ def fresh_pg_database(base_url: str, name: str) -> Iterator[str]:
         admin.dispose()
 
 
+def worker_pids(master_pid: int) -> list[int]:
+    """The gunicorn master's children (the workers), from /proc."""
+    pids = []
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            stat = (entry / "stat").read_text()
+        except OSError:
+            continue
+        # pid (comm) state ppid ...
+        ppid = int(stat.rsplit(")", 1)[1].split()[1])
+        if ppid == master_pid:
+            pids.append(int(entry.name))
+    return sorted(pids)
+
+
+def connections_per_worker(master_pid: int, port: int) -> dict[int, int]:
+    """Established connections on ``port`` held by each worker (from /proc/net/tcp and the fds).
+
+    Also used by benchmarks/load.py, which prints where each slice's connections landed.
+    """
+    established: set[str] = set()
+    for table in ("/proc/net/tcp", "/proc/net/tcp6"):
+        with contextlib.suppress(OSError):
+            for line in Path(table).read_text().splitlines()[1:]:
+                fields = line.split()
+                # local address "HEX_IP:HEX_PORT", state 01 = ESTABLISHED, inode in column 10
+                if int(fields[1].rsplit(":", 1)[1], 16) == port and fields[3] == "01":
+                    established.add(fields[9])
+    counts = {}
+    for pid in worker_pids(master_pid):
+        held = 0
+        with contextlib.suppress(OSError):
+            for fd in Path(f"/proc/{pid}/fd").iterdir():
+                with contextlib.suppress(OSError):
+                    target = os.readlink(fd)
+                    held += target.startswith("socket:[") and target[8:-1] in established
+        counts[pid] = held
+    return counts
+
+
 @dataclass
 class Server:
     """A gunicorn master we started; stderr (the JSON log) goes to ``log_path``."""
@@ -121,41 +163,10 @@ class Server:
         return out
 
     def worker_pids(self) -> list[int]:
-        """The master's children (the workers), from /proc."""
-        pids = []
-        for entry in Path("/proc").iterdir():
-            if not entry.name.isdigit():
-                continue
-            try:
-                stat = (entry / "stat").read_text()
-            except OSError:
-                continue
-            # pid (comm) state ppid ...
-            ppid = int(stat.rsplit(")", 1)[1].split()[1])
-            if ppid == self.process.pid:
-                pids.append(int(entry.name))
-        return sorted(pids)
+        return worker_pids(self.process.pid)
 
     def connections_per_worker(self) -> dict[int, int]:
-        """Established connections on the server's port held by each worker (from /proc/net/tcp and fds)."""
-        established: set[str] = set()
-        for table in ("/proc/net/tcp", "/proc/net/tcp6"):
-            with contextlib.suppress(OSError):
-                for line in Path(table).read_text().splitlines()[1:]:
-                    fields = line.split()
-                    # local address "HEX_IP:HEX_PORT", state 01 = ESTABLISHED, inode in column 10
-                    if int(fields[1].rsplit(":", 1)[1], 16) == self.port and fields[3] == "01":
-                        established.add(fields[9])
-        counts = {}
-        for pid in self.worker_pids():
-            held = 0
-            with contextlib.suppress(OSError):
-                for fd in Path(f"/proc/{pid}/fd").iterdir():
-                    with contextlib.suppress(OSError):
-                        target = os.readlink(fd)
-                        held += target.startswith("socket:[") and target[8:-1] in established
-            counts[pid] = held
-        return counts
+        return connections_per_worker(self.process.pid, self.port)
 
     def wait_workers(self, count: int, timeout: float = 15.0) -> list[int]:
         deadline = time.monotonic() + timeout
