@@ -3,7 +3,8 @@
 For SQLite and, separately, PostgreSQL (a fresh database ``ullage_bench`` on the server of
 ``--pg-url``, dropped afterwards), it migrates, loads the demo network, records and activates a plan,
 starts gunicorn with the project's config on a free 127.0.0.1 port (a listening socket per worker;
-``--shared-socket`` for gunicorn's one shared socket) and runs bounded scenarios:
+``--shared-socket`` for the service's default, gunicorn's one shared socket) and runs bounded
+scenarios:
 
 * ``GET /livez`` (the framework's ceiling), ``GET`` a site, ``GET`` the weekly trips — with ``wrk``
   when installed (``--no-wrk`` to use the Python generator), else the Python generator; 32
@@ -12,7 +13,8 @@ starts gunicorn with the project's config on a free 127.0.0.1 port (a listening 
   generator (threads, one keep-alive ``http.client`` connection each).
 
 Every scenario runs ``--seconds`` (default 10, at most 30). It prints requests per second, p50/p99
-and error counts (and, per ``wrk`` slice, how its connections were split over the workers), and checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count.
+and error counts (and, per ``wrk`` slice, how its connections were split over the workers), and
+checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count.
 
     .venv/bin/python benchmarks/load.py [--seconds 10] [--db sqlite|postgresql|both] [--shared-socket]
                                         [--max-requests N]
