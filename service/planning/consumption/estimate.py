@@ -44,7 +44,7 @@ DEFAULT_WINDOW_DAYS = 90
 #: read to about 1–2 % of the tank, and a 10 °C warming expands fuel by about 1 %).
 DEFAULT_RISE_SHARE = 0.02
 #: Default robust z threshold of the screen.
-DEFAULT_THRESHOLD = 4.0
+DEFAULT_THRESHOLD = 5.0
 
 
 def random_walk_fit(dt_days: np.ndarray, c: np.ndarray, confidence: float = 0.95) -> dict:

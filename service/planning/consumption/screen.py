@@ -13,11 +13,13 @@ The screen (``docs/planning.md`` §11.3):
 1. A level above the tank capacity or below zero is rejected (``above_capacity``,
    ``below_zero``).
 2. An interval is *flagged* when the level rose by more than ``rise_tolerance`` beyond the
-   deliveries (``c < −tol``), or, with at least ``p + 4`` unflagged intervals (``p`` model
-   parameters), when its robust standardised residual ``|u_j| / s > threshold``, where
-   ``u_j = (c_j − x_jᵀβ) / √Δ_j`` with ``β`` the weighted least-squares fit (weights ``1/Δ_j``)
-   of the intervals without a rise and ``s = 1.4826 · median|u − median u|`` (the normal-consistent
-   median absolute deviation; Hampel 1974, Iglewicz & Hoaglin 1993 — from memory).
+   deliveries (``c < −tol``), or, with at least ``p + 4`` intervals (``p`` model parameters:
+   1 for the flat rate, 2 with degree days), when its robust standardised residual
+   ``|u_j| / s > threshold`` and the deviation ``|c_j − x_jᵀβ|`` exceeds ``rise_tolerance`` too
+   (nothing within the gauge's tolerance is called implausible), where ``u_j = (c_j − x_jᵀβ) / √Δ_j`` with ``β`` the least absolute
+   deviations fit of the scaled rows (:func:`lad`) and ``s = 1.4826 · median|u − median u|`` (the
+   normal-consistent median absolute deviation; Hampel 1974, Iglewicz & Hoaglin 1993 — from
+   memory).
 3. Each flagged interval ``a → b``, in time order, is resolved: if dropping ``b`` merges it with
    the next interval into one that is not flagged, ``b`` is rejected; else if dropping ``a`` does
    so with the previous interval, ``a`` is rejected; else a level with no neighbour to confirm it
@@ -33,6 +35,7 @@ import datetime as dt
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import optimize
 
 from service.planning.errors import PlanningInputError
 
@@ -166,22 +169,42 @@ class ScreenRule:
     threshold: float
 
 
+def lad(dt_days: np.ndarray, c: np.ndarray, dd: np.ndarray | None = None) -> np.ndarray:
+    """Least absolute deviations fit of the scaled rows: ``min Σ |c_j − x_jᵀβ| / √Δ_j``.
+
+    The robust counterpart of :func:`wls` (a weighted median of ``c_j/Δ_j`` for the flat rate),
+    solved as the linear programme ``min Σ (e⁺ + e⁻)`` s.t. ``X β + e⁺ − e⁻ = y``, ``e± ≥ 0``
+    (scipy.optimize.linprog, HiGHS).
+    """
+    root = np.sqrt(dt_days)
+    X = _design(dt_days, dd) / root[:, None]
+    n, p = X.shape
+    cost = np.concatenate([np.zeros(p), np.ones(2 * n)])
+    A = np.hstack([X, np.eye(n), -np.eye(n)])
+    bounds = [(None, None)] * p + [(0, None)] * (2 * n)
+    res = optimize.linprog(cost, A_eq=A, b_eq=c / root, bounds=bounds, method="highs")
+    return res.x[:p]
+
+
 def _flags(ch: Chain, dd: np.ndarray | None, rule: ScreenRule):
-    """Rise flags, robust flags and the robust check of any interval (a closure for merges)."""
+    """Rise flags, robust flags and the check of any interval against them (for merges)."""
     rise = ch.c < -rule.rise_tolerance
-    ok = ~rise
     p = 1 if dd is None else 2
-    if ok.sum() < p + ROBUST_MIN_EXTRA:
+    if len(ch.c) < p + ROBUST_MIN_EXTRA:
         return rise, np.zeros_like(rise), lambda c, span, d: c < -rule.rise_tolerance
-    beta, u, _ = wls(ch.dt[ok], ch.c[ok], None if dd is None else dd[ok])
+    beta = lad(ch.dt, ch.c, dd)
+    u = (ch.c - _design(ch.dt, dd) @ beta) / np.sqrt(ch.dt)
     scale = MAD_TO_SIGMA * float(np.median(np.abs(u - np.median(u))))
     scale = max(scale, 1e-12 * float(np.max(np.abs(ch.c / np.sqrt(ch.dt)))))
 
     def flagged(c, span, d):
         expected = beta[0] * span + (0.0 if d is None else beta[1] * d)
-        return (c < -rule.rise_tolerance) | (np.abs(c - expected) / np.sqrt(span) > rule.threshold * scale)
+        off = np.abs(c - expected)
+        return (c < -rule.rise_tolerance) | (
+            (off > rule.threshold * scale * np.sqrt(span)) & (off > rule.rise_tolerance)
+        )
 
-    return rise, flagged(ch.c, ch.dt, dd) & ok, flagged
+    return rise, flagged(ch.c, ch.dt, dd) & ~rise, flagged
 
 
 def screen_pass(levels: Levels, kept: np.ndarray, rule: ScreenRule, dd_of=None):
