@@ -35,7 +35,7 @@ import datetime as dt
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize
+from scipy import optimize, sparse
 
 from service.planning.errors import PlanningInputError
 
@@ -172,15 +172,22 @@ class ScreenRule:
 def lad(dt_days: np.ndarray, c: np.ndarray, dd: np.ndarray | None = None) -> np.ndarray:
     """Least absolute deviations fit of the scaled rows: ``min Σ |c_j − x_jᵀβ| / √Δ_j``.
 
-    The robust counterpart of :func:`wls` (a weighted median of ``c_j/Δ_j`` for the flat rate),
-    solved as the linear programme ``min Σ (e⁺ + e⁻)`` s.t. ``X β + e⁺ − e⁻ = y``, ``e± ≥ 0``
+    The robust counterpart of :func:`wls`. For the flat rate it is the weighted median of the
+    rates ``c_j/Δ_j`` with weights ``√Δ_j`` (``Σ √Δ_j |c_j/Δ_j − μ|``); with degree days, the
+    linear programme ``min Σ (e⁺ + e⁻)`` s.t. ``X β + e⁺ − e⁻ = y``, ``e± ≥ 0``
     (scipy.optimize.linprog, HiGHS).
     """
     root = np.sqrt(dt_days)
+    if dd is None:
+        rates = c / dt_days
+        order = np.argsort(rates)
+        cum = np.cumsum(root[order])
+        return rates[order][np.searchsorted(cum, cum[-1] / 2)][None]
     X = _design(dt_days, dd) / root[:, None]
     n, p = X.shape
     cost = np.concatenate([np.zeros(p), np.ones(2 * n)])
-    A = np.hstack([X, np.eye(n), -np.eye(n)])
+    eye = sparse.eye(n, format="csr")
+    A = sparse.hstack([sparse.csr_matrix(X), eye, -eye], format="csr")
     bounds = [(None, None)] * p + [(0, None)] * (2 * n)
     res = optimize.linprog(cost, A_eq=A, b_eq=c / root, bounds=bounds, method="highs")
     return res.x[:p]
