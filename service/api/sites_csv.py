@@ -23,6 +23,7 @@ from marshmallow import ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.api import usable_stock
 from service.api.schemas.sites import SiteSchema
 from service.errors import Problem
 from service.persistence import repository as repo
@@ -123,6 +124,7 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
     schema = SiteSchema()
     trucks = {t.code: t for t in session.scalars(select(Truck))}
     rows: list[dict[str, Any]] = []
+    numbers: list[int] = []
     errors: list[dict[str, str]] = []
     seen: set[str] = set()
     for number, raw in enumerate(reader, start=1):
@@ -157,7 +159,16 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
             continue
         seen.add(loaded["code"])
         rows.append(loaded)
+        numbers.append(number)
+    locked = repo.trucks_for_site_writes(session, (trucks[data["truck"]].id for data in rows))
+    for number, data in zip(numbers, rows, strict=True):
+        truck = locked[trucks[data["truck"]].id]
+        short = usable_stock.shortfall(data, truck.code, truck.capacity, service_unit)
+        if short is not None:
+            col = usable_stock.pointer_field(short[0], data.keys())
+            errors.append({"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {short[1]}"})
     if errors:
+        errors.sort(key=lambda e: int(e["pointer"].split("/")[2]))
         bad_rows = sorted({int(e["pointer"].split("/")[2]) for e in errors})
         raise Problem(
             422,

@@ -174,7 +174,8 @@ def test_safety_stock_must_stay_below_safe_fill_times_capacity_on_post(client, a
         assert response.status_code == 422, body
         assert [e["pointer"] for e in response.get_json()["errors"]] == ["#/safety_stock"]
     assert count(db_session) == 0
-    assert create(client, auth, site("S-4", safety_stock=8999.0)).get_json()["safety_stock"] == 8999.0
+    just_below = site("S-4", safety_stock=8999.0, demand_per_day=1.0)  # 1 L left: one day at 1 L a day
+    assert create(client, auth, just_below).get_json()["safety_stock"] == 8999.0
 
 
 @pytest.mark.parametrize(
