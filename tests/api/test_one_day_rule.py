@@ -6,10 +6,12 @@ Usable stock ``q = min(tank_capacity × safe_fill − safety_stock, truck capaci
 
 from __future__ import annotations
 
+import threading
+
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from sqlalchemy import func, select
+from sqlalchemy import func, select, update
 
 from service.api.usable_stock import lasts_a_day
 from service.persistence.models import Plan, Site, Truck
@@ -149,6 +151,32 @@ def test_truck_patch_refuses_a_capacity_below_a_days_demand_of_its_active_sites(
     enough = client.patch(f"{TRUCKS}/T1", json={"capacity": 5000.0}, headers=auth("admin", **{"If-Match": etag}))
     assert enough.status_code == 200, enough.get_json()
     assert client.post("/api/v1/trucks/T1/plans", json={}, headers=auth("dispatcher")).status_code == 201
+
+
+@pytest.mark.parametrize("write", ["create", "change"])
+def test_a_site_write_waits_for_a_truck_change_in_flight_and_sees_it(client, auth, trucks, db_session, write):
+    """A truck capacity cut that has checked its sites but not yet committed: a site write that
+    would break the new capacity waits for it (the truck's lock; PostgreSQL ``FOR SHARE`` against
+    the change's row lock, SQLite ``BEGIN IMMEDIATE``), then is checked against it."""
+    etag = create(client, auth, site("S1")).headers["ETag"] if write == "change" else None
+    db_session.execute(update(Truck).where(Truck.code == "T1").values(capacity=3000.0, version=Truck.version + 1))
+    answers = []
+
+    def site_write() -> None:
+        if write == "create":
+            answers.append(client.post(SITES, json=site("S2", demand_per_day=4000.0), headers=auth("admin")))
+        else:
+            headers = auth("admin", **{"If-Match": etag})
+            answers.append(client.patch(f"{SITES}/S1", json={"demand_per_day": 4000.0}, headers=headers))
+
+    writer = threading.Thread(target=site_write)
+    writer.start()
+    writer.join(0.5)
+    assert writer.is_alive()  # waiting for the truck
+    db_session.commit()
+    writer.join(30)
+    assert answers and answers[0].status_code == 422, answers[0].get_json() if answers else None
+    assert "3 000 L" in answers[0].get_json()["detail"]
 
 
 def test_csv_rows_that_hold_less_than_a_day_are_named_and_nothing_is_written(client, auth, trucks, db_session):
