@@ -154,8 +154,13 @@ def _storage_full(error: DBAPIError) -> bool:
     return "database or disk is full" in text or "no space left" in text or "disk full" in text
 
 
+def _locked(error: DBAPIError) -> bool:
+    return "database is locked" in str(getattr(error, "orig", error)).lower()
+
+
 def handle_database(error: DBAPIError) -> Response:
-    """Database unreachable, locked too long or full: 503 (507 when full) with Retry-After."""
+    """Database unreachable, locked longer than busy_timeout, or full: 503 (507 when full) with
+    Retry-After, logged as a warning (an outage is not a bug)."""
     rollback_request_session()
     if _storage_full(error):
         log.error("storage full: %s", type(error.orig).__name__)
@@ -165,7 +170,9 @@ def handle_database(error: DBAPIError) -> Response:
     log.warning("database unavailable: %s", type(getattr(error, "orig", error)).__name__)
     return problem_response(
         503,
-        "The database is not available right now; nothing was recorded. Retry shortly.",
+        "The database is busy with other changes; nothing was recorded. Retry shortly."
+        if _locked(error)
+        else "The database is not available right now; nothing was recorded. Retry shortly.",
         kind="database-unavailable",
         headers={"Retry-After": "2"},
     )
