@@ -121,7 +121,8 @@ def handle_http_exception(error: HTTPException) -> Response:
     if status == 400 and request.is_json:
         detail = "The request body is not valid JSON."
     elif errors:
-        detail = "The request is not valid: " + "; ".join(f"{e['pointer']}: {e['detail']}" for e in errors[:5])
+        listed = "; ".join(f"{e['pointer']}: {e['detail'].rstrip('.')}" for e in errors[:5])
+        detail = f"The request is not valid: {listed}."
     else:
         detail = data.get("message") or error.description or HTTPStatus(status).phrase
     if status == 401:

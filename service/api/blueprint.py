@@ -2,11 +2,14 @@
 
 webargs excludes unknown query parameters by default, so ``?wek=2026-W01`` would be ignored
 silently (flask-smorest#211). Here they are refused with 422 — also on routes without query
-arguments — and a body of the wrong media type is refused with 415.
+arguments — and a body of the wrong media type is refused with 415. A JSON body the parser
+cannot hold (nested too deeply, a number with thousands of digits) is a 400, and path or query
+values that no text column can hold are refused before they reach the database.
 """
 
 from __future__ import annotations
 
+import sys
 from typing import Any
 
 import marshmallow as ma
@@ -14,6 +17,7 @@ from flask import current_app, request
 from flask_smorest import Blueprint as SmorestBlueprint
 from webargs.flaskparser import FlaskParser
 
+from service.api.fields import cannot_store, unstorable
 from service.auth import handler_for
 from service.cache import LruCache
 from service.errors import Problem
@@ -53,6 +57,25 @@ class StrictParser(FlaskParser):
         if parsed is None:
             parsed = self._parsed_queries.put(key, super().parse(argmap, req, location=location, **kwargs))
         return dict(parsed)
+
+    def load_json(self, req: Any, schema: Any) -> Any:
+        """As webargs', but JSON that Python's parser cannot hold is a 400 problem too, not a 500.
+
+        webargs turns only ``JSONDecodeError`` into a 400. ``json.loads`` also raises
+        ``RecursionError`` for arrays or objects nested about 1 000 deep, and ``ValueError`` for
+        an integer longer than ``sys.get_int_max_str_digits()`` (4 300 digits by default).
+        """
+        try:
+            return super().load_json(req, schema)
+        except RecursionError as exc:
+            raise _invalid_json("The request body nests arrays or objects too deeply.") from exc
+        except ValueError as exc:  # not a JSONDecodeError: webargs answered those above
+            limit = sys.get_int_max_str_digits()
+            raise _invalid_json(f"A number in the request body has more than {limit} digits.") from exc
+
+
+def _invalid_json(detail: str) -> Problem:
+    return Problem(400, detail, kind="invalid-json", errors=[{"pointer": "#", "detail": detail}])
 
 
 class Blueprint(SmorestBlueprint):
@@ -95,6 +118,28 @@ def _expectations(endpoint: str, method: str) -> tuple[set[str], str | None] | N
             locations = _locations(handler)
             known[key] = (locations, getattr(handler, "_ullage_body", None) or (JSON if "json" in locations else None))
     return known[key]
+
+
+def guard_text() -> None:
+    """``before_request`` for every route: path and query values no text column can hold.
+
+    A path value is a code or an id, and no stored one contains such a character: 404. A query
+    value or name: 422 naming it. (Bodies are checked by their schemas, ``StrictSchema``.)
+    """
+    for value in (request.view_args or {}).values():
+        character = unstorable(value) if isinstance(value, str) else None
+        if character is not None:
+            raise Problem(404, f"There is nothing at this path: it contains {character}.", kind="not-found")
+    errors = [
+        {"pointer": f"#/query/{name}", "detail": cannot_store(character)}
+        for name, values in request.args.lists()
+        for character in {unstorable(text) for text in (name, *values)} - {None}
+    ]
+    if errors:
+        first = errors[0]
+        raise Problem(
+            422, f"The query is not valid: {first['pointer']}: {first['detail']}", kind="validation", errors=errors
+        )
 
 
 def guard_request() -> None:

@@ -2,6 +2,8 @@
 
 import marshmallow as ma
 
+from service.api.fields import STORABLE_PATTERN, storable
+
 CODE_PATTERN = r"^[A-Za-z0-9._-]{1,40}$"
 code_field_validate = ma.validate.Regexp(CODE_PATTERN, error="Use 1–40 of A–Z, a–z, 0–9, '.', '_' or '-'.")
 name_validate = ma.validate.Length(min=1, max=200)
@@ -22,7 +24,15 @@ def nonnegative() -> ma.validate.Range:
 
 
 class StrictSchema(ma.Schema):
-    """Unknown fields are refused (marshmallow's default RAISE, stated explicitly)."""
+    """Unknown fields are refused (marshmallow's default RAISE, stated explicitly), and every string
+    field refuses text that cannot be stored (NUL, lone surrogates: ``fields.storable``)."""
 
     class Meta:
         unknown = ma.RAISE
+
+    def on_bind_field(self, field_name: str, field_obj: ma.fields.Field) -> None:
+        if isinstance(field_obj, ma.fields.String):
+            if not any(isinstance(v, ma.validate.Regexp) for v in field_obj.validators):
+                # Documented as a pattern; a field with a pattern of its own states its characters.
+                field_obj.metadata = {"pattern": STORABLE_PATTERN, **field_obj.metadata}
+            field_obj.validators = [*field_obj.validators, storable]
