@@ -36,7 +36,8 @@ IF_MATCH_PARAMETER = {
     "in": "header",
     "name": "If-Match",
     "required": True,
-    "schema": {"type": "string"},
+    # Any list of tags but one with `*` in it (which require_if_match refuses with 428).
+    "schema": {"type": "string", "not": {"pattern": r"^(.*,)?\s*\*\s*(,.*)?$"}},
     "description": "The ETag of your last GET of this resource (412 when it moved on; `*` is refused with 428).",
 }
 
