@@ -10,7 +10,7 @@ from flask import Flask
 from flask.json.provider import DefaultJSONProvider
 
 from service import api, auth, errors, health, metrics, observability, web
-from service.api.blueprint import guard_request
+from service.api.blueprint import guard_request, guard_text
 from service.config import load_settings
 from service.persistence import db
 
@@ -47,6 +47,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     db.init_app(app)
     errors.init_app(app)
     auth.init_app(app)
+    app.before_request(guard_text)
     app.before_request(guard_request)
     health.init_app(app)
     api.init_app(app)

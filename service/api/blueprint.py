@@ -5,11 +5,15 @@ silently (flask-smorest#211). Here they are refused with 422 — also on routes 
 arguments — and a body of the wrong media type is refused with 415. On every route, a body over
 the size limit is refused with 413 (also when sent in chunks, without ``Content-Length``) and a
 query parameter given twice with 422 (webargs, like Flask's ``args.get``, would take the first).
+A JSON body the parser cannot hold (nested too deeply, a number with thousands of digits) is a
+400, and path or query values that no text column can hold are refused before they reach the
+database.
 """
 
 from __future__ import annotations
 
 import io
+import sys
 from typing import Any
 
 import marshmallow as ma
@@ -19,6 +23,7 @@ from webargs.flaskparser import FlaskParser
 from webargs.multidictproxy import MultiDictProxy
 from werkzeug.http import parse_set_header
 
+from service.api.fields import cannot_store, unstorable
 from service.auth import handler_for
 from service.cache import LruCache
 from service.errors import Problem
@@ -58,6 +63,25 @@ class StrictParser(FlaskParser):
         if parsed is None:
             parsed = self._parsed_queries.put(key, super().parse(argmap, req, location=location, **kwargs))
         return dict(parsed)
+
+    def load_json(self, req: Any, schema: Any) -> Any:
+        """As webargs', but JSON that Python's parser cannot hold is a 400 problem too, not a 500.
+
+        webargs turns only ``JSONDecodeError`` into a 400. ``json.loads`` also raises
+        ``RecursionError`` for arrays or objects nested about 1 000 deep, and ``ValueError`` for
+        an integer longer than ``sys.get_int_max_str_digits()`` (4 300 digits by default).
+        """
+        try:
+            return super().load_json(req, schema)
+        except RecursionError as exc:
+            raise _invalid_json("The request body nests arrays or objects too deeply.") from exc
+        except ValueError as exc:  # not a JSONDecodeError: webargs answered those above
+            limit = sys.get_int_max_str_digits()
+            raise _invalid_json(f"A number in the request body has more than {limit} digits.") from exc
+
+
+def _invalid_json(detail: str) -> Problem:
+    return Problem(400, detail, kind="invalid-json", errors=[{"pointer": "#", "detail": detail}])
 
 
 class Blueprint(SmorestBlueprint):
@@ -161,6 +185,28 @@ def refuse_repeated_query_parameters(list_valued: frozenset[str] = frozenset()) 
             + ".",
             kind="validation",
             errors=[{"pointer": f"#/query/{k}", "detail": "Given more than once."} for k in repeated],
+        )
+
+
+def guard_text() -> None:
+    """``before_request`` for every route: path and query values no text column can hold.
+
+    A path value is a code or an id, and no stored one contains such a character: 404. A query
+    value or name: 422 naming it. (Bodies are checked by their schemas, ``StrictSchema``.)
+    """
+    for value in (request.view_args or {}).values():
+        character = unstorable(value) if isinstance(value, str) else None
+        if character is not None:
+            raise Problem(404, f"There is nothing at this path: it contains {character}.", kind="not-found")
+    errors = [
+        {"pointer": f"#/query/{name}", "detail": cannot_store(character)}
+        for name, values in request.args.lists()
+        for character in {unstorable(text) for text in (name, *values)} - {None}
+    ]
+    if errors:
+        first = errors[0]
+        raise Problem(
+            422, f"The query is not valid: {first['pointer']}: {first['detail']}", kind="validation", errors=errors
         )
 
 

@@ -8,20 +8,21 @@ from typing import Any
 
 from flask import render_template, request
 from sqlalchemy import select
+from sqlalchemy.exc import DBAPIError
 
 from service import schedule
+from service.api.fields import FIRST_DATE, LAST_DATE, WEEK_RANGE
 from service.auth import SESSION, allow
 from service.errors import Problem
 from service.persistence import repository as repo
 from service.persistence.db import get_session
 from service.persistence.models import Truck
-from service.web import bp, error_page, formatting, settings
+from service.web import bp, error_page, formatting, log, settings
 from service.web.access import page
 from service.web.chart import chart_id, level_svg
 
 CHART_DAYS = 28
 ASCII_WEEK = re.compile(r"[0-9]{4}-W[0-9]{2}")
-FIRST_YEAR, LAST_YEAR = 1900, 2999  # weeks the page shows (and their neighbours) stay far from date.min/max
 
 #: Warning kinds: a word for the badge and an order (most urgent first).
 NOTICE_KINDS = {
@@ -29,6 +30,7 @@ NOTICE_KINDS = {
     "no_active_plan": ("No active plan", 1),
     "plan_stale": ("Plan out of date", 2),
     "no_recent_reading": ("No recent reading", 3),
+    "truck_not_shown": ("Not shown", 0),
 }
 
 
@@ -45,13 +47,19 @@ def overview() -> Any:
         monday, sunday = schedule.iso_week(week)
     except (ValueError, TypeError, LookupError, OverflowError) as exc:
         raise Problem(400, "The week must be an ISO week such as 2026-W49.", title="Unknown week") from exc
-    if not FIRST_YEAR <= monday.year <= LAST_YEAR:
-        raise Problem(400, f"Choose a week from {FIRST_YEAR} to {LAST_YEAR}.", title="Unknown week")
+    if not FIRST_DATE.year <= monday.isocalendar().year <= LAST_DATE.year:
+        raise Problem(400, f"Choose a week {WEEK_RANGE}.", title="Unknown week")
     week = formatting.iso_week_of(monday)
     trucks = list(db.scalars(select(Truck).where(Truck.active.is_(True)).order_by(Truck.code)))
     panels, warnings = [], []
     for truck in trucks:
-        panel = _truck_panel(db, truck, monday, sunday, config)
+        try:
+            panel = _truck_panel(db, truck, monday, sunday, config)
+        except DBAPIError:
+            raise  # the database itself: the whole page answers 503
+        except Exception:  # noqa: BLE001 - one truck's bad data must not hide every other truck
+            log.exception("status page: truck %s cannot be shown", truck.code)
+            panel = _broken_panel(truck)
         panels.append(panel)
         warnings.extend(panel["warnings"])
     return render_template(
@@ -144,6 +152,24 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     warnings = [dict(w, truck=truck.code) for w in _group_readings(_dedupe(notices), truck)]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
     return {"truck": truck, "view": view, "plan": plan, "gap": gap, "charts": charts, "warnings": warnings}
+
+
+def _broken_panel(truck: Truck) -> dict[str, Any]:
+    """The panel of a truck whose week could not be computed: one line saying so."""
+    notice = _notice(
+        "truck_not_shown",
+        f"Truck {truck.code}'s week cannot be shown because of an error on our side (it is logged). "
+        "Its plan, trips and levels are missing from this page; the other trucks are shown.",
+    )
+    return {
+        "truck": truck,
+        "view": None,
+        "plan": None,
+        "gap": None,
+        "charts": [],
+        "warnings": [dict(notice, truck=truck.code)],
+        "error": notice["message"],
+    }
 
 
 def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[str, Any]]:
