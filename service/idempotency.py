@@ -114,10 +114,13 @@ def _replay(row: IdempotencyRecord) -> Response:
     return response
 
 
-def _in_progress(
-    detail: str = "A request with this Idempotency-Key is still being processed; retry shortly.",
-) -> Problem:
-    return Problem(409, detail, kind="idempotency-in-progress", headers={"Retry-After": "1"})
+def _in_progress() -> Problem:
+    return Problem(
+        409,
+        "A request with this Idempotency-Key is still being processed; retry shortly.",
+        kind="idempotency-in-progress",
+        headers={"Retry-After": "1"},
+    )
 
 
 def _answer(row: IdempotencyRecord, print_: str, now: dt.datetime) -> Response | None:
