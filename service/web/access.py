@@ -16,7 +16,6 @@ from flask import (
     Flask,
     Response,
     g,
-    has_request_context,
     redirect,
     render_template,
     request,
@@ -70,7 +69,7 @@ class SessionCookie(SecureCookieSessionInterface):
 
     def get_cookie_secure(self, app: Flask) -> bool:
         mode = app.config["ULLAGE_SETTINGS"].secure_cookies
-        return mode == "always" or (mode == "auto" and has_request_context() and request.is_secure)
+        return mode == "always" or (mode == "auto" and request.is_secure)
 
 
 def _digest(sid: str) -> str:
