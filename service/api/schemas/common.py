@@ -2,8 +2,14 @@
 
 import marshmallow as ma
 
-CODE_PATTERN = r"^[A-Za-z0-9._-]{1,40}$"
-code_field_validate = ma.validate.Regexp(CODE_PATTERN, error="Use 1–40 of A–Z, a–z, 0–9, '.', '_' or '-'.")
+#: 1–40 of A–Z, a–z, 0–9, '.', '_', '-', and not dots only: a code is a URL path segment, and
+#: clients remove ``.`` and ``..`` segments from paths (RFC 3986 §5.2.4), so such a site or truck
+#: could not be reached; longer runs of dots are refused with them.
+CODE_PATTERN = r"^(?!\.+$)[A-Za-z0-9._-]{1,40}$"
+code_field_validate = ma.validate.Regexp(
+    CODE_PATTERN,
+    error="Use 1–40 of A–Z, a–z, 0–9, '.', '_' or '-', and not only dots (a URL cannot reach '.' or '..').",
+)
 name_validate = ma.validate.Length(min=1, max=200)
 
 #: The smallest positive value accepted where a quantity must be > 0 (a real minimum, so the
