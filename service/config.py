@@ -23,6 +23,9 @@ _UNIT = re.compile(r"^[A-Za-z0-9³]{1,8}$")
 #: A revoked token must be refused in every worker within this time (conventions, SEC-3).
 MAX_TOKEN_CACHE_SECONDS = 5
 
+SECURE_COOKIES = ("auto", "always", "never")
+MAX_TRUSTED_PROXIES = 5
+
 #: Environment variable → settings field.
 ENVIRONMENT = {
     "DATABASE_URL": "database_url",
@@ -34,6 +37,8 @@ ENVIRONMENT = {
     "ULLAGE_MAX_CALCULATION_BYTES": "max_calculation_bytes",
     "ULLAGE_READING_STALE_DAYS": "reading_stale_days",
     "ULLAGE_TOKEN_CACHE_SECONDS": "token_cache_seconds",
+    "ULLAGE_SECURE_COOKIES": "secure_cookies",
+    "ULLAGE_TRUSTED_PROXIES": "trusted_proxies",
     "LOG_LEVEL": "log_level",
 }
 
@@ -67,6 +72,12 @@ class Settings:
     max_calculation_bytes: int = 32 << 20
     reading_stale_days: int = 7
     token_cache_seconds: int = 2
+    #: ``Secure`` on the status page's cookie: ``auto`` (when the request came over HTTPS),
+    #: ``always`` or ``never``.
+    secure_cookies: str = "auto"
+    #: Reverse proxies in front of the service whose ``X-Forwarded-Proto``/``-For`` are believed
+    #: (werkzeug's ProxyFix); 0 believes none.
+    trusted_proxies: int = 0
     log_level: str = "INFO"
     testing: bool = False
 
@@ -85,6 +96,12 @@ class Settings:
         for name in ("max_body_bytes", "max_calculation_bytes", "reading_stale_days"):
             if getattr(self, name) < 1:
                 raise ValueError(f"{name} must be at least 1")
+        if self.secure_cookies not in SECURE_COOKIES:
+            raise ValueError(
+                f"ULLAGE_SECURE_COOKIES must be one of {', '.join(SECURE_COOKIES)}, got {self.secure_cookies!r}"
+            )
+        if not 0 <= self.trusted_proxies <= MAX_TRUSTED_PROXIES:
+            raise ValueError(f"ULLAGE_TRUSTED_PROXIES must be 0 to {MAX_TRUSTED_PROXIES}")
         if not 0 <= self.token_cache_seconds <= MAX_TOKEN_CACHE_SECONDS:
             raise ValueError(f"ULLAGE_TOKEN_CACHE_SECONDS must be 0 to {MAX_TOKEN_CACHE_SECONDS}")
         return self

@@ -135,12 +135,12 @@ class TruckPlans(MethodView):
     def post(self, body, code):
         """Compute and record a plan from the truck's active sites (honours Idempotency-Key)"""
         key = idempotency.parse_key(request.headers.get(idempotency.HEADER))
-        claim = None
+        claim = heartbeat = None
         if key is not None:
             outcome = idempotency.begin(current_caller(), key, request.method, request.path, request.get_data())
             if isinstance(outcome, Response):
                 return outcome
-            claim = outcome
+            claim, heartbeat = outcome, idempotency.Heartbeat.start(outcome)
         try:
             response = _record(code, body)
             if claim is not None:
@@ -151,6 +151,9 @@ class TruckPlans(MethodView):
             if claim is not None:
                 idempotency.abandon(claim)
             raise
+        finally:
+            if heartbeat is not None:
+                heartbeat.stop()  # after the transaction: a renewal may wait for its lock
         return response
 
     @allow("viewer")

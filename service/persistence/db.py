@@ -85,6 +85,30 @@ def _sqlite_begin(connection):  # type: ignore[no-untyped-def]
         raise DBAPIError.instance(statement, (), exc, sqlite3.Error, dialect=connection.dialect) from exc
 
 
+def sqlite_write_lock_held(engine: Engine) -> bool:
+    """Whether some connection holds the SQLite database's write lock right now.
+
+    A ``BEGIN IMMEDIATE`` that does not wait (``busy_timeout`` 0 for that one statement) on a pooled
+    connection, rolled back at once. A transaction started by the app holds the lock from its
+    first statement to its commit, so a request that is still working proves it is alive.
+    """
+    connection = engine.raw_connection()
+    driver = connection.driver_connection
+    try:
+        driver.execute("PRAGMA busy_timeout=0")
+        try:
+            driver.execute("BEGIN IMMEDIATE")
+        except engine.dialect.loaded_dbapi.OperationalError as exc:
+            if "locked" not in str(exc) and "busy" not in str(exc):
+                raise
+            return True
+        driver.execute("ROLLBACK")
+        return False
+    finally:
+        driver.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
+        connection.close()
+
+
 def read_one(engine: Engine, statement: Executable, params: Mapping[str, Any]) -> Row[Any] | None:
     """The only row of one prebuilt SELECT (or ``None``), run on the autocommit ``engine``."""
     return _retry_once_if_gone(engine, lambda: _read(engine, statement, params))
