@@ -26,9 +26,10 @@ FIRST_YEAR, LAST_YEAR = 1900, 2999  # weeks the page shows (and their neighbours
 #: Warning kinds: a word for the badge and an order (most urgent first).
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
-    "no_active_plan": ("No active plan", 1),
-    "plan_stale": ("Plan out of date", 2),
-    "no_recent_reading": ("No recent reading", 3),
+    "limits_changed": ("Limits changed", 1),
+    "no_active_plan": ("No active plan", 2),
+    "plan_stale": ("Plan out of date", 3),
+    "no_recent_reading": ("No recent reading", 4),
 }
 
 
@@ -95,7 +96,7 @@ def site_page(code: str) -> Any:
         last=last,
         deliveries=deliveries,
         has_level=any(v is not None for _, v in levels.days),
-        warnings=_sorted_warnings(_dedupe(levels.notices)),
+        warnings=_sorted_warnings(_group_limits(_dedupe(levels.notices))),
         week=formatting.iso_week_of(first),
     )
 
@@ -141,7 +142,7 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
         )
     if plan is None:  # the truck's own notice says it; one per site would only repeat it
         notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
-    warnings = [dict(w, truck=truck.code) for w in _group_readings(_dedupe(notices), truck)]
+    warnings = [dict(w, truck=truck.code) for w in _group_readings(_group_limits(_dedupe(notices)), truck)]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
     return {"truck": truck, "view": view, "plan": plan, "gap": gap, "charts": charts, "warnings": warnings}
 
@@ -160,6 +161,27 @@ def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[st
     merged["sites"] = sites
     out = [n for n in notices if n not in missing]
     out.append(merged)
+    return out
+
+
+def _group_limits(notices: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """One "limits changed" line per site (its earliest), saying how many more of its stops it affects."""
+    first: dict[str | None, dict[str, Any]] = {}
+    more: dict[str | None, int] = {}
+    out = []
+    for notice in sorted(notices, key=lambda n: n["date"] or dt.date.min):
+        if notice["kind"] != "limits_changed":
+            out.append(notice)
+        elif notice["site"] in first:
+            more[notice["site"]] = more.get(notice["site"], 0) + 1
+        else:
+            first[notice["site"]] = notice
+    for site, notice in first.items():
+        extra = more.get(site, 0)
+        suffix = (
+            f" The changed limits affect {extra} more stop{'' if extra == 1 else 's'} of this site." if extra else ""
+        )
+        out.append(dict(notice, message=notice["message"] + suffix))
     return out
 
 
