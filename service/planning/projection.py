@@ -171,7 +171,9 @@ class Projection:
         quantity = max(0.0, min(need, room, free))
         after = _State(level + quantity, when)
         if risk is None:
-            risk = _crossing(after, tank, when + tank.cycle_days * DAY, self.zone)
+            # Until 00:00 of the next planned delivery's day (a calendar date, whatever the clocks do).
+            following = day_start(when.astimezone(self.zone).date() + tank.cycle_days * DAY, self.zone)
+            risk = _crossing(after, tank, following, self.zone)
         if risk is not None:
             self.run_outs.append(risk)
         state.events.append((when, level))
