@@ -396,7 +396,7 @@ def _limit_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | N
                     "limits_changed",
                     f"truck {replay.truck.code}: {_changed('max_stops', recorded_stops, replay.truck.max_stops, '')}; "
                     f"{replay.names[code]} ({code}) is dropped from the trip of {trip.date.isoformat()} "
-                    f"(the {replay.truck.max_stops} sites with the fewest days of stock keep their stops); "
+                    "(the sites with the fewest days of stock keep their stops); "
                     "deliver it on another trip or re-plan.",
                     code,
                     trip.date,

@@ -165,22 +165,24 @@ def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[st
 
 
 def _group_limits(notices: list[dict[str, Any]]) -> list[dict[str, Any]]:
-    """One "limits changed" line per site (its earliest), saying how many more of its stops it affects."""
-    first: dict[str | None, dict[str, Any]] = {}
-    more: dict[str | None, int] = {}
+    """One "limits changed" line per site and changed limit (its earliest), counting the other stops.
+
+    A message names the site or truck and the changed field before its first ``;``, which is the key.
+    """
+    first: dict[tuple[Any, str], dict[str, Any]] = {}
+    more: dict[tuple[Any, str], int] = {}
     out = []
     for notice in sorted(notices, key=lambda n: n["date"] or dt.date.min):
+        key = (notice["site"], notice["message"].split(";")[0])
         if notice["kind"] != "limits_changed":
             out.append(notice)
-        elif notice["site"] in first:
-            more[notice["site"]] = more.get(notice["site"], 0) + 1
+        elif key in first:
+            more[key] = more.get(key, 0) + 1
         else:
-            first[notice["site"]] = notice
-    for site, notice in first.items():
-        extra = more.get(site, 0)
-        suffix = (
-            f" The changed limits affect {extra} more stop{'' if extra == 1 else 's'} of this site." if extra else ""
-        )
+            first[key] = notice
+    for key, notice in first.items():
+        extra = more.get(key, 0)
+        suffix = f" The same change affects {extra} more stop{'' if extra == 1 else 's'} of this site." if extra else ""
         out.append(dict(notice, message=notice["message"] + suffix))
     return out
 
@@ -198,7 +200,7 @@ def _as_dict(notice: Any) -> dict[str, Any]:
 def _dedupe(notices: Any) -> list[dict[str, Any]]:
     seen, out = set(), []
     for notice in map(_as_dict, notices):
-        key = (notice["kind"], notice["site"], notice["date"])
+        key = (notice["kind"], notice["site"], notice["date"], notice["message"])
         if key not in seen:
             seen.add(key)
             out.append(notice)

@@ -6,6 +6,8 @@ after activation S1's tank shrinks to 3 000 (room 0.9 × 3 000 − 500 = 2 200) 
 
 from __future__ import annotations
 
+import datetime as dt
+
 import pytest
 from status_helpers import Page, record_plan, sign_in, today, words
 
@@ -60,7 +62,12 @@ def test_the_week_shows_the_cut_quantity_and_why(app, changed):
     warnings = [words(e) for e in page.find("li", class_="kind-limits_changed")]
     assert len(warnings) == 2
     assert all(w.startswith("⚠ Limits changed:") for w in warnings)
-    assert any("S1" in w and "tank_capacity changed from 8000 to 3000 L" in w for w in warnings)
+    [s1] = [w for w in warnings if "S1" in w]
+    assert "tank_capacity changed from 8000 to 3000 L" in s1
+    # One line for all of S1's cut stops the page covers (the week, and the charts' 28 days from Monday).
+    monday = today(app) - dt.timedelta(days=today(app).weekday())
+    others = sum(today(app) + dt.timedelta(days=k) <= monday + dt.timedelta(days=27) for k in (13, 26))
+    assert f"The same change affects {others} more stop" in s1
     assert any("S2" in w and "active changed from true to false" in w for w in warnings)
     [stale] = [words(e) for e in page.find("li", class_="kind-plan_stale")]
     assert "tank_capacity changed from 8000 to 3000 L" in stale and "S2: no longer active" in stale
