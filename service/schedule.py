@@ -171,6 +171,8 @@ def amount(value: float | None) -> str:
     return "0" if text == "-0" else text
 
 
+#: The site fields that set the room below the safe fill (safety stock: without a projected level).
+ROOM_FIELDS = ("tank_capacity", "safe_fill", "safety_stock")
 #: Fields measured in the service's quantity unit (the others are counts, fractions or money).
 QUANTITY_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock", "capacity")
 
@@ -229,6 +231,10 @@ class _Replay:
     #: Sites of the plan that get no stop (inactive, deleted, moved), with their planned dates.
     removed: dict[str, list[dt.date]]
     unit: str
+    #: Sites whose tank_capacity, safe_fill or safety_stock changed, and whether the truck shrank:
+    #: only their stops can carry a stop-level limits_changed.
+    room_changed: frozenset[str]
+    capacity_shrank: bool
 
 
 def _served(plan: Plan, drift: plan_store.Drift) -> dict[str, Site]:
@@ -304,6 +310,8 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
         recorded,
         removed,
         settings.quantity_unit,
+        frozenset(c.code for c in drift.changes if c.subject == "site" and c.field in ROOM_FIELDS),
+        truck.capacity < plan.inputs["truck"]["capacity"],
     )
 
 
@@ -314,10 +322,12 @@ def _limit_notices_of(replay: _Replay, stop: CorrectedStop, date: dt.date) -> li
     then the truck's free space (from there to the quantity) when the truck's capacity shrank.
     """
     unit, out = replay.unit, []
+    if not replay.capacity_shrank and stop.site not in replay.room_changed:
+        return out
     snap, site = replay.recorded[stop.site], replay.drift.sites[stop.site]
     # Without a projected level the room is measured from the safety stock, so it counts too.
     base = snap["safety_stock"] if stop.projected_level_before is None else stop.projected_level_before
-    fields = ("tank_capacity", "safe_fill") + (("safety_stock",) if stop.projected_level_before is None else ())
+    fields = ROOM_FIELDS if stop.projected_level_before is None else ROOM_FIELDS[:2]
     changed = [_changed(f, snap[f], getattr(site, f), unit) for f in fields if snap[f] != getattr(site, f)]
     allowed = max(0.0, min(stop.wanted, snap["safe_fill"] * snap["tank_capacity"] - base))
     within_room = max(0.0, min(stop.wanted, stop.room))
@@ -332,7 +342,7 @@ def _limit_notices_of(replay: _Replay, stop: CorrectedStop, date: dt.date) -> li
             )
         )
     recorded_capacity = replay.plan.inputs["truck"]["capacity"]
-    if replay.truck.capacity < recorded_capacity and stop.quantity < within_room - TOLERANCE:
+    if replay.capacity_shrank and stop.quantity < within_room - TOLERANCE:
         out.append(
             Notice(
                 "limits_changed",
