@@ -27,9 +27,10 @@ ASCII_WEEK = re.compile(r"[0-9]{4}-W[0-9]{2}")
 #: Warning kinds: a word for the badge and an order (most urgent first).
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
-    "no_active_plan": ("No active plan", 1),
-    "plan_stale": ("Plan out of date", 2),
-    "no_recent_reading": ("No recent reading", 3),
+    "limits_changed": ("Limits changed", 1),
+    "no_active_plan": ("No active plan", 2),
+    "plan_stale": ("Plan out of date", 3),
+    "no_recent_reading": ("No recent reading", 4),
     "truck_not_shown": ("Not shown", 0),
 }
 
@@ -103,7 +104,7 @@ def site_page(code: str) -> Any:
         last=last,
         deliveries=deliveries,
         has_level=any(v is not None for _, v in levels.days),
-        warnings=_sorted_warnings(_dedupe(levels.notices)),
+        warnings=_sorted_warnings(_group_limits(_dedupe(levels.notices))),
         week=formatting.iso_week_of(first),
     )
 
@@ -149,7 +150,7 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
         )
     if plan is None:  # the truck's own notice says it; one per site would only repeat it
         notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
-    warnings = [dict(w, truck=truck.code) for w in _group_readings(_dedupe(notices), truck)]
+    warnings = [dict(w, truck=truck.code) for w in _group_readings(_group_limits(_dedupe(notices)), truck)]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
     return {"truck": truck, "view": view, "plan": plan, "gap": gap, "charts": charts, "warnings": warnings}
 
@@ -189,6 +190,29 @@ def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[st
     return out
 
 
+def _group_limits(notices: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """One "limits changed" line per site and changed limit (its earliest), counting the other stops.
+
+    A message names the site or truck and the changed field before its first ``;``, which is the key.
+    """
+    first: dict[tuple[Any, str], dict[str, Any]] = {}
+    more: dict[tuple[Any, str], int] = {}
+    out = []
+    for notice in sorted(notices, key=lambda n: n["date"] or dt.date.min):
+        key = (notice["site"], notice["message"].split(";")[0])
+        if notice["kind"] != "limits_changed":
+            out.append(notice)
+        elif key in first:
+            more[key] = more.get(key, 0) + 1
+        else:
+            first[key] = notice
+    for key, notice in first.items():
+        extra = more.get(key, 0)
+        suffix = f" The same change affects {extra} more stop{'' if extra == 1 else 's'} of this site." if extra else ""
+        out.append(dict(notice, message=notice["message"] + suffix))
+    return out
+
+
 def _notice(kind: str, message: str, site: str | None = None, date: dt.date | None = None) -> Any:
     return {"kind": kind, "message": message, "site": site, "date": date}
 
@@ -202,7 +226,7 @@ def _as_dict(notice: Any) -> dict[str, Any]:
 def _dedupe(notices: Any) -> list[dict[str, Any]]:
     seen, out = set(), []
     for notice in map(_as_dict, notices):
-        key = (notice["kind"], notice["site"], notice["date"])
+        key = (notice["kind"], notice["site"], notice["date"], notice["message"])
         if key not in seen:
             seen.add(key)
             out.append(notice)

@@ -67,8 +67,21 @@ class TripsQueryArgsSchema(StrictSchema):
     to = BoundedDate(metadata={"description": f"Last day, {DATE_RANGE}"})
 
 
+NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading")
+
+
 class NoticeSchema(ma.Schema):
-    kind = ma.fields.String(metadata={"description": "run_out_risk, plan_stale, no_recent_reading"})
+    kind = ma.fields.String(
+        validate=ma.validate.OneOf(NOTICE_KINDS),
+        metadata={
+            "description": "run_out_risk: the tank is projected below its safety stock on `date`; "
+            "limits_changed: a site or truck limit changed since the plan (tank_capacity, safe_fill, "
+            "safety_stock, capacity, max_stops, active) and cut this stop's quantity, dropped a stop or "
+            "took a site out; the message names the field and both values; plan_stale: the plan's "
+            "inputs changed (the message names which fields of which sites or truck); "
+            "no_recent_reading: the site's quantities are not corrected by a recent reading"
+        },
+    )
     message = ma.fields.String()
     site = ma.fields.String(allow_none=True)
     date = ma.fields.Date(allow_none=True)
