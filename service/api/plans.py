@@ -9,7 +9,7 @@ from flask import Response, current_app, json, request, url_for
 from flask.views import MethodView
 from sqlalchemy import select
 
-from service import idempotency, schedule
+from service import bounded, idempotency, schedule
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified
 from service.api.pagination import page
@@ -35,7 +35,6 @@ from service.planning import PlanningInputError, plan_joint
 PREFIX = ""
 blp = Blueprint("plans", __name__, description="Recorded plans and the trips dispatch software loads each week")
 
-MAX_WINDOW_DAYS = 92
 #: Per-process cache of trips answers, keyed by the window, the day and the store's change marker
 #: (service.persistence.plans.change_stamp): repeated weekly calls skip the replay.
 TRIPS_CACHE = LruCache(256)
@@ -88,28 +87,31 @@ def _record(code: str, body: dict[str, Any]) -> Response:
     sites = plan_store.sites_for_plan(session, truck)
     if not sites:
         raise Problem(422, f"Truck {code!r} has no active sites to plan.", kind="no-sites")
+    bounded.check_sites(len(sites), "#")
     inputs = plan_store.snapshot(truck, sites)
+    options = {"method": body["method"], "base_days": body["base_days"], **bounded.planner_options(plan_joint)}
     try:
-        result = plan_joint(
+        result = bounded.run(
+            bounded.joint_dict,
+            plan_joint,
             plan_store.site_inputs(inputs["sites"]),
             plan_store.truck_input(inputs["truck"]),
-            method=body["method"],
-            base_days=body["base_days"],
+            options,
         )
     except PlanningInputError as exc:
         raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
-    if not result.success:
-        raise Problem(422, f"No plan: {result.message}", kind="infeasible")
+    if not result["success"]:
+        raise Problem(422, f"No plan: {result['message']}", kind="infeasible")
     start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
     plan = plan_store.add_plan(
         session,
         truck,
         sites,
-        method=result.method,
+        method=result["method"],
         start_date=start,
         created_by=current_caller().name,
         inputs=inputs,
-        result=result.to_dict(),
+        result=result,
     )
     return _json_response(plan_json(plan, truck.code), 201, Location=url_for("plans.PlanById", plan_id=plan.id))
 
@@ -121,8 +123,13 @@ class TruckPlans(MethodView):
     @blp.response(201, PlanSchema)
     @blp.alt_response(409, description="A request with the same Idempotency-Key is still running", **PROBLEM)
     @blp.alt_response(
-        422, description="Invalid body, no plannable sites, or Idempotency-Key reused with another body", **PROBLEM
+        422,
+        description="Invalid body, no plannable sites, more sites than ULLAGE_MAX_PLAN_SITES, "
+        "or Idempotency-Key reused with another body",
+        **PROBLEM,
     )
+    @blp.alt_response(429, description="Too many planning requests of this token; see Retry-After", **PROBLEM)
+    @blp.alt_response(503, description="Planning busy, or stopped at the planning time limit", **PROBLEM)
     @blp.doc(
         parameters=[
             {
@@ -144,6 +151,7 @@ class TruckPlans(MethodView):
                 return outcome
             claim = outcome
         try:
+            bounded.charge(bounded.PLANNING)  # after the claim: a replayed answer costs nothing
             response = _record(code, body)
             if claim is not None:
                 idempotency.finish(get_session(), claim, response)
@@ -218,12 +226,13 @@ def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
         raise Problem(
             422, "to is before from.", kind="validation", errors=[{"pointer": "#/query/to", "detail": "Before from."}]
         )
-    if (last - first).days + 1 > MAX_WINDOW_DAYS:
+    longest = bounded.settings().max_trips_days
+    if (last - first).days + 1 > longest:
         raise Problem(
             422,
-            f"At most {MAX_WINDOW_DAYS} days per call.",
+            f"At most {longest} days per call (ULLAGE_MAX_TRIPS_DAYS).",
             kind="validation",
-            errors=[{"pointer": "#/query/to", "detail": f"More than {MAX_WINDOW_DAYS} days after from."}],
+            errors=[{"pointer": "#/query/to", "detail": f"More than {longest} days after from."}],
         )
     return first, last
 
@@ -271,19 +280,49 @@ class TruckTrips(MethodView):
     @blp.response(200, TripsSchema)
     @blp.alt_response(304, description="Not modified (If-None-Match)")
     @blp.alt_response(409, description="The truck has no active plan", **PROBLEM)
+    @blp.alt_response(
+        422, description="Invalid window, or longer than ULLAGE_MAX_TRIPS_DAYS (default 92 days)", **PROBLEM
+    )
+    @blp.alt_response(429, description="Too many long windows (heavy reads) of this token; see Retry-After", **PROBLEM)
+    @blp.alt_response(503, description="A long window found the planning processes busy", **PROBLEM)
     def get(self, args, code):
-        """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
+        """The active plan's trips for an ISO week or a date range, quantities corrected by readings
+
+        Windows longer than ULLAGE_LONG_TRIPS_DAYS (default 35) are heavy reads: computed in the
+        planning processes and counted against the token's heavy-read limit (cached answers are free).
+        """
         first, last = _window(args)
         settings = current_app.config["ULLAGE_SETTINGS"]
         key = (code, first, last, schedule.today(settings), plan_store.change_stamp(read_engine()))
         cached = TRIPS_CACHE.get(key)
         if cached is None:
-            truck = truck_or_404(code)
-            try:
-                view = schedule.trips_view(get_session(), truck, first, last, settings)
-            except schedule.NoActivePlan as exc:
-                raise Problem(409, str(exc), kind="no-active-plan") from exc
-            body = json.dumps(trips_json(view)).encode()
+            if bounded.long_window(first, last):
+                bounded.charge(bounded.HEAVY_READ)
+                body = bounded.run(_trips_body, settings, code, first, last)
+            else:
+                body = _trips_body_here(get_session(), truck_or_404(code), first, last, settings)
             cached = TRIPS_CACHE.put(key, (body, content_etag(body)))
         body, etag = cached
         return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})
+
+
+def _trips_body_here(session, truck: Truck, first: dt.date, last: dt.date, settings) -> bytes:  # type: ignore[no-untyped-def]
+    try:
+        view = schedule.trips_view(session, truck, first, last, settings)
+    except schedule.NoActivePlan as exc:
+        raise Problem(409, str(exc), kind="no-active-plan") from exc
+    return bounded.dumps(trips_json(view))
+
+
+def _trips_body(settings, code: str, first: dt.date, last: dt.date) -> bytes:  # type: ignore[no-untyped-def]
+    """In a pool child: the trips answer of a long window, read on the child's own connection.
+
+    Read after the caller read the change stamp it caches the answer under, so it is at least as
+    new as that stamp, as in the worker itself.
+    """
+    with bounded.child_session(settings.database_url) as session:
+        try:
+            truck = repo.truck_by_code(session, code)
+        except repo.NotFound as exc:
+            raise Problem(404, str(exc), kind="not-found") from exc
+        return _trips_body_here(session, truck, first, last, settings)
