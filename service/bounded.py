@@ -69,8 +69,8 @@ F = TypeVar("F", bound=Callable[..., Any])
 PRELOAD = ("service.bounded", "service.api.plans")
 WINDOW_SECONDS = 60
 PLANNING, HEAVY_READ = "planning", "heavy_read"
-#: (token id, bucket, window start) that this worker already answered 429.
-_refused: LruCache[bool] = LruCache(4096)
+#: Per app: the (token id, bucket, window start) that this worker already answered 429.
+REFUSED = "ullage.refused"
 _clock = time.time  # the rate limit's clock (tests move it instead of sleeping)
 
 
@@ -193,9 +193,12 @@ _engines: dict[str, Engine] = {}
 
 @contextlib.contextmanager
 def child_session(database_url: str) -> Iterator[Session]:
-    """In a child: a read-only session on its own engine (one per database, kept for later tasks)."""
+    """In a child: a read-only session on its own engine (kept for later tasks on the same database)."""
     engine = _engines.get(database_url)
     if engine is None:
+        for other in _engines.values():
+            other.dispose()
+        _engines.clear()
         engine = _engines[database_url] = make_engine(database_url)
     write_intent.set(False)
     with Session(engine) as session:
@@ -215,7 +218,8 @@ def charge(bucket: str) -> None:
     now = _clock()
     window = int(now // WINDOW_SECONDS) * WINDOW_SECONDS
     key = (caller.token_id, bucket, window)
-    if _refused.get(key) is None:
+    refused: LruCache[bool] = current_app.extensions.setdefault(REFUSED, LruCache(4096))
+    if refused.get(key) is None:
         intent = write_intent.set(True)
         try:
             with current_app.extensions["ullage.sessionmaker"]() as session:
@@ -225,7 +229,7 @@ def charge(bucket: str) -> None:
             write_intent.reset(intent)
         if hits <= per_minute:
             return
-        _refused.put(key, True)
+        refused.put(key, True)
     retry = max(1, math.ceil(window + WINDOW_SECONDS - now))
     what = "planning requests" if bucket == PLANNING else "heavy reads (long trips windows, status overviews)"
     raise Problem(
