@@ -51,7 +51,7 @@ import time
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any, TypeVar
 
-from flask import current_app, g, request
+from flask import Flask, current_app, g, request
 from sqlalchemy import Engine
 from sqlalchemy.orm import Session
 
@@ -127,20 +127,59 @@ def _client_gone(sock: socket.socket | None) -> Callable[[], bool]:
     return gone
 
 
+def _pool() -> compute.Pool:
+    config = settings()
+    return compute.pool(config.plan_processes, config.plan_queue, PRELOAD)
+
+
+def start_pool(app: Flask) -> None:
+    """Start this process's pool now (gunicorn's ``post_worker_init``), not in the first request:
+    the fork server's imports cost a second or two of CPU."""
+    with app.app_context():
+        _pool().start()
+
+
+def _busy(exc: compute.Busy) -> Problem:
+    return Problem(
+        503,
+        f"The planning capacity is busy ({exc}); retry later.",
+        kind="planning-busy",
+        headers={"Retry-After": str(math.ceil(settings().plan_seconds))},
+    )
+
+
+def admitted(view: F) -> F:
+    """Take the request's place in the pool before the body is parsed (503 at once when full)."""
+
+    @functools.wraps(view)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        with contextlib.ExitStack() as stack:
+            try:
+                stack.enter_context(_pool().admitted())
+            except compute.Busy as exc:
+                raise _busy(exc) from exc
+            g.pool_admitted = True
+            try:
+                return view(*args, **kwargs)
+            finally:
+                g.pool_admitted = False
+
+    return wrapper  # type: ignore[return-value]
+
+
 def run(fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
     """``fn(*args, **kwargs)`` in this worker's pool, within the budget plus its grace."""
+    if not g.get("pool_admitted"):
+        return admitted(run)(fn, *args, **kwargs)
     config = settings()
     budget, limit = config.plan_seconds, config.plan_seconds + config.plan_grace_seconds
     retry = {"Retry-After": str(math.ceil(budget))}
-    pool = compute.pool(config.plan_processes, config.plan_queue, PRELOAD)
     try:
-        return pool.run(
+        return _pool().run(
             fn, args, kwargs, limit=limit, wait=limit, cancelled=_client_gone(request.environ.get("gunicorn.socket"))
         )
     except compute.Busy as exc:
-        raise Problem(
-            503, f"The planning capacity is busy ({exc}); retry later.", kind="planning-busy", headers=retry
-        ) from exc
+        raise _busy(exc) from exc
     except compute.Overrun as exc:
         log.warning("computation stopped at its hard limit", extra={"fields": {"path": request.path, "limit": limit}})
         raise Problem(

@@ -23,7 +23,8 @@ So each gunicorn worker keeps its own :class:`Pool` (made on first use, after gu
 
 Tasks and results cross a pipe pickled; a function is sent by reference (module and name), so it
 must be a module-level function. An exception raised by a task is raised again in the caller, with
-its attributes. This module uses the standard library only: it is imported by the fork server.
+its attributes. A daemonic ``multiprocessing`` process cannot host a pool (it may not have children);
+gunicorn's workers are not such processes. This module uses the standard library only: it is imported by the fork server.
 """
 
 from __future__ import annotations
@@ -36,7 +37,7 @@ import queue
 import signal
 import threading
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from multiprocessing.connection import Connection
 from typing import Any
@@ -137,6 +138,23 @@ class Pool:
         for slot in self._slots:
             self._free.put(slot)
 
+    @contextlib.contextmanager
+    def admitted(self) -> Iterator[None]:
+        """A place among the ``processes + queue`` tasks admitted at once, or :class:`Busy` at once.
+
+        A caller may take its place before it does the work that prepares a task (parsing a
+        request body), so that a refused request costs nothing more.
+        """
+        with self._lock:
+            if self._admitted >= self.processes + self.queue:
+                raise Busy("every planning process is busy and the queue is full")
+            self._admitted += 1
+        try:
+            yield
+        finally:
+            with self._lock:
+                self._admitted -= 1
+
     def run(
         self,
         fn: Callable[..., Any],
@@ -147,25 +165,25 @@ class Pool:
         wait: float,
         cancelled: Callable[[], bool] = lambda: False,
     ) -> Any:
-        """``fn(*args, **kwargs)`` in a child, within ``limit`` seconds of starting there."""
-        with self._lock:
-            if self._admitted >= self.processes + self.queue:
-                raise Busy("every planning process is busy and the queue is full")
-            self._admitted += 1
-        try:
-            try:
-                slot = self._free.get(timeout=wait)
-            except queue.Empty:
-                raise Busy(f"no planning process became free within {wait:g} s") from None
-            try:
-                return self._run_on(slot, fn, args, kwargs or {}, limit, cancelled)
-            finally:
-                self._free.put(slot)
-        finally:
-            with self._lock:
-                self._admitted -= 1
+        """``fn(*args, **kwargs)`` in a child, within ``limit`` seconds of starting there.
 
-    def _run_on(self, slot: _Slot, fn, args, kwargs, limit: float, cancelled) -> Any:  # type: ignore[no-untyped-def]
+        Call it inside :meth:`admitted`.
+        """
+        try:
+            slot = self._free.get(timeout=wait)
+        except queue.Empty:
+            raise Busy(f"no planning process became free within {wait:g} s") from None
+        try:
+            return self._run_on(slot, fn, args, kwargs or {}, limit, cancelled)
+        finally:
+            self._free.put(slot)
+
+    def start(self) -> None:
+        """Start the fork server and every child now (gunicorn does it as a worker starts)."""
+        for slot in list(self._free.queue):
+            self._ensure(slot)
+
+    def _ensure(self, slot: _Slot) -> None:
         if not slot.alive():
             slot.stop()
             parent, child = self._context.Pipe()
@@ -173,6 +191,9 @@ class Pool:
             slot.process.start()
             child.close()
             slot.conn = parent
+
+    def _run_on(self, slot: _Slot, fn, args, kwargs, limit: float, cancelled) -> Any:  # type: ignore[no-untyped-def]
+        self._ensure(slot)
         assert slot.conn is not None
         deadline = time.monotonic() + limit
         try:

@@ -28,7 +28,7 @@ from service.cache import LruCache
 from service.errors import PROBLEM_JSON, Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import get_session, read_engine
+from service.persistence.db import get_session, read_engine, read_session
 from service.persistence.models import Plan, Truck
 from service.planning import PlanningInputError, plan_joint
 
@@ -81,14 +81,20 @@ def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
     return response
 
 
-def _record(code: str, body: dict[str, Any]) -> Response:
-    session = get_session()
-    truck = truck_or_404(code, for_update=True)
-    sites = plan_store.sites_for_plan(session, truck)
+def _snapshot(session, code: str, *, for_update: bool = False) -> tuple[Truck, list, dict[str, Any]]:  # type: ignore[no-untyped-def]
+    try:
+        truck = repo.truck_by_code(session, code, for_update=for_update)
+    except repo.NotFound as exc:
+        raise Problem(404, str(exc), kind="not-found") from exc
+    sites = plan_store.sites_for_plan(session, truck) if for_update else repo.active_sites(session, truck)
     if not sites:
         raise Problem(422, f"Truck {code!r} has no active sites to plan.", kind="no-sites")
-    bounded.check_sites(len(sites), "#")
-    inputs = plan_store.snapshot(truck, sites)
+    return truck, sites, plan_store.snapshot(truck, sites)
+
+
+def _planned(inputs: dict[str, Any], body: dict[str, Any]) -> dict[str, Any]:
+    """The joint result for a snapshot, computed in the pool (service.bounded)."""
+    bounded.check_sites(len(inputs["sites"]), "#")
     options = {"method": body["method"], "base_days": body["base_days"], **bounded.planner_options(plan_joint)}
     try:
         result = bounded.run(
@@ -102,6 +108,21 @@ def _record(code: str, body: dict[str, Any]) -> Response:
         raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
     if not result["success"]:
         raise Problem(422, f"No plan: {result['message']}", kind="infeasible")
+    return result
+
+
+def _record(code: str, body: dict[str, Any]) -> Response:
+    # Planned from a snapshot read without locks, so no writer waits while the plan is computed
+    # (on SQLite the write transaction would hold the database's one write lock that long). The
+    # truck and its sites are then locked and read again: a plan records exactly the versions it
+    # was computed from, and when they changed meanwhile it is computed again under the lock.
+    with read_session() as reading:
+        _, _, inputs = _snapshot(reading, code)
+    result = _planned(inputs, body)
+    session = get_session()
+    truck, sites, locked = _snapshot(session, code, for_update=True)
+    if locked != inputs:
+        inputs, result = locked, _planned(locked, body)
     start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
     plan = plan_store.add_plan(
         session,
