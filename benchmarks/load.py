@@ -322,6 +322,15 @@ def joint_body() -> bytes:
     return json.dumps({"dispatch_cost": 150, "truck_capacity": 36000, "max_stops": 10, "sites": sites}).encode()
 
 
+def report_log(name: str, log: str) -> None:
+    """Say which alarming lines the server logged (with the first one's context)."""
+    for marker in ("database is locked", "WORKER TIMEOUT", "Traceback"):
+        if marker in log:
+            at = log.index(marker)
+            context = log[max(0, log.rfind("\n", 0, max(0, at - 300)) + 1) : at + 600]
+            print(f"!! {name}: server log contains {marker!r}:\n{context}", file=sys.stderr)
+
+
 def run_database(
     name: str,
     url: str,
@@ -384,9 +393,7 @@ def run_database(
     out[-1].scenario += f" rows={recorded}"
     if recorded != ok:
         print(f"!! {name}: {recorded} plan rows for {ok} 2xx answers", file=sys.stderr)
-    for marker in ("database is locked", "WORKER TIMEOUT", "Traceback"):
-        if marker in log:
-            print(f"!! {name}: server log contains {marker!r}", file=sys.stderr)
+    report_log(name, log)
     return out
 
 
@@ -614,9 +621,7 @@ def run_bounded(
             "GET weekly trips (300 sites), loaded", name, WEEKLY_CONNECTIONS, seconds, total, ok, errors, lat
         )
         log = (Path(workdir) / "gunicorn.log").read_text(errors="replace")
-    for marker in ("database is locked", "WORKER TIMEOUT", "Traceback"):
-        if marker in log:
-            print(f"!! {name}: server log contains {marker!r}", file=sys.stderr)
+    report_log(name, log)
 
     def merged(parts: list[dict[str, int]]) -> dict[str, int]:
         out: dict[str, int] = {}

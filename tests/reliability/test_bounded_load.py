@@ -65,7 +65,11 @@ def post(connection: http.client.HTTPConnection, token: str, body: bytes) -> htt
 def check_limit_shared_by_workers(database_url: str, tmp_path: Path) -> None:
     tokens = add_tokens(database_url)
     server = start_gunicorn(
-        database_url, tmp_path, workers=2, extra_env={"ULLAGE_REUSE_PORT": "1", "ULLAGE_PLANNING_PER_MINUTE": "3"}
+        database_url,
+        tmp_path,
+        workers=2,
+        extra_env={"ULLAGE_REUSE_PORT": "1", "ULLAGE_PLANNING_PER_MINUTE": "3"},
+        bounds_lifted=False,
     )
     connections = [http.client.HTTPConnection(HOST, server.port, timeout=30) for _ in range(16)]
     try:
@@ -117,7 +121,7 @@ def test_the_weekly_call_answers_while_eight_calculations_plan(tmp_path):
     tokens = add_tokens(url)
     planners = [add_tokens(url, prefix=f"planner{i}")["dispatcher"] for i in range(8)]
     env = {"ULLAGE_PLAN_SECONDS": "2", "ULLAGE_PLAN_GRACE_SECONDS": "1"}
-    server = start_gunicorn(url, tmp_path, workers=2, threads=4, extra_env=env)
+    server = start_gunicorn(url, tmp_path, workers=2, threads=4, extra_env=env, bounds_lifted=False)
     try:
         plan = requests.post(server.url(f"/api/v1/trucks/{TRUCK}/plans"), json={}, headers=bearer(tokens["admin"]))
         assert plan.status_code == 201, plan.text
@@ -196,7 +200,7 @@ def test_a_client_that_leaves_stops_its_computation(tmp_path):
     url = f"sqlite:///{tmp_path / 'leave.db'}"
     migrate(url)
     tokens = add_tokens(url)
-    server = start_gunicorn(url, tmp_path, workers=1, extra_env={"ULLAGE_PLAN_SECONDS": "60"})
+    server = start_gunicorn(url, tmp_path, workers=1, extra_env={"ULLAGE_PLAN_SECONDS": "60"}, bounds_lifted=False)
     try:
         body = heavy_joint()
         client = socket.create_connection((HOST, server.port), timeout=10)
