@@ -63,9 +63,9 @@ class CycleCalculation(MethodView):
 @blp.route("/joint")
 class JointCalculation(MethodView):
     @allow("dispatcher")
+    @bounded.admitted
     @bounded.sites_limited
     @bounded.planning_limited
-    @bounded.admitted
     @blp.arguments(JointRequestSchema)
     @blp.response(200, JointResultSchema)
     @blp.alt_response(422, description="Invalid body, or more sites than ULLAGE_MAX_PLAN_SITES", **PROBLEM)

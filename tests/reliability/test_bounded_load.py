@@ -114,13 +114,16 @@ def test_the_planning_limit_is_shared_by_two_workers_postgresql(tmp_path, pg_mig
 # --- the weekly call during planning -------------------------------------------------------------------
 
 
-def test_the_weekly_call_answers_while_eight_calculations_plan(tmp_path):
+def test_the_weekly_call_answers_while_planning_requests_outnumber_the_threads(tmp_path):
+    # 24 dispatchers against 2 workers × 4 threads, a socket per worker: today's code gave every
+    # thread of both workers a computation of minutes (a worker with fewer than 4 of the 24
+    # connections has probability 2·P(Binomial(24, 1/2) ≤ 3) ≈ 3e-4), and the weekly call waited.
     url = f"sqlite:///{tmp_path / 'weekly.db'}"
     migrate(url)
     load_demo_network(url)
     tokens = add_tokens(url)
-    planners = [add_tokens(url, prefix=f"planner{i}")["dispatcher"] for i in range(8)]
-    env = {"ULLAGE_PLAN_SECONDS": "2", "ULLAGE_PLAN_GRACE_SECONDS": "1"}
+    planners = [add_tokens(url, prefix=f"planner{i}")["dispatcher"] for i in range(24)]
+    env = {"ULLAGE_PLAN_SECONDS": "2", "ULLAGE_PLAN_GRACE_SECONDS": "1", "ULLAGE_REUSE_PORT": "1"}
     server = start_gunicorn(url, tmp_path, workers=2, threads=4, extra_env=env, bounds_lifted=False)
     try:
         plan = requests.post(server.url(f"/api/v1/trucks/{TRUCK}/plans"), json={}, headers=bearer(tokens["admin"]))
