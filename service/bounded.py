@@ -19,7 +19,7 @@ limit (``ULLAGE_MAX_PLAN_SITES``, kind ``too-many-sites``). No free child: 503 `
 **A client that leaves.** Under gunicorn the request's socket is in the WSGI environ
 (``gunicorn.socket``). While the request thread waits for its child it peeks at that socket every
 0.1 s; end-of-file or a reset means the client left, and the child is killed (logged; answered
-499 to nobody). A ``gthread`` worker cannot interrupt a thread, but a thread that only waits can
+499 to nobody). A client that half-closes its side after sending its request counts as gone. A ``gthread`` worker cannot interrupt a thread, but a thread that only waits can
 look: that is why the work is in a child. Without the socket (Flask's test client, another
 server) only the hard limit applies; behind a proxy it works when the proxy closes its upstream
 connection when its client leaves (nginx does, ``proxy_ignore_client_abort off``).
