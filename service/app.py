@@ -8,9 +8,10 @@ from typing import Any
 
 from flask import Flask
 from flask.json.provider import DefaultJSONProvider
+from werkzeug.middleware.proxy_fix import ProxyFix
 
 from service import api, auth, errors, health, metrics, observability, web
-from service.api.blueprint import guard_request
+from service.api.blueprint import guard_request, guard_text
 from service.config import load_settings
 from service.persistence import db
 
@@ -42,11 +43,18 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
         SESSION_COOKIE_SAMESITE="Strict",
         SESSION_COOKIE_NAME="ullage_session",
     )
+    if settings.trusted_proxies:
+        # Behind N proxies: the scheme (so the session cookie gets Secure) and the client address
+        # as the nearest proxy forwards them. gunicorn's own reading of these headers is off
+        # (service/gunicorn_conf.py), so this setting alone decides.
+        n = settings.trusted_proxies
+        app.wsgi_app = ProxyFix(app.wsgi_app, x_for=n, x_proto=n)  # type: ignore[method-assign]
     logging.getLogger("ullage").setLevel(settings.log_level)
     observability.init_app(app)
     db.init_app(app)
     errors.init_app(app)
     auth.init_app(app)
+    app.before_request(guard_text)
     app.before_request(guard_request)
     health.init_app(app)
     api.init_app(app)

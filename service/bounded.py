@@ -19,7 +19,9 @@ limit (``ULLAGE_MAX_PLAN_SITES``, kind ``too-many-sites``). No free child: 503 `
 **A client that leaves.** Under gunicorn the request's socket is in the WSGI environ
 (``gunicorn.socket``). While the request thread waits for its child it peeks at that socket every
 0.1 s; end-of-file or a reset means the client left, and the child is killed (logged; answered
-499 to nobody). A client that half-closes its side after sending its request counts as gone. A ``gthread`` worker cannot interrupt a thread, but a thread that only waits can
+499 to nobody). A client that half-closes its side after sending its request counts as gone. A
+plan POST with an ``Idempotency-Key`` goes on (within the hard limit): its client's retry is to
+get that plan, not to start another computation. A ``gthread`` worker cannot interrupt a thread, but a thread that only waits can
 look: that is why the work is in a child. Without the socket (Flask's test client, another
 server) only the hard limit applies; behind a proxy it works when the proxy closes its upstream
 connection when its client leaves (nginx does, ``proxy_ignore_client_abort off``).
@@ -167,17 +169,20 @@ def admitted(view: F) -> F:
     return wrapper  # type: ignore[return-value]
 
 
-def run(fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
-    """``fn(*args, **kwargs)`` in this worker's pool, within the budget plus its grace."""
+def run(fn: Callable[..., Any], *args: Any, cancellable: bool = True) -> Any:
+    """``fn(*args)`` in this worker's pool, within the budget plus its grace.
+
+    ``cancellable``: stop it when the client leaves (not for a plan POST with an Idempotency-Key,
+    whose client's retry is to get the plan once it is recorded).
+    """
     if not g.get("pool_admitted"):
-        return admitted(run)(fn, *args, **kwargs)
+        return admitted(run)(fn, *args, cancellable=cancellable)
     config = settings()
     budget, limit = config.plan_seconds, config.plan_seconds + config.plan_grace_seconds
     retry = {"Retry-After": str(math.ceil(budget))}
     try:
-        return _pool().run(
-            fn, args, kwargs, limit=limit, wait=limit, cancelled=_client_gone(request.environ.get("gunicorn.socket"))
-        )
+        sock = request.environ.get("gunicorn.socket") if cancellable else None
+        return _pool().run(fn, args, limit=limit, wait=limit, cancelled=_client_gone(sock))
     except compute.Busy as exc:
         raise _busy(exc) from exc
     except compute.Overrun as exc:

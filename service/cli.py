@@ -37,6 +37,28 @@ def db_downgrade(args: argparse.Namespace) -> int:
     return 0
 
 
+def db_backup(args: argparse.Namespace) -> int:
+    from service import backup  # noqa: PLC0415 - keeps `ullage --help` light
+
+    try:
+        print(backup.backup(load_settings().database_url, Path(args.path), force=args.force))
+    except backup.BackupError as exc:
+        print(f"backup failed: {exc}", file=sys.stderr)
+        return 1
+    return 0
+
+
+def db_restore(args: argparse.Namespace) -> int:
+    from service import backup  # noqa: PLC0415
+
+    try:
+        print(backup.restore(Path(args.path), load_settings().database_url, force=args.force))
+    except backup.BackupError as exc:
+        print(f"restore refused: {exc}", file=sys.stderr)
+        return 1
+    return 0
+
+
 def token_create(args: argparse.Namespace) -> int:
     from service.auth import new_token, token_hash  # noqa: PLC0415 - keeps `ullage --help` light
 
@@ -132,6 +154,16 @@ def build_parser() -> argparse.ArgumentParser:
     down = db.add_parser("downgrade", help="migrate back (Alembic)")
     down.add_argument("revision")
     down.set_defaults(func=db_downgrade)
+    bk = db.add_parser(
+        "backup", help="copy the database to PATH while it runs (SQLite backup API; PostgreSQL: pg_dump -Fc)"
+    )
+    bk.add_argument("path")
+    bk.add_argument("--force", action="store_true", help="replace PATH if it exists")
+    bk.set_defaults(func=db_backup)
+    rs = db.add_parser("restore", help="REPLACE everything in the database with the backup at PATH")
+    rs.add_argument("path")
+    rs.add_argument("--force", action="store_true", help="also when the database's schema is newer than the backup's")
+    rs.set_defaults(func=db_restore)
 
     token = sub.add_parser("token", help="API tokens").add_subparsers(dest="token_command", required=True)
     create = token.add_parser("create", help="create a token; prints it once, alone on the last line")

@@ -26,6 +26,9 @@ MAX_TOKEN_CACHE_SECONDS = 5
 MAX_PLAN_SECONDS = 3600
 MAX_PLAN_SITES = 100_000
 
+SECURE_COOKIES = ("auto", "always", "never")
+MAX_TRUSTED_PROXIES = 5
+
 #: Environment variable → settings field.
 ENVIRONMENT = {
     "DATABASE_URL": "database_url",
@@ -46,6 +49,8 @@ ENVIRONMENT = {
     "ULLAGE_LONG_TRIPS_DAYS": "long_trips_days",
     "ULLAGE_PLANNING_PER_MINUTE": "planning_per_minute",
     "ULLAGE_HEAVY_READS_PER_MINUTE": "heavy_reads_per_minute",
+    "ULLAGE_SECURE_COOKIES": "secure_cookies",
+    "ULLAGE_TRUSTED_PROXIES": "trusted_proxies",
     "LOG_LEVEL": "log_level",
 }
 
@@ -93,6 +98,12 @@ class Settings:
     #: Per-token limits per minute (0: none); admins are exempt.
     planning_per_minute: int = 20
     heavy_reads_per_minute: int = 30
+    #: ``Secure`` on the status page's cookie: ``auto`` (when the request came over HTTPS),
+    #: ``always`` or ``never``.
+    secure_cookies: str = "auto"
+    #: Reverse proxies in front of the service whose ``X-Forwarded-Proto``/``-For`` are believed
+    #: (werkzeug's ProxyFix); 0 believes none.
+    trusted_proxies: int = 0
     log_level: str = "INFO"
     testing: bool = False
 
@@ -123,6 +134,12 @@ class Settings:
             )
         if self.max_plan_sites > MAX_PLAN_SITES:
             raise ValueError(f"ULLAGE_MAX_PLAN_SITES must be at most {MAX_PLAN_SITES} (the request schema's own limit)")
+        if self.secure_cookies not in SECURE_COOKIES:
+            raise ValueError(
+                f"ULLAGE_SECURE_COOKIES must be one of {', '.join(SECURE_COOKIES)}, got {self.secure_cookies!r}"
+            )
+        if not 0 <= self.trusted_proxies <= MAX_TRUSTED_PROXIES:
+            raise ValueError(f"ULLAGE_TRUSTED_PROXIES must be 0 to {MAX_TRUSTED_PROXIES}")
         if not 0 <= self.token_cache_seconds <= MAX_TOKEN_CACHE_SECONDS:
             raise ValueError(f"ULLAGE_TOKEN_CACHE_SECONDS must be 0 to {MAX_TOKEN_CACHE_SECONDS}")
         return self

@@ -121,7 +121,8 @@ def handle_http_exception(error: HTTPException) -> Response:
     if status == 400 and request.is_json:
         detail = "The request body is not valid JSON."
     elif errors:
-        detail = "The request is not valid: " + "; ".join(f"{e['pointer']}: {e['detail']}" for e in errors[:5])
+        listed = "; ".join(f"{e['pointer']}: {e['detail'].rstrip('.')}" for e in errors[:5])
+        detail = f"The request is not valid: {listed}."
     else:
         detail = data.get("message") or error.description or HTTPStatus(status).phrase
     if status == 401:
@@ -154,8 +155,13 @@ def _storage_full(error: DBAPIError) -> bool:
     return "database or disk is full" in text or "no space left" in text or "disk full" in text
 
 
+def _locked(error: DBAPIError) -> bool:
+    return "database is locked" in str(getattr(error, "orig", error)).lower()
+
+
 def handle_database(error: DBAPIError) -> Response:
-    """Database unreachable, locked too long or full: 503 (507 when full) with Retry-After."""
+    """Database unreachable, locked longer than busy_timeout, or full: 503 (507 when full) with
+    Retry-After, logged as a warning (an outage is not a bug)."""
     rollback_request_session()
     if _storage_full(error):
         log.error("storage full: %s", type(error.orig).__name__)
@@ -165,7 +171,9 @@ def handle_database(error: DBAPIError) -> Response:
     log.warning("database unavailable: %s", type(getattr(error, "orig", error)).__name__)
     return problem_response(
         503,
-        "The database is not available right now; nothing was recorded. Retry shortly.",
+        "The database is busy with other changes; nothing was recorded. Retry shortly."
+        if _locked(error)
+        else "The database is not available right now; nothing was recorded. Retry shortly.",
         kind="database-unavailable",
         headers={"Retry-After": "2"},
     )

@@ -45,6 +45,9 @@ preload_app = False  # each worker opens its own database connections after the 
 max_requests = 20000
 max_requests_jitter = 2000
 worker_tmp_dir = "/dev/shm" if os.path.isdir("/dev/shm") else None
+# gunicorn believes X-Forwarded-Proto from 127.0.0.1 by default; the app decides that instead
+# (ULLAGE_TRUSTED_PROXIES, werkzeug's ProxyFix), so a local client cannot claim HTTPS.
+secure_scheme_headers: dict[str, str] = {}
 accesslog = None  # the app writes one JSON line per request itself
 errorlog = "-"
 

@@ -3,16 +3,29 @@
 Rules (also in the OpenAPI description and README):
 
 * The key is an sf-string (``"…"``) or a bare token of 1–255 visible ASCII characters; anything
-  else is 400. Keys are scoped to the calling token and kept for 24 hours.
+  else is 400. Keys are scoped to the calling token and kept for 24 hours (:data:`TTL`).
 * The fingerprint is SHA-256 over the method, the path and the canonical JSON body.
 * A claim is recorded in its own short transaction before the work. The work's transaction ends
   by marking the claim done with the response, in the same commit as the plan — so a plan and
   its idempotency record are written together or not at all.
 * Same key, same fingerprint, done → the first response again, with ``Idempotent-Replayed: true``.
-  Same key, different fingerprint → 422. Same key while the first request still holds its claim
-  → 409 with ``Retry-After``. A claim not finished within :data:`LEASE` (its worker died) may be
-  taken over by a retry; the original can then no longer finish (its commit is refused), so a
-  key never records twice.
+  Same key, different fingerprint → 422. Same key while the first request still runs → 409 with
+  ``Retry-After`` (never a second computation); the first retry after it is done gets its response.
+* A live attempt keeps its claim: :class:`Heartbeat` renews the claim's lease every third of
+  :data:`LEASE` while the work runs. Only a claim whose lease ran out — its worker died, or could not
+  reach the database for a whole lease — may be taken over by a retry; the original can then no
+  longer finish (its commit is refused), so a key never records twice. (Before the heartbeat a
+  plan that took longer than the lease was taken over by every retry: 15 copies of one computation
+  ran for one key.) On SQLite the working request holds the database's single write lock from its
+  first statement to its commit, so its renewals cannot land meanwhile; the lock itself is its
+  proof of life: a retry that finds the lease run out answers 409 while the write lock is held
+  (:func:`~service.persistence.db.sqlite_write_lock_held`, which does not wait), and a takeover,
+  which must write, could not happen before the lock is free anyway.
+* Looking a key up is a plain read; only a new key or a takeover writes. So a retry that gets its
+  replay or its 409 never queues behind the writers (on SQLite, behind the running plan itself).
+* Expired records are purged for every token, not only the caller's: at most once per
+  :data:`PURGE_EVERY` per process, at most :data:`PURGE_BATCH` rows at a time, oldest first, in the
+  transaction that records a new claim.
 """
 
 from __future__ import annotations
@@ -20,18 +33,21 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import json
+import logging
 import re
 import secrets
+import threading
+import time
 from dataclasses import dataclass
 
 from flask import Response, current_app
 from sqlalchemy import delete, select, update
-from sqlalchemy.exc import IntegrityError
-from sqlalchemy.orm import Session
+from sqlalchemy.exc import DBAPIError, IntegrityError
+from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Caller
 from service.errors import Problem
-from service.persistence.db import write_intent
+from service.persistence.db import sqlite_write_lock_held, write_intent
 from service.persistence.models import IdempotencyRecord, utcnow
 
 HEADER = "Idempotency-Key"
@@ -39,7 +55,17 @@ KEY = re.compile(r"^[\x21-\x7e]{1,255}$")
 #: An RFC 8941 sf-string of visible characters: ``"…"`` with ``\"`` and ``\\`` the only escapes.
 SF_STRING = re.compile(r'^"((?:[\x21\x23-\x5b\x5d-\x7e]|\\["\\])*)"$')
 TTL = dt.timedelta(hours=24)
+#: How long a claim stays valid without a renewal; :class:`Heartbeat` renews it every third of it.
 LEASE = dt.timedelta(seconds=15)
+#: Expired records are purged at most this often per process ...
+PURGE_EVERY = dt.timedelta(minutes=5)
+#: ... and at most this many at a time (a bounded transaction; a backlog goes in a few purges).
+PURGE_BATCH = 1000
+
+log = logging.getLogger("ullage.idempotency")
+_clock = time.monotonic  # the purge's clock (tests move it instead of waiting)
+_purge_lock = threading.Lock()
+_last_purge = [float("-inf")]  # _clock() at this process's last purge
 
 
 @dataclass(frozen=True)
@@ -88,67 +114,176 @@ def _replay(row: IdempotencyRecord) -> Response:
     return response
 
 
-def begin(caller: Caller, key: str, method: str, path: str, body: bytes) -> Claim | Response:
-    """Claim ``key`` for this request, or answer from an earlier one."""
-    print_ = fingerprint(method, path, body)
-    now = utcnow()
-    for _attempt in range(2):
-        with _own_session() as session:
-            session.execute(
-                delete(IdempotencyRecord).where(
-                    IdempotencyRecord.token_id == caller.token_id, IdempotencyRecord.created_at < now - TTL
-                )
-            )
-            statement = select(IdempotencyRecord).where(
-                IdempotencyRecord.token_id == caller.token_id, IdempotencyRecord.idempotency_key == key
-            )
-            if session.get_bind().dialect.name == "postgresql":
-                statement = statement.with_for_update()
-            row = session.scalars(statement).one_or_none()
-            claim = secrets.token_hex(16)
-            if row is None:
-                row = IdempotencyRecord(
-                    token_id=caller.token_id,
-                    idempotency_key=key,
-                    method=method,
-                    path=path,
-                    body_sha256=print_,
-                    state="in_progress",
-                    claim=claim,
-                    claimed_at=now,
-                    created_at=now,
-                )
-                session.add(row)
-                try:
-                    session.commit()
-                except IntegrityError:
-                    session.rollback()
-                    continue  # a concurrent request inserted the key first: look again
-                return Claim(row.id, claim)
-            if row.body_sha256 != print_:
-                raise Problem(
-                    422,
-                    "This Idempotency-Key was used with a different request; use a new key.",
-                    kind="idempotency-key-reused",
-                )
-            if row.state == "done":
-                return _replay(row)
-            if now - row.claimed_at < LEASE:
-                raise Problem(
-                    409,
-                    "A request with this Idempotency-Key is still being processed; retry shortly.",
-                    kind="idempotency-in-progress",
-                    headers={"Retry-After": "1"},
-                )
-            row.claim, row.claimed_at = claim, now
-            session.commit()
-            return Claim(row.id, claim)
-    raise Problem(
+def _in_progress() -> Problem:
+    return Problem(
         409,
         "A request with this Idempotency-Key is still being processed; retry shortly.",
         kind="idempotency-in-progress",
         headers={"Retry-After": "1"},
     )
+
+
+def _answer(row: IdempotencyRecord, print_: str, now: dt.datetime) -> Response | None:
+    """What a live record answers: its replay, 422 or 409; ``None`` when its claim may be taken over."""
+    if row.body_sha256 != print_:
+        raise Problem(
+            422,
+            "This Idempotency-Key was used with a different request; use a new key.",
+            kind="idempotency-key-reused",
+        )
+    if row.state == "done":
+        return _replay(row)
+    if now - row.claimed_at < LEASE:
+        raise _in_progress()
+    return None
+
+
+def _lookup(caller: Caller, key: str, now: dt.datetime) -> IdempotencyRecord | None:
+    """The caller's unexpired record of ``key``, read without a lock (SQLite: a deferred BEGIN)."""
+    intent = write_intent.set(False)
+    try:
+        with current_app.extensions["ullage.sessionmaker"]() as session:
+            return session.scalars(
+                select(IdempotencyRecord).where(
+                    IdempotencyRecord.token_id == caller.token_id,
+                    IdempotencyRecord.idempotency_key == key,
+                    IdempotencyRecord.created_at >= now - TTL,
+                )
+            ).one_or_none()
+    finally:
+        write_intent.reset(intent)
+
+
+def purge_expired(session: Session, now: dt.datetime) -> int:
+    """Delete up to :data:`PURGE_BATCH` records older than :data:`TTL`, of any token, oldest first.
+
+    Runs at most once per :data:`PURGE_EVERY` in this process (``0`` otherwise); never commits.
+    """
+    with _purge_lock:
+        if _clock() - _last_purge[0] < PURGE_EVERY.total_seconds():
+            return 0
+        _last_purge[0] = _clock()
+    oldest = (
+        select(IdempotencyRecord.id)
+        .where(IdempotencyRecord.created_at < now - TTL)
+        .order_by(IdempotencyRecord.created_at)
+        .limit(PURGE_BATCH)
+    )
+    ids = list(session.scalars(oldest))
+    if ids:
+        session.execute(delete(IdempotencyRecord).where(IdempotencyRecord.id.in_(ids)))
+    return len(ids)
+
+
+def begin(caller: Caller, key: str, method: str, path: str, body: bytes) -> Claim | Response:
+    """Claim ``key`` for this request, or answer from an earlier one."""
+    print_ = fingerprint(method, path, body)
+    now = utcnow()
+    seen = _lookup(caller, key, now)
+    if seen is not None:
+        answer = _answer(seen, print_, now)
+        if answer is not None:
+            return answer
+        engine = current_app.extensions["ullage.engine"]
+        if engine.dialect.name == "sqlite" and sqlite_write_lock_held(engine):
+            raise _in_progress()  # the attempt holding the claim still holds the write lock: alive
+    for _attempt in range(2):
+        try:
+            with _own_session() as session:
+                return _claim(session, caller, key, method, path, print_, now)
+        except IntegrityError:
+            continue  # a concurrent request inserted the key first: look again
+    raise _in_progress()
+
+
+def _claim(
+    session: Session, caller: Caller, key: str, method: str, path: str, print_: str, now: dt.datetime
+) -> Claim | Response:
+    """Purge (its own commit), then in one write transaction insert the claim, replay, refuse or take over."""
+    if purge_expired(session, now):
+        session.commit()
+    statement = select(IdempotencyRecord).where(
+        IdempotencyRecord.token_id == caller.token_id, IdempotencyRecord.idempotency_key == key
+    )
+    if session.get_bind().dialect.name == "postgresql":
+        statement = statement.with_for_update()
+    row = session.scalars(statement).one_or_none()
+    if row is not None and row.created_at < now - TTL:
+        session.delete(row)
+        session.flush()
+        row = None
+    claim = secrets.token_hex(16)
+    if row is None:
+        row = IdempotencyRecord(
+            token_id=caller.token_id,
+            idempotency_key=key,
+            method=method,
+            path=path,
+            body_sha256=print_,
+            state="in_progress",
+            claim=claim,
+            claimed_at=now,
+            created_at=now,
+        )
+        session.add(row)
+        session.commit()
+        return Claim(row.id, claim)
+    answer = _answer(row, print_, now)
+    if answer is not None:
+        return answer
+    row.claim, row.claimed_at = claim, now
+    session.commit()
+    return Claim(row.id, claim)
+
+
+class Heartbeat:
+    """Renews a claim's lease from a background thread while its request works.
+
+    Every ``LEASE / 3`` it sets ``claimed_at`` to now, in its own short transaction, where the claim
+    is still this attempt's and still in progress; once it is not (done, or taken over) it stops.
+    A failed renewal (database unreachable; on SQLite, the working request's own write lock) is
+    tried again at the next beat: two may fail before the lease runs out. :meth:`stop` must come
+    after the request's transaction has ended — a renewal may be waiting for that transaction's
+    lock on the record.
+    """
+
+    def __init__(self, factory: sessionmaker[Session], claim: Claim) -> None:
+        self._factory, self._claim = factory, claim
+        self._interval = LEASE.total_seconds() / 3
+        self._stopped = threading.Event()
+        self._thread = threading.Thread(target=self._run, name=f"idempotency-heartbeat-{claim.record_id}", daemon=True)
+        self._thread.start()
+
+    @classmethod
+    def start(cls, claim: Claim) -> Heartbeat:
+        return cls(current_app.extensions["ullage.sessionmaker"], claim)
+
+    def _run(self) -> None:
+        while not self._stopped.wait(self._interval):
+            try:
+                if not self._renew():
+                    return
+            except DBAPIError as exc:
+                if "database is locked" not in str(exc.orig):  # SQLite: held by the request itself
+                    log.warning("idempotency lease not renewed: %s", type(exc.orig).__name__)
+
+    def _renew(self) -> bool:
+        with self._factory() as session:
+            renewed = session.execute(
+                update(IdempotencyRecord)
+                .where(
+                    IdempotencyRecord.id == self._claim.record_id,
+                    IdempotencyRecord.claim == self._claim.claim,
+                    IdempotencyRecord.state == "in_progress",
+                )
+                .values(claimed_at=utcnow())
+            )
+            session.commit()
+        return renewed.rowcount == 1
+
+    def stop(self) -> None:
+        self._stopped.set()
+        self._thread.join(timeout=LEASE.total_seconds())
 
 
 def finish(session: Session, claim: Claim, response: Response) -> None:

@@ -6,6 +6,12 @@ API and by the status page, so both always show the same numbers.
 Day ``k`` of a plan's calendar is ``start_date + k`` days; trips before the start date do not
 exist. Quantities are corrected from the latest reading of each site (service.planning.projection).
 Stops are listed in the plan's order (site code order).
+
+Current limits always win over the plan's snapshot: the projection gets each site's current
+demand, safe-fill level and safety stock and the truck's current capacity and ``max_stops``; a
+site that is now inactive, deleted or on another truck gets no stop. A stop whose quantity a
+changed limit cut carries a ``limits_changed`` notice naming the field and both values; a stop
+dropped for ``max_stops`` and a site taken out are reported the same way at the top level.
 """
 
 from __future__ import annotations
@@ -16,14 +22,21 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from zoneinfo import ZoneInfo
 
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.config import Settings
 from service.persistence import plans as plan_store
 from service.persistence.models import Plan, Site, Truck, utcnow
 from service.planning import trips_between
-from service.planning.projection import TOLERANCE, CorrectedStop, PlannedTrip, Projection, Tank, day_start
+from service.planning.projection import (
+    TOLERANCE,
+    CorrectedStop,
+    CorrectedTrip,
+    PlannedTrip,
+    Projection,
+    Tank,
+    day_start,
+)
 
 WEEK = re.compile(r"^([0-9]{4})-W([0-9]{2})$")
 #: Readings older than this many days before the window are not replayed (the projection would
@@ -41,7 +54,7 @@ class NoActivePlan(LookupError):
 
 @dataclass(frozen=True)
 class Notice:
-    kind: str  # run_out_risk | plan_stale | no_recent_reading | no_active_plan
+    kind: str  # run_out_risk | limits_changed | plan_stale | no_recent_reading | no_active_plan
     message: str
     site: str | None = None
     date: dt.date | None = None
@@ -125,8 +138,8 @@ def current_week(settings: Settings) -> str:
     return week_of(today(settings))
 
 
-def summary(session: Session, plan: Plan) -> PlanSummary:
-    stale, changed = plan_store.staleness(session, plan)
+def summary(session: Session, plan: Plan, drift: plan_store.Drift | None = None) -> PlanSummary:
+    drift = drift or plan_store.drift(session, plan)
     r = plan.result
     return PlanSummary(
         plan.id,
@@ -136,8 +149,8 @@ def summary(session: Session, plan: Plan) -> PlanSummary:
         r["lower_bound_per_day"],
         r["gap"],
         plan.start_date,
-        stale,
-        tuple(changed),
+        drift.stale,
+        tuple(drift.changed_sites),
     )
 
 
@@ -150,40 +163,112 @@ def _run_out_notice(site: str, name: str, date: dt.date) -> Notice:
     )
 
 
+def amount(value: float | None) -> str:
+    """A number for a message: at most three decimals, no trailing zeros ("none" for no limit)."""
+    if value is None:
+        return "none"
+    text = f"{value:.3f}".rstrip("0").rstrip(".")
+    return "0" if text == "-0" else text
+
+
+#: The site fields that set the room below the safe fill (safety stock: without a projected level).
+ROOM_FIELDS = ("tank_capacity", "safe_fill", "safety_stock")
+#: Fields measured in the service's quantity unit (the others are counts, fractions or money).
+QUANTITY_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock", "capacity")
+
+
+def _value(value: object) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int | float):
+        return amount(value)
+    return "none" if value is None else repr(value)
+
+
+def _changed(field: str, recorded: object, current: object, unit: str) -> str:
+    """``tank_capacity changed from 8000 to 3000 L`` (the unit only for quantity fields)."""
+    suffix = f" {unit}" if field in QUANTITY_FIELDS else ""
+    return f"{field} changed from {_value(recorded)} to {_value(current)}{suffix}"
+
+
+def _describe(change: plan_store.Change, unit: str) -> str:
+    """One change of the plan's inputs, for the staleness notice."""
+    if change.field == "added":
+        return "added to the truck"
+    if change.field == "deleted":
+        return "deleted"
+    if change.field == "truck":
+        return f"moved to truck {change.current}"
+    if change.field == "active":
+        return "no longer active"
+    if change.field == "edited":
+        return "edited (fields the plan does not use)"
+    return _changed(change.field, change.recorded, change.current, unit)
+
+
+def _stale_notice(plan: Plan, changes: Sequence[plan_store.Change], unit: str) -> Notice:
+    """``plan_stale`` naming each changed field of each site and of the truck."""
+    parts: dict[str, list[str]] = {}
+    for change in changes:
+        who = f"truck {change.code}" if change.subject == "truck" else change.code
+        parts.setdefault(who, []).append(_describe(change, unit))
+    which = "; ".join(f"{who}: {', '.join(texts)}" for who, texts in parts.items())
+    return Notice("plan_stale", f"Plan {plan.id} is stale (re-plan to use the current parameters): {which}.")
+
+
 @dataclass
 class _Replay:
     plan: Plan
+    truck: Truck
     projection: Projection
-    trips: list
+    trips: list[CorrectedTrip]
     names: dict[str, str]
     recent: dict[str, bool]
     stale_days: int
     summary: PlanSummary
+    drift: plan_store.Drift
+    recorded: dict[str, dict]
+    #: Sites of the plan that get no stop (inactive, deleted, moved), with their planned dates.
+    removed: dict[str, list[dt.date]]
+    unit: str
+    #: Sites whose tank_capacity, safe_fill or safety_stock changed, and whether the truck shrank:
+    #: only their stops can carry a stop-level limits_changed.
+    room_changed: frozenset[str]
+    capacity_shrank: bool
 
 
-def _replay(session: Session, plan: Plan, first: dt.date, last: dt.date, settings: Settings) -> _Replay:
+def _served(plan: Plan, drift: plan_store.Drift) -> dict[str, Site]:
+    """The plan's sites that still exist, are active and are on the plan's truck."""
+    recorded = {s["code"] for s in plan.inputs["sites"]}
+    return {
+        code: site
+        for code, site in drift.sites.items()
+        if code in recorded and site.active and site.truck_id == plan.truck_id
+    }
+
+
+def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt.date, settings: Settings) -> _Replay:
     zone = ZoneInfo(settings.timezone)
     result = plan_store.result_of(plan)
-    truck_snapshot = plan.inputs["truck"]
+    drift = plan_store.drift(session, plan)
     recorded = {s["code"]: s for s in plan.inputs["sites"]}
     cycles = {s.code: s.cycle_days for s in result.sites}
-    current = {s.code: s for s in session.scalars(select(Site).where(Site.code.in_(list(recorded))))}
-    readings = plan_store.latest_readings(session, [s.id for s in current.values()])
+    served = _served(plan, drift)
+    readings = plan_store.latest_readings(session, [s.id for s in served.values()])
     horizon = day_start(first, zone) - dt.timedelta(days=LOOKBACK_DAYS)
     stale_before = day_start(today(settings), zone) - dt.timedelta(days=settings.reading_stale_days)
     tanks, recent = [], {}
-    for code, s in recorded.items():
-        site = current.get(code)
-        reading = readings.get(site.id) if site is not None else None
+    for code, site in served.items():
+        reading = readings.get(site.id)
         if reading is not None and reading.measured_at < horizon:
             reading = None
         recent[code] = reading is not None and reading.measured_at >= stale_before
         tanks.append(
             Tank(
                 code,
-                s["demand_per_day"],
-                s["safe_fill"] * s["tank_capacity"],
-                s["safety_stock"],
+                site.demand_per_day,
+                site.safe_fill * site.tank_capacity,
+                site.safety_stock,
                 cycles[code],
                 reading.level if reading else None,
                 reading.measured_at if reading else None,
@@ -192,31 +277,142 @@ def _replay(session: Session, plan: Plan, first: dt.date, last: dt.date, setting
     starts = [t.reading_at.astimezone(zone).date() for t in tanks if t.reading_at is not None]
     sim_first = max(plan.start_date, min([first, *starts]))
     sim_last = max(last, sim_first)
-    capacity = truck_snapshot["capacity"]
-    projection = Projection(tanks, capacity, zone)
+    projection = Projection(tanks, truck.capacity, zone, truck.max_stops)
     planned: list[PlannedTrip] = []
+    removed: dict[str, list[dt.date]] = {}
     if sim_last >= plan.start_date:
         for trip in trips_between(
             result,
-            plan_store.truck_input(truck_snapshot),
+            plan_store.truck_input(plan.inputs["truck"]),
             (sim_first - plan.start_date).days,
             (sim_last - plan.start_date).days,
         ):
-            planned.append(
-                PlannedTrip(
-                    plan.start_date + dt.timedelta(days=trip.day), tuple((s.code, s.quantity) for s in trip.stops)
-                )
-            )
+            date = plan.start_date + dt.timedelta(days=trip.day)
+            for stop in trip.stops:
+                if stop.code not in served:
+                    removed.setdefault(stop.code, []).append(date)
+            stops = tuple((s.code, s.quantity) for s in trip.stops if s.code in served)
+            if stops:
+                planned.append(PlannedTrip(date, stops))
     corrected = projection.correct(planned)
     projection.finish(day_start(last + dt.timedelta(days=1), zone))
-    names = {code: s["name"] for code, s in recorded.items()}
-    return _Replay(plan, projection, corrected, names, recent, settings.reading_stale_days, summary(session, plan))
+    names = {code: (drift.sites[code].name if code in drift.sites else s["name"]) for code, s in recorded.items()}
+    return _Replay(
+        plan,
+        truck,
+        projection,
+        corrected,
+        names,
+        recent,
+        settings.reading_stale_days,
+        summary(session, plan, drift),
+        drift,
+        recorded,
+        removed,
+        settings.quantity_unit,
+        frozenset(c.code for c in drift.changes if c.subject == "site" and c.field in ROOM_FIELDS),
+        truck.capacity < plan.inputs["truck"]["capacity"],
+    )
 
 
-def _stop(replay: _Replay, stop: CorrectedStop) -> PlannedStop:
+def _limit_notices_of(replay: _Replay, stop: CorrectedStop, date: dt.date) -> list[Notice]:
+    """``limits_changed`` for each limit that changed since the plan and cut this stop's quantity.
+
+    The room below the safe fill first (from ``min(wanted, recorded room)`` to ``min(wanted, room)``),
+    then the truck's free space (from there to the quantity) when the truck's capacity shrank.
+    """
+    unit, out = replay.unit, []
+    if not replay.capacity_shrank and stop.site not in replay.room_changed:
+        return out
+    snap, site = replay.recorded[stop.site], replay.drift.sites[stop.site]
+    # Without a projected level the room is measured from the safety stock, so it counts too.
+    base = snap["safety_stock"] if stop.projected_level_before is None else stop.projected_level_before
+    fields = ROOM_FIELDS if stop.projected_level_before is None else ROOM_FIELDS[:2]
+    changed = [_changed(f, snap[f], getattr(site, f), unit) for f in fields if snap[f] != getattr(site, f)]
+    allowed = max(0.0, min(stop.wanted, snap["safe_fill"] * snap["tank_capacity"] - base))
+    within_room = max(0.0, min(stop.wanted, stop.room))
+    if changed and within_room < allowed - TOLERANCE:
+        out.append(
+            Notice(
+                "limits_changed",
+                f"{replay.names[stop.site]} ({stop.site}): {'; '.join(changed)}; quantity cut from "
+                f"{amount(allowed)} to {amount(within_room)} {unit} to stay below the safe fill.",
+                stop.site,
+                date,
+            )
+        )
+    recorded_capacity = replay.plan.inputs["truck"]["capacity"]
+    if replay.capacity_shrank and stop.quantity < within_room - TOLERANCE:
+        out.append(
+            Notice(
+                "limits_changed",
+                f"truck {replay.truck.code}: {_changed('capacity', recorded_capacity, replay.truck.capacity, unit)}; "
+                f"quantity cut from {amount(within_room)} to {amount(stop.quantity)} {unit} so the load fits "
+                "the truck.",
+                stop.site,
+                date,
+            )
+        )
+    return out
+
+
+def _stop(replay: _Replay, stop: CorrectedStop, date: dt.date) -> PlannedStop:
     name = replay.names[stop.site]
-    notices = (_run_out_notice(stop.site, name, stop.run_out.date),) if stop.run_out else ()
-    return PlannedStop(stop.site, name, stop.planned_quantity, stop.quantity, stop.projected_level_before, notices)
+    notices = [_run_out_notice(stop.site, name, stop.run_out.date)] if stop.run_out else []
+    notices.extend(_limit_notices_of(replay, stop, date))
+    return PlannedStop(
+        stop.site, name, stop.planned_quantity, stop.quantity, stop.projected_level_before, tuple(notices)
+    )
+
+
+def _removed_reason(replay: _Replay, code: str) -> str:
+    site = replay.drift.sites.get(code)
+    if site is None:
+        return "the site was deleted"
+    if site.truck_id != replay.plan.truck_id:
+        moved = next(c for c in replay.drift.changes if c.code == code and c.field == "truck")
+        return f"truck changed from {moved.recorded} to {moved.current}"
+    return "active changed from true to false"
+
+
+def _limit_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None) -> list[Notice]:
+    """Stops the current limits take away: sites taken out, and stops beyond ``max_stops``."""
+    out = []
+    for code, dates in sorted(replay.removed.items()):
+        shown = [d for d in dates if first <= d <= last]
+        if not shown or (only is not None and code != only):
+            continue
+        if len(shown) == 1:
+            which = f"its planned delivery on {shown[0].isoformat()} gets"
+        else:
+            which = f"its {len(shown)} planned deliveries from {shown[0].isoformat()} to {shown[-1].isoformat()} get"
+        out.append(
+            Notice(
+                "limits_changed",
+                f"{replay.names[code]} ({code}): {_removed_reason(replay, code)}; {which} no stop.",
+                code,
+                shown[0],
+            )
+        )
+    recorded_stops = replay.plan.inputs["truck"]["max_stops"]
+    for trip in replay.trips:
+        if not first <= trip.date <= last:
+            continue
+        for code in trip.dropped:
+            if only is not None and code != only:
+                continue
+            out.append(
+                Notice(
+                    "limits_changed",
+                    f"truck {replay.truck.code}: {_changed('max_stops', recorded_stops, replay.truck.max_stops, '')}; "
+                    f"{replay.names[code]} ({code}) is dropped from the trip of {trip.date.isoformat()} "
+                    "(the sites with the fewest days of stock keep their stops); "
+                    "deliver it on another trip or re-plan.",
+                    code,
+                    trip.date,
+                )
+            )
+    return out
 
 
 def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
@@ -236,10 +432,9 @@ def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = 
         earliest[run_out.site] = min(earliest.get(run_out.site, shown), shown)
     for site, date in sorted(earliest.items(), key=lambda item: (item[1], item[0])):
         out.append(_run_out_notice(site, replay.names[site], date))
-    plan_summary = replay.summary
-    if plan_summary.stale and only is None:
-        which = ", ".join(plan_summary.changed_sites) or "the truck's own parameters"
-        out.append(Notice("plan_stale", f"Plan {replay.plan.id} is stale: changed since it was computed: {which}."))
+    out.extend(_limit_notices(replay, first, last, only))
+    if replay.summary.stale and only is None:
+        out.append(_stale_notice(replay.plan, replay.drift.changes, replay.unit))
     for code, is_recent in sorted(replay.recent.items()):
         if not is_recent and (only is None or code == only):
             # An older reading (within LOOKBACK_DAYS) is still projected; say so instead of "planned".
@@ -261,18 +456,19 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
     plan = plan_store.active_plan(session, truck)
     if plan is None:
         raise NoActivePlan(truck.code)
-    replay = _replay(session, plan, first, last, settings)
-    capacity = plan.inputs["truck"]["capacity"]
+    replay = _replay(session, plan, truck, first, last, settings)
     trips = tuple(
-        DayTrip(t.date, t.load, capacity, tuple(_stop(replay, s) for s in t.stops))
+        DayTrip(t.date, t.load, truck.capacity, tuple(_stop(replay, s, t.date) for s in t.stops))
         for t in replay.trips
         if first <= t.date <= last
     )
     return TripsView(truck.code, replay.summary, first, last, trips, tuple(_notices(replay, first, last)))
 
 
-def _unplanned_levels(session: Session, site: Site, dates: list[dt.date], zone: ZoneInfo) -> SiteLevels:
-    """A site in no active plan: its reading falling at ``demand_per_day``, no deliveries."""
+def _unplanned_levels(
+    session: Session, site: Site, dates: list[dt.date], zone: ZoneInfo, notice: Notice | None = None
+) -> SiteLevels:
+    """A site the active plan does not serve: its reading falling at ``demand_per_day``, no deliveries."""
     reading = plan_store.latest_readings(session, [site.id]).get(site.id)
     safe_fill_level = site.safe_fill * site.tank_capacity
     tank = Tank(
@@ -286,7 +482,7 @@ def _unplanned_levels(session: Session, site: Site, dates: list[dt.date], zone: 
     )
     alone = Projection([tank], 0.0, zone)
     levels = tuple((d, alone.level_before(site.code, day_start(d, zone))) for d in dates)
-    notice = Notice(
+    notice = notice or Notice(
         "no_active_plan", f"{site.name} ({site.code}) is in no active plan; no deliveries are planned.", site.code
     )
     return SiteLevels(site.code, levels, (), safe_fill_level, site.safety_stock, site.tank_capacity, (notice,))
@@ -301,11 +497,25 @@ def truck_levels(
     dates = [first + dt.timedelta(days=k) for k in range(days)]
     plan = plan_store.active_plan(session, truck)
     recorded = {s["code"]: s for s in plan.inputs["sites"]} if plan is not None else {}
-    replay = _replay(session, plan, first, last, settings) if any(s.code in recorded for s in sites) else None
+    replay = _replay(session, plan, truck, first, last, settings) if any(s.code in recorded for s in sites) else None
     out = {}
     for site in sites:
         if replay is None or site.code not in recorded:
             out[site.code] = _unplanned_levels(session, site, dates, zone)
+            continue
+        if site.code not in replay.projection.tanks:
+            out[site.code] = _unplanned_levels(
+                session,
+                site,
+                dates,
+                zone,
+                Notice(
+                    "limits_changed",
+                    f"{site.name} ({site.code}): {_removed_reason(replay, site.code)}; the active plan "
+                    f"{plan.id} still lists it, but it gets no stop.",
+                    site.code,
+                ),
+            )
             continue
         levels = tuple((d, replay.projection.level_before(site.code, day_start(d, zone))) for d in dates)
         deliveries = tuple(
@@ -315,15 +525,23 @@ def truck_levels(
             for s in t.stops
             if s.site == site.code
         )
-        snapshot = recorded[site.code]
+        stop_notices = [
+            n
+            for t in replay.trips
+            if first <= t.date <= last
+            for s in t.stops
+            if s.site == site.code
+            for n in _stop(replay, s, t.date).notices
+            if n.kind == "limits_changed"
+        ]
         out[site.code] = SiteLevels(
             site.code,
             levels,
             deliveries,
-            snapshot["safe_fill"] * snapshot["tank_capacity"],
-            snapshot["safety_stock"],
-            snapshot["tank_capacity"],
-            tuple(_notices(replay, first, last, only=site.code)),
+            site.safe_fill * site.tank_capacity,
+            site.safety_stock,
+            site.tank_capacity,
+            tuple(_notices(replay, first, last, only=site.code) + stop_notices),
         )
     return out
 

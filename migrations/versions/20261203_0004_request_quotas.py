@@ -1,7 +1,7 @@
 """request quotas: per-token counters of the rate limits on expensive routes
 
 Revision ID: 0004
-Revises: 0002
+Revises: 0003
 Create Date: 2026-12-03 17:06:31
 
 See ``service.persistence.models.RequestQuota`` and ``service.bounded``. Not watched by the
@@ -14,7 +14,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision: str = "0004"
-down_revision: str | Sequence[str] | None = "0002"
+down_revision: str | Sequence[str] | None = "0003"
 branch_labels: str | Sequence[str] | None = None
 depends_on: str | Sequence[str] | None = None
 

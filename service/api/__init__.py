@@ -8,6 +8,7 @@ from flask import Flask
 from flask_smorest import Api as SmorestApi
 from flask_smorest.utils import prepare_response
 
+from service.api.fields import IdConverter
 from service.api.schemas.problem import ProblemSchema
 from service.errors import PROBLEM_JSON, handle_http_exception
 
@@ -54,6 +55,7 @@ def init_app(app: Flask) -> Api:
             "security": [{"bearer": []}],
         },
     )
+    app.url_map.converters["id"] = IdConverter  # plan ids in paths: 1 to fields.ID_MAX
     api = Api(app)
     for module in (settings, trucks, sites, calculations, plans, readings):
         api.register_blueprint(module.blp, url_prefix=API_PREFIX + module.PREFIX)

@@ -1,7 +1,10 @@
 """Strong ETags from a row's ``version`` (RFC 9110 §8.8.3, §13.1).
 
 ``If-Match`` uses the strong comparison: a mismatch is 412, a missing header on a change is 428
-(RFC 6585 §3). ``If-None-Match`` on a read answers 304.
+(RFC 6585 §3). ``If-Match: *`` is refused with 428 too: RFC 9110 §13.1.1 lets it match any current
+version, so two clients sending it overwrite each other's changes (a lost update, which this
+service promises never to allow); a change must name the ETag it was based on.
+``If-None-Match`` on a read answers 304.
 """
 
 from __future__ import annotations
@@ -33,8 +36,9 @@ IF_MATCH_PARAMETER = {
     "in": "header",
     "name": "If-Match",
     "required": True,
-    "schema": {"type": "string"},
-    "description": "The ETag of your last GET of this resource (412 when it moved on).",
+    # Any list of tags but one with `*` in it (which require_if_match refuses with 428).
+    "schema": {"type": "string", "not": {"pattern": r"^(.*,)?\s*\*\s*(,.*)?$"}},
+    "description": "The ETag of your last GET of this resource (412 when it moved on; `*` is refused with 428).",
 }
 
 
@@ -46,7 +50,14 @@ def require_if_match(etag: str) -> None:
             428, "Send If-Match with the ETag from your last GET of this resource.", kind="precondition-required"
         )
     tags = _tags(header)
-    if "*" in tags or etag in tags:
+    if "*" in tags:
+        raise Problem(
+            428,
+            "If-Match: * is not enough here: send the current ETag from your last GET of this resource, "
+            "so that a change made since then is not overwritten.",
+            kind="precondition-required",
+        )
+    if etag in tags:
         return
     raise Problem(
         412,

@@ -1,16 +1,71 @@
-"""Strict JSON number fields: no strings for numbers, no booleans, no NaN/Infinity, no truncation.
+"""Strict input fields, and the ranges every input shares.
 
-Plain marshmallow coerces ``"5"`` to 5 and truncates ``12.7`` to 12 for integers
+Numbers: plain marshmallow coerces ``"5"`` to 5 and truncates ``12.7`` to 12 for integers
 (measured, conventions-and-reliability.md B.3); these fields refuse both.
+
+Ranges stated once, here, so that no input reaches the database or the date arithmetic that
+either cannot hold (each used to answer 500, or 503 "not available" from PostgreSQL):
+
+* ids: :data:`ID_MAX`, the largest value of their column type (:class:`IdConverter` in paths,
+  :class:`IdKey` in queries);
+* text: :func:`storable`, applied to every string field of a ``StrictSchema``, and to every path
+  and query value by ``service.api.blueprint.guard_text``;
+* dates: :data:`FIRST_DATE` … :data:`LAST_DATE` (:class:`BoundedDate`, :class:`BoundedAwareDateTime`,
+  :data:`WEEK_PATTERN`).
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 import numbers
+import re
 from typing import Any
 
 import marshmallow as ma
+from werkzeug.routing import IntegerConverter
+
+#: Ids are ``integer`` columns: 4 bytes on PostgreSQL, so none is above 2^31 − 1, and PostgreSQL
+#: refuses a larger parameter ("integer out of range") instead of finding nothing.
+ID_MAX = 2**31 - 1
+
+#: What no text column can hold: U+0000 (PostgreSQL's text types refuse NUL) and the surrogate
+#: code points U+D800–U+DFFF (not characters: UTF-8, which both databases store, cannot encode one
+#: alone; JSON can still spell them as ``"\ud800"``).
+UNSTORABLE = re.compile("[\x00\ud800-\udfff]")
+#: The same rule as a JSON Schema pattern, for the OpenAPI document of free-text fields.
+STORABLE_PATTERN = r"^[^\u0000\ud800-\udfff]*$"
+
+#: Every date the service accepts. Far enough from Python's ``date.min``/``date.max`` that the
+#: date arithmetic behind an answer (trips windows, the readings look-back, cycles of up to
+#: 3 660 days after a plan's start) cannot overflow; wide enough for any real plan or reading.
+FIRST_DATE = dt.date(1970, 1, 1)
+LAST_DATE = dt.date(2200, 12, 31)
+DATE_RANGE = f"between {FIRST_DATE.isoformat()} and {LAST_DATE.isoformat()}"
+#: ISO 8601 weeks of the years FIRST_DATE.year to LAST_DATE.year (1970-W01 to 2200-W52; the
+#: pattern states the same years, so the OpenAPI document shows them).
+WEEK_PATTERN = r"^(19[7-9][0-9]|20[0-9]{2}|21[0-9]{2}|2200)-W(0[1-9]|[1-4][0-9]|5[0-3])$"
+WEEK_RANGE = f"from {FIRST_DATE.year}-W01 to {LAST_DATE.year}-W52"
+
+
+def unstorable(text: str) -> str | None:
+    """The first character of ``text`` that cannot be stored, described for a person; ``None`` if none."""
+    match = UNSTORABLE.search(text)
+    if match is None:
+        return None
+    code = ord(match[0])
+    return "a NUL character (U+0000)" if code == 0 else f"a lone surrogate (U+{code:04X})"
+
+
+def storable(value: str) -> None:
+    """A marshmallow validator: text that :func:`unstorable` passes."""
+    character = unstorable(value)
+    if character is not None:
+        raise ma.ValidationError(cannot_store(character))
+
+
+def cannot_store(character: str) -> str:
+    return f"Contains {character}, which cannot be stored."
 
 
 class JsonFloat(ma.fields.Float):
@@ -59,3 +114,63 @@ class JsonBool(ma.fields.Boolean):
         if not isinstance(value, bool):
             raise self.make_error("invalid")
         return value
+
+
+class IdKey(ma.fields.Integer):
+    """An id in a query string (a page key): ASCII digits, 1 to :data:`ID_MAX`."""
+
+    default_error_messages = {
+        "invalid": "Not an id (send digits only, e.g. the id from the Link header).",
+        "range": f"Must be an id between 1 and {ID_MAX}.",
+    }
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(
+            validate=ma.validate.Range(min=1, max=ID_MAX, error=self.default_error_messages["range"]), **kwargs
+        )
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> int:
+        # int() alone would also take " 12", "1_2" and non-ASCII digits.
+        if not isinstance(value, str) or not value.isascii() or not value.isdigit():
+            raise self.make_error("invalid")
+        if len(value.lstrip("0")) > len(str(ID_MAX)):  # no need to convert thousands of digits
+            raise self.make_error("range")
+        return super()._deserialize(value, attr, data, **kwargs)
+
+
+class IdConverter(IntegerConverter):
+    """``<id:name>`` in a route: a row id, 1 to :data:`ID_MAX`; any other matches no route (404).
+
+    flask-smorest documents its ``min`` and ``max`` (it maps converters by class, subclasses too).
+    """
+
+    def __init__(self, url_map: Any) -> None:
+        super().__init__(url_map, min=1, max=ID_MAX)
+
+
+class BoundedDate(ma.fields.Date):
+    """An ISO 8601 date between :data:`FIRST_DATE` and :data:`LAST_DATE`."""
+
+    default_error_messages = {"range": f"Use a date {DATE_RANGE}."}
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> dt.date:
+        result = super()._deserialize(value, attr, data, **kwargs)
+        if not FIRST_DATE <= result <= LAST_DATE:
+            raise self.make_error("range")
+        return result
+
+
+class BoundedAwareDateTime(ma.fields.AwareDateTime):
+    """An ISO 8601 date-time with a UTC offset whose date, as written, lies in the date range.
+
+    The date is checked before any conversion to UTC, which itself overflows near year 1 or 9999
+    (``0001-01-01T00:00:00+14:00``).
+    """
+
+    default_error_messages = {"range": f"Use a date {DATE_RANGE}."}
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> dt.datetime:
+        result = super()._deserialize(value, attr, data, **kwargs)
+        if not FIRST_DATE <= result.date() <= LAST_DATE:
+            raise self.make_error("range")
+        return result

@@ -10,13 +10,13 @@ from flask import request, url_for
 from sqlalchemy import Select
 from sqlalchemy.orm import Session
 
-from service.errors import Problem
+from service.api.schemas.common import StrictSchema
 
 MAX_LIMIT = 200
 DEFAULT_LIMIT = 50
 
 
-class PageArgsSchema(ma.Schema):
+class PageArgsSchema(StrictSchema):
     """``limit`` (1–200, default 50) and ``after`` (the last key of the previous page)."""
 
     limit = ma.fields.Integer(
@@ -32,22 +32,16 @@ def page(
     args: dict[str, Any],
     *,
     descending: bool = False,
-    key_type: type = str,
 ) -> tuple[Sequence[Any], dict[str, str]]:
-    """Run one page of ``statement`` ordered by ``key``; returns the rows and the response headers."""
+    """Run one page of ``statement`` ordered by ``key``; returns the rows and the response headers.
+
+    ``args["after"]`` comes from the query schema with the key's type (a code, or an id from
+    ``IdKey``, which keeps it within the column's range).
+    """
     limit = args["limit"]
     after = args.get("after")
     if after is not None:
-        try:
-            after_value = key_type(after)
-        except ValueError as exc:
-            raise Problem(
-                422,
-                "after must be the key of the last item of the previous page (from the Link header).",
-                kind="validation",
-                errors=[{"pointer": "#/query/after", "detail": "Not a valid key."}],
-            ) from exc
-        statement = statement.where(key < after_value if descending else key > after_value)
+        statement = statement.where(key < after if descending else key > after)
     statement = statement.order_by(key.desc() if descending else key).limit(limit + 1)
     rows = list(session.scalars(statement))
     headers: dict[str, str] = {}

@@ -47,8 +47,6 @@ IDEMPOTENCY_KEY_PATTERN = r'^([\x21\x23-\x5b\x5d-\x7e]{1,255}|"([\x21\x23-\x5b\x
 
 
 def _plan(plan_id: int) -> Plan:
-    if plan_id > 2**63 - 1:  # beyond any database integer (SQLite raised OverflowError → 500; found by fuzzing)
-        raise Problem(404, f"No plan with id {plan_id}.", kind="not-found")
     try:
         return plan_store.plan_by_id(get_session(), plan_id)
     except repo.NotFound as exc:
@@ -103,6 +101,7 @@ def _planned(inputs: dict[str, Any], body: dict[str, Any]) -> dict[str, Any]:
             plan_store.site_inputs(inputs["sites"]),
             plan_store.truck_input(inputs["truck"]),
             options,
+            cancellable=request.headers.get(idempotency.HEADER) is None,
         )
     except PlanningInputError as exc:
         raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
@@ -165,12 +164,12 @@ class TruckPlans(MethodView):
     def post(self, body, code):
         """Compute and record a plan from the truck's active sites (honours Idempotency-Key)"""
         key = idempotency.parse_key(request.headers.get(idempotency.HEADER))
-        claim = None
+        claim = heartbeat = None
         if key is not None:
             outcome = idempotency.begin(current_caller(), key, request.method, request.path, request.get_data())
             if isinstance(outcome, Response):
                 return outcome
-            claim = outcome
+            claim, heartbeat = outcome, idempotency.Heartbeat.start(outcome)
         try:
             bounded.charge(bounded.PLANNING)  # after the claim: a replayed answer costs nothing
             response = _record(code, body)
@@ -182,6 +181,9 @@ class TruckPlans(MethodView):
             if claim is not None:
                 idempotency.abandon(claim)
             raise
+        finally:
+            if heartbeat is not None:
+                heartbeat.stop()  # after the transaction: a renewal may wait for its lock
         return response
 
     @allow("viewer")
@@ -191,12 +193,12 @@ class TruckPlans(MethodView):
         """History of the truck's plans, newest first (items omit trips and inputs)"""
         truck = truck_or_404(code)
         rows, headers = page(
-            get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args, descending=True, key_type=int
+            get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args, descending=True
         )
         return _json_response({"items": [plan_json(p, truck.code, heavy=False) for p in rows]}, **headers)
 
 
-@blp.route("/plans/<int:plan_id>")
+@blp.route("/plans/<id:plan_id>")
 class PlanById(MethodView):
     @allow("viewer")
     @blp.response(200, PlanSchema)
@@ -207,7 +209,7 @@ class PlanById(MethodView):
         return _json_response(plan_json(plan, truck.code))
 
 
-@blp.route("/plans/<int:plan_id>/activate")
+@blp.route("/plans/<id:plan_id>/activate")
 class PlanActivation(MethodView):
     @allow("dispatcher")
     @blp.response(200, PlanSchema)

@@ -72,6 +72,5 @@ class SiteReadings(MethodView):
             Reading.id,
             args,
             descending=True,
-            key_type=int,
         )
         return {"items": [dump(r, site.code) for r in rows]}, headers

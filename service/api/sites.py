@@ -5,7 +5,7 @@ from flask.views import MethodView
 from marshmallow import ValidationError
 from sqlalchemy import select
 
-from service.api import sites_csv
+from service.api import sites_csv, usable_stock
 from service.api.blueprint import Blueprint, accepts_body
 from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
 from service.api.pagination import page
@@ -38,10 +38,28 @@ def site_or_404(code: str, *, for_update: bool = False) -> Site:
 
 
 def truck_for(code: str, pointer: str = "#/truck") -> Truck:
+    """The truck a site write names, locked for the write (``repo.trucks_for_site_writes``)."""
     try:
-        return repo.truck_by_code(get_session(), code)
+        return repo.truck_by_code(get_session(), code, for_share=True)
     except repo.NotFound as exc:
         raise Problem(422, str(exc), kind="validation", errors=[{"pointer": pointer, "detail": str(exc)}]) from exc
+
+
+def truck_to_check(code: str, data: dict) -> Truck:
+    """The truck a change of site ``code`` is checked against (the one it names, else the site's
+    own), locked before the site is: the order plan creation locks them in, so no deadlock."""
+    session = get_session()
+    try:
+        truck_id = repo.site_truck_id(session, code)
+    except repo.NotFound as exc:
+        raise Problem(404, str(exc), kind="not-found") from exc
+    if "truck" in data:
+        return truck_for(data["truck"])
+    return repo.trucks_for_site_writes(session, [truck_id])[truck_id]
+
+
+def unit() -> str:
+    return current_app.config["ULLAGE_SETTINGS"].quantity_unit
 
 
 def etag(site: Site) -> str:
@@ -79,6 +97,7 @@ class Sites(MethodView):
         truck = truck_for(data["truck"])
         if session.scalar(select(Site.id).where(Site.code == data["code"])) is not None:
             raise Problem(409, f"A site with code {data['code']!r} already exists.", kind="conflict")
+        usable_stock.check_site(data["code"], data, truck.code, truck.capacity, unit(), data.keys())
         site = repo.add_site(session, data, truck)
         session.commit()
         return dump(site, truck.code), {"Location": url_for("sites.SiteByCode", code=site.code), "ETag": etag(site)}
@@ -104,6 +123,7 @@ class SiteByCode(MethodView):
     def patch(self, data, code):
         """Change a site (needs If-Match; every change bumps version)"""
         session = get_session()
+        truck = truck_to_check(code, data) if usable_stock.RULE_FIELDS & data.keys() else None
         site = site_or_404(code, for_update=True)
         require_if_match(etag(site))
         merged = {name: getattr(site, name) for name in ("safe_fill", "tank_capacity", "safety_stock")} | data
@@ -116,8 +136,10 @@ class SiteByCode(MethodView):
                 kind="validation",
                 errors=flatten_messages(exc.normalized_messages()),
             ) from exc
-        if "truck" in data:
-            data = data | {"truck_id": truck_for(data["truck"]).id}
+        if truck is not None:
+            merged = usable_stock.values(site) | data
+            usable_stock.check_site(site.code, merged, truck.code, truck.capacity, unit(), data.keys())
+            data = data | {"truck_id": truck.id}
         repo.apply_changes(site, data, (*repo.SITE_FIELDS, "truck_id"))
         session.commit()
         truck_code = repo.truck_codes(session, [site.truck_id])[site.truck_id]
@@ -155,9 +177,8 @@ class SiteImport(MethodView):
     def post(self, args):
         """Create or update sites from CSV (all or nothing; ?dry_run=true checks only)"""
         session = get_session()
-        unit = current_app.config["ULLAGE_SETTINGS"].quantity_unit
         result = sites_csv.import_sites(
-            session, request.get_data(cache=False), dry_run=args["dry_run"], service_unit=unit
+            session, request.get_data(cache=False), dry_run=args["dry_run"], service_unit=unit()
         )
         if args["dry_run"]:
             session.rollback()

@@ -7,9 +7,16 @@ NIST Handbook 44 App. C) or ``m3`` (1000 L); they are converted to the service u
 ``demand_per_day``, ``tank_capacity`` and ``safety_stock``; ``holding_cost`` is per volume unit and
 is divided by the same factor.
 
-Export: cells of text columns that start with ``= + - @`` (or tab / carriage return) get a leading
-``'`` so a spreadsheet does not read them as formulas (OWASP "CSV injection"); the import removes
-that one ``'`` again, so an export imports back unchanged. Number cells are never altered.
+Export: a text cell that starts with ``= + - @``, tab or carriage return gets a leading ``'`` so a
+spreadsheet does not read it as a formula (OWASP "CSV injection"); so does a cell that starts with
+one or more ``'`` followed by one of those characters, so that the prefix can always be undone. The
+import removes one ``'`` from a cell of the form ``'``…``'`` + formula character, and only from
+such a cell: an export imports back to exactly the same text, and a name that really starts with
+``'`` (``'t Hoekje``) is kept as written. Names are taken verbatim (no trimming of spaces); codes
+and other cells are trimmed. Number cells are never altered on export, and on import they must be
+plain ASCII decimal numbers: optional sign, digits, optional decimal point, optional exponent
+(``1000``, ``-3.25``, ``2.5e3``); ``1_000``, ``١٠٠٠`` (Arabic-Indic digits), ``inf`` or ``nan``
+are refused, although Python's ``float()`` reads them.
 """
 
 from __future__ import annotations
@@ -17,12 +24,14 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from typing import Any
 
 from marshmallow import ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.api import usable_stock
 from service.api.schemas.sites import SiteSchema
 from service.errors import Problem
 from service.persistence import repository as repo
@@ -43,7 +52,11 @@ NUMBER_FIELDS = (
 )
 TEXT_FIELDS = ("code", "name", "truck")
 COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
-FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+#: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
+#: a formula (``= + - @``, tab, carriage return).
+_NEEDS_PREFIX = re.compile(r"'*[=+\-@\t\r]")
+#: A plain decimal number in ASCII (``[0-9]``, not ``\d``, which matches every script's digits).
+_PLAIN_NUMBER = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
 
 
 def _unit_factor(unit: str, service_unit: str) -> float:
@@ -58,16 +71,15 @@ def _unit_factor(unit: str, service_unit: str) -> float:
 def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], list[tuple[str, str]]]:
     data: dict[str, Any] = {}
     errors: list[tuple[str, str]] = []
-    for name, value in raw.items():
-        value = (value or "").strip()
+    for name, cell in raw.items():
+        value = (cell or "") if name == "name" else (cell or "").strip()
         if name == "unit" or value == "":
             continue
         if name in NUMBER_FIELDS:
-            try:
-                number = float(value)
-            except ValueError:
-                errors.append((name, f"{value!r} is not a number."))
+            if not _PLAIN_NUMBER.fullmatch(value):
+                errors.append((name, f"{value!r} is not a plain number: write digits 0-9, e.g. 1000, -3.25 or 2.5e3."))
                 continue
+            number = float(value)
             if not math.isfinite(number):
                 errors.append((name, "Must be a finite number."))
                 continue
@@ -123,6 +135,7 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
     schema = SiteSchema()
     trucks = {t.code: t for t in session.scalars(select(Truck))}
     rows: list[dict[str, Any]] = []
+    numbers: list[int] = []
     errors: list[dict[str, str]] = []
     seen: set[str] = set()
     for number, raw in enumerate(reader, start=1):
@@ -157,7 +170,16 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
             continue
         seen.add(loaded["code"])
         rows.append(loaded)
+        numbers.append(number)
+    locked = repo.trucks_for_site_writes(session, (trucks[data["truck"]].id for data in rows))
+    for number, data in zip(numbers, rows, strict=True):
+        truck = locked[trucks[data["truck"]].id]
+        short = usable_stock.shortfall(data, truck.code, truck.capacity, service_unit)
+        if short is not None:
+            col = usable_stock.pointer_field(short[0], data.keys())
+            errors.append({"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {short[1]}"})
     if errors:
+        errors.sort(key=lambda e: int(e["pointer"].split("/")[2]))
         bad_rows = sorted({int(e["pointer"].split("/")[2]) for e in errors})
         raise Problem(
             422,
@@ -182,12 +204,14 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
 
 
 def _defuse(value: str) -> str:
-    return "'" + value if value.startswith(FORMULA_STARTS) else value
+    """``'`` before a cell a spreadsheet would run as a formula, or that :func:`_undefuse` would
+    otherwise shorten (``'`` … ``'`` then a formula character)."""
+    return "'" + value if _NEEDS_PREFIX.match(value) else value
 
 
 def _undefuse(value: str) -> str:
-    """Undo :func:`_defuse` on import, so an exported file imports back to the same values."""
-    return value[1:] if value.startswith("'") and value[1:].startswith(FORMULA_STARTS) else value
+    """Undo :func:`_defuse`: every exported cell imports back to exactly the text it came from."""
+    return value[1:] if value.startswith("'") and _NEEDS_PREFIX.match(value, 1) else value
 
 
 def export_sites(session: Session) -> str:

@@ -1,9 +1,10 @@
 """Trucks: list, read, create, change (If-Match), delete."""
 
-from flask import url_for
+from flask import current_app, url_for
 from flask.views import MethodView
 from sqlalchemy import select
 
+from service.api import usable_stock
 from service.api.blueprint import Blueprint
 from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
 from service.api.pagination import page
@@ -76,6 +77,10 @@ class TruckByCode(MethodView):
         session = get_session()
         truck = truck_or_404(code, for_update=True)
         require_if_match(etag(truck))
+        if data.get("capacity", truck.capacity) < truck.capacity:
+            unit = current_app.config["ULLAGE_SETTINGS"].quantity_unit
+            sites = repo.active_sites(session, truck)
+            usable_stock.check_truck_capacity(truck.code, truck.capacity, data["capacity"], sites, unit)
         repo.apply_changes(truck, data, repo.TRUCK_FIELDS)
         session.commit()
         return truck, {"ETag": etag(truck)}

@@ -16,6 +16,7 @@ against 1.46 ms per marker read on this machine, SQLite 0.16 ms against 0.40 ms)
 from __future__ import annotations
 
 import contextlib
+import sqlite3
 from collections.abc import Callable, Iterator, Mapping
 from contextvars import ContextVar
 from pathlib import Path
@@ -75,7 +76,38 @@ def _sqlite_pragmas(dbapi_connection, _record):  # type: ignore[no-untyped-def]
 
 def _sqlite_begin(connection):  # type: ignore[no-untyped-def]
     # Straight to the driver: this runs once per transaction, and a Core statement costs more.
-    connection.connection.driver_connection.execute("BEGIN IMMEDIATE" if write_intent.get() else "BEGIN")
+    statement = "BEGIN IMMEDIATE" if write_intent.get() else "BEGIN"
+    try:
+        connection.connection.driver_connection.execute(statement)
+    except sqlite3.Error as exc:
+        # SQLAlchemy runs "begin" listeners outside its own error wrapping, so a write lock held
+        # past busy_timeout ("database is locked") would escape as a bare driver error (a 500);
+        # wrapped like any other, it answers 503 with Retry-After (service.errors).
+        raise DBAPIError.instance(statement, (), exc, sqlite3.Error, dialect=connection.dialect) from exc
+
+
+def sqlite_write_lock_held(engine: Engine) -> bool:
+    """Whether some connection holds the SQLite database's write lock right now.
+
+    A ``BEGIN IMMEDIATE`` that does not wait (``busy_timeout`` 0 for that one statement) on a pooled
+    connection, rolled back at once. A transaction started by the app holds the lock from its
+    first statement to its commit, so a request that is still working proves it is alive.
+    """
+    connection = engine.raw_connection()
+    driver = connection.driver_connection
+    try:
+        driver.execute("PRAGMA busy_timeout=0")
+        try:
+            driver.execute("BEGIN IMMEDIATE")
+        except engine.dialect.loaded_dbapi.OperationalError as exc:
+            if "locked" not in str(exc) and "busy" not in str(exc):
+                raise
+            return True
+        driver.execute("ROLLBACK")
+        return False
+    finally:
+        driver.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
+        connection.close()
 
 
 def read_one(engine: Engine, statement: Executable, params: Mapping[str, Any]) -> Row[Any] | None:
@@ -95,7 +127,8 @@ class RawRead:
     statement execution costs more than the query itself (``benchmarks/reads.py`` printed 0.21 ms
     against 0.38 ms on PostgreSQL, 0.05 against 0.16 ms on SQLite). The row holds the driver's own
     values, untouched by column types, so it suits values that are only compared for equality.
-    Driver errors come out as SQLAlchemy's ``DBAPIError`` like any other (→ 503).
+    Driver errors, a failed connect included, come out as SQLAlchemy's ``DBAPIError`` like any
+    other (→ 503).
     """
 
     def __init__(self, statement: Executable) -> None:
@@ -113,7 +146,12 @@ class RawRead:
 
 def _raw_first(engine: Engine, sql: str, args: Any) -> tuple[Any, ...] | None:
     dbapi_error = engine.dialect.loaded_dbapi.Error
-    connection = engine.raw_connection()
+    try:
+        connection = engine.raw_connection()
+    except dbapi_error as exc:
+        # The pool's connect raises the driver's own error (``Engine.connect`` would wrap it);
+        # wrapped here, a database that is down answers 503 on this path too, not 500.
+        raise DBAPIError.instance(None, None, exc, dbapi_error, dialect=engine.dialect) from exc
     try:
         cursor = connection.cursor()
         try:

@@ -130,6 +130,22 @@ class Token(Base):
     revoked_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
 
 
+class StatusSession(Base):
+    """A person signed in to the status page (service.web.access).
+
+    The session cookie carries a random id; only its SHA-256 is stored, as for tokens. Sign-out
+    deletes the row, so a copy of the cookie stops working at once; a page load also refuses a
+    session older than ``access.SESSION_HOURS`` or whose token was revoked.
+    """
+
+    __tablename__ = "status_sessions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    secret_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    token_id: Mapped[int] = mapped_column(ForeignKey("tokens.id"), index=True)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow, index=True)
+
+
 class Plan(Base):
     """A recorded schedule: inputs snapshot and result are written once and never changed."""
 

@@ -6,10 +6,11 @@ import datetime as dt
 import hashlib
 import json
 from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
 from typing import Any
 from weakref import WeakKeyDictionary
 
-from sqlalchemy import Engine, func, select, update
+from sqlalchemy import Engine, and_, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from service.persistence.db import RawRead
@@ -120,18 +121,96 @@ def activate(session: Session, plan: Plan) -> Plan:
     return plan
 
 
+@dataclass(frozen=True)
+class Change:
+    """One difference between a plan's input snapshot and the current rows.
+
+    ``subject`` is ``"truck"`` or ``"site"``; ``field`` a recorded field name, or ``"active"``
+    (the site left or joined the truck's active sites), ``"truck"`` (moved to another truck:
+    ``current`` is its code), ``"deleted"``, ``"added"`` or ``"edited"`` (a newer version whose
+    recorded fields are unchanged, e.g. its position).
+    """
+
+    subject: str
+    code: str
+    field: str
+    recorded: Any = None
+    current: Any = None
+
+
+@dataclass(frozen=True)
+class Drift:
+    """The plan's truck and sites as they are now, and how they differ from the snapshot."""
+
+    truck: Truck | None
+    sites: dict[str, Site]  # every recorded site that still exists and every active site of the truck
+    changes: tuple[Change, ...]
+
+    @property
+    def stale(self) -> bool:
+        return bool(self.changes)
+
+    @property
+    def changed_sites(self) -> list[str]:
+        return sorted({c.code for c in self.changes if c.subject == "site"})
+
+
+TRUCK_INPUTS = ("dispatch_cost", "capacity", "max_stops")
+
+
+def _row_changes(
+    subject: str, code: str, recorded: dict[str, Any], row: Truck | Site, fields: Sequence[str], more: Sequence[Change]
+) -> list[Change]:
+    """The recorded fields that differ, plus ``more``; ``edited`` when only the version moved."""
+    if row.version == recorded["version"]:
+        return []
+    out = [Change(subject, code, f, recorded[f], getattr(row, f)) for f in fields if recorded[f] != getattr(row, f)]
+    out.extend(more)
+    return out or [Change(subject, code, "edited", recorded["version"], row.version)]
+
+
+def drift(session: Session, plan: Plan) -> Drift:
+    """Compare the plan's snapshot with the current truck and sites (by row version, then field).
+
+    Stale means any recorded row moved (even back to the same values), a recorded site is gone,
+    inactive or on another truck, or the truck gained an active site.
+    """
+    truck_snapshot = plan.inputs["truck"]
+    recorded = {s["code"]: s for s in plan.inputs["sites"]}
+    truck = session.get(Truck, plan.truck_id)
+    rows = session.scalars(
+        select(Site).where(
+            or_(Site.code.in_(list(recorded)), and_(Site.truck_id == plan.truck_id, Site.active.is_(True)))
+        )
+    )
+    sites = {s.code: s for s in rows}
+    changes: list[Change] = []
+    if truck is None:
+        changes.append(Change("truck", truck_snapshot["code"], "deleted"))
+    else:
+        changes.extend(_row_changes("truck", truck.code, truck_snapshot, truck, TRUCK_INPUTS, ()))
+    moved = [s.truck_id for s in sites.values() if s.code in recorded and s.truck_id != plan.truck_id]
+    truck_codes = dict(session.execute(select(Truck.id, Truck.code).where(Truck.id.in_(moved))).all()) if moved else {}
+    for code in sorted(recorded.keys() | sites.keys()):
+        site, snap = sites.get(code), recorded.get(code)
+        if snap is None:
+            changes.append(Change("site", code, "added"))
+        elif site is None:
+            changes.append(Change("site", code, "deleted"))
+        else:
+            more = []
+            if site.truck_id != plan.truck_id:
+                more.append(Change("site", code, "truck", truck_snapshot["code"], truck_codes[site.truck_id]))
+            if not site.active:
+                more.append(Change("site", code, "active", True, False))
+            changes.extend(_row_changes("site", code, snap, site, ("name", *SITE_INPUTS), more))
+    return Drift(truck, sites, tuple(changes))
+
+
 def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
     """Whether the truck or its active sites moved since the plan, and which sites changed."""
-    recorded = {s["code"]: s["version"] for s in plan.inputs["sites"]}
-    truck = session.get(Truck, plan.truck_id)
-    current = dict(
-        session.execute(
-            select(Site.code, Site.version).where(Site.truck_id == plan.truck_id, Site.active.is_(True))
-        ).all()
-    )
-    changed = sorted(code for code in recorded.keys() | current.keys() if recorded.get(code) != current.get(code))
-    truck_moved = truck is None or truck.version != plan.inputs["truck"]["version"]
-    return bool(changed) or truck_moved, changed
+    found = drift(session, plan)
+    return found.stale, found.changed_sites
 
 
 #: Built once (statement construction costs more than running it): see change_stamp.

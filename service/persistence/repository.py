@@ -34,21 +34,54 @@ def lock_for_update(session: Session, statement: Any) -> Any:
     return statement.with_for_update() if session.get_bind().dialect.name == "postgresql" else statement
 
 
+def lock_for_share(session: Session, statement: Any) -> Any:
+    """``SELECT … FOR SHARE`` on PostgreSQL (readers of the row may share it, a writer waits)."""
+    return statement.with_for_update(read=True) if session.get_bind().dialect.name == "postgresql" else statement
+
+
 _BY_CODE = {model: select(model).where(model.code == bindparam("code")) for model in (Truck, Site)}
 
 
-def _by_code(session: Session, model: type[Truck] | type[Site], code: str, for_update: bool) -> Any:
+def _by_code(
+    session: Session, model: type[Truck] | type[Site], code: str, for_update: bool, for_share: bool = False
+) -> Any:
     statement = _BY_CODE[model]
     if for_update:
         statement = lock_for_update(session, statement)
+    elif for_share:
+        statement = lock_for_share(session, statement)
     row = session.scalars(statement, {"code": code}).one_or_none()
     if row is None:
         raise NotFound(f"No {model.__tablename__[:-1]} with code {code!r}.")
     return row
 
 
-def truck_by_code(session: Session, code: str, *, for_update: bool = False) -> Truck:
-    return _by_code(session, Truck, code, for_update)
+def truck_by_code(session: Session, code: str, *, for_update: bool = False, for_share: bool = False) -> Truck:
+    """The truck; ``for_share`` locks it as :func:`trucks_for_site_writes` does."""
+    return _by_code(session, Truck, code, for_update, for_share)
+
+
+def trucks_for_site_writes(session: Session, truck_ids: Iterable[int]) -> dict[int, Truck]:
+    """The trucks whose capacity a site write is checked against, locked ``FOR SHARE`` on
+    PostgreSQL until the write commits, so a concurrent truck change waits and then sees the sites
+    (the one-day rule, ``service/api/usable_stock.py``).
+
+    Take this before locking or writing any site row: plan creation locks the truck, then its
+    sites, and the same order everywhere means no deadlock.
+    """
+    ids = sorted(set(truck_ids))
+    if not ids:
+        return {}
+    statement = lock_for_share(session, select(Truck).where(Truck.id.in_(ids)).order_by(Truck.id))
+    return {t.id: t for t in session.scalars(statement.execution_options(populate_existing=True))}
+
+
+def site_truck_id(session: Session, code: str) -> int:
+    """The id of the truck that serves site ``code`` (a plain read: no site row is loaded or locked)."""
+    truck_id = session.scalar(select(Site.truck_id).where(Site.code == code))
+    if truck_id is None:
+        raise NotFound(f"No site with code {code!r}.")
+    return truck_id
 
 
 def site_by_code(session: Session, code: str, *, for_update: bool = False) -> Site:

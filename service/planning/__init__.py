@@ -9,8 +9,32 @@ Model (days, whole-day cycles; derivations in ``docs/planning.md``): site ``i`` 
 ``U_i = min(f_i V_i - s_i, W) / d_i``; the truck costs ``K`` per trip. A joint policy has
 cycles ``T_i = m_i T0`` (min ``m_i = 1``) and offsets; its cost per day is
 ``K · trips / R + Σ k_i / T_i + Σ H_i T_i`` over the repeat period ``R = lcm(T_i)``.
+
+``service.planning.consumption`` learns each tank's consumption from readings and deliveries
+(drifted random walk), tests the stored demand for drift, sizes safety stock from the
+variability and fits degree days (``docs/planning.md`` §11).
 """
 
+from service.planning.consumption import (
+    ConsumptionEstimate,
+    ConsumptionInterval,
+    DailyDegreeDays,
+    DegreeDayFit,
+    DeliveryRecord,
+    DriftTest,
+    ExcludedInterval,
+    LevelReading,
+    RejectedReading,
+    SafetyStock,
+    consumption_drift,
+    degree_day_series,
+    estimate_consumption,
+    expected_degree_days,
+    interval_degree_days,
+    pooled_relative_sigma,
+    safety_stock,
+    safety_stock_for_fill_rate,
+)
 from service.planning.dispatch_window import trips_between
 from service.planning.errors import PlanningInputError
 from service.planning.inputs import SiteInput, TruckInput
@@ -20,17 +44,35 @@ from service.planning.results import CycleResult, JointResult, SitePlan, Status,
 from service.planning.single_site import single_site_cycle
 
 __all__ = [
+    "ConsumptionEstimate",
+    "ConsumptionInterval",
     "CycleResult",
+    "DailyDegreeDays",
+    "DegreeDayFit",
+    "DeliveryRecord",
+    "DriftTest",
+    "ExcludedInterval",
     "JointResult",
+    "LevelReading",
     "PlanningInputError",
+    "RejectedReading",
+    "SafetyStock",
     "SiteInput",
     "SitePlan",
     "Status",
     "Stop",
     "Trip",
     "TruckInput",
+    "consumption_drift",
+    "degree_day_series",
+    "estimate_consumption",
+    "expected_degree_days",
+    "interval_degree_days",
     "lower_bound",
     "plan_joint",
+    "pooled_relative_sigma",
+    "safety_stock",
+    "safety_stock_for_fill_rate",
     "single_site_cycle",
     "trips_between",
 ]

@@ -1,26 +1,37 @@
 """Tank levels projected from the latest reading, and delivery quantities corrected by them.
 
 Pure (standard library only). The rules, per site with demand ``d``, safe-fill level
-``F = safe_fill × tank_capacity``, safety stock ``s`` and cycle ``T`` days:
+``F = safe_fill × tank_capacity``, safety stock ``s`` and cycle ``T`` days, all of them the
+site's *current* values (the plan only gives the dates, the cycle and the planned quantities):
 
 * From a reading ``L`` taken at time ``t_r`` the level falls at ``d`` per day and never below 0.
   A delivery on day ``D`` is projected at 00:00 of ``D`` (service time zone), before that day's
-  delivery: ``level(D) = max(0, level_prev − d·(t_D − t_prev))``. Deliveries on days before the
-  reading's own date are history and are not replayed; on the reading's date the level is carried
-  back to 00:00 (the reading is taken to precede that day's delivery).
+  delivery: ``level(D) = max(0, level_prev − d·(t_D − t_prev))``, where ``t_D − t_prev`` is the
+  elapsed time (computed in UTC, so a daylight-saving change adds or removes no hour of demand).
+  Deliveries on days before the reading's own date are history and are not replayed; on the
+  reading's date the level is carried back to 00:00 (the reading is taken to precede that day's
+  delivery).
 * The corrected quantity keeps the site at or above ``s`` until its next planned delivery
   ``T`` days later: ``need = d·T + s − level(D)``, clamped to ``[0, min(F − level(D), free)]``
   where ``free`` is the truck's capacity minus what earlier stops of the same trip take and minus
-  the planned quantities of the trip's stops without a reading (those keep their planned quantity).
+  what the trip's stops without a reading keep.
+* A site without a reading (or a delivery before its reading's date) keeps its planned quantity,
+  but never more than ``F − s`` (the room when the level is at the safety stock, the level the plan
+  assumes just before a delivery) nor more than ``free``.
+* A trip with more stops than the truck's current ``max_stops`` keeps the stops with the fewest
+  days of stock above the safety stock at 00:00 of the day (``(level − s)/d``; a site without a
+  projected level counts as at its safety stock, 0 days; ties in the plan's stop order); the
+  others are dropped from the trip (listed in ``CorrectedTrip.dropped``) and their tanks go on
+  falling.
 * A stop carries ``run_out_risk`` when the site is projected below ``s`` before the delivery, or
   when the clamped quantity cannot carry it to the next delivery above ``s``; the warning names
   the projected date the level crosses ``s``.
-* A site without a reading gets the planned quantity and no projected level.
 """
 
 from __future__ import annotations
 
 import datetime as dt
+import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from zoneinfo import ZoneInfo
@@ -61,18 +72,27 @@ class RunOut:
 
 @dataclass(frozen=True)
 class CorrectedStop:
+    """One delivery. ``wanted`` is the quantity before the room and truck limits (``need`` from a
+    reading, else the planned quantity) and ``room`` the space below the safe-fill level, so
+    ``quantity < min(wanted, room)`` means the truck's free space cut it."""
+
     site: str
     planned_quantity: float
     quantity: float
     projected_level_before: float | None
     run_out: RunOut | None
+    wanted: float = 0.0
+    room: float = 0.0
 
 
 @dataclass(frozen=True)
 class CorrectedTrip:
+    """One trip; ``dropped`` are the sites taken off it because it had more than ``max_stops``."""
+
     date: dt.date
     load: float
     stops: tuple[CorrectedStop, ...]
+    dropped: tuple[str, ...] = ()
 
 
 @dataclass
@@ -83,12 +103,18 @@ class _State:
 
 
 def day_start(day: dt.date, zone: ZoneInfo) -> dt.datetime:
-    """00:00 of ``day`` in ``zone``, as an aware datetime."""
-    return dt.datetime.combine(day, dt.time(0), tzinfo=zone)
+    """00:00 of ``day`` in ``zone``, as an aware datetime in UTC.
+
+    In UTC so that differences and sums with it count elapsed time: Python subtracts two datetimes
+    that share a ``tzinfo`` by their wall-clock fields, which across a daylight-saving change is
+    an hour off the elapsed time (Python documentation, ``datetime`` "aware" arithmetic).
+    """
+    return dt.datetime.combine(day, dt.time(0), tzinfo=zone).astimezone(dt.UTC)
 
 
 def _days(later: dt.datetime, earlier: dt.datetime) -> float:
-    return (later - earlier).total_seconds() / 86400.0
+    """Elapsed days between two aware instants (in UTC, whatever zones they carry)."""
+    return (later.astimezone(dt.UTC) - earlier.astimezone(dt.UTC)).total_seconds() / 86400.0
 
 
 def _crossing(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> RunOut | None:
@@ -98,7 +124,7 @@ def _crossing(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> 
         return RunOut(tank.code, state.at.astimezone(zone).date())
     if tank.demand_per_day <= 0:
         return None
-    at = state.at + dt.timedelta(days=margin / tank.demand_per_day)
+    at = state.at.astimezone(dt.UTC) + dt.timedelta(days=margin / tank.demand_per_day)
     if at < until and state.level - tank.demand_per_day * _days(until, state.at) < tank.safety_stock - TOLERANCE:
         return RunOut(tank.code, at.astimezone(zone).date())
     return None
@@ -107,9 +133,10 @@ def _crossing(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> 
 class Projection:
     """Replays the planned trips from each site's reading and corrects the quantities."""
 
-    def __init__(self, tanks: Iterable[Tank], capacity: float, zone: ZoneInfo) -> None:
+    def __init__(self, tanks: Iterable[Tank], capacity: float, zone: ZoneInfo, max_stops: int | None = None) -> None:
         self.tanks = {t.code: t for t in tanks}
         self.capacity = capacity
+        self.max_stops = max_stops
         self.zone = zone
         self.run_outs: list[RunOut] = []
         self._states: dict[str, _State] = {}
@@ -125,42 +152,75 @@ class Projection:
     def _projected(self, code: str, when: dt.datetime) -> bool:
         """Whether the delivery at ``when`` is corrected from a reading (not history, not unread)."""
         state = self._states.get(code)
-        return state is not None and when.date() >= state.at.astimezone(self.zone).date()
+        return state is not None and when.astimezone(self.zone).date() >= state.at.astimezone(self.zone).date()
+
+    def _unread_room(self, tank: Tank) -> float:
+        """Room below the safe-fill level when the level is at the safety stock (the plan's assumption)."""
+        return max(0.0, tank.safe_fill_level - tank.safety_stock)
 
     def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float) -> CorrectedStop:
         if not self._projected(tank.code, when):
-            return CorrectedStop(tank.code, planned, min(planned, max(free, 0.0)), None, None)
+            room = self._unread_room(tank)
+            quantity = max(0.0, min(planned, room, free))
+            return CorrectedStop(tank.code, planned, quantity, None, None, planned, room)
         state = self._states[tank.code]
         risk = _crossing(state, tank, when, self.zone)
         level = self._level_at(state, tank, when)
         need = tank.demand_per_day * tank.cycle_days + tank.safety_stock - level
-        quantity = max(0.0, min(need, tank.safe_fill_level - level, free))
+        room = tank.safe_fill_level - level
+        quantity = max(0.0, min(need, room, free))
         after = _State(level + quantity, when)
         if risk is None:
-            risk = _crossing(after, tank, when + tank.cycle_days * DAY, self.zone)
+            # Until 00:00 of the next planned delivery's day (a calendar date, whatever the clocks do).
+            following = day_start(when.astimezone(self.zone).date() + tank.cycle_days * DAY, self.zone)
+            risk = _crossing(after, tank, following, self.zone)
         if risk is not None:
             self.run_outs.append(risk)
         state.events.append((when, level))
         state.events.append((when, after.level))
         state.level, state.at = after.level, when
-        return CorrectedStop(tank.code, planned, quantity, level, risk)
+        return CorrectedStop(tank.code, planned, quantity, level, risk, max(0.0, need), room)
+
+    def days_of_stock(self, code: str, when: dt.datetime) -> float:
+        """Days until the site falls to its safety stock, from ``when`` (0 without a projected level)."""
+        if not self._projected(code, when):
+            return 0.0
+        tank = self.tanks[code]
+        margin = self._level_at(self._states[code], tank, when) - tank.safety_stock
+        if tank.demand_per_day <= 0:
+            return math.inf if margin >= 0 else -math.inf
+        return margin / tank.demand_per_day
+
+    def _within_max_stops(self, stops: Sequence[tuple[str, float]], when: dt.datetime) -> tuple[list, tuple]:
+        """The stops kept (in the plan's order) and the sites dropped, for the current ``max_stops``."""
+        if self.max_stops is None or len(stops) <= self.max_stops:
+            return list(stops), ()
+        ranked = sorted(range(len(stops)), key=lambda i: self.days_of_stock(stops[i][0], when))  # stable
+        keep = set(ranked[: self.max_stops])
+        return [s for i, s in enumerate(stops) if i in keep], tuple(s[0] for i, s in enumerate(stops) if i not in keep)
 
     def correct(self, trips: Sequence[PlannedTrip]) -> list[CorrectedTrip]:
         """Corrected trips, in date order (the trips must be given in date order)."""
         out = []
         for trip in trips:
             when = day_start(trip.date, self.zone)
+            kept, dropped = self._within_max_stops(trip.stops, when)
             stops = []
             load = 0.0
-            # Sites without a reading keep their planned quantity: reserve it before the others.
-            reserved = sum(planned for code, planned in trip.stops if not self._projected(code, when))
-            for code, planned in trip.stops:
-                if not self._projected(code, when):
-                    reserved -= planned
+            # Sites without a reading keep their planned quantity (within their room): reserve it
+            # before the others.
+            unread = {
+                code: min(planned, self._unread_room(self.tanks[code]))
+                for code, planned in kept
+                if not self._projected(code, when)
+            }
+            reserved = sum(unread.values())
+            for code, planned in kept:
+                reserved -= unread.get(code, 0.0)
                 stop = self._stop(self.tanks[code], planned, when, self.capacity - load - reserved)
                 load += stop.quantity
                 stops.append(stop)
-            out.append(CorrectedTrip(trip.date, load, tuple(stops)))
+            out.append(CorrectedTrip(trip.date, load, tuple(stops), dropped))
         return out
 
     def finish(self, until: dt.datetime) -> None:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import enum
 from dataclasses import dataclass, fields
 
@@ -16,6 +17,8 @@ class Status(enum.IntEnum):
 def _plain(value):
     if isinstance(value, Status):
         return value.name.lower()
+    if isinstance(value, dt.date):
+        return value.isoformat()
     if isinstance(value, tuple | list):
         return [_plain(v) for v in value]
     if isinstance(value, dict):
@@ -27,7 +30,7 @@ def _plain(value):
 
 class _ToDict:
     def to_dict(self) -> dict:
-        """The record as plain JSON-able Python types (enums as lowercase names)."""
+        """The record as plain JSON-able Python types (enums as lowercase names, dates and times as ISO 8601)."""
         return _plain(self)
 
 

@@ -2,10 +2,13 @@
 
 Sign-in: a person pastes a viewer, dispatcher or admin token once into the form at
 ``/status/sign-in`` (HTTP Basic is not offered). The token is checked with
-:func:`service.auth.caller_from_token`; the session is Flask's signed cookie (``HttpOnly``,
-``SameSite=Strict``, see the app config) and holds only the token's id, name and role, a CSRF
-token and the sign-in time, never the token. Every page load looks the token row up by id and
-refuses it once revoked. Sessions end after ``access.SESSION_HOURS`` hours or on sign-out.
+:func:`service.auth.caller_from_token`; the session is a row on the server
+(``models.StatusSession``: the token's id, the sign-in time, the SHA-256 of a random session id)
+and Flask's signed cookie (``HttpOnly``, ``SameSite=Strict``, ``Secure`` over HTTPS by
+``ULLAGE_SECURE_COOKIES``; :class:`service.web.access.SessionCookie`) holds only that random id
+and a CSRF token, never the token. Every page load looks the session row and its token up and
+refuses them once the token is revoked. Sessions end after ``access.SESSION_HOURS`` hours or on
+sign-out, which deletes the row: a copy of the cookie is refused from then on.
 
 Every form carries a per-session random CSRF token in a hidden field, compared with
 :func:`hmac.compare_digest`. Every response of this blueprint gets a strict CSP (no inline script
@@ -86,4 +89,5 @@ def init_app(app: Flask) -> None:
     """Register the status page (its routes live in access.py and pages.py)."""
     from service.web import access, pages  # noqa: F401, PLC0415 - importing registers the routes
 
+    app.session_interface = access.SessionCookie()
     app.register_blueprint(bp)

@@ -1,25 +1,40 @@
-"""Sign-in for people: the token form, the signed session cookie, CSRF, sign-out."""
+"""Sign-in for people: the token form, the session (a row on the server, its id in the signed
+cookie), CSRF, sign-out (which deletes the row, so a copied cookie is refused too)."""
 
 from __future__ import annotations
 
+import datetime as dt
+import hashlib
 import hmac
 import secrets
-import time
 from functools import wraps
 from pathlib import Path
 from typing import Any
 from urllib.parse import urlencode
 
-from flask import Response, g, redirect, render_template, request, send_from_directory, session, url_for
+from flask import (
+    Flask,
+    Response,
+    g,
+    redirect,
+    render_template,
+    request,
+    send_from_directory,
+    session,
+    url_for,
+)
+from flask.sessions import SecureCookieSessionInterface
 
 from service.auth import SESSION, Caller, allow, caller_from_token
 from service.errors import Problem
+from service.persistence import status_sessions
 from service.persistence.db import get_session
-from service.persistence.models import Token
+from service.persistence.models import utcnow
 from service.web import bp, formatting, log, settings
 
 HERE = Path(__file__).resolve().parent
 SESSION_HOURS = 12
+SESSION_LENGTH = dt.timedelta(hours=SESSION_HOURS)
 MAX_TOKEN_CHARS = 200
 
 
@@ -47,24 +62,39 @@ def check_csrf() -> None:
         )
 
 
+class SessionCookie(SecureCookieSessionInterface):
+    """Flask's signed cookie, ``Secure`` by ``ULLAGE_SECURE_COOKIES``: ``always``, ``never``, or
+    ``auto`` (the default) — when this request came over HTTPS, as the server saw it or, behind
+    ``ULLAGE_TRUSTED_PROXIES`` proxies, as the nearest of them says in ``X-Forwarded-Proto``."""
+
+    def get_cookie_secure(self, app: Flask) -> bool:
+        mode = app.config["ULLAGE_SETTINGS"].secure_cookies
+        return mode == "always" or (mode == "auto" and request.is_secure)
+
+
+def _digest(sid: str) -> str:
+    return hashlib.sha256(sid.encode("utf-8")).hexdigest()
+
+
 def signed_in() -> Caller | None:
-    """The person signed in with this cookie, re-checked against the token row; else ``None``."""
-    token_id, name, at = session.get("uid"), session.get("name"), session.get("at")
-    if not isinstance(token_id, int) or not isinstance(name, str) or not isinstance(at, (int, float)):
+    """The person signed in with this cookie, re-checked against the server's session row and the
+    token row on every page; else ``None`` (signed out, expired, or the token revoked)."""
+    sid = session.get("sid")
+    if not isinstance(sid, str) or not sid:
         return None
-    if time.time() - at > SESSION_HOURS * 3600:
+    found = status_sessions.find(get_session(), _digest(sid))
+    if found is None:
         _forget()
         return None
-    row = get_session().get(Token, token_id)
-    if row is None or row.revoked_at is not None or row.name != name:
+    row, token = found
+    if utcnow() - row.created_at > SESSION_LENGTH or token.revoked_at is not None:
         _forget()
         return None
-    return Caller(row.id, row.name, row.role)
+    return Caller(token.id, token.name, token.role)
 
 
 def _forget() -> None:
-    for key in ("uid", "name", "role", "at"):
-        session.pop(key, None)
+    session.pop("sid", None)
 
 
 def safe_next(target: str | None) -> str | None:
@@ -127,10 +157,15 @@ def sign_in() -> Any:
         return render_template(
             "status_sign_in.html", next=target, already=None, error="That token is not valid or has been revoked."
         ), 401
+    db = get_session()
+    if isinstance(session.get("sid"), str):
+        status_sessions.end(db, _digest(session["sid"]))  # signing in again ends the earlier session
+    status_sessions.purge_started_before(db, utcnow() - SESSION_LENGTH)
+    sid = secrets.token_urlsafe(32)
+    status_sessions.add(db, caller.token_id, _digest(sid))
+    db.commit()
     session.clear()
-    session.update(
-        uid=caller.token_id, name=caller.name, role=caller.role, at=int(time.time()), csrf=secrets.token_urlsafe(32)
-    )
+    session.update(sid=sid, csrf=secrets.token_urlsafe(32))
     g.caller = caller
     return redirect(target or url_for("status.overview"), 303)
 
@@ -141,5 +176,9 @@ def sign_out() -> Any:
     if request.method == "GET":
         return render_template("status_sign_out.html", already=signed_in())
     check_csrf()
+    if isinstance(session.get("sid"), str):
+        db = get_session()
+        status_sessions.end(db, _digest(session["sid"]))  # a copy of the cookie stops working too
+        db.commit()
     session.clear()
     return redirect(url_for("status.sign_in"), 303)

@@ -9,8 +9,10 @@ from typing import Any
 from flask import render_template, request
 from markupsafe import Markup
 from sqlalchemy import select
+from sqlalchemy.exc import DBAPIError
 
 from service import bounded, schedule
+from service.api.fields import FIRST_DATE, LAST_DATE, WEEK_RANGE
 from service.auth import SESSION, allow
 from service.cache import LruCache
 from service.errors import Problem
@@ -18,13 +20,12 @@ from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence.db import get_session, read_engine
 from service.persistence.models import Truck
-from service.web import bp, error_page, formatting, settings
+from service.web import bp, error_page, formatting, log, settings
 from service.web.access import page
 from service.web.chart import chart_id, level_svg
 
 CHART_DAYS = 28
 ASCII_WEEK = re.compile(r"[0-9]{4}-W[0-9]{2}")
-FIRST_YEAR, LAST_YEAR = 1900, 2999  # weeks the page shows (and their neighbours) stay far from date.min/max
 #: Per-process cache of the overview's week (HTML without the page around it, which names the
 #: person), keyed like the trips cache by the week, the day and the change stamp: a reload or a
 #: second person costs a lookup instead of a replay of every truck (seconds for 300 sites).
@@ -33,9 +34,11 @@ WEEK_CACHE: LruCache[Markup] = LruCache(8)
 #: Warning kinds: a word for the badge and an order (most urgent first).
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
-    "no_active_plan": ("No active plan", 1),
-    "plan_stale": ("Plan out of date", 2),
-    "no_recent_reading": ("No recent reading", 3),
+    "limits_changed": ("Limits changed", 1),
+    "no_active_plan": ("No active plan", 2),
+    "plan_stale": ("Plan out of date", 3),
+    "no_recent_reading": ("No recent reading", 4),
+    "truck_not_shown": ("Not shown", 0),
 }
 
 
@@ -52,8 +55,8 @@ def overview() -> Any:
         monday, sunday = schedule.iso_week(week)
     except (ValueError, TypeError, LookupError, OverflowError) as exc:
         raise Problem(400, "The week must be an ISO week such as 2026-W49.", title="Unknown week") from exc
-    if not FIRST_YEAR <= monday.year <= LAST_YEAR:
-        raise Problem(400, f"Choose a week from {FIRST_YEAR} to {LAST_YEAR}.", title="Unknown week")
+    if not FIRST_DATE.year <= monday.isocalendar().year <= LAST_DATE.year:
+        raise Problem(400, f"Choose a week {WEEK_RANGE}.", title="Unknown week")
     week = formatting.iso_week_of(monday)
     key = (week, schedule.today(config), plan_store.change_stamp(read_engine()))
     week_html = WEEK_CACHE.get(key)
@@ -67,7 +70,13 @@ def _week_html(db: Any, week: str, monday: dt.date, sunday: dt.date, config: Any
     trucks = list(db.scalars(select(Truck).where(Truck.active.is_(True)).order_by(Truck.code)))
     panels, warnings = [], []
     for truck in trucks:
-        panel = _truck_panel(db, truck, monday, sunday, config)
+        try:
+            panel = _truck_panel(db, truck, monday, sunday, config)
+        except DBAPIError:
+            raise  # the database itself: the whole page answers 503
+        except Exception:  # noqa: BLE001 - one truck's bad data must not hide every other truck
+            log.exception("status page: truck %s cannot be shown", truck.code)
+            panel = _broken_panel(truck)
         panels.append(panel)
         warnings.extend(panel["warnings"])
     html = render_template(
@@ -112,7 +121,7 @@ def site_page(code: str) -> Any:
         last=last,
         deliveries=deliveries,
         has_level=any(v is not None for _, v in levels.days),
-        warnings=_sorted_warnings(_dedupe(levels.notices)),
+        warnings=_sorted_warnings(_group_limits(_dedupe(levels.notices))),
         week=formatting.iso_week_of(first),
     )
 
@@ -158,9 +167,27 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
         )
     if plan is None:  # the truck's own notice says it; one per site would only repeat it
         notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
-    warnings = [dict(w, truck=truck.code) for w in _group_readings(_dedupe(notices), truck)]
+    warnings = [dict(w, truck=truck.code) for w in _group_readings(_group_limits(_dedupe(notices)), truck)]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
     return {"truck": truck, "view": view, "plan": plan, "gap": gap, "charts": charts, "warnings": warnings}
+
+
+def _broken_panel(truck: Truck) -> dict[str, Any]:
+    """The panel of a truck whose week could not be computed: one line saying so."""
+    notice = _notice(
+        "truck_not_shown",
+        f"Truck {truck.code}'s week cannot be shown because of an error on our side (it is logged). "
+        "Its plan, trips and levels are missing from this page; the other trucks are shown.",
+    )
+    return {
+        "truck": truck,
+        "view": None,
+        "plan": None,
+        "gap": None,
+        "charts": [],
+        "warnings": [dict(notice, truck=truck.code)],
+        "error": notice["message"],
+    }
 
 
 def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[str, Any]]:
@@ -180,6 +207,29 @@ def _group_readings(notices: list[dict[str, Any]], truck: Truck) -> list[dict[st
     return out
 
 
+def _group_limits(notices: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """One "limits changed" line per site and changed limit (its earliest), counting the other stops.
+
+    A message names the site or truck and the changed field before its first ``;``, which is the key.
+    """
+    first: dict[tuple[Any, str], dict[str, Any]] = {}
+    more: dict[tuple[Any, str], int] = {}
+    out = []
+    for notice in sorted(notices, key=lambda n: n["date"] or dt.date.min):
+        key = (notice["site"], notice["message"].split(";")[0])
+        if notice["kind"] != "limits_changed":
+            out.append(notice)
+        elif key in first:
+            more[key] = more.get(key, 0) + 1
+        else:
+            first[key] = notice
+    for key, notice in first.items():
+        extra = more.get(key, 0)
+        suffix = f" The same change affects {extra} more stop{'' if extra == 1 else 's'} of this site." if extra else ""
+        out.append(dict(notice, message=notice["message"] + suffix))
+    return out
+
+
 def _notice(kind: str, message: str, site: str | None = None, date: dt.date | None = None) -> Any:
     return {"kind": kind, "message": message, "site": site, "date": date}
 
@@ -193,7 +243,7 @@ def _as_dict(notice: Any) -> dict[str, Any]:
 def _dedupe(notices: Any) -> list[dict[str, Any]]:
     seen, out = set(), []
     for notice in map(_as_dict, notices):
-        key = (notice["kind"], notice["site"], notice["date"])
+        key = (notice["kind"], notice["site"], notice["date"], notice["message"])
         if key not in seen:
             seen.add(key)
             out.append(notice)

@@ -174,7 +174,8 @@ def test_safety_stock_must_stay_below_safe_fill_times_capacity_on_post(client, a
         assert response.status_code == 422, body
         assert [e["pointer"] for e in response.get_json()["errors"]] == ["#/safety_stock"]
     assert count(db_session) == 0
-    assert create(client, auth, site("S-4", safety_stock=8999.0)).get_json()["safety_stock"] == 8999.0
+    just_below = site("S-4", safety_stock=8999.0, demand_per_day=1.0)  # 1 L left: one day at 1 L a day
+    assert create(client, auth, just_below).get_json()["safety_stock"] == 8999.0
 
 
 @pytest.mark.parametrize(
@@ -253,3 +254,23 @@ def test_route_names_are_not_site_codes(client, auth, demo, code):
     response = client.post("/api/v1/sites", json=body, headers=auth("admin"))
     assert response.status_code == 422
     assert response.get_json()["errors"][0]["pointer"] == "#/code"
+
+
+@pytest.mark.parametrize("code", [".", "..", "...", "." * 40])
+def test_codes_made_only_of_dots_are_refused(client, auth, trucks, db_session, code):
+    """``/sites/.`` and ``/sites/..`` are dot segments, which clients remove from a path (RFC 3986
+    §5.2.4): a site or truck with such a code could never be read, changed or deleted."""
+    response = client.post(BASE, json=site(code), headers=auth("admin"))
+    assert response.status_code == 422, response.get_json()
+    assert [e["pointer"] for e in response.get_json()["errors"]] == ["#/code"]
+    assert "only dots" in response.get_json()["errors"][0]["detail"]
+    csv_body = f"code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity\n{code},x,T1,1,0,0,10\n"
+    imported = client.post(f"{BASE}/import", data=csv_body, headers=auth("admin"), content_type="text/csv")
+    assert imported.status_code == 422, imported.get_json()
+    assert [e["pointer"] for e in imported.get_json()["errors"]] == ["#/rows/1/code"]
+    created = client.post("/api/v1/trucks", json=truck(code), headers=auth("admin"))
+    assert created.status_code == 422 and created.get_json()["errors"][0]["pointer"] == "#/code"
+    assert count(db_session) == 0 and count(db_session, Truck) == 2
+    # Dots among other characters stay valid codes, and reachable.
+    create(client, auth, site(f"{code[:39]}a"))
+    assert client.get(f"{BASE}/{code[:39]}a", headers=auth("viewer")).status_code == 200

@@ -6,6 +6,8 @@ import csv
 import io
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 from sqlalchemy import func, select
 
 from service.persistence.db import dispose
@@ -234,3 +236,101 @@ def test_export_defuses_formula_cells_and_round_trips(client, auth, trucks, db_s
         for s in db_session.scalars(select(Site))
     }
     assert after == before
+
+
+def site_body(code: str, name: str) -> dict:
+    return {
+        "code": code,
+        "name": name,
+        "truck": "T1",
+        "demand_per_day": 12.5,
+        "holding_cost": 0.0015,
+        "stop_cost": 30,
+        "tank_capacity": 1000,
+    }
+
+
+@pytest.mark.parametrize("name", ["'=1+2", "''=x", "'+", "'-3", "'@cmd", "'\tx", "'\r", "'t Hoekje", "'", " spaced "])
+def test_names_starting_with_a_quote_survive_export_and_import(client, auth, trucks, db_session, name):
+    assert client.post("/api/v1/sites", json=site_body("Q", name), headers=auth("admin")).status_code == 201
+    exported = client.get(EXPORT, headers=auth("viewer")).get_data()
+    cell = next(csv.DictReader(io.StringIO(exported.decode())))["name"]
+    assert not cell.lstrip("'").startswith(("=", "+", "-", "@", "\t", "\r")) or cell.startswith("'")  # still defused
+    back = client.post(IMPORT, data=exported, headers=auth("admin"), content_type="text/csv")
+    assert back.status_code == 200, back.get_json()
+    assert back.get_json()["updated"] == 0
+    db_session.expire_all()
+    assert db_session.scalars(select(Site.name)).one() == name
+
+
+#: Any printable name (letters, marks, digits, punctuation, symbols, spaces), often opened by
+#: quotes and a formula character, the cases the export's defusing has to undo exactly.
+NAMES = (
+    st.tuples(
+        st.sampled_from(["", "'", "''", "'''"]),
+        st.sampled_from(["", "=", "+", "-", "@", "\t", "\r"]),
+        st.text(st.characters(categories=("L", "M", "N", "P", "S", "Zs")), max_size=60),
+    )
+    .map("".join)
+    .filter(lambda name: 1 <= len(name) <= 200)
+)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(name=NAMES)
+def test_every_name_survives_export_then_import(client, auth, trucks, db_session, name):
+    """Property: export → import is the identity on names (and changes nothing else)."""
+    headers = auth("admin")
+    current = client.get("/api/v1/sites/R", headers=headers)
+    if current.status_code == 404:
+        assert client.post("/api/v1/sites", json=site_body("R", name), headers=headers).status_code == 201
+    else:
+        changed = client.patch(
+            "/api/v1/sites/R", json={"name": name}, headers={**headers, "If-Match": current.headers["ETag"]}
+        )
+        assert changed.status_code == 200, changed.get_json()
+    exported = client.get(EXPORT, headers=headers).get_data()
+    back = client.post(IMPORT, data=exported, headers=headers, content_type="text/csv")
+    assert back.status_code == 200, back.get_json()
+    assert back.get_json()["updated"] == 0
+    assert client.get("/api/v1/sites/R", headers=headers).get_json()["name"] == name
+
+
+@pytest.mark.parametrize(
+    "cell",
+    [
+        "1_000",
+        "\u0661\u0660\u0660\u0660",
+        "\uff11\uff10\uff10\uff10",
+        "1\u00a0000",
+        "0x10",
+        "1e",
+        "e3",
+        "+-1",
+        "inf",
+        "nan",
+        "--1",
+        "1.2.3",
+    ],
+)
+def test_csv_numbers_must_be_plain_ascii_decimals(client, auth, trucks, db_session, cell):
+    """``float()`` reads ``1_000`` and digits of every script (``١٠٠٠`` Arabic-Indic, ``１０００``
+    fullwidth); a CSV cell must be plain digits 0-9."""
+    line = f"S1,Site,T1,{cell},0.001,30,10000,0.9,0,true,,"
+    response = post_csv(client, auth, [HEADER, line])
+    assert response.status_code == 422, response.get_json()
+    errors = response.get_json()["errors"]
+    assert [e["pointer"] for e in errors] == ["#/rows/1/demand_per_day"]
+    assert "Row 1, demand_per_day" in errors[0]["detail"] and "plain number" in errors[0]["detail"]
+    assert count(db_session) == 0
+
+
+@pytest.mark.parametrize(
+    ("cell", "value"),
+    [("1000", 1000), ("+1000", 1000), ("12.", 12), (".5", 0.5), ("2.5E3", 2500), ("7e-1", 0.7), (" 42 ", 42)],
+)
+def test_csv_plain_decimal_forms_are_read(client, auth, trucks, db_session, cell, value):
+    response = post_csv(client, auth, [HEADER, f"S1,Site,T1,{cell},0.001,30,10000,0.9,0,true,,-3.25"])
+    assert response.status_code == 200, response.get_json()
+    stored = db_session.scalars(select(Site)).one()
+    assert (stored.demand_per_day, stored.longitude) == (value, -3.25)

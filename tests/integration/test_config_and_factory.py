@@ -196,6 +196,9 @@ def test_postgresql_engine_pre_pings(make_app, app, database_url):
         ("ULLAGE_READING_STALE_DAYS", "-1"),
         ("ULLAGE_TOKEN_CACHE_SECONDS", "6"),
         ("ULLAGE_TOKEN_CACHE_SECONDS", "-1"),
+        ("ULLAGE_SECURE_COOKIES", "yes"),
+        ("ULLAGE_TRUSTED_PROXIES", "-1"),
+        ("ULLAGE_TRUSTED_PROXIES", "6"),
     ],
 )
 def test_invalid_settings_fail_fast(monkeypatch, tmp_path, name, value):

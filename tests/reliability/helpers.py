@@ -32,6 +32,7 @@ from service.persistence import repository as repo
 ROOT = Path(__file__).resolve().parents[2]
 VENV_BIN = Path(sys.executable).parent
 GUNICORN_CONF = ROOT / "service" / "gunicorn_conf.py"
+HERE = Path(__file__).resolve().parent
 HOST = "127.0.0.1"
 
 
@@ -197,9 +198,13 @@ def start_gunicorn(
     extra_env: dict[str, str] | None = None,
     wait_path: str = "/livez",
     timeout: float = 20.0,
+    app: str = "service.app:create_app()",
     bounds_lifted: bool = True,
 ) -> Server:
     """Start gunicorn with the project's config on a free loopback port; wait until it answers.
+
+    ``app`` is gunicorn's app spec; a module of this directory (``slow_plan_app:create_app()``)
+    needs :data:`HERE` on ``PYTHONPATH`` in ``extra_env``.
 
     Unless ``bounds_lifted`` is false, the per-token limits are off and every thread may wait for
     a planning process (service.bounded): the tests that do not test those bounds (concurrency,
@@ -233,7 +238,7 @@ def start_gunicorn(
             str(GUNICORN_CONF),
             "--bind",
             f"{HOST}:{port}",
-            "service.app:create_app()",
+            app,
         ],
         cwd=str(tmp_path),
         env=env,

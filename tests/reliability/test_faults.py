@@ -13,6 +13,7 @@ middle of a plan POST; SIGTERM with a request in flight; a full disk under SQLit
 from __future__ import annotations
 
 import contextlib
+import logging
 import os
 import shutil
 import signal
@@ -29,8 +30,9 @@ import pytest
 import requests
 from sqlalchemy import create_engine, event, text
 
-from service import create_app
+from service import auth, create_app
 from service.idempotency import LEASE
+from service.persistence import db
 
 from .helpers import (
     add_tokens,
@@ -203,12 +205,70 @@ def own_postgres():
         cluster.remove()
 
 
+def _status_and_body(response) -> tuple[int, dict]:  # noqa: ANN001 - requests' or Flask's response
+    body = response.json() if isinstance(response, requests.Response) else response.get_json()
+    return response.status_code, body
+
+
+def activate_a_plan(post) -> None:  # noqa: ANN001 - post(path) -> (status, JSON body)
+    """Record and activate a plan of TRUCK, so that its weekly trips answer 200."""
+    status, body = post(PLANS)
+    assert status == 201, body
+    assert post(f"/api/v1/plans/{body['id']}/activate")[0] == 200
+
+
+def test_postgres_down_weekly_trips_and_every_route_answer_503_logged_as_warning(own_postgres, monkeypatch, caplog):
+    """PostgreSQL stops while tokens are cached: the weekly trips call, whose change-stamp read
+    connects straight through the pool (``db.RawRead``), answered 500 with a traceback at ERROR;
+    now it answers 503 problem+json with Retry-After like every other route, logged as a warning,
+    and 200 again once the database is back."""
+    url = own_postgres.url
+    migrate(url)
+    load_demo_network(url)
+    tokens = add_tokens(url)
+    monkeypatch.setattr(auth, "_clock", lambda: 0.0)  # cached tokens stay valid: requests reach the routes
+    app = create_app({"DATABASE_URL": url, "TESTING": True, "ULLAGE_TOKEN_CACHE_SECONDS": "5"})
+    client = app.test_client()
+    viewer = bearer(tokens["viewer"])
+    activate_a_plan(lambda path: _status_and_body(client.post(path, json={}, headers=bearer(tokens["dispatcher"]))))
+    reads = (
+        f"/api/v1/trucks/{TRUCK}/trips?week=2026-W50",
+        f"/api/v1/trucks/{TRUCK}/trips?from=2026-12-01&to=2026-12-31",
+        "/api/v1/sites/HV-GAR-02",
+        f"/api/v1/trucks/{TRUCK}/plans",
+        "/api/v1/plans/1",
+    )
+    try:
+        for path in reads:
+            assert client.get(path, headers=viewer).status_code == 200, path
+        caplog.set_level(logging.WARNING, logger="ullage")
+        own_postgres.ctl("stop", "-m", "fast")
+        for _ in range(2):  # the first meets the pooled connections dead, the second finds no server
+            for path in reads:
+                response = client.get(path, headers=viewer)
+                assert response.status_code == 503, (path, response.get_data(as_text=True))
+                assert response.mimetype == "application/problem+json" and response.headers.get("Retry-After")
+            response = client.post(PLANS, json={}, headers=bearer(tokens["dispatcher"]))
+            assert response.status_code == 503 and response.headers.get("Retry-After")
+        assert not [r for r in caplog.records if r.levelno >= logging.ERROR], caplog.text
+        assert "database unavailable" in caplog.text
+        own_postgres.ctl("start")
+        for path in reads:
+            assert client.get(path, headers=viewer).status_code == 200, path
+    finally:
+        db.dispose(app)
+
+
 def test_postgres_restart_during_requests(tmp_path, own_postgres):
     url = own_postgres.url
     migrate(url)
     load_demo_network(url)
     tokens = add_tokens(url)
     server = start_gunicorn(url, tmp_path, workers=2, threads=2)
+    dispatcher = bearer(tokens["dispatcher"])
+    activate_a_plan(
+        lambda path: _status_and_body(requests.post(server.url(path), json={}, headers=dispatcher, timeout=30))
+    )
     results: list[tuple[float, str, str, int, bool, bool]] = []  # (t, kind, key, status, problem, retry-after)
     stop = threading.Event()
     odd: list[str] = []
@@ -219,7 +279,7 @@ def test_postgres_restart_during_requests(tmp_path, own_postgres):
             if stop.is_set():
                 return
             key = f"pgr-{worker}-{i}-{uuid.uuid4().hex[:8]}"
-            kind = "post" if i % 3 == 0 else "get"
+            kind = ("post", "get", "trips")[i % 3]
             try:
                 if kind == "post":
                     response = session.post(
@@ -229,9 +289,8 @@ def test_postgres_restart_during_requests(tmp_path, own_postgres):
                         headers=bearer(tokens["dispatcher"], **{"Idempotency-Key": key}),
                     )
                 else:
-                    response = session.get(
-                        server.url("/api/v1/sites/HV-GAR-02"), timeout=10, headers=bearer(tokens["viewer"])
-                    )
+                    path = "/api/v1/sites/HV-GAR-02" if kind == "get" else f"/api/v1/trucks/{TRUCK}/trips?week=2026-W50"
+                    response = session.get(server.url(path), timeout=10, headers=bearer(tokens["viewer"]))
                 results.append(
                     (
                         time.monotonic(),
@@ -290,7 +349,7 @@ def test_postgres_restart_during_requests(tmp_path, own_postgres):
         for key in unacked:
             converge(server, tokens["dispatcher"], key, LEASE.total_seconds() + 10)
         plans = assert_no_partial_plans(url)
-        assert len(plans) == len(acked | unacked)
+        assert len(plans) == len(acked | unacked) + 1  # + the activated one
         # A retried acknowledged key replays, it does not record again.
         for key in list(acked)[:5]:
             replay = post_plan(server, tokens["dispatcher"], key)
@@ -431,6 +490,54 @@ def test_sigterm_lets_the_in_flight_request_finish(tmp_path):
     assert box.get("response") is not None, box.get("error")
     assert box["response"].status_code == 201, box["response"].text
     assert len(assert_no_partial_plans(url)) == 1
+
+
+# ------------------------------------------------------------------ SQLite locked past busy_timeout
+
+
+def test_sqlite_write_locked_past_busy_timeout_is_503_with_retry_after(tmp_path, sqlite_template, monkeypatch, caplog):
+    """Another connection holds the write lock longer than busy_timeout: every write answers 503
+    problem+json with Retry-After (it was a 500: "database is locked" escaped as a driver error),
+    logged as a warning, nothing recorded; once the lock is gone the same requests succeed."""
+    monkeypatch.setattr(db, "SQLITE_BUSY_TIMEOUT_MS", 200)  # read when the engine and its connections are made
+    path = tmp_path / "busy.db"
+    shutil.copy(sqlite_template, path)
+    url = f"sqlite:///{path}"
+    load_demo_network(url)
+    tokens = add_tokens(url)
+    app = create_app({"DATABASE_URL": url, "TESTING": True})
+    client = app.test_client()
+    admin, dispatcher = bearer(tokens["admin"]), bearer(tokens["dispatcher"])
+    etag = client.get(f"/api/v1/trucks/{TRUCK}", headers=admin).headers["ETag"]
+    writes = (
+        ("post", PLANS, {"json": {}, "headers": {**dispatcher, "Idempotency-Key": '"busy-1"'}}),
+        ("post", PLANS, {"json": {}, "headers": dispatcher}),
+        ("patch", f"/api/v1/trucks/{TRUCK}", {"json": {"name": "Renamed"}, "headers": {**admin, "If-Match": etag}}),
+        (
+            "post",
+            "/api/v1/sites/HV-GAR-02/readings",
+            {"json": {"level": 100.0, "measured_at": "2026-01-05T06:00:00+00:00"}, "headers": dispatcher},
+        ),
+    )
+    try:
+        caplog.set_level(logging.WARNING, logger="ullage")
+        with sqlite_write_lock(path):
+            for method, path_, kwargs in writes:
+                response = getattr(client, method)(path_, **kwargs)
+                assert response.status_code == 503, (path_, response.get_data(as_text=True))
+                assert response.mimetype == "application/problem+json" and response.headers.get("Retry-After")
+                assert "busy" in response.get_json()["detail"]
+            # Reads do not wait for the writer (WAL).
+            assert client.get(f"/api/v1/trucks/{TRUCK}", headers=admin).status_code == 200
+        assert not [r for r in caplog.records if r.levelno >= logging.ERROR], caplog.text
+        assert "database unavailable: OperationalError" in caplog.text
+        assert plan_rows(url) == []
+        for method, path_, kwargs in writes:
+            response = getattr(client, method)(path_, **kwargs)
+            assert response.status_code in (200, 201), response.get_data(as_text=True)
+        assert len(assert_no_partial_plans(url)) == 2
+    finally:
+        db.dispose(app)
 
 
 # ------------------------------------------------------------------ full disk under SQLite

@@ -49,8 +49,9 @@ POSITIVE_ALSO = {
     "POST /api/v1/trucks/{code}/plans": (422,),
     # The level must not exceed *this site's* stored tank_capacity; measured_at not in the future.
     "POST /api/v1/sites/{code}/readings": (422,),
-    # The named truck must exist; safety_stock < safe_fill × tank_capacity (cross-field). A PATCH
-    # also meets the If-Match refusal above.
+    # The named truck must exist; safety_stock < safe_fill × tank_capacity and the usable stock
+    # lasts one day of demand (cross-field, and across site and truck). A PATCH also meets the
+    # If-Match refusal above.
     "POST /api/v1/sites": (422,),
     "PATCH /api/v1/sites/{code}": (412, 422),
     # Some YYYY-W53 do not exist (2025-W53); `week` and `from`/`to` exclude each other; from ≤ to,

@@ -41,7 +41,7 @@ def concrete(rule: str) -> str:
     if rule.startswith(TRUCK_RULES):
         path = path.replace("<string:code>", TRUCK)
     for name, value in VALUES.items():
-        for prefix in ("<string:", "<int:", "<path:", "<"):
+        for prefix in ("<string:", "<int:", "<id:", "<path:", "<"):
             path = path.replace(f"{prefix}{name}>", value)
     return path
 

@@ -12,7 +12,7 @@ from zoneinfo import ZoneInfo
 
 import pytest
 
-from service.planning.projection import PlannedTrip, Projection, Tank, day_start
+from service.planning.projection import DAY, PlannedTrip, Projection, Tank, day_start
 
 UTC = ZoneInfo("UTC")
 D0 = dt.date(2026, 12, 7)
@@ -154,3 +154,96 @@ def test_unread_sites_keep_their_planned_quantity_when_read_sites_need_more():
     assert a.quantity == pytest.approx(3000.0)
     assert a.run_out is not None  # 3000 < 3600 needed: A falls below safety stock before its next delivery
     assert trip.load == pytest.approx(5000.0)
+
+
+# ------------------------------------------------------------------ issue 14: elapsed time, current limits
+
+BERLIN = ZoneInfo("Europe/Berlin")
+SPRING, AUTUMN = dt.date(2027, 3, 28), dt.date(2027, 10, 31)  # last Sundays of March and October
+
+
+def hours_between(later: dt.datetime, earlier: dt.datetime) -> float:
+    return (later.astimezone(dt.UTC) - earlier.astimezone(dt.UTC)) / dt.timedelta(hours=1)
+
+
+@pytest.mark.parametrize(("change", "elapsed"), [(SPRING, 47), (AUTUMN, 49)])
+def test_demand_between_deliveries_across_a_clock_change_is_for_the_elapsed_hours(change, elapsed):
+    # d = 240 per day = 10 per hour, cycle 2 days, safety stock 500. A reading of 500 at 00:00 of
+    # the day before the change; deliveries then and two days later, 47 (spring) or 49 (autumn)
+    # hours apart. The first brings the level to d·T + s = 980.
+    # EU summer time runs from 01:00 UTC on the last Sunday of March to 01:00 UTC on the last
+    # Sunday of October (Directive 2000/84/EC, from memory); the zone database agrees for 2027:
+    # Berlin's 28 March has 23 hours and its 31 October 25.
+    assert hours_between(day_start(change + DAY, BERLIN), day_start(change, BERLIN)) == elapsed - 24
+    before = change - DAY
+    p = Projection([Tank("A", 240.0, 9000.0, 500.0, 2, 500.0, day_start(before, BERLIN))], 18000.0, BERLIN)
+    first, second = p.correct([PlannedTrip(before, (("A", 480.0),)), PlannedTrip(change + DAY, (("A", 480.0),))])
+    assert first.stops[0].projected_level_before == pytest.approx(500.0)
+    assert first.stops[0].quantity == pytest.approx(480.0)
+    assert hours_between(day_start(change + DAY, BERLIN), day_start(before, BERLIN)) == elapsed
+    assert second.stops[0].projected_level_before == pytest.approx(980.0 - 10.0 * elapsed)
+    assert second.stops[0].quantity == pytest.approx(480.0 + 500.0 - (980.0 - 10.0 * elapsed))
+
+
+@pytest.mark.parametrize(("change", "elapsed"), [(SPRING, 47), (AUTUMN, 49)])
+def test_projected_levels_between_deliveries_count_elapsed_hours(change, elapsed):
+    # The status page's chart: the level at 00:00 two days after a delivery made the day before the change.
+    before = change - DAY
+    p = Projection([Tank("A", 240.0, 9000.0, 500.0, 2, 500.0, day_start(before, BERLIN))], 18000.0, BERLIN)
+    p.correct([PlannedTrip(before, (("A", 480.0),))])
+    assert p.level_before("A", day_start(change + DAY, BERLIN)) == pytest.approx(980.0 - 10.0 * elapsed)
+
+
+def test_run_out_date_after_the_spring_change_is_from_elapsed_time():
+    # Truck capacity 475: the delivery of 27 March (00:00 CET = 23:00 UTC on the 26th) lifts 500 to
+    # 975, 475 above the safety stock: 47.5 hours at 10 per hour, i.e. 22:30 UTC on 28 March =
+    # 00:30 CEST on the 29th. Wall-clock arithmetic would put it at 23:30 on the 28th.
+    before = SPRING - DAY
+    p = Projection([Tank("A", 240.0, 9000.0, 500.0, 2, 500.0, day_start(before, BERLIN))], 475.0, BERLIN)
+    [trip] = p.correct([PlannedTrip(before, (("A", 480.0),))])
+    assert trip.stops[0].quantity == pytest.approx(475.0)
+    # The next delivery (00:00 CEST on the 29th, 47 hours later) would come before the crossing.
+    assert trip.stops[0].run_out is None
+    p.finish(day_start(SPRING + 2 * DAY, BERLIN))
+    assert [r.date for r in p.run_outs] == [SPRING + DAY]
+
+
+def test_an_unread_site_gets_no_more_than_the_room_above_its_safety_stock():
+    # Safe fill level 2700 (tank 3000 × 0.9), safety stock 500: the plan's 6500 becomes 2200.
+    p = Projection([Tank("A", 500.0, 2700.0, 500.0, 13, None, None)], 10000.0, UTC)
+    stop = p.correct([PlannedTrip(day(0), (("A", 6500.0),))])[0].stops[0]
+    assert stop.quantity == pytest.approx(2200.0)
+    assert (stop.wanted, stop.room) == (6500.0, pytest.approx(2200.0))
+
+
+def test_a_level_above_the_safe_fill_gets_nothing():
+    p = Projection([tank(level=9500.0)], 18000.0, UTC)
+    stop = p.correct([PlannedTrip(day(0), (("A", 3000.0),))])[0].stops[0]
+    assert stop.quantity == 0.0 and stop.room == pytest.approx(-500.0)
+
+
+def test_unread_sites_reserve_only_what_fits_their_room():
+    # Truck 5000. B (no reading) planned 4000 but its room is 1500 − 0 = 1500, so it reserves 1500 and
+    # A (read: need 300·14 + 500 − 1100 = 3600) gets 5000 − 1500 = 3500.
+    unread = Tank("B", 100.0, 1500.0, 0.0, 14, None, None)
+    p = Projection([tank(T=14), unread], 5000.0, UTC)
+    [trip] = p.correct([PlannedTrip(day(3), (("A", 3000.0), ("B", 4000.0)))])
+    a, b = trip.stops
+    assert b.quantity == pytest.approx(1500.0)
+    assert a.quantity == pytest.approx(3500.0) and a.wanted == pytest.approx(3600.0)
+    assert trip.load == pytest.approx(5000.0)
+
+
+def test_over_max_stops_the_sites_with_fewest_days_of_stock_keep_their_stops():
+    # max_stops 2. On day 3: A read high (5000 − 900 = 4100, (4100 − 500)/300 = 12 days), B read low
+    # (1000 − 900 = 100, below its safety stock: (100 − 500)/300 = −4/3 days), C and D unread (0 days,
+    # the plan's order breaks the tie): B and C keep their stops, A and D are dropped.
+    tanks = [tank("A", level=5000.0), tank("B", level=1000.0), tank("C", level=None), tank("D", level=None)]
+    p = Projection(tanks, 18000.0, UTC, max_stops=2)
+    assert p.days_of_stock("A", at(3)) == pytest.approx(12.0)
+    assert p.days_of_stock("B", at(3)) == pytest.approx(-400.0 / 300.0)
+    [trip] = p.correct([PlannedTrip(day(3), (("A", 1.0), ("B", 1.0), ("C", 1.0), ("D", 1.0)))])
+    assert [s.site for s in trip.stops] == ["B", "C"]
+    assert trip.dropped == ("A", "D")
+    # A's tank was not refilled: it keeps falling from its reading.
+    assert p.level_before("A", at(4)) == pytest.approx(5000.0 - 4 * 300.0)

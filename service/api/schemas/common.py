@@ -2,8 +2,25 @@
 
 import marshmallow as ma
 
-CODE_PATTERN = r"^[A-Za-z0-9._-]{1,40}$"
-code_field_validate = ma.validate.Regexp(CODE_PATTERN, error="Use 1–40 of A–Z, a–z, 0–9, '.', '_' or '-'.")
+from service.api.fields import STORABLE_PATTERN, storable
+
+#: 1–40 of A–Z, a–z, 0–9, '.', '_', '-', and not dots only: a code is a URL path segment, and
+#: clients remove ``.`` and ``..`` segments from paths (RFC 3986 §5.2.4), so such a site or truck
+#: could not be reached; longer runs of dots are refused with them. ``$`` also matches before a
+#: final newline in Python, so the validator matches the whole string (``fullmatch``); the pattern
+#: is what the OpenAPI document states.
+CODE_PATTERN = r"^(?!\.+$)[A-Za-z0-9._-]{1,40}$"
+_CODE_ERROR = "Use 1–40 of A–Z, a–z, 0–9, '.', '_' or '-', and not only dots (a URL cannot reach '.' or '..')."
+
+
+class _WholeCode(ma.validate.Regexp):
+    def __call__(self, value: str) -> str:
+        if not isinstance(value, str) or self.regex.fullmatch(value) is None:
+            raise ma.ValidationError(self._format_error(value))
+        return value
+
+
+code_field_validate = _WholeCode(CODE_PATTERN, error=_CODE_ERROR)
 name_validate = ma.validate.Length(min=1, max=200)
 
 #: The smallest positive value accepted where a quantity must be > 0 (a real minimum, so the
@@ -22,7 +39,15 @@ def nonnegative() -> ma.validate.Range:
 
 
 class StrictSchema(ma.Schema):
-    """Unknown fields are refused (marshmallow's default RAISE, stated explicitly)."""
+    """Unknown fields are refused (marshmallow's default RAISE, stated explicitly), and every string
+    field refuses text that cannot be stored (NUL, lone surrogates: ``fields.storable``)."""
 
     class Meta:
         unknown = ma.RAISE
+
+    def on_bind_field(self, field_name: str, field_obj: ma.fields.Field) -> None:
+        if isinstance(field_obj, ma.fields.String):
+            if not any(isinstance(v, ma.validate.Regexp) for v in field_obj.validators):
+                # Documented as a pattern; a field with a pattern of its own states its characters.
+                field_obj.metadata = {"pattern": STORABLE_PATTERN, **field_obj.metadata}
+            field_obj.validators = [*field_obj.validators, storable]

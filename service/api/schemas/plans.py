@@ -2,7 +2,16 @@
 
 import marshmallow as ma
 
-from service.api.fields import JsonFloat, JsonInt
+from service.api.fields import (
+    DATE_RANGE,
+    WEEK_PATTERN,
+    WEEK_RANGE,
+    BoundedAwareDateTime,
+    BoundedDate,
+    IdKey,
+    JsonFloat,
+    JsonInt,
+)
 from service.api.pagination import PageArgsSchema
 from service.api.schemas.calculations import JointFieldsSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema
@@ -13,10 +22,10 @@ PLAN_METHODS = ("power_of_two", "integer", "best")
 class PlanRequestSchema(StrictSchema):
     method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(PLAN_METHODS))
     base_days = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=3660))
-    start_date = ma.fields.Date(
+    start_date = BoundedDate(
         load_default=None,
         allow_none=True,
-        metadata={"description": "First day of the plan's calendar (default: today)"},
+        metadata={"description": f"First day of the plan's calendar (default: today), {DATE_RANGE}"},
     )
 
 
@@ -40,12 +49,9 @@ class PlanListSchema(ma.Schema):
 
 
 class IdPageArgsSchema(PageArgsSchema):
-    """Pages keyed by a numeric id: ``after`` is that id (18 digits at most: a database integer)."""
+    """Pages keyed by a numeric id: ``after`` is that id."""
 
-    after = ma.fields.String(
-        validate=ma.validate.Regexp(r"^[0-9]{1,18}$"),
-        metadata={"description": "The id of the last item of the previous page (Link header)"},
-    )
+    after = IdKey(metadata={"description": "The id of the last item of the previous page (Link header)"})
 
 
 class PlanQueryArgsSchema(IdPageArgsSchema):
@@ -54,15 +60,28 @@ class PlanQueryArgsSchema(IdPageArgsSchema):
 
 class TripsQueryArgsSchema(StrictSchema):
     week = ma.fields.String(
-        metadata={"description": "ISO 8601 week, e.g. 2026-W50 (Monday to Sunday)"},
-        validate=ma.validate.Regexp(r"^(?!0000)\d{4}-W(0[1-9]|[1-4][0-9]|5[0-3])$"),
+        metadata={"description": f"ISO 8601 week, e.g. 2026-W50 (Monday to Sunday), {WEEK_RANGE}"},
+        validate=ma.validate.Regexp(WEEK_PATTERN, error=f"Use an ISO 8601 week such as 2026-W50, {WEEK_RANGE}."),
     )
-    from_ = ma.fields.Date(data_key="from")
-    to = ma.fields.Date()
+    from_ = BoundedDate(data_key="from", metadata={"description": f"First day, {DATE_RANGE}"})
+    to = BoundedDate(metadata={"description": f"Last day, {DATE_RANGE}"})
+
+
+NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading")
 
 
 class NoticeSchema(ma.Schema):
-    kind = ma.fields.String(metadata={"description": "run_out_risk, plan_stale, no_recent_reading"})
+    kind = ma.fields.String(
+        validate=ma.validate.OneOf(NOTICE_KINDS),
+        metadata={
+            "description": "run_out_risk: the tank is projected below its safety stock on `date`; "
+            "limits_changed: a site or truck limit changed since the plan (tank_capacity, safe_fill, "
+            "safety_stock, capacity, max_stops, active) and cut this stop's quantity, dropped a stop or "
+            "took a site out; the message names the field and both values; plan_stale: the plan's "
+            "inputs changed (the message names which fields of which sites or truck); "
+            "no_recent_reading: the site's quantities are not corrected by a recent reading"
+        },
+    )
     message = ma.fields.String()
     site = ma.fields.String(allow_none=True)
     date = ma.fields.Date(allow_none=True)
@@ -93,8 +112,10 @@ class TripsSchema(ma.Schema):
 
 class ReadingRequestSchema(StrictSchema):
     level = JsonFloat(required=True, validate=ma.validate.Range(min=0, max=AMOUNT_MAX))
-    measured_at = ma.fields.AwareDateTime(
-        required=True, format="iso", metadata={"description": "ISO 8601 with a UTC offset; not in the future"}
+    measured_at = BoundedAwareDateTime(
+        required=True,
+        format="iso",
+        metadata={"description": f"ISO 8601 with a UTC offset; not in the future; its date {DATE_RANGE}"},
     )
 
 
