@@ -10,14 +10,22 @@ scenarios:
   when installed (``--no-wrk`` to use the Python generator), else the Python generator; 32
   connections each, interleaved in 2 s slices so that the machine's drift weighs on each alike;
 * ``POST`` a joint calculation of 50 sites and ``POST`` plan creation with Idempotency-Keys — Python
-  generator (threads, one keep-alive ``http.client`` connection each).
+  generator (threads, one keep-alive ``http.client`` connection each), with the admin token (exempt
+  from the per-token limits) and room for 8 waiting requests per worker (``ULLAGE_PLAN_QUEUE=7``):
+  they measure the planning path's throughput, not its bounds;
+* **bounded work** (``--scenario bounded``; its own gunicorn with the service's defaults): a truck of
+  300 sites with an active plan; the weekly trips call of that truck measured alone (idle), then
+  again while 8 dispatchers (a token each) post maximal joint calculations (``ULLAGE_MAX_PLAN_SITES``
+  sites with load and stop limits, which today's planner cannot finish within the budget) and a
+  viewer loops 92-day windows of the truck, each a new window. The clients honour ``Retry-After``.
 
 Every scenario runs ``--seconds`` (default 10, at most 30). It prints requests per second, p50/p99
 and error counts (and, per ``wrk`` slice, how its connections were split over the workers), and
-checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count.
+checks: trips ≥ half of /livez; 0 errors; plan rows == 2xx count; under bounded work, the weekly
+call's p99 within 5× its idle p99 and no answer but 200, 429 or 503 (with ``Retry-After``).
 
     .venv/bin/python benchmarks/load.py [--seconds 10] [--db sqlite|postgresql|both] [--shared-socket]
-                                        [--max-requests N]
+                                        [--max-requests N] [--scenario all|throughput|bounded]
 """
 
 from __future__ import annotations
@@ -29,6 +37,7 @@ import http.client
 import json
 import math
 import os
+import random
 import re
 import shutil
 import signal
@@ -64,6 +73,12 @@ MAX_SECONDS = 30
 MAX_REQUESTS = 2_000_000  # a hard cap per scenario, whatever the speed
 SLICE_SECONDS = 2  # the GET scenarios alternate in slices this long (interleaved_gets)
 GET_CONNECTIONS = 32  # several per thread of 2 workers × 4 threads, so no thread waits for a client
+#: The throughput scenarios' server: up to 8 planning requests per worker wait for its planning
+#: process instead of being answered 503 (4 joint calculations or 8 plan POSTs may land on one worker).
+THROUGHPUT_ENV = {"ULLAGE_PLAN_QUEUE": "7"}
+BIG_TRUCK, BIG_SITES, PLANNERS = "BENCH-300", 300, 8
+WEEKLY_CONNECTIONS = 2  # dispatch software polling the weekly call
+WINDOW_PAUSE = 1.0  # between the bounded scenario's phases
 
 
 @dataclass
@@ -188,7 +203,7 @@ def wrk_load(
 
 @contextlib.contextmanager
 def gunicorn(
-    url: str, workdir: Path, workers: int, shared_socket: bool, max_requests: int
+    url: str, workdir: Path, workers: int, shared_socket: bool, max_requests: int, extra_env: dict[str, str]
 ) -> Iterator[tuple[int, int]]:
     """gunicorn on a free loopback port, ready: yields (port, master pid)."""
     port = free_port()
@@ -211,6 +226,7 @@ def gunicorn(
         # its split either way; docs/reliability.md has both, and the cost of per-worker sockets
         # when workers restart (--max-requests).
         "ULLAGE_REUSE_PORT": "0" if shared_socket else "1",
+        **extra_env,
     }
     log = open(workdir / "gunicorn.log", "wb")  # noqa: SIM115
     process = subprocess.Popen(
@@ -306,17 +322,33 @@ def joint_body() -> bytes:
     return json.dumps({"dispatch_cost": 150, "truck_capacity": 36000, "max_stops": 10, "sites": sites}).encode()
 
 
+def report_log(name: str, log: str) -> None:
+    """Say which alarming lines the server logged (with the first one's context)."""
+    for marker in ("database is locked", "WORKER TIMEOUT", "Traceback"):
+        if marker in log:
+            at = log.index(marker)
+            context = log[max(0, log.rfind("\n", 0, max(0, at - 300)) + 1) : at + 600]
+            print(f"!! {name}: server log contains {marker!r}:\n{context}", file=sys.stderr)
+
+
 def run_database(
-    name: str, url: str, seconds: float, use_wrk: bool, workers: int, shared_socket: bool, max_requests: int
+    name: str,
+    url: str,
+    tokens: dict[str, str],
+    seconds: float,
+    use_wrk: bool,
+    workers: int,
+    shared_socket: bool,
+    max_requests: int,
 ) -> list[Figures]:
-    tokens = prepare(url)
     out: list[Figures] = []
     with (
         tempfile.TemporaryDirectory(prefix=f"ullage-bench-{name}-") as workdir,
-        gunicorn(url, Path(workdir), workers, shared_socket, max_requests) as (port, master),
+        gunicorn(url, Path(workdir), workers, shared_socket, max_requests, THROUGHPUT_ENV) as (port, master),
     ):
         viewer = {"Authorization": f"Bearer {tokens['viewer']}"}
-        dispatcher = {"Authorization": f"Bearer {tokens['dispatcher']}"}
+        # The POST scenarios measure throughput: the admin token is exempt from the per-token limits.
+        dispatcher = {"Authorization": f"Bearer {tokens['admin']}"}
         status, plan = request_json(port, "POST", f"/api/v1/trucks/{TRUCK}/plans", dispatcher, {})
         assert status == 201, plan
         status, _ = request_json(port, "POST", f"/api/v1/plans/{plan['id']}/activate", dispatcher)
@@ -361,9 +393,7 @@ def run_database(
     out[-1].scenario += f" rows={recorded}"
     if recorded != ok:
         print(f"!! {name}: {recorded} plan rows for {ok} 2xx answers", file=sys.stderr)
-    for marker in ("database is locked", "WORKER TIMEOUT", "Traceback"):
-        if marker in log:
-            print(f"!! {name}: server log contains {marker!r}", file=sys.stderr)
+    report_log(name, log)
     return out
 
 
@@ -416,6 +446,226 @@ def interleaved_gets(
     return out
 
 
+@dataclass
+class Bounded:
+    """The bounded-work scenario's figures on one database."""
+
+    database: str
+    idle: Figures
+    looped: Figures  # only the viewer looping windows
+    loaded: Figures
+    looper: dict[str, int]  # the looper's answers in its phase alone
+    heavy: dict[str, int]  # "status kind" → count ("0 …": no answer)
+    windows: dict[str, int]
+    max_sites: int
+    plan_seconds: float
+
+    @property
+    def ratio(self) -> float:
+        return self.loaded.p99_ms / self.idle.p99_ms if self.idle.p99_ms else math.inf
+
+    @property
+    def errors(self) -> int:
+        expected = ("200", "429", "503")
+        answers = (*self.heavy.items(), *self.windows.items(), *self.looper.items())
+        unexpected = sum(n for answer, n in answers if answer[:3] not in expected)
+        return unexpected + self.idle.errors + self.looped.errors + self.loaded.errors
+
+
+def add_big_truck(url: str) -> dict[str, str]:
+    """A truck of ``BIG_SITES`` invented tanks (no load or stop limit, so its plan is quick) and
+    ``PLANNERS`` dispatcher tokens and a viewer token of their own."""
+    rng = random.Random(300)
+    engine = create_engine(url)
+    tokens = {}
+    with Session(engine) as session:
+        truck = repo.add_truck(
+            session,
+            {"code": BIG_TRUCK, "name": "Bench 300", "dispatch_cost": 200.0, "capacity": 1e9, "max_stops": None},
+        )
+        for i in range(BIG_SITES):
+            demand = rng.uniform(50, 5000)
+            repo.add_site(
+                session,
+                {
+                    "code": f"B300-{i:03d}",
+                    "name": f"Bench tank {i}",
+                    "demand_per_day": demand,
+                    "holding_cost": rng.uniform(0.0005, 0.005),
+                    "stop_cost": rng.uniform(5, 50),
+                    "tank_capacity": demand * math.exp(rng.uniform(math.log(3), math.log(60))) / 0.9,
+                    "safe_fill": 0.9,
+                    "safety_stock": 0.0,
+                },
+                truck,
+            )
+        for name, role in [*((f"planner-{i}", "dispatcher") for i in range(PLANNERS)), ("looper", "viewer")]:
+            tokens[name] = new_token()
+            repo.add_token(session, f"bench-{name}", role, token_hash(tokens[name]))
+        session.commit()
+    engine.dispose()
+    return tokens
+
+
+def maximal_body(sites: int) -> bytes:
+    """A joint calculation of ``sites`` invented tanks on a 36 000 L truck of 10 stops."""
+    rng = random.Random(sites)
+    rows = []
+    for i in range(sites):
+        demand = rng.uniform(50, 5000)
+        rows.append(
+            {
+                "code": f"M{i}",
+                "demand_per_day": demand,
+                "holding_cost": rng.uniform(0.0005, 0.005),
+                "stop_cost": rng.uniform(5, 50),
+                "tank_capacity": demand * math.exp(rng.uniform(math.log(3), math.log(60))) / 0.9,
+            }
+        )
+    return json.dumps({"dispatch_cost": 200, "truck_capacity": 36000, "max_stops": 10, "sites": rows}).encode()
+
+
+def looping_client(
+    port: int, requests_: Callable[[int], tuple[str, str, bytes | None]], headers: dict[str, str], until: float
+) -> dict[str, int]:
+    """One client, request after request until ``until``, sleeping as ``Retry-After`` says (never
+    past ``until``; then on a new connection, as gunicorn has closed the idle one after 5 s).
+    Returns "status kind" → count ("0" for no answer; kind is the problem type's last segment)."""
+    answers: dict[str, int] = {}
+    conn = http.client.HTTPConnection(HOST, port, timeout=60)
+    i = 0
+    while time.monotonic() < until and i < MAX_REQUESTS:
+        method, path, body = requests_(i)
+        i += 1
+        retry = None
+        try:
+            conn.request(method, path, body=body, headers=headers)
+            response = conn.getresponse()
+            data = response.read()
+            retry = response.getheader("Retry-After")
+            answer = str(response.status)
+            if response.getheader("Content-Type") == "application/problem+json":
+                answer += " " + json.loads(data)["type"].rsplit("/", 1)[-1]
+        except (OSError, http.client.HTTPException) as exc:
+            answer = f"0 {type(exc).__name__}"
+            retry = "0"
+        answers[answer] = answers.get(answer, 0) + 1
+        if retry is not None:
+            conn.close()
+            time.sleep(max(0.0, min(float(retry), until - time.monotonic())))
+            conn = http.client.HTTPConnection(HOST, port, timeout=60)
+    conn.close()
+    return answers
+
+
+def run_bounded(
+    name: str, url: str, tokens: dict[str, str], seconds: float, workers: int, plan_seconds: float | None
+) -> Bounded:
+    """Weekly call of a 300-site truck, idle, then under 8 maximal calculations and a window looper."""
+    tokens = {**tokens, **add_big_truck(url)}
+    env = {} if plan_seconds is None else {"ULLAGE_PLAN_SECONDS": f"{plan_seconds:g}"}
+    with (
+        tempfile.TemporaryDirectory(prefix=f"ullage-bounded-{name}-") as workdir,
+        gunicorn(url, Path(workdir), workers, False, 0, env) as (port, _master),
+    ):
+        admin = {"Authorization": f"Bearer {tokens['admin']}"}
+        status, plan = request_json(port, "POST", f"/api/v1/trucks/{BIG_TRUCK}/plans", admin, {})
+        assert status == 201, plan
+        assert request_json(port, "POST", f"/api/v1/plans/{plan['id']}/activate", admin)[0] == 200
+        status, config = request_json(port, "GET", "/api/v1/settings", admin)
+        max_sites, budget = config["max_sites_per_calculation"], config["planning_seconds"]
+        iso = dt.date.today().isocalendar()
+        weekly = f"/api/v1/trucks/{BIG_TRUCK}/trips?week={iso.year}-W{iso.week:02d}"
+        viewer = {"Authorization": f"Bearer {tokens['viewer']}"}
+        assert request_json(port, "GET", weekly, viewer)[0] == 200  # the worker's cache, as in service
+
+        total, ok, errors, lat = python_load(port, "GET", weekly, viewer, seconds, WEEKLY_CONNECTIONS)
+        idle = python_figures(
+            "GET weekly trips (300 sites), idle", name, WEEKLY_CONNECTIONS, seconds, total, ok, errors, lat
+        )
+
+        body, first = maximal_body(max_sites), dt.date.today()
+        heavy: list[dict[str, int]] = []
+        windows: list[dict[str, int]] = []
+
+        def planner(token: str) -> None:
+            headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
+            heavy.append(looping_client(port, lambda _i: ("POST", "/api/v1/calculations/joint", body), headers, until))
+
+        def window(i: int) -> tuple[str, str, None]:
+            start = first + dt.timedelta(days=i % 300)
+            return "GET", f"/api/v1/trucks/{BIG_TRUCK}/trips?from={start}&to={start + dt.timedelta(days=91)}", None
+
+        def looper(out: list[dict[str, int]], until: float) -> None:
+            out.append(looping_client(port, window, {"Authorization": f"Bearer {tokens['looper']}"}, until))
+
+        # The viewer alone (its own per-token limit of heavy reads applies), then everyone.
+        alone: list[dict[str, int]] = []
+        thread = threading.Thread(target=looper, args=(alone, time.monotonic() + seconds + 1))
+        thread.start()
+        time.sleep(0.5)
+        total, ok, errors, lat = python_load(port, "GET", weekly, viewer, seconds, WEEKLY_CONNECTIONS)
+        thread.join(2 * budget + 60)
+        looped = python_figures("weekly, window looper", name, WEEKLY_CONNECTIONS, seconds, total, ok, errors, lat)
+        time.sleep(WINDOW_PAUSE)
+        until = time.monotonic() + seconds + 1
+        threads = [threading.Thread(target=planner, args=(tokens[f"planner-{i}"],)) for i in range(PLANNERS)]
+        threads.append(threading.Thread(target=looper, args=(windows, until)))
+        for thread in threads:
+            thread.start()
+        time.sleep(1)  # the computations and the looper are under way
+        total, ok, errors, lat = python_load(port, "GET", weekly, viewer, seconds, WEEKLY_CONNECTIONS)
+        for thread in threads:
+            thread.join(2 * budget + 60)
+        loaded = python_figures(
+            "GET weekly trips (300 sites), loaded", name, WEEKLY_CONNECTIONS, seconds, total, ok, errors, lat
+        )
+        log = (Path(workdir) / "gunicorn.log").read_text(errors="replace")
+    report_log(name, log)
+
+    def merged(parts: list[dict[str, int]]) -> dict[str, int]:
+        out: dict[str, int] = {}
+        for part in parts:
+            for status, count in part.items():
+                out[status] = out.get(status, 0) + count
+        return dict(sorted(out.items()))
+
+    return Bounded(name, idle, looped, loaded, merged(alone), merged(heavy), merged(windows), max_sites, budget)
+
+
+def print_bounded(results: list[Bounded], seconds: float, workers: int) -> list[str]:
+    """The bounded-work table and its targets; returns the targets missed."""
+    print(
+        f"\nBounded work: gunicorn {workers} workers, the service's defaults; the weekly call of a {BIG_SITES}-site truck, "
+        f"{seconds:g} s each: idle; while a viewer loops 92-day windows; while {PLANNERS} dispatchers also post "
+        "maximal calculations\n"
+    )
+    header = f"| {'db':<10} | {'weekly call':<11} | {'requests':>8} | {'p50 ms':>7} | {'p99 ms':>7} | {'errors':>6} |"
+    print(header)
+    print("|" + "|".join("-" * len(cell) for cell in header.split("|")[1:-1]) + "|")
+    for r in results:
+        for label, f in (("idle", r.idle), ("looper", r.looped), ("everyone", r.loaded)):
+            print(
+                f"| {r.database:<10} | {label:<11} | {f.requests:>8} | {f.p50_ms:>7.2f} | {f.p99_ms:>7.2f} | {f.errors:>6} |"
+            )
+    failures = []
+    for r in results:
+        print(f"\n{r.database}: the viewer alone, 92-day windows by answer: {r.looper}")
+        print(
+            f"{r.database}: with everyone, maximal calculations ({r.max_sites} sites, budget {r.plan_seconds:g} s), answers by status: "
+            f"{r.heavy}; 92-day windows: {r.windows}"
+        )
+        print(
+            f"{r.database}: weekly p99 / idle p99 = {r.looped.p99_ms / r.idle.p99_ms:.2f} with the looper, "
+            f"{r.ratio:.2f} with everyone (target ≤ 5); errors {r.errors} (target 0)"
+        )
+        if r.ratio > 5 or r.looped.p99_ms > 5 * r.idle.p99_ms:
+            failures.append(f"{r.database}: weekly p99 more than 5× idle")
+        if r.errors:
+            failures.append(f"{r.database}: {r.errors} errors under bounded work")
+    return failures
+
+
 @contextlib.contextmanager
 def bench_postgres(base_url: str, name: str = "ullage_bench") -> Iterator[str]:
     """A fresh database ``name`` on the server of ``base_url``, dropped afterwards (also benchmarks/reads.py)."""
@@ -432,45 +682,10 @@ def bench_postgres(base_url: str, name: str = "ullage_bench") -> Iterator[str]:
         admin.dispose()
 
 
-def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--seconds", type=float, default=10.0, help=f"per scenario (≤ {MAX_SECONDS})")
-    parser.add_argument("--db", choices=("sqlite", "postgresql", "both"), default="both")
-    parser.add_argument(
-        "--pg-url",
-        default=os.environ.get("BENCH_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"),
-    )
-    parser.add_argument("--workers", type=int, default=2)
-    parser.add_argument("--no-wrk", action="store_true", help="use the Python generator for the GETs too")
-    parser.add_argument(
-        "--shared-socket", action="store_true", help="one listening socket for all workers (gunicorn's default)"
-    )
-    parser.add_argument(
-        "--max-requests", type=int, default=0, help="recycle each worker after this many requests (0: never)"
-    )
-    args = parser.parse_args(argv)
-    seconds = min(max(args.seconds, 1.0), MAX_SECONDS)
-    use_wrk = not args.no_wrk and shutil.which("wrk") is not None
+def print_throughput(figures: list[Figures], args: argparse.Namespace, seconds: float) -> list[str]:
+    """The throughput table and its targets; returns the targets missed."""
     sockets = "one shared listening socket" if args.shared_socket else "a listening socket each"
     recycling = f"recycled every {args.max_requests} requests" if args.max_requests else "never recycled"
-    figures: list[Figures] = []
-    if args.db in ("sqlite", "both"):
-        with tempfile.TemporaryDirectory(prefix="ullage-bench-db-") as directory:
-            figures += run_database(
-                "sqlite",
-                f"sqlite:///{directory}/bench.db",
-                seconds,
-                use_wrk,
-                args.workers,
-                args.shared_socket,
-                args.max_requests,
-            )
-    if args.db in ("postgresql", "both"):
-        with bench_postgres(args.pg_url) as url:
-            figures += run_database(
-                "postgresql", url, seconds, use_wrk, args.workers, args.shared_socket, args.max_requests
-            )
-
     print(
         f"\nUllage load benchmark: gunicorn {args.workers} workers (gthread, {sockets}, {recycling}), "
         f"loopback, {seconds:g} s per scenario, {os.cpu_count()} CPUs shared with the load generator\n"
@@ -503,9 +718,59 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{database}: plan rows {rows_recorded} == 2xx {plan.ok}: {rows_recorded == plan.ok}")
         if rows_recorded != plan.ok:
             failures.append(f"{database}: plan rows {rows_recorded} != 2xx {plan.ok}")
-    errors = [f for f in figures if f.errors]
-    for f in errors:
-        failures.append(f"{f.database} {f.scenario}: {f.errors} errors")
+    for f in figures:
+        if f.errors:
+            failures.append(f"{f.database} {f.scenario}: {f.errors} errors")
+    return failures
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--seconds", type=float, default=10.0, help=f"per scenario (≤ {MAX_SECONDS})")
+    parser.add_argument("--db", choices=("sqlite", "postgresql", "both"), default="both")
+    parser.add_argument(
+        "--pg-url",
+        default=os.environ.get("BENCH_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"),
+    )
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--no-wrk", action="store_true", help="use the Python generator for the GETs too")
+    parser.add_argument(
+        "--shared-socket", action="store_true", help="one listening socket for all workers (gunicorn's default)"
+    )
+    parser.add_argument(
+        "--max-requests", type=int, default=0, help="recycle each worker after this many requests (0: never)"
+    )
+    parser.add_argument("--scenario", choices=("all", "throughput", "bounded"), default="all")
+    parser.add_argument(
+        "--plan-seconds",
+        type=float,
+        default=None,
+        help="ULLAGE_PLAN_SECONDS of the bounded scenario (default: the service's)",
+    )
+    args = parser.parse_args(argv)
+    seconds = min(max(args.seconds, 1.0), MAX_SECONDS)
+    use_wrk = not args.no_wrk and shutil.which("wrk") is not None
+    figures: list[Figures] = []
+    bounded: list[Bounded] = []
+
+    def run(name: str, url: str) -> None:
+        tokens = prepare(url)
+        if args.scenario in ("all", "throughput"):
+            figures.extend(
+                run_database(name, url, tokens, seconds, use_wrk, args.workers, args.shared_socket, args.max_requests)
+            )
+        if args.scenario in ("all", "bounded"):
+            bounded.append(run_bounded(name, url, tokens, seconds, args.workers, args.plan_seconds))
+
+    if args.db in ("sqlite", "both"):
+        with tempfile.TemporaryDirectory(prefix="ullage-bench-db-") as directory:
+            run("sqlite", f"sqlite:///{directory}/bench.db")
+    if args.db in ("postgresql", "both"):
+        with bench_postgres(args.pg_url) as url:
+            run("postgresql", url)
+    failures = print_throughput(figures, args, seconds) if figures else []
+    if bounded:
+        failures += print_bounded(bounded, seconds, args.workers)
     print("\nall targets met" if not failures else "\nTARGETS MISSED:\n  " + "\n  ".join(failures))
     return 0 if not failures else 1
 

@@ -22,6 +22,9 @@ _UNIT = re.compile(r"^[A-Za-z0-9³]{1,8}$")
 
 #: A revoked token must be refused in every worker within this time (conventions, SEC-3).
 MAX_TOKEN_CACHE_SECONDS = 5
+#: Ceilings of the bounded-work settings (an hour of planning; the calculation schema's site limit).
+MAX_PLAN_SECONDS = 3600
+MAX_PLAN_SITES = 100_000
 
 SECURE_COOKIES = ("auto", "always", "never")
 MAX_TRUSTED_PROXIES = 5
@@ -37,6 +40,15 @@ ENVIRONMENT = {
     "ULLAGE_MAX_CALCULATION_BYTES": "max_calculation_bytes",
     "ULLAGE_READING_STALE_DAYS": "reading_stale_days",
     "ULLAGE_TOKEN_CACHE_SECONDS": "token_cache_seconds",
+    "ULLAGE_PLAN_SECONDS": "plan_seconds",
+    "ULLAGE_PLAN_GRACE_SECONDS": "plan_grace_seconds",
+    "ULLAGE_PLAN_PROCESSES": "plan_processes",
+    "ULLAGE_PLAN_QUEUE": "plan_queue",
+    "ULLAGE_MAX_PLAN_SITES": "max_plan_sites",
+    "ULLAGE_MAX_TRIPS_DAYS": "max_trips_days",
+    "ULLAGE_LONG_TRIPS_DAYS": "long_trips_days",
+    "ULLAGE_PLANNING_PER_MINUTE": "planning_per_minute",
+    "ULLAGE_HEAVY_READS_PER_MINUTE": "heavy_reads_per_minute",
     "ULLAGE_SECURE_COOKIES": "secure_cookies",
     "ULLAGE_TRUSTED_PROXIES": "trusted_proxies",
     "LOG_LEVEL": "log_level",
@@ -72,6 +84,20 @@ class Settings:
     max_calculation_bytes: int = 32 << 20
     reading_stale_days: int = 7
     token_cache_seconds: int = 2
+    #: Bounded work (service.bounded): the planning time budget, the hard limit's grace, the
+    #: low-priority processes per gunicorn worker and the requests that may wait for one.
+    plan_seconds: float = 10.0
+    plan_grace_seconds: float = 5.0
+    plan_processes: int = 1
+    plan_queue: int = 2
+    #: Largest network one planning call may take (sites of a calculation or of a truck's plan).
+    max_plan_sites: int = 1000
+    #: Longest trips window; windows longer than ``long_trips_days`` are heavy reads.
+    max_trips_days: int = 92
+    long_trips_days: int = 35
+    #: Per-token limits per minute (0: none); admins are exempt.
+    planning_per_minute: int = 20
+    heavy_reads_per_minute: int = 30
     #: ``Secure`` on the status page's cookie: ``auto`` (when the request came over HTTPS),
     #: ``always`` or ``never``.
     secure_cookies: str = "auto"
@@ -96,6 +122,18 @@ class Settings:
         for name in ("max_body_bytes", "max_calculation_bytes", "reading_stale_days"):
             if getattr(self, name) < 1:
                 raise ValueError(f"{name} must be at least 1")
+        for name in ("plan_processes", "max_plan_sites", "max_trips_days", "long_trips_days"):
+            if getattr(self, name) < 1:
+                raise ValueError(f"{name} must be at least 1")
+        for name in ("plan_queue", "planning_per_minute", "heavy_reads_per_minute"):
+            if getattr(self, name) < 0:
+                raise ValueError(f"{name} must be 0 or more")
+        if not 0 < self.plan_seconds <= MAX_PLAN_SECONDS or not 0 < self.plan_grace_seconds <= MAX_PLAN_SECONDS:
+            raise ValueError(
+                f"ULLAGE_PLAN_SECONDS and ULLAGE_PLAN_GRACE_SECONDS must be above 0, at most {MAX_PLAN_SECONDS}"
+            )
+        if self.max_plan_sites > MAX_PLAN_SITES:
+            raise ValueError(f"ULLAGE_MAX_PLAN_SITES must be at most {MAX_PLAN_SITES} (the request schema's own limit)")
         if self.secure_cookies not in SECURE_COOKIES:
             raise ValueError(
                 f"ULLAGE_SECURE_COOKIES must be one of {', '.join(SECURE_COOKIES)}, got {self.secure_cookies!r}"
@@ -111,6 +149,8 @@ def _coerce(name: str, value: Any) -> Any:
     kind = {f.name: f.type for f in fields(Settings)}[name]
     if kind == "int" and isinstance(value, str):
         return int(value)
+    if kind == "float" and isinstance(value, str):
+        return float(value)
     if kind == "bool" and isinstance(value, str):
         return value.strip().lower() in {"1", "true", "yes", "on"}
     return value

@@ -54,6 +54,9 @@ errorlog = "-"
 
 def post_worker_init(worker):  # type: ignore[no-untyped-def]
     configure_logging(os.environ.get("LOG_LEVEL", "INFO"))
+    from service.bounded import start_pool  # noqa: PLC0415
+
+    start_pool(worker.wsgi)  # the planning processes (service.compute), before the first request
 
 
 def child_exit(server, worker):  # type: ignore[no-untyped-def]

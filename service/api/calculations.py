@@ -1,11 +1,14 @@
 """Stateless what-if calculations: one site alone with the truck, and the sites of one truck.
 
-Nothing is stored. The numbers are the planning core's (docs/planning.md).
+Nothing is stored. The numbers are the planning core's (docs/planning.md). The joint schedule is
+bounded work (service.bounded): a size limit, a per-token limit, and the computation in the
+process pool under the planning budget. The single-site cycle is a closed formula and runs here.
 """
 
-from flask import jsonify
+from flask import Response
 from flask.views import MethodView
 
+from service import bounded
 from service.api.blueprint import Blueprint
 from service.api.schemas.calculations import (
     CycleRequestSchema,
@@ -13,8 +16,9 @@ from service.api.schemas.calculations import (
     JointRequestSchema,
     JointResultSchema,
 )
+from service.api.schemas.problem import ProblemSchema
 from service.auth import allow
-from service.errors import Problem
+from service.errors import PROBLEM_JSON, Problem
 from service.planning import PlanningInputError, SiteInput, TruckInput, plan_joint, single_site_cycle
 
 PREFIX = "/calculations"
@@ -24,6 +28,7 @@ blp = Blueprint("calculations", __name__, description="What-if calculations (not
 API_FIELD = {"capacity": "truck_capacity"}
 SINGLE_CODE = "site"
 SITE_KEYS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
+PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}
 
 
 def input_problem(error: PlanningInputError, *, single: bool = False, body: dict | None = None) -> Problem:
@@ -58,17 +63,24 @@ class CycleCalculation(MethodView):
 @blp.route("/joint")
 class JointCalculation(MethodView):
     @allow("dispatcher")
+    @bounded.admitted
+    @bounded.sites_limited
+    @bounded.planning_limited
     @blp.arguments(JointRequestSchema)
     @blp.response(200, JointResultSchema)
+    @blp.alt_response(422, description="Invalid body, or more sites than ULLAGE_MAX_PLAN_SITES", **PROBLEM)
+    @blp.alt_response(429, description="Too many planning requests of this token; see Retry-After", **PROBLEM)
+    @blp.alt_response(503, description="Planning busy, or stopped at the planning time limit", **PROBLEM)
     def post(self, body):
         """Joint schedule of the sites of one truck, with the lower bound and the gap"""
         sites = [SiteInput(code=s["code"], **{k: s[k] for k in SITE_KEYS}) for s in body["sites"]]
         truck = TruckInput(
             dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"], max_stops=body["max_stops"]
         )
+        options = {"method": body["method"], "base_days": body["base_days"], **bounded.planner_options(plan_joint)}
         try:
-            result = plan_joint(sites, truck, method=body["method"], base_days=body["base_days"])
+            # In a pool child, encoded there: the body of 100 000 listed stops is megabytes.
+            result = bounded.run(bounded.joint_json, plan_joint, sites, truck, options)
         except PlanningInputError as exc:
             raise input_problem(exc, body=body) from exc
-        # Serialised directly: a schema dump of 100 000 sites would cost seconds.
-        return jsonify(result.to_dict())
+        return Response(result, mimetype="application/json")

@@ -9,7 +9,7 @@ from flask import Response, current_app, json, request, url_for
 from flask.views import MethodView
 from sqlalchemy import select
 
-from service import idempotency, schedule
+from service import bounded, idempotency, schedule
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified
 from service.api.pagination import page
@@ -28,14 +28,13 @@ from service.cache import LruCache
 from service.errors import PROBLEM_JSON, Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import get_session, read_engine
+from service.persistence.db import get_session, read_engine, read_session
 from service.persistence.models import Plan, Truck
 from service.planning import PlanningInputError, plan_joint
 
 PREFIX = ""
 blp = Blueprint("plans", __name__, description="Recorded plans and the trips dispatch software loads each week")
 
-MAX_WINDOW_DAYS = 92
 #: Per-process cache of trips answers, keyed by the window, the day and the store's change marker
 #: (service.persistence.plans.change_stamp): repeated weekly calls skip the replay.
 TRIPS_CACHE = LruCache(256)
@@ -80,34 +79,59 @@ def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
     return response
 
 
-def _record(code: str, body: dict[str, Any]) -> Response:
-    session = get_session()
-    truck = truck_or_404(code, for_update=True)
-    sites = plan_store.sites_for_plan(session, truck)
+def _snapshot(session, code: str, *, for_update: bool = False) -> tuple[Truck, list, dict[str, Any]]:  # type: ignore[no-untyped-def]
+    try:
+        truck = repo.truck_by_code(session, code, for_update=for_update)
+    except repo.NotFound as exc:
+        raise Problem(404, str(exc), kind="not-found") from exc
+    sites = plan_store.sites_for_plan(session, truck) if for_update else repo.active_sites(session, truck)
     if not sites:
         raise Problem(422, f"Truck {code!r} has no active sites to plan.", kind="no-sites")
-    inputs = plan_store.snapshot(truck, sites)
+    return truck, sites, plan_store.snapshot(truck, sites)
+
+
+def _planned(inputs: dict[str, Any], body: dict[str, Any]) -> dict[str, Any]:
+    """The joint result for a snapshot, computed in the pool (service.bounded)."""
+    bounded.check_sites(len(inputs["sites"]), "#")
+    options = {"method": body["method"], "base_days": body["base_days"], **bounded.planner_options(plan_joint)}
     try:
-        result = plan_joint(
+        result = bounded.run(
+            bounded.joint_dict,
+            plan_joint,
             plan_store.site_inputs(inputs["sites"]),
             plan_store.truck_input(inputs["truck"]),
-            method=body["method"],
-            base_days=body["base_days"],
+            options,
+            cancellable=request.headers.get(idempotency.HEADER) is None,
         )
     except PlanningInputError as exc:
         raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
-    if not result.success:
-        raise Problem(422, f"No plan: {result.message}", kind="infeasible")
+    if not result["success"]:
+        raise Problem(422, f"No plan: {result['message']}", kind="infeasible")
+    return result
+
+
+def _record(code: str, body: dict[str, Any]) -> Response:
+    # Planned from a snapshot read without locks, so no writer waits while the plan is computed
+    # (on SQLite the write transaction would hold the database's one write lock that long). The
+    # truck and its sites are then locked and read again: a plan records exactly the versions it
+    # was computed from, and when they changed meanwhile it is computed again under the lock.
+    with read_session() as reading:
+        _, _, inputs = _snapshot(reading, code)
+    result = _planned(inputs, body)
+    session = get_session()
+    truck, sites, locked = _snapshot(session, code, for_update=True)
+    if locked != inputs:
+        inputs, result = locked, _planned(locked, body)
     start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
     plan = plan_store.add_plan(
         session,
         truck,
         sites,
-        method=result.method,
+        method=result["method"],
         start_date=start,
         created_by=current_caller().name,
         inputs=inputs,
-        result=result.to_dict(),
+        result=result,
     )
     return _json_response(plan_json(plan, truck.code), 201, Location=url_for("plans.PlanById", plan_id=plan.id))
 
@@ -119,8 +143,13 @@ class TruckPlans(MethodView):
     @blp.response(201, PlanSchema)
     @blp.alt_response(409, description="A request with the same Idempotency-Key is still running", **PROBLEM)
     @blp.alt_response(
-        422, description="Invalid body, no plannable sites, or Idempotency-Key reused with another body", **PROBLEM
+        422,
+        description="Invalid body, no plannable sites, more sites than ULLAGE_MAX_PLAN_SITES, "
+        "or Idempotency-Key reused with another body",
+        **PROBLEM,
     )
+    @blp.alt_response(429, description="Too many planning requests of this token; see Retry-After", **PROBLEM)
+    @blp.alt_response(503, description="Planning busy, or stopped at the planning time limit", **PROBLEM)
     @blp.doc(
         parameters=[
             {
@@ -142,6 +171,7 @@ class TruckPlans(MethodView):
                 return outcome
             claim, heartbeat = outcome, idempotency.Heartbeat.start(outcome)
         try:
+            bounded.charge(bounded.PLANNING)  # after the claim: a replayed answer costs nothing
             response = _record(code, body)
             if claim is not None:
                 idempotency.finish(get_session(), claim, response)
@@ -219,12 +249,13 @@ def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
         raise Problem(
             422, "to is before from.", kind="validation", errors=[{"pointer": "#/query/to", "detail": "Before from."}]
         )
-    if (last - first).days + 1 > MAX_WINDOW_DAYS:
+    longest = bounded.settings().max_trips_days
+    if (last - first).days + 1 > longest:
         raise Problem(
             422,
-            f"At most {MAX_WINDOW_DAYS} days per call.",
+            f"At most {longest} days per call (ULLAGE_MAX_TRIPS_DAYS).",
             kind="validation",
-            errors=[{"pointer": "#/query/to", "detail": f"More than {MAX_WINDOW_DAYS} days after from."}],
+            errors=[{"pointer": "#/query/to", "detail": f"More than {longest} days after from."}],
         )
     return first, last
 
@@ -272,19 +303,49 @@ class TruckTrips(MethodView):
     @blp.response(200, TripsSchema)
     @blp.alt_response(304, description="Not modified (If-None-Match)")
     @blp.alt_response(409, description="The truck has no active plan", **PROBLEM)
+    @blp.alt_response(
+        422, description="Invalid window, or longer than ULLAGE_MAX_TRIPS_DAYS (default 92 days)", **PROBLEM
+    )
+    @blp.alt_response(429, description="Too many long windows (heavy reads) of this token; see Retry-After", **PROBLEM)
+    @blp.alt_response(503, description="A long window found the planning processes busy", **PROBLEM)
     def get(self, args, code):
-        """The active plan's trips for an ISO week or a date range, quantities corrected by readings"""
+        """The active plan's trips for an ISO week or a date range, quantities corrected by readings
+
+        Windows longer than ULLAGE_LONG_TRIPS_DAYS (default 35) are heavy reads: computed in the
+        planning processes and counted against the token's heavy-read limit (cached answers are free).
+        """
         first, last = _window(args)
         settings = current_app.config["ULLAGE_SETTINGS"]
         key = (code, first, last, schedule.today(settings), plan_store.change_stamp(read_engine()))
         cached = TRIPS_CACHE.get(key)
         if cached is None:
-            truck = truck_or_404(code)
-            try:
-                view = schedule.trips_view(get_session(), truck, first, last, settings)
-            except schedule.NoActivePlan as exc:
-                raise Problem(409, str(exc), kind="no-active-plan") from exc
-            body = json.dumps(trips_json(view)).encode()
+            if bounded.long_window(first, last):
+                bounded.charge(bounded.HEAVY_READ)
+                body = bounded.run(_trips_body, settings, code, first, last)
+            else:
+                body = _trips_body_here(get_session(), truck_or_404(code), first, last, settings)
             cached = TRIPS_CACHE.put(key, (body, content_etag(body)))
         body, etag = cached
         return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})
+
+
+def _trips_body_here(session, truck: Truck, first: dt.date, last: dt.date, settings) -> bytes:  # type: ignore[no-untyped-def]
+    try:
+        view = schedule.trips_view(session, truck, first, last, settings)
+    except schedule.NoActivePlan as exc:
+        raise Problem(409, str(exc), kind="no-active-plan") from exc
+    return bounded.dumps(trips_json(view))
+
+
+def _trips_body(settings, code: str, first: dt.date, last: dt.date) -> bytes:  # type: ignore[no-untyped-def]
+    """In a pool child: the trips answer of a long window, read on the child's own connection.
+
+    Read after the caller read the change stamp it caches the answer under, so it is at least as
+    new as that stamp, as in the worker itself.
+    """
+    with bounded.child_session(settings.database_url) as session:
+        try:
+            truck = repo.truck_by_code(session, code)
+        except repo.NotFound as exc:
+            raise Problem(404, str(exc), kind="not-found") from exc
+        return _trips_body_here(session, truck, first, last, settings)

@@ -5,7 +5,6 @@ from flask import current_app
 from flask.views import MethodView
 
 from service.api.blueprint import Blueprint
-from service.api.schemas.calculations import MAX_SITES
 from service.auth import allow
 from service.idempotency import TTL
 
@@ -17,7 +16,11 @@ class SettingsSchema(ma.Schema):
     quantity_unit = ma.fields.String(metadata={"description": "Label of the one quantity unit, e.g. L, gal, m3"})
     currency = ma.fields.String(metadata={"description": "ISO 4217 code of the one currency"})
     timezone = ma.fields.String(metadata={"description": "IANA time zone that decides delivery days"})
-    max_sites_per_calculation = ma.fields.Integer()
+    max_sites_per_calculation = ma.fields.Integer(
+        metadata={"description": "Most sites one planning call takes (ULLAGE_MAX_PLAN_SITES)"}
+    )
+    max_trips_days = ma.fields.Integer(metadata={"description": "Longest trips window (ULLAGE_MAX_TRIPS_DAYS)"})
+    planning_seconds = ma.fields.Float(metadata={"description": "Planning time budget (ULLAGE_PLAN_SECONDS)"})
     idempotency_key_hours = ma.fields.Integer()
 
 
@@ -32,6 +35,8 @@ class Settings(MethodView):
             "quantity_unit": settings.quantity_unit,
             "currency": settings.currency,
             "timezone": settings.timezone,
-            "max_sites_per_calculation": MAX_SITES,
+            "max_sites_per_calculation": settings.max_plan_sites,
+            "max_trips_days": settings.max_trips_days,
+            "planning_seconds": settings.plan_seconds,
             "idempotency_key_hours": int(TTL.total_seconds() // 3600),
         }

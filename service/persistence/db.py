@@ -15,8 +15,9 @@ against 1.46 ms per marker read on this machine, SQLite 0.16 ms against 0.40 ms)
 
 from __future__ import annotations
 
+import contextlib
 import sqlite3
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from contextvars import ContextVar
 from pathlib import Path
 from typing import Any, TypeVar
@@ -212,6 +213,19 @@ def get_session() -> Session:
         write_intent.set(not has_request_context() or request.method not in SAFE_METHODS)
         g.db_session = current_app.extensions["ullage.sessionmaker"]()
     return g.db_session
+
+
+@contextlib.contextmanager
+def read_session() -> Iterator[Session]:
+    """A session of its own that only reads (SQLite: a deferred ``BEGIN``, never the write lock),
+    for a read that must not hold the request's write transaction open, e.g. while planning."""
+    intent = write_intent.set(False)
+    session = current_app.extensions["ullage.sessionmaker"]()
+    try:
+        yield session
+    finally:
+        session.close()
+        write_intent.reset(intent)
 
 
 def rollback_request_session() -> None:

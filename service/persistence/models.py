@@ -7,6 +7,7 @@ from typing import Any
 
 from sqlalchemy import (
     JSON,
+    BigInteger,
     CheckConstraint,
     Date,
     DateTime,
@@ -221,6 +222,23 @@ class IdempotencyRecord(Base):
     response_body: Mapped[str | None] = mapped_column(Text)
     response_location: Mapped[str | None] = mapped_column(String(400))
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow, index=True)
+
+
+class RequestQuota(Base):
+    """How many limited requests one token made in the current fixed window, per bucket.
+
+    One row per token and bucket, rewritten in place by one upsert per limited request
+    (service.persistence.quota, service.bounded); shared by every gunicorn worker and host.
+    """
+
+    __tablename__ = "request_quotas"
+    __table_args__ = (CheckConstraint("hits >= 0", name="hits_nonnegative"),)
+
+    token_id: Mapped[int] = mapped_column(ForeignKey("tokens.id"), primary_key=True)
+    bucket: Mapped[str] = mapped_column(String(16), primary_key=True)
+    #: Start of the window, in whole seconds since the Unix epoch (UTC).
+    window_start: Mapped[int] = mapped_column(BigInteger)
+    hits: Mapped[int] = mapped_column(Integer)
 
 
 class ChangeStamp(Base):

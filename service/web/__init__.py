@@ -71,8 +71,8 @@ def _http_error(error: HTTPException) -> tuple[str, int]:
 
 
 @bp.errorhandler(Problem)
-def _problem(error: Problem) -> tuple[str, int]:
-    return error_page(error.status, error.title or "Error", error.detail)
+def _problem(error: Problem) -> tuple[str, int, dict[str, str]]:
+    return (*error_page(error.status, error.title or "Error", error.detail), error.headers)
 
 
 @bp.errorhandler(Exception)

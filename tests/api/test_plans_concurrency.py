@@ -12,18 +12,24 @@ import requests
 from sqlalchemy import func, select
 from werkzeug.serving import make_server
 
+from service import create_app
+from service.persistence.db import dispose
 from service.persistence.models import IdempotencyRecord, Plan
 
 START = "2026-12-07"
 
 
 PROCESSES = 3
+#: These tests are about idempotency and activation under concurrency; the bounds on planning
+#: (per-token limit, the planning processes' waiting room) are lifted here and tested in test_bounded.py.
+UNBOUNDED = {"ULLAGE_PLANNING_PER_MINUTE": "0", "ULLAGE_PLAN_QUEUE": "64"}
 
 
 def _serve(database_url: str, ports) -> None:  # runs in a spawned child process
     from service import create_app  # noqa: PLC0415
 
-    srv = make_server("127.0.0.1", 0, create_app({"DATABASE_URL": database_url, "TESTING": True}), threaded=True)
+    app = create_app({"DATABASE_URL": database_url, "TESTING": True, **UNBOUNDED})
+    srv = make_server("127.0.0.1", 0, app, threaded=True)
     ports.put(srv.server_port)
     srv.serve_forever()
 
@@ -33,7 +39,8 @@ def servers(request, app):
     """Base URLs of real servers on free ports: one threaded server in this process, or
     PROCESSES server processes (each threaded) on the same database. Requests go round-robin."""
     if request.param == "threads":
-        srv = make_server("127.0.0.1", 0, app, threaded=True)
+        unbounded = create_app({"DATABASE_URL": app.config["DATABASE_URL"], "TESTING": True, **UNBOUNDED})
+        srv = make_server("127.0.0.1", 0, unbounded, threaded=True)
         thread = threading.Thread(target=srv.serve_forever, daemon=True)
         thread.start()
         try:
@@ -41,11 +48,15 @@ def servers(request, app):
         finally:
             srv.shutdown()
             thread.join(10)
+            dispose(unbounded)
         return
     context = multiprocessing.get_context("spawn")
     ports = context.Queue()
     children = [
-        context.Process(target=_serve, args=(app.config["DATABASE_URL"], ports), daemon=True) for _ in range(PROCESSES)
+        # Not daemonic: a server starts its planning processes (service.compute), which a daemonic
+        # process may not; the children are terminated below in any case.
+        context.Process(target=_serve, args=(app.config["DATABASE_URL"], ports), daemon=False)
+        for _ in range(PROCESSES)
     ]
     for child in children:
         child.start()

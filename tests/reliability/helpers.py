@@ -199,11 +199,16 @@ def start_gunicorn(
     wait_path: str = "/livez",
     timeout: float = 20.0,
     app: str = "service.app:create_app()",
+    bounds_lifted: bool = True,
 ) -> Server:
     """Start gunicorn with the project's config on a free loopback port; wait until it answers.
 
     ``app`` is gunicorn's app spec; a module of this directory (``slow_plan_app:create_app()``)
     needs :data:`HERE` on ``PYTHONPATH`` in ``extra_env``.
+
+    Unless ``bounds_lifted`` is false, the per-token limits are off and every thread may wait for
+    a planning process (service.bounded): the tests that do not test those bounds (concurrency,
+    faults, security…) send bursts no client of the service would. test_bounded_load.py keeps them.
     """
     port = free_port()
     log_path = tmp_path / f"gunicorn-{port}.log"
@@ -220,6 +225,10 @@ def start_gunicorn(
             "PYTHONUNBUFFERED": "1",
         }
     )
+    if bounds_lifted:
+        env.update(
+            {"ULLAGE_PLANNING_PER_MINUTE": "0", "ULLAGE_HEAVY_READS_PER_MINUTE": "0", "ULLAGE_PLAN_QUEUE": str(threads)}
+        )
     env.update(extra_env or {})
     handle = open(log_path, "wb")  # noqa: SIM115 - owned by the child for its lifetime
     process = subprocess.Popen(

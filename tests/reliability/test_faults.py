@@ -549,7 +549,8 @@ def test_full_disk_sqlite_gives_507_and_loses_nothing(tmp_path, sqlite_template)
     url = f"sqlite:///{path}"
     load_demo_network(url)
     tokens = add_tokens(url)
-    app = create_app({"DATABASE_URL": url, "TESTING": True})
+    # Plans until the disk is full: the per-token planning limit (tested in test_bounded.py) is off.
+    app = create_app({"DATABASE_URL": url, "TESTING": True, "ULLAGE_PLANNING_PER_MINUTE": 0})
     engine = app.extensions["ullage.engine"]
     pages = sqlite3.connect(path).execute("PRAGMA page_count").fetchone()[0]
     limit = {"pages": pages + 40}

@@ -27,7 +27,7 @@ from schemathesis.generation.meta import TestPhase
 from schemathesis.generation.modes import GenerationMode
 
 from service.api.fields import FIRST_DATE, LAST_DATE
-from service.api.plans import MAX_WINDOW_DAYS
+from service.config import load_settings
 
 #: Fuzzing-phase examples per operation (hypothesis' ``max_examples``; the coverage and examples
 #: phases add their own cases); the trips operation gets more, see ``TRIPS_EXAMPLES``.
@@ -42,6 +42,8 @@ DEMO_TRUCKS = ("HV-R1", "HV-R2")
 #: About half the fuzzing cases are negative (and the coverage phase adds ~50 mostly negative
 #: ones), so the weekly call gets enough examples for its positive ones to be a third or more.
 TRIPS_EXAMPLES = 300
+#: The longest trips window the service takes by default (ULLAGE_MAX_TRIPS_DAYS).
+MAX_WINDOW_DAYS = load_settings(environ={}).max_trips_days
 
 
 #: ``positive_data_acceptance`` expects 2xx/3xx/401/403/404/409/429 for a schema-valid request.
@@ -138,7 +140,7 @@ def _weeks() -> st.SearchStrategy[dict[str, str]]:
 
 
 def _ranges() -> st.SearchStrategy[dict[str, str]]:
-    """``from`` ≤ ``to``, at most ``MAX_WINDOW_DAYS`` days, inside the accepted dates."""
+    """``from`` ≤ ``to``, at most ``ULLAGE_MAX_TRIPS_DAYS`` days, inside the accepted dates."""
 
     def window(first: dt.date, days: int) -> dict[str, str]:
         last = min(first + dt.timedelta(days=days), LAST_DATE)

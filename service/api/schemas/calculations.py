@@ -4,8 +4,10 @@ import marshmallow as ma
 
 from service.api.fields import JsonFloat, JsonInt
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema, code_field_validate, nonnegative, positive
+from service.config import MAX_PLAN_SITES
 
-MAX_SITES = 100_000
+#: The schema's ceiling; the service's own limit is ULLAGE_MAX_PLAN_SITES (service.bounded).
+MAX_SITES = MAX_PLAN_SITES
 METHODS = ("power_of_two", "integer", "best")
 
 
