@@ -17,7 +17,7 @@ import time
 import pytest
 from sqlalchemy import func, select
 
-from service import idempotency
+from service import bounded, idempotency
 from service.api import plans as plans_api
 from service.persistence.models import IdempotencyRecord, Plan, Token
 
@@ -57,6 +57,8 @@ def slow_planner(monkeypatch):
         return real(*args, **kwargs)
 
     monkeypatch.setattr(plans_api, "plan_joint", slow)
+    # In this process, not in a planning process (service.bounded): ``slow`` records its calls here.
+    monkeypatch.setattr(bounded, "run", lambda fn, *args, cancellable=True: fn(*args))
     monkeypatch.setattr(idempotency, "LEASE", dt.timedelta(seconds=LEASE_SECONDS))
     return calls
 
