@@ -33,8 +33,11 @@ ID_MAX = 2**31 - 1
 #: code points U+D800–U+DFFF (not characters: UTF-8, which both databases store, cannot encode one
 #: alone; JSON can still spell them as ``"\ud800"``).
 UNSTORABLE = re.compile("[\x00\ud800-\udfff]")
-#: The same rule as a JSON Schema pattern, for the OpenAPI document of free-text fields.
-STORABLE_PATTERN = r"^[^\u0000\ud800-\udfff]*$"
+#: The rule as a JSON Schema pattern for the OpenAPI document of free-text fields: NUL only. JSON
+#: Schema patterns are ECMA-262 regexes over UTF-16 code units, where a surrogate range would also
+#: refuse every character outside the Basic Multilingual Plane (stored as a surrogate pair), and
+#: some validators cannot compile one; lone surrogates are refused by the server all the same.
+STORABLE_PATTERN = r"^[^\u0000]*$"
 
 #: Every date the service accepts. Far enough from Python's ``date.min``/``date.max`` that the
 #: date arithmetic behind an answer (trips windows, the readings look-back, cycles of up to

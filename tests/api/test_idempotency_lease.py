@@ -15,16 +15,18 @@ import threading
 import time
 
 import pytest
+from flask import g
 from sqlalchemy import func, select
 
 from service import bounded, idempotency
 from service.api import plans as plans_api
 from service.persistence.models import IdempotencyRecord, Plan, Token
+from tests.reliability import slow_planner as slow_planner_module
 
 URL = "/api/v1/trucks/T1/plans"
 BODY = {"start_date": "2026-12-07"}
 LEASE_SECONDS = 0.8
-SLOW_SECONDS = 3.0  # more than three leases
+SLOW_SECONDS = slow_planner_module.SLOW_SECONDS  # more than three leases
 
 
 @pytest.fixture
@@ -47,18 +49,21 @@ def network(client, auth):
 
 @pytest.fixture
 def slow_planner(monkeypatch):
-    """The planner, each call SLOW_SECONDS longer; returns the list of the calls' start times."""
+    """The planner, each call SLOW_SECONDS longer; returns the list of the calls' start times.
+
+    The planner runs in the service's planning processes, so the stand-in is a module-level
+    function they can import, and the calls are counted where the worker hands them over.
+    """
     calls: list[float] = []
-    real = plans_api.plan_joint
+    real_run = bounded.run
 
-    def slow(*args, **kwargs):  # type: ignore[no-untyped-def]
-        calls.append(time.monotonic())
-        time.sleep(SLOW_SECONDS)
-        return real(*args, **kwargs)
+    def counted(fn, *args, **kwargs):  # type: ignore[no-untyped-def]
+        if g.get("pool_admitted"):  # run() first takes the pool's place, then calls itself once
+            calls.append(time.monotonic())
+        return real_run(fn, *args, **kwargs)
 
-    monkeypatch.setattr(plans_api, "plan_joint", slow)
-    # In this process, not in a planning process (service.bounded): ``slow`` records its calls here.
-    monkeypatch.setattr(bounded, "run", lambda fn, *args, cancellable=True: fn(*args))
+    monkeypatch.setattr(plans_api, "plan_joint", slow_planner_module.slow)
+    monkeypatch.setattr(bounded, "run", counted)
     monkeypatch.setattr(idempotency, "LEASE", dt.timedelta(seconds=LEASE_SECONDS))
     return calls
 

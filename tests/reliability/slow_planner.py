@@ -28,3 +28,13 @@ def anytime(sites, truck, *, method="best", base_days=None, deadline_seconds=Non
     """A planner that takes a deadline: the real plan, with a warning naming the deadline it got."""
     result = real_plan_joint(sites, truck, method=method, base_days=base_days)
     return replace(result, warnings=(*result.warnings, f"deadline_seconds={deadline_seconds!r}"))
+
+
+#: How much longer :func:`slow` takes than the real planner.
+SLOW_SECONDS = 3.0
+
+
+def slow(sites, truck, *, method="best", base_days=None):  # type: ignore[no-untyped-def]
+    """The real plan, ``SLOW_SECONDS`` late (a computation longer than a shortened lease)."""
+    time.sleep(SLOW_SECONDS)
+    return real_plan_joint(sites, truck, method=method, base_days=base_days)

@@ -26,7 +26,7 @@ from hypothesis import strategies as st
 from schemathesis.generation.meta import TestPhase
 from schemathesis.generation.modes import GenerationMode
 
-from service.api.fields import FIRST_DATE, LAST_DATE, STORABLE_PATTERN
+from service.api.fields import FIRST_DATE, LAST_DATE
 from service.config import load_settings
 
 #: Fuzzing-phase examples per operation (hypothesis' ``max_examples``; the coverage and examples
@@ -191,32 +191,11 @@ def flatmap_case(context, case):
     return st.integers(0, 7).flatmap(lambda draw: st.just(case) if draw == 7 else chosen)
 
 
-#: ``fields.STORABLE_PATTERN`` is ECMA-262 (lone surrogates, ``\ud800-\udfff``) but jsonschema_rs,
-#: schemathesis' validator, cannot compile a surrogate range, so schemathesis drops the whole
-#: pattern and draws "positive" strings with NUL that the API rightly refuses with 422. The fuzzer
-#: gets the part it can compile (no NUL; hypothesis draws no surrogates anyway); the full pattern
-#: is what the API serves and enforces (tests/api/test_bad_inputs.py, test_clear_failures.py).
-FUZZER_STORABLE_PATTERN = r"^[^\u0000]*$"
-
-
-def _compilable_patterns(node):
-    if isinstance(node, dict):
-        return {
-            k: FUZZER_STORABLE_PATTERN if k == "pattern" and v == STORABLE_PATTERN else _compilable_patterns(v)
-            for k, v in node.items()
-        }
-    if isinstance(node, list):
-        return [_compilable_patterns(v) for v in node]
-    return node
-
-
 @pytest.fixture
 def api_schema(app, active_plans, tokens):
     served = app.test_client().get("/api/v1/openapi.json", headers={"Authorization": f"Bearer {tokens['admin']}"})
     assert served.status_code == 200
-    loaded = schemathesis.openapi.from_dict(
-        _compilable_patterns(served.get_json()), config=fuzz_config(tokens["admin"])
-    )
+    loaded = schemathesis.openapi.from_dict(served.get_json(), config=fuzz_config(tokens["admin"]))
     loaded.app = app
     loaded.location = "/api/v1/openapi.json"
     loaded.hooks.register_hook_with_name(map_case, "map_case")
