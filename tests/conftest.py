@@ -30,6 +30,7 @@ from service.persistence.models import Base
 
 ROOT = Path(__file__).resolve().parent.parent
 ROLES = ("viewer", "dispatcher", "admin")
+NO_TOKEN_LIMITS = {"ULLAGE_PLANNING_PER_MINUTE": 0, "ULLAGE_HEAVY_READS_PER_MINUTE": 0}
 
 
 def postgres_url() -> str | None:
@@ -110,7 +111,9 @@ def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
 
 @pytest.fixture
 def app(database_url: str):
-    application = create_app({"DATABASE_URL": database_url, "TESTING": True})
+    # No per-token limits (service.bounded) here: many tests plan in loops with one token; the
+    # limits are tested with their own settings (tests/api/test_bounded.py and others).
+    application = create_app({"DATABASE_URL": database_url, "TESTING": True, **NO_TOKEN_LIMITS})
     yield application
     dispose(application)
 
