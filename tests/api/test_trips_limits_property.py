@@ -17,11 +17,9 @@ Runs on both databases; a fixed seed (``derandomize``) keeps CI repeatable.
 
 from __future__ import annotations
 
-import dataclasses
 import datetime as dt
 import itertools
 
-import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -126,15 +124,6 @@ def _midnight(day: dt.date) -> dt.datetime:
     return dt.datetime.combine(day, dt.time(0), tzinfo=dt.UTC)  # the service time zone is UTC here
 
 
-@pytest.fixture
-def unmetered(app):
-    """Every example records a plan: the per-token planning quota (tests/api/test_bounded.py) is off."""
-    settings = app.config["ULLAGE_SETTINGS"]
-    app.config["ULLAGE_SETTINGS"] = dataclasses.replace(settings, planning_per_minute=0, heavy_reads_per_minute=0)
-    yield
-    app.config["ULLAGE_SETTINGS"] = settings
-
-
 @settings(
     max_examples=EXAMPLES,
     derandomize=True,
@@ -143,7 +132,7 @@ def unmetered(app):
     suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow],
 )
 @given(net=network, edits=st.lists(st.one_of(site_edit, truck_edit, reading), min_size=1, max_size=8))
-def test_trips_never_exceed_the_current_limits(client, auth, unmetered, net, edits):
+def test_trips_never_exceed_the_current_limits(client, auth, net, edits):
     now = dt.datetime.now(dt.UTC)
     today = now.date()
     start = today - dt.timedelta(days=START_AGO)
