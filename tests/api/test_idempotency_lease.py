@@ -1,7 +1,7 @@
 """Idempotency-Key claims under a slow plan, and the purge of expired records (issue 14 §3).
 
 A plan computation made slower than the lease (the planner wrapped in a sleep, the lease cut to
-under a second) must run once, its retries must answer 409 + ``Retry-After`` while it runs and
+1.5 s, a third of a heartbeat apart so that a loaded CI machine does not lapse it) must run once, its retries must answer 409 + ``Retry-After`` while it runs and
 the first retry after it is done must get its response. Before the heartbeat, on PostgreSQL every
 retry after the lease took the claim over and started a computation of its own; on SQLite every
 retry waited for the database's write lock instead of answering.
@@ -25,7 +25,7 @@ from tests.reliability import slow_planner as slow_planner_module
 
 URL = "/api/v1/trucks/T1/plans"
 BODY = {"start_date": "2026-12-07"}
-LEASE_SECONDS = 0.8
+LEASE_SECONDS = 1.5
 SLOW_SECONDS = slow_planner_module.SLOW_SECONDS  # more than three leases
 
 

@@ -31,7 +31,7 @@ def anytime(sites, truck, *, method="best", base_days=None, deadline_seconds=Non
 
 
 #: How much longer :func:`slow` takes than the real planner.
-SLOW_SECONDS = 3.0
+SLOW_SECONDS = 5.0
 
 
 def slow(sites, truck, *, method="best", base_days=None):  # type: ignore[no-untyped-def]
