@@ -1,7 +1,8 @@
 """Idempotency-Key claims under a slow plan, and the purge of expired records (issue 14 §3).
 
 A plan computation made slower than the lease (the planner wrapped in a sleep, the lease cut to
-1.5 s, a third of a heartbeat apart so that a loaded CI machine does not lapse it) must run once, its retries must answer 409 + ``Retry-After`` while it runs and
+1.5 s, renewed every third of it: 0.8 s lapsed once on a loaded machine) must run once, its
+retries must answer 409 + ``Retry-After`` while it runs and
 the first retry after it is done must get its response. Before the heartbeat, on PostgreSQL every
 retry after the lease took the claim over and started a computation of its own; on SQLite every
 retry waited for the database's write lock instead of answering.
