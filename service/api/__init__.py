@@ -72,7 +72,7 @@ All quantities are in the service's one quantity unit and all money in its one c
 **Idempotency** (`POST /api/v1/trucks/{code}/plans`): send `Idempotency-Key: "<1-255 visible
 characters>"` (an sf-string per the IETF httpapi draft; bare keys are accepted too). Keys are scoped
 to the calling token and kept for 24 hours. Repeating a key with the same body returns the first
-response (with `Idempotent-Replayed: true`) and records nothing new; the same key with a different
+response (with `Ullage-Replayed: true`) and records nothing new; the same key with a different
 body is refused with 422; a repeat while the first request is still running gets 409.
 
 **Caution.** Ullage is a planning aid. Safe fill levels, overfill prevention and the handling of

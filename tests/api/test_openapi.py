@@ -87,7 +87,7 @@ def test_idempotency_rules_described(spec):
     )
     assert header["required"] is False
     text = spec["info"]["description"] + header.get("description", "")
-    for words in ("Idempotency-Key", "24 hours", "token", "422", "409", "Idempotent-Replayed"):
+    for words in ("Idempotency-Key", "24 hours", "token", "422", "409", "Ullage-Replayed"):
         assert words in text, words
 
 

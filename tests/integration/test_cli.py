@@ -277,7 +277,7 @@ def test_a_backup_taken_while_plans_are_written_restores_every_acknowledged_plan
         replay = copy.post(
             "/api/v1/trucks/HV-R1/plans", json={}, headers=auth("dispatcher", **{"Idempotency-Key": "w0-1"})
         )
-        assert replay.status_code == 201 and replay.headers.get("Idempotent-Replayed") == "true"
+        assert replay.status_code == 201 and replay.headers.get("Ullage-Replayed") == "true"
     finally:
         dispose(restored)
 
