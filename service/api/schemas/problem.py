@@ -2,6 +2,8 @@
 
 import marshmallow as ma
 
+from service.errors import PROBLEM_BASE, PROBLEM_TYPES
+
 
 class ProblemErrorSchema(ma.Schema):
     pointer = ma.fields.String(metadata={"description": "JSON Pointer to the offending member"})
@@ -9,7 +11,13 @@ class ProblemErrorSchema(ma.Schema):
 
 
 class ProblemSchema(ma.Schema):
-    type = ma.fields.String(metadata={"description": "URI of the problem type, or about:blank"})
+    type = ma.fields.String(
+        validate=ma.validate.OneOf([PROBLEM_BASE + kind for kind in PROBLEM_TYPES]),
+        metadata={
+            "description": "The problem type: https://ullage.invalid/problems/<kind>, one of the kinds the "
+            "README lists under \"Problem types\" (an identifier; it does not resolve)"
+        },
+    )
     title = ma.fields.String()
     status = ma.fields.Integer()
     detail = ma.fields.String()
