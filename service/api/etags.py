@@ -4,12 +4,14 @@
 (RFC 6585 §3). ``If-Match: *`` is refused with 428 too: RFC 9110 §13.1.1 lets it match any current
 version, so two clients sending it overwrite each other's changes (a lost update, which this
 service promises never to allow); a change must name the ETag it was based on.
-``If-None-Match`` on a read answers 304.
+``If-None-Match`` on a read answers 304. A tag sent without its double quotes is a 400 that says so
+(not a 412 "changed since you read it", which sent people to read again and fail again).
 """
 
 from __future__ import annotations
 
 import hashlib
+import re
 
 from flask import Response, request
 
@@ -27,8 +29,25 @@ def content_etag(body: bytes) -> str:
     return '"' + hashlib.sha256(body).hexdigest()[:32] + '"'
 
 
-def _tags(header: str) -> list[str]:
-    return [part.strip() for part in header.split(",") if part.strip()]
+#: An entity tag as RFC 9110 §8.8.3 writes it: optional ``W/``, then the opaque tag in double quotes.
+_QUOTED = re.compile(r'(W/)?"[\x21\x23-\x7e\x80-\xff]*"')
+
+
+def _tags(header: str, name: str) -> list[str]:
+    """The tags of an If-Match / If-None-Match value; 400 for a tag written without its quotes
+    (``abc`` instead of ``"abc"``), which would otherwise never match and read as "changed"."""
+    tags = [part.strip() for part in header.split(",") if part.strip()]
+    bare = [tag for tag in tags if tag != "*" and not _QUOTED.fullmatch(tag)]
+    if bare:
+        example = bare[0].removeprefix("W/").strip('"')
+        raise Problem(
+            400,
+            f"{name} must carry the ETag in double quotes, exactly as the ETag header sent it: "
+            f'{name}: "{example}" (it is written without quotes here, so it cannot be compared).',
+            kind="bad-etag",
+            errors=[{"pointer": f"#/header/{name}", "detail": "An entity tag must be quoted, e.g. \"abc\"."}],
+        )
+    return tags
 
 
 #: OpenAPI parameter for the changes that need ``If-Match`` (documented as required: 428 without it).
@@ -49,7 +68,7 @@ def require_if_match(etag: str) -> None:
         raise Problem(
             428, "Send If-Match with the ETag from your last GET of this resource.", kind="precondition-required"
         )
-    tags = _tags(header)
+    tags = _tags(header, "If-Match")
     if "*" in tags:
         raise Problem(
             428,
@@ -72,7 +91,7 @@ def not_modified(etag: str) -> Response | None:
     header = request.headers.get("If-None-Match")
     if header is None:
         return None
-    tags = [t.removeprefix("W/") for t in _tags(header)]
+    tags = [t.removeprefix("W/") for t in _tags(header, "If-None-Match")]
     if "*" in tags or etag in tags:
         response = Response(status=304)
         response.headers["ETag"] = etag

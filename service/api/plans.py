@@ -234,8 +234,9 @@ def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
         try:
             return schedule.iso_week(args["week"])
         except ValueError as exc:
+            detail = f"{str(exc).rstrip('.')}: give a week that exists, in the form 2026-W50."
             raise Problem(
-                422, str(exc), kind="validation", errors=[{"pointer": "#/query/week", "detail": str(exc)}]
+                422, detail, kind="validation", errors=[{"pointer": "#/query/week", "detail": detail}]
             ) from exc
     if "from_" not in args or "to" not in args:
         raise Problem(

@@ -192,8 +192,8 @@ def test_csv_rows_that_hold_less_than_a_day_are_named_and_nothing_is_written(cli
         response = client.post(IMPORT + query, data=body, headers=auth("admin"), content_type="text/csv")
         assert response.status_code == 422, response.get_json()
         errors = response.get_json()["errors"]
-        assert [e["pointer"] for e in errors] == ["#/rows/2/tank_capacity", "#/rows/3/truck"]
-        assert "Row 2" in errors[0]["detail"] and "3 870 L" in errors[0]["detail"] and "4 000 L" in errors[0]["detail"]
+        assert [e["pointer"] for e in errors] == ["#/rows/3/tank_capacity", "#/rows/4/truck"]
+        assert "Row 3" in errors[0]["detail"] and "3 870 L" in errors[0]["detail"] and "4 000 L" in errors[0]["detail"]
         assert "3 000 L" in errors[1]["detail"] and "truck SMALL" in errors[1]["detail"]
     assert count(db_session) == 0 and count(db_session, Plan) == 0
 

@@ -2,7 +2,7 @@
 
 import marshmallow as ma
 
-from service.api.fields import JsonFloat, JsonInt
+from service.api.fields import JsonFloat, JsonInt, Range
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema, code_field_validate, nonnegative, positive
 from service.config import MAX_PLAN_SITES
 
@@ -16,8 +16,8 @@ class SiteParamsSchema(StrictSchema):
     holding_cost = JsonFloat(required=True, validate=nonnegative())
     stop_cost = JsonFloat(required=True, validate=nonnegative())
     tank_capacity = JsonFloat(required=True, validate=positive())
-    safe_fill = JsonFloat(load_default=0.9, validate=ma.validate.Range(min=0.01, max=1.0))
-    safety_stock = JsonFloat(load_default=0.0, validate=ma.validate.Range(min=0, max=AMOUNT_MAX))
+    safe_fill = JsonFloat(load_default=0.9, validate=Range(min=0.01, max=1.0))
+    safety_stock = JsonFloat(load_default=0.0, validate=Range(min=0, max=AMOUNT_MAX))
 
 
 class CycleRequestSchema(SiteParamsSchema):
@@ -41,9 +41,9 @@ class JointSiteSchema(SiteParamsSchema):
 class JointRequestSchema(StrictSchema):
     dispatch_cost = JsonFloat(required=True, validate=nonnegative())
     truck_capacity = JsonFloat(load_default=None, allow_none=True, validate=positive())
-    max_stops = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=1000))
+    max_stops = JsonInt(load_default=None, allow_none=True, validate=Range(min=1, max=1000))
     method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(METHODS))
-    base_days = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=3660))
+    base_days = JsonInt(load_default=None, allow_none=True, validate=Range(min=1, max=3660))
     sites = ma.fields.List(
         ma.fields.Nested(JointSiteSchema), required=True, validate=ma.validate.Length(min=1, max=MAX_SITES)
     )

@@ -11,6 +11,7 @@ from service.api.fields import (
     IdKey,
     JsonFloat,
     JsonInt,
+    Range,
 )
 from service.api.pagination import PageArgsSchema
 from service.api.schemas.calculations import JointFieldsSchema
@@ -21,7 +22,7 @@ PLAN_METHODS = ("power_of_two", "integer", "best")
 
 class PlanRequestSchema(StrictSchema):
     method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(PLAN_METHODS))
-    base_days = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=3660))
+    base_days = JsonInt(load_default=None, allow_none=True, validate=Range(min=1, max=3660))
     start_date = BoundedDate(
         load_default=None,
         allow_none=True,
@@ -111,7 +112,7 @@ class TripsSchema(ma.Schema):
 
 
 class ReadingRequestSchema(StrictSchema):
-    level = JsonFloat(required=True, validate=ma.validate.Range(min=0, max=AMOUNT_MAX))
+    level = JsonFloat(required=True, validate=Range(min=0, max=AMOUNT_MAX))
     measured_at = BoundedAwareDateTime(
         required=True,
         format="iso",
