@@ -9,6 +9,7 @@ from flask import Response
 from flask.views import MethodView
 
 from service import bounded
+from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.schemas.calculations import (
     CycleRequestSchema,
@@ -51,7 +52,11 @@ class CycleCalculation(MethodView):
     @blp.arguments(CycleRequestSchema)
     @blp.response(200, CycleResultSchema)
     def post(self, body):
-        """Cheapest whole-day delivery cycle of one site alone with the truck"""
+        """Cheapest whole-day delivery cycle of one site alone with the truck
+
+        Nothing is stored. Returns the continuous optimum, the best whole-day cycle, its quantity and
+        cost per day, and which limit binds (the tank's safe fill or the truck's capacity).
+        """
         site = SiteInput(code=SINGLE_CODE, **{k: body[k] for k in SITE_KEYS})
         truck = TruckInput(dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"])
         try:
@@ -69,10 +74,19 @@ class JointCalculation(MethodView):
     @blp.arguments(JointRequestSchema)
     @blp.response(200, JointResultSchema)
     @blp.alt_response(422, description="Invalid body, or more sites than ULLAGE_MAX_PLAN_SITES", **PROBLEM)
-    @blp.alt_response(429, description="Too many planning requests of this token; see Retry-After", **PROBLEM)
-    @blp.alt_response(503, description="Planning busy, or stopped at the planning time limit", **PROBLEM)
+    @blp.alt_response(
+        429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM
+    )
+    @blp.alt_response(
+        503, description="Planning busy, or stopped at the planning time limit", headers=hh.RETRY, **PROBLEM
+    )
     def post(self, body):
-        """Joint schedule of the sites of one truck, with the lower bound and the gap"""
+        """Joint schedule of the sites of one truck, with the lower bound and the gap
+
+        Nothing is stored. Computed in a planning process within the time limit; the answer holds
+        each site's cycle and offset, the trips of one repeat, the cost per day and a lower bound on
+        the cost of any schedule (`gap` is how far above it the schedule may be).
+        """
         sites = [SiteInput(code=s["code"], **{k: s[k] for k in SITE_KEYS}) for s in body["sites"]]
         truck = TruckInput(
             dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"], max_stops=body["max_stops"]

@@ -15,6 +15,7 @@ import re
 
 from flask import Response, request
 
+from service.api.http_headers import QUOTED_TAGS
 from service.errors import Problem
 
 
@@ -55,9 +56,10 @@ IF_MATCH_PARAMETER = {
     "in": "header",
     "name": "If-Match",
     "required": True,
-    # Any list of tags but one with `*` in it (which require_if_match refuses with 428).
-    "schema": {"type": "string", "not": {"pattern": r"^(.*,)?\s*\*\s*(,.*)?$"}},
-    "description": "The ETag of your last GET of this resource (412 when it moved on; `*` is refused with 428).",
+    # Quoted tags only: `*` is refused with 428 (require_if_match), a tag without quotes with 400.
+    "schema": {"type": "string", "pattern": QUOTED_TAGS},
+    "description": "The ETag of your last GET of this resource, in double quotes (412 when it moved on; "
+    "`*` is refused with 428, a tag without its quotes with 400).",
 }
 
 

@@ -10,8 +10,9 @@ from flask.views import MethodView
 from sqlalchemy import select
 
 from service import bounded, idempotency, schedule
+from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
-from service.api.etags import content_etag, not_modified
+from service.api.etags import content_etag, not_modified, require_if_match
 from service.api.pagination import page
 from service.api.schemas.plans import (
     PlanListSchema,
@@ -140,29 +141,38 @@ def _record(code: str, body: dict[str, Any]) -> Response:
 class TruckPlans(MethodView):
     @allow("dispatcher")
     @blp.arguments(PlanRequestSchema)
-    @blp.response(201, PlanSchema)
-    @blp.alt_response(409, description="A request with the same Idempotency-Key is still running", **PROBLEM)
+    @blp.response(201, PlanSchema, headers=hh.PLAN_CREATED)
+    @blp.alt_response(
+        409, description="A request with the same Idempotency-Key is still running", headers=hh.RETRY, **PROBLEM
+    )
     @blp.alt_response(
         422,
         description="Invalid body, no plannable sites, more sites than ULLAGE_MAX_PLAN_SITES, "
         "or Idempotency-Key reused with another body",
         **PROBLEM,
     )
-    @blp.alt_response(429, description="Too many planning requests of this token; see Retry-After", **PROBLEM)
-    @blp.alt_response(503, description="Planning busy, or stopped at the planning time limit", **PROBLEM)
-    @blp.doc(
-        parameters=[
-            {
-                "in": "header",
-                "name": "Idempotency-Key",
-                "required": False,
-                "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
-                "description": "Optional. Same key + same body → the first response; kept 24 h per token.",
-            }
-        ]
+    @blp.alt_response(429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM)
+    @blp.alt_response(
+        503, description="Planning busy, or stopped at the planning time limit", headers=hh.RETRY, **PROBLEM
+    )
+    @blp.header_parameters(
+        {
+            "in": "header",
+            "name": idempotency.HEADER,
+            "required": False,
+            "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
+            "description": "Optional. Same key + same body → the first response again, with "
+            f"`{idempotency.REPLAYED_HEADER}: true`; kept 24 h per token.",
+        }
     )
     def post(self, body, code):
-        """Compute and record a plan from the truck's active sites (honours Idempotency-Key)"""
+        """Compute and record a plan from the truck's active sites (honours Idempotency-Key)
+
+        Dispatcher or admin. The plan records the exact versions of the truck and sites it was
+        computed from, and starts as `proposed`; activate it to make the weekly trips follow it.
+        Send an Idempotency-Key to retry safely: a repeat returns the first answer (marked with
+        `Ullage-Replayed: true`) and records nothing.
+        """
         key = idempotency.parse_key(request.headers.get(idempotency.HEADER))
         claim = heartbeat = None
         if key is not None:
@@ -188,9 +198,13 @@ class TruckPlans(MethodView):
 
     @allow("viewer")
     @blp.arguments(PlanQueryArgsSchema, location="query")
-    @blp.response(200, PlanListSchema)
+    @blp.response(200, PlanListSchema, headers=hh.PAGED)
     def get(self, args, code):
-        """History of the truck's plans, newest first (items omit trips and inputs)"""
+        """History of the truck's plans, newest first (items omit trips and inputs)
+
+        Paged by plan id, newest first; the `Link` header names the next page. GET a plan for its
+        trips and inputs.
+        """
         truck = truck_or_404(code)
         rows, headers = page(
             get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args, descending=True
@@ -201,25 +215,47 @@ class TruckPlans(MethodView):
 @blp.route("/plans/<id:plan_id>")
 class PlanById(MethodView):
     @allow("viewer")
-    @blp.response(200, PlanSchema)
+    @blp.response(200, PlanSchema, headers=hh.TAGGED)
+    @blp.alt_response(304, description="Not modified: the If-None-Match tag is current", headers=hh.TAGGED)
+    @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, plan_id):
-        """A recorded plan, exactly as recommended (plus its current status and staleness)"""
+        """A recorded plan, exactly as recommended (plus its current status and staleness)
+
+        The `ETag` changes when the plan's status or staleness does; send it in If-Match when
+        activating to activate exactly the plan you read.
+        """
         plan = _plan(plan_id)
         truck = get_session().get(Truck, plan.truck_id)
-        return _json_response(plan_json(plan, truck.code))
+        body = json.dumps(plan_json(plan, truck.code)).encode()
+        etag = content_etag(body)
+        return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})
 
 
 @blp.route("/plans/<id:plan_id>/activate")
 class PlanActivation(MethodView):
     @allow("dispatcher")
-    @blp.response(200, PlanSchema)
+    @blp.response(200, PlanSchema, headers=hh.TAGGED)
+    @blp.alt_response(
+        412, description="If-Match names a representation of the plan that is no longer current", **PROBLEM
+    )
+    @blp.header_parameters(hh.IF_MATCH_OPTIONAL)
     def post(self, plan_id):
-        """Make the plan its truck's one active plan (the previous one becomes superseded)"""
+        """Make the plan its truck's one active plan (the previous one becomes superseded)
+
+        Dispatcher or admin. With If-Match (the `ETag` of your GET of the plan) the plan is activated
+        only if it is still as you read it (412 otherwise: read it again). Answers with the plan and
+        its new `ETag`.
+        """
         session = get_session()
-        plan = plan_store.activate(session, _plan(plan_id))
+        plan = _plan(plan_id)
+        if request.headers.get("If-Match") is not None:
+            truck = session.get(Truck, plan.truck_id)
+            require_if_match(content_etag(json.dumps(plan_json(plan, truck.code)).encode()))
+        plan = plan_store.activate(session, plan)
         session.commit()
         truck = session.get(Truck, plan.truck_id)
-        return _json_response(plan_json(plan, truck.code))
+        body = json.dumps(plan_json(plan, truck.code)).encode()
+        return Response(body, mimetype="application/json", headers={"ETag": content_etag(body)})
 
 
 def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
@@ -301,18 +337,23 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
 class TruckTrips(MethodView):
     @allow("viewer")
     @blp.arguments(TripsQueryArgsSchema, location="query")
-    @blp.response(200, TripsSchema)
-    @blp.alt_response(304, description="Not modified (If-None-Match)")
+    @blp.response(200, TripsSchema, headers=hh.TAGGED)
+    @blp.alt_response(304, description="Not modified: the If-None-Match tag is current", headers=hh.TAGGED)
     @blp.alt_response(409, description="The truck has no active plan", **PROBLEM)
     @blp.alt_response(
         422, description="Invalid window, or longer than ULLAGE_MAX_TRIPS_DAYS (default 92 days)", **PROBLEM
     )
-    @blp.alt_response(429, description="Too many long windows (heavy reads) of this token; see Retry-After", **PROBLEM)
-    @blp.alt_response(503, description="A long window found the planning processes busy", **PROBLEM)
+    @blp.alt_response(
+        429, description="Too many long windows (heavy reads) of this token", headers=hh.RETRY, **PROBLEM
+    )
+    @blp.alt_response(503, description="A long window found the planning processes busy", headers=hh.RETRY, **PROBLEM)
+    @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, args, code):
         """The active plan's trips for an ISO week or a date range, quantities corrected by readings
 
-        Windows longer than ULLAGE_LONG_TRIPS_DAYS (default 35) are heavy reads: computed in the
+        The weekly call of dispatch software. Each stop has the plan's `planned_quantity` and the
+        `quantity` to deliver, corrected by the site's latest reading; `warnings` say what to look at.
+        Send the `ETag` back in If-None-Match to get 304 while nothing changed. Windows longer than ULLAGE_LONG_TRIPS_DAYS (default 35) are heavy reads: computed in the
         planning processes and counted against the token's heavy-read limit (cached answers are free).
         """
         first, last = _window(args)

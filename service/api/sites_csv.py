@@ -54,6 +54,19 @@ NUMBER_FIELDS = (
 )
 TEXT_FIELDS = ("code", "name", "truck")
 COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
+REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
+#: The format, for the OpenAPI document (request body of the import, response of the export).
+FORMAT = (
+    "UTF-8 CSV with a header row. Columns (any order): "
+    + ", ".join(f"`{c}`" for c in REQUIRED)
+    + " (required); "
+    + ", ".join(f"`{c}`" for c in (*COLUMNS, "unit") if c not in REQUIRED)
+    + " (optional; the export writes every column but `unit`). Cells are separated by `,` (`;` or tab "
+    "also read, told from the header). Numbers are plain ASCII decimals with a decimal point (`1000`, "
+    "`-3.25`, `2.5e3`); `active` is true/false; `unit` is `L`, `gal` or `m3` (volumes converted to the "
+    f"service unit). At most {MAX_ROWS} rows."
+)
+EXAMPLE = ",".join(COLUMNS) + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3\r\n"
 #: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
 #: a formula (``= + - @``, tab, carriage return).
 _NEEDS_PREFIX = re.compile(r"'*[=+\-@\t\r]")
@@ -157,11 +170,7 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
         raise Problem(422, "The CSV must be UTF-8.", kind="validation") from exc
     header, records = _records(text)
     unknown = [h for h in header if h not in (*COLUMNS, "unit")]
-    missing = [
-        h
-        for h in ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
-        if h not in header
-    ]
+    missing = [h for h in REQUIRED if h not in header]
     if unknown or missing:
         errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
         errors += [{"pointer": f"#/header/{h}", "detail": "Missing column."} for h in missing]

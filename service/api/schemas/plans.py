@@ -32,13 +32,23 @@ class PlanRequestSchema(StrictSchema):
 
 class PlanSchema(JointFieldsSchema):
     id = ma.fields.Integer()
-    truck = ma.fields.String()
-    status = ma.fields.String(validate=ma.validate.OneOf(["proposed", "active", "superseded"]))
-    stale = ma.fields.Boolean()
-    changed_sites = ma.fields.List(ma.fields.String())
-    start_date = ma.fields.Date()
+    truck = ma.fields.String(metadata={"description": "Code of the truck the plan is for"})
+    status = ma.fields.String(
+        validate=ma.validate.OneOf(["proposed", "active", "superseded"]),
+        metadata={
+            "description": "proposed (recorded, not followed yet), active (the truck's one plan the trips "
+            "follow), superseded (was active; may be activated again)"
+        },
+    )
+    stale = ma.fields.Boolean(
+        metadata={"description": "True when a truck or site input changed since the plan was computed"}
+    )
+    changed_sites = ma.fields.List(
+        ma.fields.String(), metadata={"description": "Codes of the sites whose inputs changed since the plan"}
+    )
+    start_date = ma.fields.Date(metadata={"description": "Day 0 of the plan's calendar (its first possible trip)"})
     created_at = ma.fields.DateTime()
-    created_by = ma.fields.String()
+    created_by = ma.fields.String(metadata={"description": "Name of the token that recorded the plan"})
     inputs = ma.fields.Dict(
         metadata={"description": "Snapshot of the truck's and every site's parameters with versions"}
     )
@@ -83,32 +93,53 @@ class NoticeSchema(ma.Schema):
             "no_recent_reading: the site's quantities are not corrected by a recent reading"
         },
     )
-    message = ma.fields.String()
-    site = ma.fields.String(allow_none=True)
-    date = ma.fields.Date(allow_none=True)
+    message = ma.fields.String(metadata={"description": "The notice for a person: the site, the date, what to do"})
+    site = ma.fields.String(allow_none=True, metadata={"description": "Code of the site concerned, if one"})
+    date = ma.fields.Date(
+        allow_none=True,
+        metadata={
+            "description": "For run_out_risk: the first day the projected level falls below the site's "
+            "safety stock (the safety-stock crossing, not the day the tank runs empty); for limits_changed, "
+            "the delivery day concerned; otherwise null"
+        },
+    )
 
 
 class DatedStopSchema(ma.Schema):
-    site = ma.fields.String()
-    planned_quantity = ma.fields.Float()
-    quantity = ma.fields.Float(metadata={"description": "What to load and deliver, corrected by the latest reading"})
-    projected_level_before = ma.fields.Float(allow_none=True)
-    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema))
+    site = ma.fields.String(metadata={"description": "Code of the site to deliver to"})
+    planned_quantity = ma.fields.Float(metadata={"description": "The quantity the recorded plan gave this stop"})
+    quantity = ma.fields.Float(
+        metadata={
+            "description": "What to load and deliver, in the service unit: the plan's quantity corrected by "
+            "the latest reading and trimmed to the current limits (room below the safe fill, truck space)"
+        }
+    )
+    projected_level_before = ma.fields.Float(
+        allow_none=True,
+        metadata={
+            "description": "The tank's projected level at the delivery time (00:00 of the delivery day in the "
+            "service time zone), before this delivery: the latest reading minus demand_per_day for the "
+            "elapsed time, plus earlier deliveries; null when the site has no usable reading"
+        },
+    )
+    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema), metadata={"description": "Notices about this stop"})
 
 
 class DatedTripSchema(ma.Schema):
-    date = ma.fields.Date()
-    load = ma.fields.Float()
-    stops = ma.fields.List(ma.fields.Nested(DatedStopSchema))
+    date = ma.fields.Date(metadata={"description": "Delivery day (service time zone)"})
+    load = ma.fields.Float(metadata={"description": "Sum of the stops' quantity: what the truck carries out"})
+    stops = ma.fields.List(ma.fields.Nested(DatedStopSchema), metadata={"description": "The stops, in plan order"})
 
 
 class TripsSchema(ma.Schema):
-    truck = ma.fields.String()
-    plan_id = ma.fields.Integer()
-    from_ = ma.fields.Date(data_key="from")
-    to = ma.fields.Date()
-    trips = ma.fields.List(ma.fields.Nested(DatedTripSchema))
-    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema))
+    truck = ma.fields.String(metadata={"description": "Code of the truck"})
+    plan_id = ma.fields.Integer(metadata={"description": "Id of the active plan the trips come from"})
+    from_ = ma.fields.Date(data_key="from", metadata={"description": "First day of the window"})
+    to = ma.fields.Date(metadata={"description": "Last day of the window"})
+    trips = ma.fields.List(ma.fields.Nested(DatedTripSchema), metadata={"description": "One item per delivery day"})
+    warnings = ma.fields.List(
+        ma.fields.Nested(NoticeSchema), metadata={"description": "Every notice of the window, stops' included"}
+    )
 
 
 class ReadingRequestSchema(StrictSchema):
@@ -122,11 +153,11 @@ class ReadingRequestSchema(StrictSchema):
 
 class ReadingSchema(ma.Schema):
     id = ma.fields.Integer()
-    site = ma.fields.String()
-    level = ma.fields.Float()
-    measured_at = ma.fields.DateTime()
-    created_at = ma.fields.DateTime()
-    created_by = ma.fields.String()
+    site = ma.fields.String(metadata={"description": "Code of the site"})
+    level = ma.fields.Float(metadata={"description": "Level in the tank, in the service unit"})
+    measured_at = ma.fields.DateTime(metadata={"description": "When the level was measured, in UTC"})
+    created_at = ma.fields.DateTime(metadata={"description": "When the reading was recorded, in UTC"})
+    created_by = ma.fields.String(metadata={"description": "Name of the token that recorded it"})
 
 
 class ReadingListSchema(ma.Schema):
