@@ -30,25 +30,33 @@ def content_etag(body: bytes) -> str:
     return '"' + hashlib.sha256(body).hexdigest()[:32] + '"'
 
 
-#: An entity tag as RFC 9110 §8.8.3 writes it: optional ``W/``, then the opaque tag in double quotes.
-_QUOTED = re.compile(r'(W/)?"[\x21\x23-\x7e\x80-\xff]*"')
+_TAG_LIST = re.compile(QUOTED_TAGS)
+_TAG = re.compile(r'(W/)?"[^"]*"')
 
 
 def _tags(header: str, name: str) -> list[str]:
-    """The tags of an If-Match / If-None-Match value; 400 for a tag written without its quotes
-    (``abc`` instead of ``"abc"``), which would otherwise never match and read as "changed"."""
-    tags = [part.strip() for part in header.split(",") if part.strip()]
-    bare = [tag for tag in tags if tag != "*" and not _QUOTED.fullmatch(tag)]
-    if bare:
-        example = bare[0].removeprefix("W/").strip('"')
-        raise Problem(
-            400,
+    """The tags of an If-Match / If-None-Match value, checked against the documented form
+    (:data:`~service.api.http_headers.QUOTED_TAGS`, or ``*``). A tag written without its quotes
+    (``abc`` instead of ``"abc"``) would otherwise never match and read as "changed": 400 saying so.
+    ``*`` in an If-Match list is returned for :func:`require_if_match` to refuse with 428."""
+    tags = [part.strip(" \t") for part in header.split(",") if part.strip(" \t")]
+    if tags == ["*"] or (name == "If-Match" and "*" in tags) or _TAG_LIST.fullmatch(header):
+        return tags
+    if "*" in tags:
+        detail = f"{name}: * stands alone, not in a list of entity tags."
+    else:
+        bare = next((tag for tag in tags if not _TAG.fullmatch(tag)), tags[0])
+        example = bare.removeprefix("W/").strip('"')
+        detail = (
             f"{name} must carry the ETag in double quotes, exactly as the ETag header sent it: "
-            f'{name}: "{example}" (it is written without quotes here, so it cannot be compared).',
-            kind="bad-etag",
-            errors=[{"pointer": f"#/header/{name}", "detail": "An entity tag must be quoted, e.g. \"abc\"."}],
+            f'{name}: "{example}" (it is written without quotes here, so it cannot be compared).'
         )
-    return tags
+    raise Problem(
+        400,
+        detail,
+        kind="bad-etag",
+        errors=[{"pointer": f"#/header/{name}", "detail": 'Entity tags are quoted and comma-separated, e.g. "abc".'}],
+    )
 
 
 #: OpenAPI parameter for the changes that need ``If-Match`` (documented as required: 428 without it).

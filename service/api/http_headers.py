@@ -38,15 +38,18 @@ PAGED = {"Link": LINK}
 RETRY = {"Retry-After": RETRY_AFTER}
 PLAN_CREATED = {"Location": LOCATION, REPLAYED_HEADER: REPLAYED}
 
-#: One or more quoted entity tags (RFC 9110 §8.8.3: `"` etagc* `"`, here the visible ASCII but `"`
-#: and `,`, which separates tags), comma-separated; what ``service.api.etags`` accepts.
-QUOTED_TAGS = r'^\s*(W/)?"[!#-+\--~]*"(\s*,\s*(W/)?"[!#-+\--~]*")*\s*$'
+_ETAG = r'(W/)?"[!#-+\--~\u0080-\u00ff]*"'
+_OWS = r"[ \t]*"
+#: A list of quoted entity tags as RFC 9110 writes it (§8.8.3: ``"`` etagc* ``"``, optionally after
+#: ``W/``; §5.6.1: comma-separated, empty elements allowed), in a syntax Python's ``re`` and JSON
+#: Schema (ECMA-262) read alike. ``service.api.etags`` checks header values with this same pattern.
+QUOTED_TAGS = rf"^{_OWS}(,{_OWS})*({_ETAG}{_OWS}(,{_OWS}({_ETAG}{_OWS})?)*)?$"
 
 IF_NONE_MATCH = {
     "in": "header",
     "name": "If-None-Match",
     "required": False,
-    "schema": {"type": "string", "pattern": rf"^\s*\*\s*$|{QUOTED_TAGS}"},
+    "schema": {"type": "string", "pattern": rf"^{_OWS}\*{_OWS}$|{QUOTED_TAGS}"},
     "description": "The ETag of your last answer, in double quotes: 304 Not Modified while it is still current. "
     "A tag without its quotes is refused with 400.",
 }

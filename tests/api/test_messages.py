@@ -61,6 +61,18 @@ def test_unquoted_etag_in_if_none_match_says_it_must_be_quoted(client, auth, sit
     assert client.get("/api/v1/sites/S1", headers=auth("viewer", **{"If-None-Match": site})).status_code == 304
 
 
+def test_tag_lists_as_rfc_9110_writes_them(client, auth, site):
+    """Empty list elements are allowed (RFC 9110 §5.6.1); `*` stands alone in If-None-Match."""
+    listed = client.get("/api/v1/sites/S1", headers=auth("viewer", **{"If-None-Match": f'"x", ,{site},'}))
+    assert listed.status_code == 304
+    empty = client.get("/api/v1/sites/S1", headers=auth("viewer", **{"If-None-Match": ""}))
+    assert empty.status_code == 200
+    star = client.get("/api/v1/sites/S1", headers=auth("viewer", **{"If-None-Match": f"{site}, *"}))
+    assert star.status_code == 400 and "stands alone" in detail(star)
+    run_together = client.get("/api/v1/sites/S1", headers=auth("viewer", **{"If-None-Match": f'{site} "x"'}))
+    assert run_together.status_code == 400
+
+
 def test_a_quoted_tag_that_moved_on_is_still_412(client, auth, site):
     response = client.patch(
         "/api/v1/sites/S1", json={"name": "x"}, headers=auth("admin", **{"If-Match": '"0000000000"'})
