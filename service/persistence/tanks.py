@@ -19,8 +19,9 @@ def active_trucks(session: Session) -> list[Truck]:
 def active_sites(session: Session) -> list[tuple[Site, Truck]]:
     """Every active site with its truck (active or not), in truck then site code order."""
     rows = session.execute(
-        select(Site, Truck).join(Truck, Site.truck_id == Truck.id).where(Site.active.is_(True)).order_by(
-            Truck.code, Site.code
-        )
+        select(Site, Truck)
+        .join(Truck, Site.truck_id == Truck.id)
+        .where(Site.active.is_(True))
+        .order_by(Truck.code, Site.code)
     )
     return [(site, truck) for site, truck in rows]

@@ -53,7 +53,10 @@ def lowest() -> Any:
             key, schedule.next_deliveries(db, tanks.active_trucks(db), first, schedule.NEXT_DELIVERY_DAYS, config)
         )
     ranked = schedule.lowest_first(
-        [schedule.TankStock(**{**vars(s), "next_delivery": nexts.get(s.site)}) for s in schedule.stocks(db, now, config)]
+        [
+            schedule.TankStock(**{**vars(s), "next_delivery": nexts.get(s.site)})
+            for s in schedule.stocks(db, now, config)
+        ]
     )
     return render_template(
         "status_lowest.html",

@@ -185,8 +185,9 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     warnings = [dict(w, truck=truck.code) for w in _group_readings(_group_limits(_dedupe(notices)), truck)]
     warnings = [_with_empty_date(w, all_levels.get(w["site"])) for w in warnings]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
+    safety = {code: levels.safety_stock for code, levels in all_levels.items()}
     notes = {
-        (trip.date, stop.site): _stop_notes(stop, all_levels[stop.site].safety_stock if stop.site in all_levels else 0.0)
+        (trip.date, stop.site): _stop_notes(stop, safety.get(stop.site, 0.0))
         for trip in (view.trips if view is not None else ())
         for stop in trip.stops
     }

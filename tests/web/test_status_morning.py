@@ -146,7 +146,11 @@ def test_lowest_first_ranks_by_days_above_safety_stock_with_the_next_delivery(
         )
         assert f"{stop[0]}" in by_code[code] and f"{quantity(stop[1])} to deliver" in by_code[code], code
     # A truck without an active plan has no planned delivery, and its tanks say so.
-    hv_r2 = [c for c in codes if repo.site_by_code(db_session, c).truck_id != repo.truck_by_code(db_session, PLANNED_TRUCK).id]
+    hv_r2 = [
+        c
+        for c in codes
+        if repo.site_by_code(db_session, c).truck_id != repo.truck_by_code(db_session, PLANNED_TRUCK).id
+    ]
     assert hv_r2 and all("none planned in the next 28 days" in by_code[c] for c in hv_r2)
 
 
@@ -213,10 +217,11 @@ def test_the_load_sheet_has_one_sheet_per_truck_with_stops_room_load_and_caution
             assert f"{site.latitude:.5f}, {site.longitude:.5f}" in row
             safe_fill = site.safe_fill * site.tank_capacity
             if stop["projected_level_before"] is None:
-                assert "not projected (no reading)" in row and f"check the gauge: safe fill {quantity(safe_fill)}" in row
+                assert row.endswith(f"no reading {quantity(safe_fill)} not known: check the gauge")
             else:  # room in the tank = safe fill level - projected level before the delivery
                 room = safe_fill - stop["projected_level_before"]
-                assert f"{quantity(room)} (safe fill {quantity(safe_fill)})" in row
+                level = quantity(stop["projected_level_before"])
+                assert row.endswith(f"{level} {quantity(safe_fill)} {quantity(room)}")
         capacity = repo.truck_by_code(db_session, truck).capacity
         assert f"Total load {quantity(trip['load'])} of {quantity(capacity)}" in sheet
     db_session.rollback()
@@ -228,7 +233,9 @@ def test_a_day_without_trips_says_which_trucks_have_none(app, browser_client, pl
         headers=auth("viewer"),
     ).get_json()["trips"]
     busy = {t["date"] for t in trips}
-    day = next(today(app) + dt.timedelta(days=k) for k in range(1, 28) if str(today(app) + dt.timedelta(days=k)) not in busy)
+    day = next(
+        today(app) + dt.timedelta(days=k) for k in range(1, 28) if str(today(app) + dt.timedelta(days=k)) not in busy
+    )
     text = text_of(browser_client.get(f"/status/load-sheet?date={day}"))
     assert f"No load sheet for {PLANNED_TRUCK} (no trip on this day), {UNPLANNED_TRUCK} (no active plan)." in text
     assert f"No truck has a trip on {day}." in text
@@ -279,7 +286,11 @@ def test_the_level_table_tells_empty_from_below_safety_stock(
     zone = ZoneInfo(app.config["ULLAGE_SETTINGS"].timezone)
     midnight = dt.datetime.combine(today(app), dt.time(0), tzinfo=zone).astimezone(dt.UTC)
     add_reading(
-        browser_client, auth, code, fraction * site.safety_stock + site.demand_per_day / 4, midnight - dt.timedelta(hours=6)
+        browser_client,
+        auth,
+        code,
+        fraction * site.safety_stock + site.demand_per_day / 4,
+        midnight - dt.timedelta(hours=6),
     )
     levels = schedule.site_levels(db_session, site, today(app), 28, app.config["ULLAGE_SETTINGS"])
     db_session.rollback()
