@@ -108,7 +108,12 @@ def test_lowest_first_ranks_by_days_above_safety_stock_with_the_next_delivery(
         site = repo.site_by_code(db_session, code)
         hours = 2 if code not in (LOW_SITE, "HV-DEP-01") else 5 / 60
         now_level = max(0.0, level - site.demand_per_day * hours / 24)
-        expected[code] = ((now_level - site.safety_stock) / site.demand_per_day, now_level, site.safety_stock)
+        expected[code] = (
+            (now_level - site.safety_stock) / site.demand_per_day,
+            now_level,
+            site.safety_stock,
+            now_level / site.demand_per_day,
+        )
     db_session.rollback()
     response = browser_client.get("/status/lowest")
     text_of(response)
@@ -128,8 +133,12 @@ def test_lowest_first_ranks_by_days_above_safety_stock_with_the_next_delivery(
     assert "0 L empty" in by_code[EMPTY_SITE] and "0 (empty)" in by_code[EMPTY_SITE]
     assert 0 < expected[LOW_SITE][1] < expected[LOW_SITE][2]
     assert "below safety stock" in by_code[LOW_SITE] and "empty" not in by_code[LOW_SITE]
-    days = expected["HV-DEP-01"][0]
-    assert f" {days:.1f} ".replace(",", " ") in f" {by_code['HV-DEP-01']} "
+    # Above the safety stock and to empty, one decimal; the page was read up to a minute after the
+    # five minutes the expectation counts, so either rounding of that minute's ends is right.
+    days, to_empty = expected["HV-DEP-01"][0], expected["HV-DEP-01"][3]
+    minute = 1 / 1440  # a minute of use is a minute less of stock, in days
+    shown = {f" {days - k * minute:.1f} {to_empty - k * minute:.1f} " for k in (0, 1)}
+    assert any(text in f" {by_code['HV-DEP-01']} " for text in shown), (shown, by_code["HV-DEP-01"])
     assert "below safety stock" not in by_code["HV-DEP-01"]
     # The next planned delivery beside each tank: the trips API's first stop with a quantity.
     first = today(app)
@@ -310,3 +319,20 @@ def test_the_level_table_tells_empty_from_below_safety_stock(
             assert cell.endswith("(below safety stock)") and "empty" not in cell
         else:
             assert "(" not in cell
+
+
+def test_a_run_out_warning_says_when_the_tank_is_empty_too(app, browser_client, demo, client, auth, db_session):
+    """A plan that starts in five days and a tank read at 100 L now: it is below its safety stock at
+    once and empty once 100 L are used, at 00:00 of the next day after that (worked by hand from
+    demand_per_day, not from the projection)."""
+    record_plan(client, auth, PLANNED_TRUCK, today(app) + dt.timedelta(days=5))
+    now = dt.datetime.now(dt.UTC) - dt.timedelta(minutes=5)
+    add_reading(client, auth, LOW_SITE, 100.0, now)
+    site = repo.site_by_code(db_session, LOW_SITE)
+    zone = ZoneInfo(app.config["ULLAGE_SETTINGS"].timezone)
+    empty_at = (now + dt.timedelta(days=100.0 / site.demand_per_day)).astimezone(zone)
+    db_session.rollback()
+    empty_day = empty_at.date() + dt.timedelta(days=1)  # the first 00:00 after the level reaches 0
+    page = Page(browser_client.get("/status").get_data(as_text=True))
+    [risk] = [words(e) for e in page.find("li", class_="kind-run_out_risk") if LOW_SITE in words(e)]
+    assert f"below its safety stock on {today(app).isoformat()}, and empty by {empty_day.isoformat()}." in risk
