@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 import re
 from typing import Any
+from zoneinfo import ZoneInfo
 
 from flask import render_template, request
 from markupsafe import Markup
@@ -183,7 +184,11 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     if plan is None:  # the truck's own notice says it; one per site would only repeat it
         notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
     warnings = [dict(w, truck=truck.code) for w in _group_readings(_group_limits(_dedupe(notices)), truck)]
-    warnings = [_with_empty_date(w, all_levels.get(w["site"])) for w in warnings]
+    readings = plan_store.latest_readings(db, [site.id for site in sites])
+    empty_reads = {
+        site.code: readings[site.id] for site in sites if site.id in readings and readings[site.id].level <= TOLERANCE
+    }
+    warnings = [_with_empty(w, all_levels.get(w["site"]), empty_reads.get(w["site"]), config) for w in warnings]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
     safety = {code: levels.safety_stock for code, levels in all_levels.items()}
     notes = {
@@ -202,15 +207,24 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     }
 
 
-def _with_empty_date(warning: dict[str, Any], levels: schedule.SiteLevels | None) -> dict[str, Any]:
-    """A run-out warning also says when the tank is projected empty (0 at 00:00), if the charts' days
-    reach it: falling below the safety stock and running empty are different dates."""
-    if warning["kind"] != "run_out_risk" or levels is None or warning["date"] is None:
+def _with_empty(
+    warning: dict[str, Any], levels: schedule.SiteLevels | None, empty_read: Any, config: Any
+) -> dict[str, Any]:
+    """A run-out warning also says when the tank is empty: its latest reading was 0, or it is
+    projected at 0 at 00:00 of a day the charts reach. Falling below the safety stock and running
+    empty are different things."""
+    if warning["kind"] != "run_out_risk" or warning["date"] is None:
         return warning
-    empty = next((d for d, v in levels.days if d >= warning["date"] and v is not None and v <= TOLERANCE), None)
+    message = warning["message"].rstrip(".")
+    if empty_read is not None:
+        at = empty_read.measured_at.astimezone(ZoneInfo(config.timezone))
+        when = f"{at:%H:%M} that day" if at.date() == warning["date"] else f"{at:%Y-%m-%d %H:%M}"
+        return dict(warning, message=f"{message}; it read 0 {config.quantity_unit} (empty) at {when}.")
+    days = levels.days if levels is not None else ()
+    empty = next((d for d, v in days if d >= warning["date"] and v is not None and v <= TOLERANCE), None)
     if empty is None:
         return warning
-    return dict(warning, message=warning["message"].rstrip(".") + f", and empty by {empty.isoformat()}.")
+    return dict(warning, message=f"{message}, and empty by {empty.isoformat()}.")
 
 
 def _stop_notes(stop: schedule.PlannedStop, safety_stock: float) -> list[dict[str, str]]:

@@ -336,3 +336,15 @@ def test_a_run_out_warning_says_when_the_tank_is_empty_too(app, browser_client, 
     page = Page(browser_client.get("/status").get_data(as_text=True))
     [risk] = [words(e) for e in page.find("li", class_="kind-run_out_risk") if LOW_SITE in words(e)]
     assert f"below its safety stock on {today(app).isoformat()}, and empty by {empty_day.isoformat()}." in risk
+
+
+def test_a_run_out_warning_of_a_tank_that_read_0_l_says_it_is_empty(app, browser_client, planned, auth):
+    now = dt.datetime.now(dt.UTC) - dt.timedelta(minutes=1)
+    add_reading(browser_client, auth, EMPTY_SITE, 0.0, now)
+    page = Page(browser_client.get("/status").get_data(as_text=True))
+    [risk] = [words(e) for e in page.find("li", class_="kind-run_out_risk") if EMPTY_SITE in words(e)]
+    local = now.astimezone(ZoneInfo(app.config["ULLAGE_SETTINGS"].timezone))
+    date = re.search(r"safety stock on (\d{4}-\d{2}-\d{2})", risk)[1]
+    when = f"{local:%H:%M} that day" if date == local.date().isoformat() else f"{local:%Y-%m-%d %H:%M}"
+    assert f"; it read 0 L (empty) at {when}." in risk
+    assert risk.count(EMPTY_SITE) == 1 and risk.count(date) == 1
