@@ -342,7 +342,10 @@ def _worded(notice: dict[str, Any]) -> dict[str, Any]:
     """The badge's word, the site code in the message as a link (``before``, ``after``), what to do,
     and the truck, site and date shown beside the message only when it does not already name them."""
     message, site = notice["message"], notice["site"]
-    before, after = message.split(site, 1) if site and site in message else (message, None)
+    before, after = message, None
+    if site and site in message:  # "Name (CODE)" where the message has it, else the first mention
+        at = message.find(f"({site})") + 1 or message.find(site)
+        before, after = message[:at], message[at + len(site) :]
     action = ACTIONS.get(notice["kind"])
     truck = notice.get("truck")
     return dict(
