@@ -121,7 +121,8 @@ def site_page(code: str) -> Any:
     except repo.NotFound as exc:
         raise Problem(404, "There is no site with this code.", title="Not found") from exc
     truck = db.get(Truck, site.truck_id)
-    first = schedule.today(config)
+    first, now = schedule.today(config), utcnow()
+    reading = plan_store.latest_readings(db, [site.id]).get(site.id)
     levels = schedule.site_levels(db, site, first, CHART_DAYS, config)
     label = f"{site.name} ({site.code})"
     chart = level_svg(levels, unit=config.quantity_unit, site_label=label, element_id=chart_id("chart", site.code))
@@ -139,6 +140,9 @@ def site_page(code: str) -> Any:
         has_level=any(v is not None for _, v in levels.days),
         warnings=_sorted_warnings(_group_limits(_dedupe(levels.notices))),
         week=formatting.iso_week_of(first),
+        reading=reading,
+        now=now,
+        today=first,
     )
 
 

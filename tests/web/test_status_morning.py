@@ -86,6 +86,10 @@ def test_the_overview_shows_each_sites_latest_reading_and_a_0_l_tank_plainly(app
     assert "30 000 L at" in rows["HV-DEP-01"] and "when read" not in rows["HV-DEP-01"]
     assert rows["HV-FRM-04"].endswith("no reading on record")
     assert len(rows) == 16  # every active site of the demo
+    # The site's own page says it too.
+    site_page = clean(browser_client.get(f"/status/sites/{EMPTY_SITE}").get_data(as_text=True))
+    assert f"Latest reading 0 L at {clock}, 3 h ago empty when read" in site_page
+    assert "Latest reading none on record" in clean(browser_client.get("/status/sites/HV-FRM-04").get_data(as_text=True))
     # Between the warnings and the trucks: warnings stay first.
     assert body.index('id="warnings-heading"') < body.index('id="readings-heading"') < body.index(f">{PLANNED_TRUCK} <")
 
