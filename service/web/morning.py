@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from dataclasses import replace
 from typing import Any
 
 from flask import render_template, request
@@ -53,10 +54,7 @@ def lowest() -> Any:
             key, schedule.next_deliveries(db, tanks.active_trucks(db), first, schedule.NEXT_DELIVERY_DAYS, config)
         )
     ranked = schedule.lowest_first(
-        [
-            schedule.TankStock(**{**vars(s), "next_delivery": nexts.get(s.site)})
-            for s in schedule.stocks(db, now, config)
-        ]
+        [replace(s, next_delivery=nexts.get(s.site)) for s in schedule.stocks(db, now, config)]
     )
     return render_template(
         "status_lowest.html",
