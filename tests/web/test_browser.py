@@ -287,6 +287,8 @@ def test_latest_readings_lowest_first_and_load_sheets_print_one_a4_page_per_truc
             assert EMPTY_SITE in first or SITE in first  # the two tanks read at (nearly) nothing
             assert "empty" in first and "to deliver" in first
             assert "no reading on record" in rows.nth(15).inner_text()
+            # Every column fits a laptop's width: the table does not scroll sideways.
+            assert page.locator(".table-wrap").evaluate("e => e.scrollWidth <= e.clientWidth + 1")
             page.screenshot(path=str(ARTIFACTS / "status-lowest.png"), full_page=True)
             _non_blank(ARTIFACTS / "status-lowest.png")
 
