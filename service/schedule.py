@@ -17,15 +17,18 @@ dropped for ``max_stops`` and a site taken out are reported the same way at the 
 from __future__ import annotations
 
 import datetime as dt
+import math
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
 from service.config import Settings
 from service.persistence import plans as plan_store
+from service.persistence import tanks
 from service.persistence.models import Plan, Site, Truck, utcnow
 from service.planning import trips_between
 from service.planning.projection import (
@@ -550,3 +553,167 @@ def site_levels(session: Session, site: Site, first: dt.date, days: int, setting
     """Projected level at 00:00 of each of ``days`` days from ``first``, and the planned deliveries."""
     truck = session.get(Truck, site.truck_id)
     return truck_levels(session, truck, [site], first, days, settings)[site.code]
+
+
+# ----------------------------------------------------------------------------------------------------
+# The dispatcher's morning: every tank's stock now (lowest first) and one day's load sheet per truck.
+# No delivery is recorded yet, so a tank's stock now is its latest reading falling at its demand.
+
+#: How many days ahead the lowest-first view looks for each site's next planned delivery.
+NEXT_DELIVERY_DAYS = 28
+
+
+def level_state(level: float | None, safety_stock: float) -> str | None:
+    """``empty`` (projected level ≤ 0), ``below safety stock`` (< the safety stock), else ``ok``;
+    ``None`` without a level."""
+    if level is None:
+        return None
+    if level <= TOLERANCE:
+        return "empty"
+    if level < safety_stock - TOLERANCE:
+        return "below safety stock"
+    return "ok"
+
+
+@dataclass(frozen=True)
+class TankStock:
+    """One active site's stock at ``now``: its latest reading falling at ``demand_per_day``
+    (:class:`Projection` of the tank alone, never below 0), the days that stock lasts above the
+    safety stock, ``(level − safety_stock) / demand_per_day`` (negative below it), and to empty,
+    ``level / demand_per_day``; and the next planned delivery from today on (date, quantity)."""
+
+    site: str
+    site_name: str
+    truck: str
+    reading_level: float | None
+    reading_at: dt.datetime | None
+    level: float | None
+    safety_stock: float
+    days_above_safety: float | None
+    days_to_empty: float | None
+    next_delivery: tuple[dt.date, float] | None
+
+    @property
+    def state(self) -> str | None:
+        return level_state(self.level, self.safety_stock)
+
+
+def next_deliveries(
+    session: Session, trucks: Sequence[Truck], first: dt.date, days: int, settings: Settings
+) -> dict[str, tuple[dt.date, float]]:
+    """Each site's first planned stop with something to deliver on ``first … first + days − 1``
+    (date, corrected quantity; a stop whose corrected quantity is 0 is not a delivery)."""
+    out: dict[str, tuple[dt.date, float]] = {}
+    for truck in trucks:
+        try:
+            view = trips_view(session, truck, first, first + dt.timedelta(days=days - 1), settings)
+        except NoActivePlan:
+            continue
+        for trip in view.trips:
+            for stop in trip.stops:
+                if stop.quantity > TOLERANCE:
+                    out.setdefault(stop.site, (trip.date, stop.quantity))
+    return out
+
+
+def tank_stock(
+    site: Site, truck_code: str, reading: tuple[float, dt.datetime] | None, now: dt.datetime, zone: ZoneInfo
+) -> TankStock:
+    """:class:`TankStock` of one site (without its next delivery)."""
+    level = None
+    if reading is not None:
+        tank = Tank(site.code, site.demand_per_day, site.safe_fill * site.tank_capacity, site.safety_stock, 1, *reading)
+        level = Projection([tank], 0.0, zone).level_before(site.code, max(now, reading[1]))
+    days_above = days_empty = None
+    if level is not None:
+        demand = site.demand_per_day
+        days_above = (level - site.safety_stock) / demand if demand > 0 else math.inf
+        days_empty = level / demand if demand > 0 else math.inf
+    return TankStock(
+        site.code,
+        site.name,
+        truck_code,
+        reading[0] if reading else None,
+        reading[1] if reading else None,
+        level,
+        site.safety_stock,
+        days_above,
+        days_empty,
+        None,
+    )
+
+
+def stocks(session: Session, now: dt.datetime, settings: Settings) -> list[TankStock]:
+    """Every active site's :class:`TankStock` at ``now`` (no next delivery), in truck and site code order."""
+    pairs = tanks.active_sites(session)
+    readings = plan_store.latest_readings(session, [site.id for site, _ in pairs])
+    zone = ZoneInfo(settings.timezone)
+    out = []
+    for site, truck in pairs:
+        reading = readings.get(site.id)
+        out.append(tank_stock(site, truck.code, (reading.level, reading.measured_at) if reading else None, now, zone))
+    return out
+
+
+def lowest_first(items: Sequence[TankStock]) -> list[TankStock]:
+    """Fewest days above the safety stock first (then fewest to empty, then code); tanks without a
+    reading last, in code order."""
+
+    def key(stock: TankStock) -> tuple[Any, ...]:
+        if stock.level is None:
+            return (1, 0.0, 0.0, stock.site)
+        return (0, stock.days_above_safety, stock.days_to_empty, stock.site)
+
+    return sorted(items, key=key)
+
+
+@dataclass(frozen=True)
+class SheetStop:
+    """A stop on a load sheet: the planned stop, where the site is, and the room in its tank
+    before the delivery (``safe_fill × tank_capacity − projected_level_before``; ``None`` without a
+    projected level)."""
+
+    stop: PlannedStop
+    latitude: float | None
+    longitude: float | None
+    safe_fill_level: float
+    room: float | None
+
+
+@dataclass(frozen=True)
+class SheetTrip:
+    date: dt.date
+    load: float
+    capacity: float
+    stops: tuple[SheetStop, ...]
+
+
+@dataclass(frozen=True)
+class TruckSheet:
+    """One truck's trips on one day, and the notices of its plan that concern them."""
+
+    truck_code: str
+    truck_name: str
+    plan_id: int | None
+    trips: tuple[SheetTrip, ...]
+    notices: tuple[Notice, ...]
+
+
+def load_sheet(session: Session, truck: Truck, sites: Sequence[Site], day: dt.date, settings: Settings) -> TruckSheet:
+    """The truck's trips on ``day`` (:func:`trips_view`) with each stop's coordinates and room;
+    ``NoActivePlan`` without an active plan."""
+    view = trips_view(session, truck, day, day, settings)
+    by_code = {site.code: site for site in sites}
+    trips = []
+    for trip in view.trips:
+        stops = []
+        for stop in trip.stops:
+            site = by_code[stop.site]
+            safe_fill_level = site.safe_fill * site.tank_capacity
+            room = None if stop.projected_level_before is None else safe_fill_level - stop.projected_level_before
+            stops.append(SheetStop(stop, site.latitude, site.longitude, safe_fill_level, room))
+        trips.append(SheetTrip(trip.date, trip.load, trip.capacity, tuple(stops)))
+    codes = {stop.site for trip in view.trips for stop in trip.stops}
+    notices = tuple(n for n in view.notices if n.site is None or n.site in codes)
+    plan_id = view.plan.id if view.plan is not None else None
+    return TruckSheet(truck.code, truck.name, plan_id, tuple(trips), notices)

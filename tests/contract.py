@@ -51,6 +51,8 @@ ROUTE_ROLES = {
     # The status page signs people in with its own cookie session (issue 5); bearer roles do not apply.
     ("GET", "/status"): SESSION,
     ("GET", "/status/sites/<code>"): SESSION,
+    ("GET", "/status/lowest"): SESSION,
+    ("GET", "/status/load-sheet"): SESSION,
     ("GET", "/status/sign-in"): SESSION,
     ("POST", "/status/sign-in"): SESSION,
     ("GET", "/status/sign-out"): SESSION,
