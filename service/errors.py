@@ -37,6 +37,7 @@ class Problem(Exception):
         errors: Iterable[Mapping[str, str]] = (),
         headers: Mapping[str, str] | None = None,
         title: str | None = None,
+        extensions: Mapping[str, Any] | None = None,
     ) -> None:
         super().__init__(detail)
         self.status = status
@@ -45,6 +46,8 @@ class Problem(Exception):
         self.errors = list(errors)
         self.headers = dict(headers or {})
         self.title = title
+        #: Extension members of the problem type (RFC 9457 §3.2), e.g. ``needed`` of ``infeasible``.
+        self.extensions = dict(extensions or {})
 
 
 def problem_response(
@@ -55,8 +58,9 @@ def problem_response(
     errors: Iterable[Mapping[str, str]] = (),
     headers: Mapping[str, str] | None = None,
     title: str | None = None,
+    extensions: Mapping[str, Any] | None = None,
 ) -> Response:
-    """Build a problem+json response."""
+    """Build a problem+json response (``extensions`` never replace a standard member)."""
     body: dict[str, Any] = {
         "type": PROBLEM_BASE + kind if kind else "about:blank",
         "title": title or HTTPStatus(status).phrase,
@@ -67,6 +71,8 @@ def problem_response(
     errors = list(errors)
     if errors:
         body["errors"] = errors
+    for name, value in (extensions or {}).items():
+        body.setdefault(name, value)
     # Issue 6: the request id goes into problem bodies too (an extension member; clients that do
     # not know it ignore it, RFC 9457 §3.2), besides the X-Request-ID header.
     request_id = g.get("request_id")
@@ -132,7 +138,13 @@ def handle_http_exception(error: HTTPException) -> Response:
 
 def handle_problem(error: Problem) -> Response:
     return problem_response(
-        error.status, error.detail, kind=error.kind, errors=error.errors, headers=error.headers, title=error.title
+        error.status,
+        error.detail,
+        kind=error.kind,
+        errors=error.errors,
+        headers=error.headers,
+        title=error.title,
+        extensions=error.extensions,
     )
 
 

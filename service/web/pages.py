@@ -11,7 +11,7 @@ from markupsafe import Markup
 from sqlalchemy import select
 from sqlalchemy.exc import DBAPIError
 
-from service import bounded, schedule
+from service import bounded, schedule, working_calendar
 from service.api.fields import FIRST_DATE, LAST_DATE, WEEK_RANGE
 from service.auth import SESSION, allow
 from service.cache import LruCache
@@ -35,6 +35,7 @@ WEEK_CACHE: LruCache[Markup] = LruCache(8)
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
     "limits_changed": ("Limits changed", 1),
+    "calendar": ("Closed date", 1),
     "no_active_plan": ("No active plan", 2),
     "plan_stale": ("Plan out of date", 3),
     "no_recent_reading": ("No recent reading", 4),
@@ -169,7 +170,15 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
         notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
     warnings = [dict(w, truck=truck.code) for w in _group_readings(_group_limits(_dedupe(notices)), truck)]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
-    return {"truck": truck, "view": view, "plan": plan, "gap": gap, "charts": charts, "warnings": warnings}
+    return {
+        "truck": truck,
+        "calendar": working_calendar.Calendar.of(truck).describe(),
+        "view": view,
+        "plan": plan,
+        "gap": gap,
+        "charts": charts,
+        "warnings": warnings,
+    }
 
 
 def _broken_panel(truck: Truck) -> dict[str, Any]:
@@ -181,6 +190,7 @@ def _broken_panel(truck: Truck) -> dict[str, Any]:
     )
     return {
         "truck": truck,
+        "calendar": None,
         "view": None,
         "plan": None,
         "gap": None,

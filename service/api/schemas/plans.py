@@ -13,7 +13,7 @@ from service.api.fields import (
     JsonInt,
 )
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.calculations import JointFieldsSchema
+from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema
 
 PLAN_METHODS = ("power_of_two", "integer", "best")
@@ -25,7 +25,10 @@ class PlanRequestSchema(StrictSchema):
     start_date = BoundedDate(
         load_default=None,
         allow_none=True,
-        metadata={"description": f"First day of the plan's calendar (default: today), {DATE_RANGE}"},
+        metadata={
+            "description": "Day 0 of the plan's calendar (default: today in the service time zone), "
+            f"{DATE_RANGE}; the plan uses the truck's stored calendar from this day"
+        },
     )
 
 
@@ -33,13 +36,19 @@ class PlanSchema(JointFieldsSchema):
     id = ma.fields.Integer()
     truck = ma.fields.String()
     status = ma.fields.String(validate=ma.validate.OneOf(["proposed", "active", "superseded"]))
+    planning_status = ma.fields.String(
+        validate=ma.validate.OneOf([s for s in STATUSES if s != "infeasible"]),
+        metadata={"description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION},
+    )
     stale = ma.fields.Boolean()
     changed_sites = ma.fields.List(ma.fields.String())
     start_date = ma.fields.Date()
     created_at = ma.fields.DateTime()
     created_by = ma.fields.String()
     inputs = ma.fields.Dict(
-        metadata={"description": "Snapshot of the truck's and every site's parameters with versions"}
+        metadata={
+            "description": "Snapshot of the truck's (with its calendar) and every site's parameters with versions"
+        }
     )
     inputs_digest = ma.fields.String(metadata={"description": "SHA-256 of the canonical JSON of inputs"})
 
@@ -67,7 +76,7 @@ class TripsQueryArgsSchema(StrictSchema):
     to = BoundedDate(metadata={"description": f"Last day, {DATE_RANGE}"})
 
 
-NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading")
+NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading", "calendar")
 
 
 class NoticeSchema(ma.Schema):
@@ -79,7 +88,10 @@ class NoticeSchema(ma.Schema):
             "safety_stock, capacity, max_stops, active) and cut this stop's quantity, dropped a stop or "
             "took a site out; the message names the field and both values; plan_stale: the plan's "
             "inputs changed (the message names which fields of which sites or truck); "
-            "no_recent_reading: the site's quantities are not corrected by a recent reading"
+            "no_recent_reading: the site's quantities are not corrected by a recent reading; "
+            "calendar: deliveries fall on a date the truck does not work (a closed date, a holiday of its "
+            "holiday_region, or a weekday it no longer works) and no earlier working day has room for "
+            "them within the truck's and the tanks' limits; the message names the date and the sites"
         },
     )
     message = ma.fields.String()
@@ -97,6 +109,7 @@ class DatedStopSchema(ma.Schema):
 
 class DatedTripSchema(ma.Schema):
     date = ma.fields.Date()
+    trip = ma.fields.Integer(metadata={"description": "1-based index of the trip within its date"})
     load = ma.fields.Float()
     stops = ma.fields.List(ma.fields.Nested(DatedStopSchema))
 
