@@ -434,12 +434,9 @@ def _limit_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | N
 
 
 def _named_sites(message: str, codes: Sequence[str]) -> list[str]:
-    """The site codes a message names (whole codes: ``A1`` is not named by ``A10``)."""
-    return [
-        code
-        for code in codes
-        if re.search(rf"(?<![A-Za-z0-9._-]){re.escape(code)}(?![A-Za-z0-9_-]|\.[A-Za-z0-9])", message)
-    ]
+    """The site codes a core warning names (the core quotes codes in backticks: `A1`)."""
+    quoted = set(re.findall(r"`([^`]+)`", message))
+    return [code for code in codes if code in quoted]
 
 
 def _calendar_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None) -> list[Notice]:

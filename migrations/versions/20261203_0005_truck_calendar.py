@@ -38,7 +38,9 @@ def upgrade() -> None:
         op.execute("ALTER TABLE trucks ADD COLUMN closed_dates JSON DEFAULT '[]' NOT NULL")
         op.execute("ALTER TABLE trucks ADD COLUMN holiday_region VARCHAR(40)")
         return
-    op.add_column("trucks", sa.Column("working_days", sa.JSON(), server_default=sa.text("'[1, 2, 3, 4, 5]'"), nullable=False))
+    op.add_column(
+        "trucks", sa.Column("working_days", sa.JSON(), server_default=sa.text("'[1, 2, 3, 4, 5]'"), nullable=False)
+    )
     op.add_column("trucks", sa.Column("trips_per_day", sa.Integer(), server_default=sa.text("1"), nullable=False))
     op.add_column("trucks", sa.Column("closed_dates", sa.JSON(), server_default=sa.text("'[]'"), nullable=False))
     op.add_column("trucks", sa.Column("holiday_region", sa.String(length=40), nullable=True))

@@ -106,7 +106,10 @@ BAD_CALENDARS = [
     ({"closed_dates": ["25/12/2026"]}, "#/closed_dates/0"),
     ({"closed_dates": ["2026-12-25", "2026-12-25"]}, "#/closed_dates"),
     ({"closed_dates": ["1969-12-31"]}, "#/closed_dates/0"),
-    ({"closed_dates": [(dt.date(2027, 1, 1) + dt.timedelta(days=i)).isoformat() for i in range(1001)]}, "#/closed_dates"),
+    (
+        {"closed_dates": [(dt.date(2027, 1, 1) + dt.timedelta(days=i)).isoformat() for i in range(1001)]},
+        "#/closed_dates",
+    ),
     ({"holiday_region": "XX"}, "#/holiday_region"),
     ({"holiday_region": "GB-XYZ"}, "#/holiday_region"),
     ({"holiday_region": "GB-"}, "#/holiday_region"),
