@@ -19,6 +19,7 @@ from __future__ import annotations
 import datetime as dt
 
 import pytest
+from contract import UNCONSTRAINED_CALENDAR
 
 TOL = 1e-6
 DAYS = 28
@@ -30,7 +31,7 @@ def today():
 
 
 def make_network(client, auth, today, capacity: float = 10000.0) -> dict:
-    truck = {"code": "T", "name": "Truck", "dispatch_cost": 300.0, "capacity": capacity}
+    truck = {"code": "T", "name": "Truck", "dispatch_cost": 300.0, "capacity": capacity, **UNCONSTRAINED_CALENDAR}
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     for code, demand in (("S1", 500.0), ("S2", 300.0)):
         site = {
