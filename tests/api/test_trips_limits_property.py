@@ -20,9 +20,9 @@ from __future__ import annotations
 import datetime as dt
 import itertools
 
+from contract import UNCONSTRAINED_CALENDAR
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from contract import UNCONSTRAINED_CALENDAR
 
 TOL = 1e-6
 EXAMPLES = 40
