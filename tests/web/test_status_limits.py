@@ -9,6 +9,7 @@ from __future__ import annotations
 import datetime as dt
 
 import pytest
+from contract import UNCONSTRAINED_CALENDAR
 from status_helpers import Page, record_plan, sign_in, today, words
 
 from service.web import formatting
@@ -26,7 +27,7 @@ def patch(client, auth, path: str, body: dict) -> None:
 
 @pytest.fixture
 def changed(app, client, auth, tokens):
-    truck = {"code": "T", "name": "Truck", "dispatch_cost": 300.0, "capacity": 10000.0}
+    truck = {"code": "T", "name": "Truck", "dispatch_cost": 300.0, "capacity": 10000.0, **UNCONSTRAINED_CALENDAR}
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     for code, demand in (("S1", 500.0), ("S2", 300.0)):
         site = {
