@@ -24,6 +24,8 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
+from service.working_calendar import DEFAULT_TRIPS_PER_DAY, DEFAULT_WORKING_DAYS
+
 NAMING_CONVENTION = {
     "ix": "ix_%(column_0_label)s",
     "uq": "uq_%(table_name)s_%(column_0_name)s",
@@ -35,8 +37,6 @@ NAMING_CONVENTION = {
 CODE_LENGTH = 40
 NAME_LENGTH = 200
 HOLIDAY_REGION_LENGTH = 40
-#: A truck's working days when none are given: Monday to Friday (ISO weekdays).
-DEFAULT_WORKING_DAYS = (1, 2, 3, 4, 5)
 
 
 def utcnow() -> dt.datetime:
@@ -88,7 +88,7 @@ class Truck(Base):
     working_days: Mapped[list[int]] = mapped_column(
         JSON, default=lambda: list(DEFAULT_WORKING_DAYS), server_default=text("'[1, 2, 3, 4, 5]'")
     )
-    trips_per_day: Mapped[int] = mapped_column(Integer, default=1, server_default=text("1"))
+    trips_per_day: Mapped[int] = mapped_column(Integer, default=DEFAULT_TRIPS_PER_DAY, server_default=text("1"))
     closed_dates: Mapped[list[str]] = mapped_column(JSON, default=list, server_default=text("'[]'"))
     holiday_region: Mapped[str | None] = mapped_column(String(HOLIDAY_REGION_LENGTH))
     active: Mapped[bool] = mapped_column(default=True)
