@@ -150,7 +150,8 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     all_levels = schedule.truck_levels(db, truck, sites, monday, CHART_DAYS, config)
     for site in sites:
         levels = all_levels[site.code]
-        notices.extend(levels.notices)
+        # The week's calendar notices are the trips view's (one per date, naming every site).
+        notices.extend(n for n in levels.notices if n.kind != "calendar")
         label = f"{site.name} ({site.code})"
         charts.append(
             {
