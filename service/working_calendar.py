@@ -126,9 +126,16 @@ def _regions() -> dict[str, frozenset[str]]:
     """Country codes (ISO 3166-1 alpha-2) the installed ``holidays`` supports, with their subdivisions."""
     return {
         country: frozenset(subdivisions)
-        for country, subdivisions in holidays.list_supported_countries().items()
+        for country, subdivisions in holidays.list_supported_countries(include_aliases=False).items()
         if len(country) == 2
     }
+
+
+@functools.cache
+def region_codes() -> tuple[str, ...]:
+    """Every region :func:`region_error` accepts, sorted (the OpenAPI document lists them)."""
+    regions = _regions()
+    return tuple(sorted([*regions, *(f"{c}-{s}" for c, subdivisions in regions.items() for s in subdivisions)]))
 
 
 def region_error(code: str) -> str | None:

@@ -130,3 +130,12 @@ def test_issue_13_calendar_fields_and_statuses_are_described(spec):
     trips = _body_schema(spec, "/api/v1/trucks/{code}/trips", "get", "200")["properties"]
     notice = _resolve(spec, trips["warnings"]["items"])["properties"]
     assert "calendar" in notice["kind"]["enum"]
+
+
+def test_issue_13_holiday_regions_are_the_installed_packages(spec):
+    import holidays  # noqa: PLC0415
+
+    region = _body_schema(spec, "/api/v1/trucks", "post")["properties"]["holiday_region"]
+    supported = holidays.list_supported_countries(include_aliases=False)
+    assert {"GB", "GB-SCT", "US-NY", "DE-BY", None} <= set(region["enum"])
+    assert {c for c in region["enum"] if c and "-" not in c} == {c for c in supported if len(c) == 2}

@@ -75,7 +75,9 @@ class CalendarSchema(StrictSchema):
         validate=[ma.validate.Length(min=2, max=40), _region],
         metadata={
             "description": "Region code of the `holidays` package whose public holidays close the truck: a "
-            "country (GB, US, DE) or a country and subdivision (GB-SCT, US-NY, DE-BY); default null (none)"
+            "country (GB, US, DE) or a country and subdivision (GB-SCT, US-NY, DE-BY); default null (none). "
+            "The regions are those of the installed package.",
+            "enum": [*working_calendar.region_codes(), None],
         },
     )
 
