@@ -121,6 +121,7 @@ def test_issue_13_calendar_fields_and_statuses_are_described(spec):
         assert properties["working_days"]["items"]["minimum"] == 1
         assert properties["working_days"]["items"]["maximum"] == 7
         assert properties["closed_dates"]["maxItems"] == 1000
+        assert properties["working_days"]["uniqueItems"] and properties["closed_dates"]["uniqueItems"]
     assert "start_date" in _body_schema(spec, "/api/v1/calculations/joint", "post")["properties"]
     result = _body_schema(spec, "/api/v1/calculations/joint", "post", "200")["properties"]
     assert set(result["status"]["enum"]) == {"optimal", "feasible", "infeasible", "time_limit"}

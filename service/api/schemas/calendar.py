@@ -52,7 +52,8 @@ class CalendarSchema(StrictSchema):
         validate=[ma.validate.Length(min=1, max=7), _no_repeats("weekday")],
         metadata={
             "description": "ISO weekdays the truck works (1 = Monday … 7 = Sunday), each at most once; "
-            "default [1, 2, 3, 4, 5]. Trips are planned on these days only."
+            "default [1, 2, 3, 4, 5]. Trips are planned on these days only.",
+            "uniqueItems": True,
         },
     )
     trips_per_day = JsonInt(
@@ -66,7 +67,9 @@ class CalendarSchema(StrictSchema):
         validate=[ma.validate.Length(max=working_calendar.MAX_CLOSED_DATES), _no_repeats("date")],
         metadata={
             "description": f"ISO dates the truck does not work (at most {working_calendar.MAX_CLOSED_DATES}, "
-            f"{DATE_RANGE}); default []. A delivery that falls on one moves to an earlier working day."
+            f"{DATE_RANGE}), each at most once; default []. A delivery that falls on one moves to an "
+            "earlier working day.",
+            "uniqueItems": True,
         },
     )
     holiday_region = ma.fields.String(
