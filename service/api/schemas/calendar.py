@@ -9,6 +9,9 @@ import marshmallow as ma
 
 from service import working_calendar
 from service.api.fields import DATE_RANGE, BoundedDate, JsonInt
+
+#: ISO dates of the years 1970 to 2200 (fields.FIRST_DATE to LAST_DATE), as WEEK_PATTERN states weeks.
+DATE_PATTERN = r"^(19[7-9][0-9]|20[0-9]{2}|21[0-9]{2}|2200)-(0[1-9]|1[0-2])-(0[1-9]|[12][0-9]|3[01])$"
 from service.api.schemas.common import StrictSchema
 
 
@@ -62,7 +65,8 @@ class CalendarSchema(StrictSchema):
         metadata={"description": "Trips the truck can run on one working day (1–24); default 1"},
     )
     closed_dates = DateList(
-        BoundedDate(),
+        # The pattern states the accepted years in the OpenAPI document (format "date" the days).
+        BoundedDate(metadata={"pattern": DATE_PATTERN}),
         load_default=list,
         validate=[ma.validate.Length(max=working_calendar.MAX_CLOSED_DATES), _no_repeats("date")],
         metadata={
