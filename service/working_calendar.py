@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import datetime as dt
 import functools
+import warnings
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -158,9 +159,15 @@ def region_error(code: str) -> str | None:
 
 @functools.lru_cache(maxsize=256)
 def _holidays_of_years(region: str, first_year: int, last_year: int) -> tuple[dt.date, ...]:
+    """The region's holidays of these years. Some regions' rules cover a range of years only (the
+    package warns, e.g. "available only from 2001 to 2035"); other years then have none."""
     country, _, subdivision = region.partition("-")
-    calendar = holidays.country_holidays(country, subdiv=subdivision or None, years=range(first_year, last_year + 1))
-    return tuple(sorted(calendar))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)
+        calendar = holidays.country_holidays(
+            country, subdiv=subdivision or None, years=range(first_year, last_year + 1)
+        )
+        return tuple(sorted(calendar))
 
 
 def holiday_dates(region: str | None, first: dt.date, last: dt.date) -> tuple[dt.date, ...]:

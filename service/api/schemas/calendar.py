@@ -9,10 +9,10 @@ import marshmallow as ma
 
 from service import working_calendar
 from service.api.fields import DATE_RANGE, BoundedDate, JsonInt
+from service.api.schemas.common import StrictSchema
 
 #: ISO dates of the years 1970 to 2200 (fields.FIRST_DATE to LAST_DATE), as WEEK_PATTERN states weeks.
 DATE_PATTERN = r"^(19[7-9][0-9]|20[0-9]{2}|21[0-9]{2}|2200)-(0[1-9]|1[0-2])-(0[1-9]|[12][0-9]|3[01])$"
-from service.api.schemas.common import StrictSchema
 
 
 def _no_repeats(what: str):  # type: ignore[no-untyped-def]
