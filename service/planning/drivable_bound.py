@@ -17,6 +17,8 @@ construction is Lagrangian relaxation of the trip-count constraints (Boyd & Vand
 
 from __future__ import annotations
 
+import functools
+import itertools
 import math
 from dataclasses import dataclass
 
@@ -29,6 +31,11 @@ from service.planning.relaxation import _relaxation
 
 #: Barycentric grid step of the weights tried before the local refinement (vertices included).
 GRID_STEPS = 6
+#: Simple cycles of the weekday graph are listed up to this length (days, a whole number of weeks);
+#: longer ones are covered by the Cauchy–Schwarz curve ``1 / f`` (see :func:`weekday_gap_lines`).
+CYCLE_DAYS = 56
+#: Relative slack below which a numerically violated line is lowered instead of dropped.
+LINE_SLACK = 1e-9
 
 
 @dataclass(frozen=True)
@@ -85,6 +92,223 @@ class _Inner:
         return rel.value + load, parts, gradient
 
 
+def _weekday_cycles(weekdays: tuple[int, ...], cap: int) -> dict[tuple[int, int], int]:
+    """Least ``Σ g²`` of a simple cycle of the weekday graph, keyed by ``(deliveries n, length L)``.
+
+    Nodes are the working weekdays (0–6); an edge ``a → b`` is a gap ``g ≡ b − a (mod 7)``,
+    ``1 ≤ g ≤ cap``. A simple cycle visits ``n`` distinct weekdays once each; its length is a
+    multiple of 7. For a node order, ``Σ g²`` over the gaps with ``e`` extra weeks is least when each
+    extra week goes to the currently shortest gap that can take it (separable convex allocation, each
+    week adds ``14 g + 49``; Ibaraki & Katoh 1988, greedy for resource allocation). Lengths up to
+    ``CYCLE_DAYS``.
+    """
+    best: dict[tuple[int, int], int] = {}
+    for n in range(1, len(weekdays) + 1):
+        for first, *rest in itertools.combinations(weekdays, n):
+            for order in itertools.permutations(rest):
+                nodes = (first, *order)
+                gaps = [(nodes[(j + 1) % n] - nodes[j]) % 7 or 7 for j in range(n)]
+                if max(gaps) > cap:
+                    continue
+                length, squares = sum(gaps), sum(g * g for g in gaps)
+                while length <= CYCLE_DAYS:
+                    best[n, length] = min(best.get((n, length), squares), squares)
+                    room = [j for j in range(n) if gaps[j] + 7 <= cap]
+                    if not room:
+                        break
+                    j = min(room, key=gaps.__getitem__)
+                    squares += 14 * gaps[j] + 49
+                    gaps[j] += 7
+                    length += 7
+    return best
+
+
+def _lower_hull(x: np.ndarray, y: np.ndarray) -> list[int]:
+    """Indices of the lower convex hull of the points, left to right (Andrew's monotone chain)."""
+    hull: list[int] = []
+    for i in np.lexsort((y, x)):
+        while len(hull) >= 2:
+            (x1, y1), (x2, y2) = (x[hull[-2]], y[hull[-2]]), (x[hull[-1]], y[hull[-1]])
+            if (x2 - x1) * (y[i] - y1) - (y2 - y1) * (x[i] - x1) <= 0:
+                hull.pop()
+            else:
+                break
+        if not hull or x[i] != x[hull[-1]]:
+            hull.append(int(i))
+    return hull
+
+
+@functools.lru_cache(maxsize=256)
+def weekday_gap_lines(weekdays: tuple[int, ...], cap: int) -> tuple[np.ndarray, np.ndarray] | None:
+    """Lines ``p_j + q_j f`` with ``Σ g² / R ≥ max(1 / f, p_j + q_j f)`` for every periodic pattern.
+
+    A pattern is ``n`` deliveries in ``R`` days (``R`` a multiple of 7), on the working ``weekdays``
+    (0 = Monday), every gap ``≤ cap``; ``f = n / R``. ``None`` when no such pattern exists.
+
+    Proof. The gaps of a pattern, read delivery after delivery, form a closed walk in the weekday
+    graph of :func:`_weekday_cycles`; a closed walk splits into simple cycles ``C`` (cut it at the
+    first repeated weekday, repeat), so ``(f, Σ g² / R)`` is the convex combination with weights
+    ``L_C / R`` of the cycles' points ``(n_C / L_C, Σ_C g² / L_C)``. A line below every cycle point is
+    below every convex combination. Cycles longer than ``CYCLE_DAYS`` are not listed; they have
+    ``f ≤ m / (CYCLE_DAYS + 7)`` (``m`` working weekdays) and lie on or above ``1 / f``
+    (Cauchy–Schwarz: ``Σ g² ≥ L² / n``), so the lines are the edges of the lower hull of the listed
+    points and the curve's end point, each checked below every listed point and below ``1 / f`` up
+    to that frequency (and lowered by any rounding excess). ``1 / f`` itself is valid by
+    Cauchy–Schwarz.
+    """
+    best = _weekday_cycles(weekdays, cap)
+    if not best:
+        return None
+    keys = np.array(list(best), dtype=float)
+    f = keys[:, 0] / keys[:, 1]
+    y = np.array(list(best.values()), dtype=float) / keys[:, 1]
+    m = len(weekdays)
+    curve_end = m / (CYCLE_DAYS + 7) if m * cap > CYCLE_DAYS else 0.0
+    right = f > curve_end
+    hx, hy = f[right], y[right]
+    if curve_end > 0:
+        hx, hy = np.append(hx, curve_end), np.append(hy, 1.0 / curve_end)
+    hull = _lower_hull(hx, hy)
+    p_lines, q_lines = [], []
+    for a, b in itertools.pairwise(hull):
+        q = (hy[b] - hy[a]) / (hx[b] - hx[a])
+        p = hy[a] - q * hx[a]
+        excess = float(np.max(p + q * f - y))
+        if curve_end > 0:
+            probes = [curve_end] + ([1.0 / math.sqrt(-q)] if q < 0 and 1.0 / math.sqrt(-q) < curve_end else [])
+            excess = max(excess, max(p + q * x - 1.0 / x for x in probes))
+        if excess <= LINE_SLACK * float(np.max(y)):
+            p_lines.append(p - max(excess, 0.0))
+            q_lines.append(q)
+    return np.array(p_lines), np.array(q_lines)
+
+
+def _psi(lines: tuple[np.ndarray, np.ndarray], f: np.ndarray) -> np.ndarray:
+    """``max(1 / f, p_j + q_j f)``: the least ``Σ g² / R`` at frequency ``f`` (elementwise)."""
+    p, q = lines
+    return np.maximum(1.0 / f, np.max(p[None, :] + q[None, :] * f[:, None], axis=1, initial=-np.inf))
+
+
+def _pieces(lines: tuple[np.ndarray, np.ndarray], top: float):
+    """``_psi`` on ``(0, top]`` as pieces ``P + Q f + B / f`` between ``edges`` (``B`` is 1 or 0)."""
+    p, q = lines
+    xs = [top]
+    for (p1, q1), (p2, q2) in itertools.combinations(zip(p, q, strict=True), 2):
+        if q1 != q2:
+            xs.append((p1 - p2) / (q2 - q1))
+    for pj, qj in zip(p, q, strict=True):
+        # p + q f = 1 / f  ⇔  q f² + p f − 1 = 0
+        roots = [1.0 / pj] if qj == 0 and pj > 0 else []
+        if qj != 0 and pj * pj + 4 * qj >= 0:
+            roots = [(-pj + sign * math.sqrt(pj * pj + 4 * qj)) / (2 * qj) for sign in (-1, 1)]
+        xs.extend(roots)
+    edges = np.unique(np.array([0.0] + [x for x in xs if 0 < x < top] + [top]))
+    middle = (edges[:-1] + edges[1:]) / 2
+    values = np.column_stack([1.0 / middle, p[None, :] + q[None, :] * middle[:, None]])
+    active = np.argmax(values, axis=1)
+    keep = np.concatenate([[True], active[1:] != active[:-1]])
+    edges = np.append(edges[:-1][keep], top)
+    active = active[keep]
+    line = np.maximum(active - 1, 0)
+    on_line = active > 0
+    P = np.where(on_line, p[line] if len(p) else 0.0, 0.0)
+    Q = np.where(on_line, q[line] if len(q) else 0.0, 0.0)
+    return edges, P, Q, np.where(on_line, 0.0, 1.0)
+
+
+def _best_on(A, B, C, lo, hi):
+    """Least ``A x + B / x + C`` on ``[lo, hi]`` (elementwise; ``B ≥ 0``, ``0 < lo ≤ hi``) and where."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        stationary = np.where((A > 0) & (B > 0), np.sqrt(B / np.where(A > 0, A, 1.0)), lo)
+    xs = np.stack([lo, hi, np.clip(stationary, lo, hi)])
+    values = A * xs + B / xs + C
+    j = np.argmin(values, axis=0)
+    cols = np.arange(xs.shape[1])
+    return values[j, cols], xs[j, cols]
+
+
+class _CalendarInner(_Inner):
+    """``LB`` in frequencies ``f = 1 / T`` with the weekday calendar: holding ``H_i ψ_i(f_i)``.
+
+    ``min over f0 ∈ [max 1/u_i, m/7]`` of ``K α f0 + Σ_i min over f_i ∈ [1/u_i, min(f0, m/7)] of
+    (a_i f_i + H_i ψ_i(f_i))`` with ``a_i = k_i + K γ / S`` and ``ψ_i`` from
+    :func:`weekday_gap_lines`. Every site term is convex in ``f_i``; the sum over sites of their
+    minima with ``f_i ≤ f0`` is, between the sorted breakpoints, ``A f0 + B / f0 + C``, minimised
+    exactly on each segment (the scan of :mod:`service.planning.relaxation` with more breakpoints).
+    """
+
+    def __init__(self, problem: Problem, weekdays: tuple[int, ...]):
+        super().__init__(problem)
+        self.top = len(weekdays) / 7
+        self.low = 1.0 / self.caps
+        groups = np.minimum(self.caps, CYCLE_DAYS).astype(np.int64)
+        self.lines = {int(g): weekday_gap_lines(weekdays, int(g)) for g in np.unique(groups)}
+        self.feasible = all(v is not None for v in self.lines.values()) and self.low.max() <= self.top
+        self.group = groups
+        if not self.feasible:
+            return
+        rows = []
+        for g, lines in self.lines.items():
+            edges, P, Q, B = _pieces(lines, self.top)
+            sites = np.flatnonzero(groups == g)
+            site = np.repeat(sites, len(P))
+            lo = np.maximum(np.tile(edges[:-1], len(sites)), self.low[site])
+            hi = np.tile(edges[1:], len(sites))
+            rows.append((site, lo, hi, np.tile(P, len(sites)), np.tile(Q, len(sites)), np.tile(B, len(sites))))
+        site, lo, hi, P, Q, B = (np.concatenate(column) for column in zip(*rows, strict=True))
+        keep = lo <= hi
+        self.rows = site[keep], lo[keep], hi[keep], P[keep], Q[keep], B[keep]
+
+    def psi(self, f: np.ndarray) -> np.ndarray:
+        out = np.empty_like(f)
+        for g, lines in self.lines.items():
+            mask = self.group == g
+            out[mask] = _psi(lines, f[mask])
+        return out
+
+    def solve(self, alpha: float, beta: float, gamma: float):
+        if not self.feasible:
+            return math.inf, {"dispatch": math.inf, "stops": 0.0, "holding": 0.0}, np.zeros(3)
+        K, S = self.K, self.S
+        a = self.k + (K * gamma / S if S else 0.0)
+        site, lo, hi, P, Q, B = self.rows
+        H = self.H[site]
+        A, Bc, C = a[site] + H * Q, H * B, H * P
+        value, where = _best_on(A, Bc, C, lo, hi)
+        order = np.lexsort((where, value, site))
+        first = order[np.concatenate([[True], site[order][1:] != site[order][:-1]])]
+        f_star, c_star = where[first], value[first]  # per site, in site order
+        end = np.minimum(hi, f_star[site])
+        live = lo < end
+        positions = np.concatenate([lo[live], end[live], f_star])
+        deltas = np.concatenate(
+            [
+                np.column_stack([A[live], Bc[live], C[live]]),
+                -np.column_stack([A[live], Bc[live], C[live]]),
+                np.column_stack([np.zeros_like(c_star), np.zeros_like(c_star), c_star]),
+            ]
+        )
+        order = np.argsort(positions, kind="stable")
+        positions, totals = positions[order], np.cumsum(deltas[order], axis=0)
+        start = self.low.max()
+        seg_lo = np.clip(positions, start, self.top)
+        seg_hi = np.clip(np.append(positions[1:], self.top), start, self.top)
+        seg_value, seg_x = _best_on(K * alpha + totals[:, 0], totals[:, 1], totals[:, 2], seg_lo, seg_hi)
+        # a segment holds every site's term once all events at its start are summed: the last event
+        # of its position, at or after the largest lower limit (where the last site comes in)
+        complete = (positions >= start) & np.append(positions[1:] > positions[:-1], True)
+        f0 = float(seg_x[int(np.argmin(np.where(complete, seg_value, np.inf)))])
+        f = np.minimum(f0, f_star)
+        stops_per_day = float(np.sum(f)) / S if S else 0.0
+        load = K * beta * self.load_rate
+        stops = float(np.sum(self.k * f))
+        holding = float(np.sum(self.H * self.psi(f)))
+        extra = K * alpha * f0 + (K * gamma / S if S else 0.0) * float(np.sum(f))
+        parts = {"dispatch": extra + load, "stops": stops, "holding": holding}
+        gradient = np.array([K * f0, K * self.load_rate, K * stops_per_day])
+        return extra + load + stops + holding, parts, gradient
+
+
 def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] = (1, 2, 3, 4, 5, 6, 7)) -> BoundResult:
     """The drivable lower bound: ``max over the weight simplex of LB(α, β, γ)`` (see module doc).
 
@@ -93,10 +317,15 @@ def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] = (1, 2
     refined from the best grid point (bounded Brent in one free weight, SLSQP with the
     supergradient in two); every evaluated ``LB`` is a valid bound and the largest is returned.
 
-    ``working_days`` (ISO weekdays) is accepted for the calendar; the bound holds for every
-    calendar because a plan on fewer days is still a plan of the relaxation.
+    With fewer than seven ``working_days`` (ISO weekdays, 1 = Monday) the holding term of each site
+    is the weekday-pattern bound of :func:`weekday_gap_lines` and ``T0 ≥ 7 / m`` (``m`` working
+    weekdays); the value is ``inf`` when no plan fits the calendar (a cap shorter than a closed
+    stretch or than ``7 / m`` days).
     """
-    inner = _Inner(problem)
+    weekdays = tuple(sorted({int(day) - 1 for day in working_days}))
+    inner = _Inner(problem) if len(weekdays) == 7 else _CalendarInner(problem, weekdays)
+    if not getattr(inner, "feasible", True):
+        return BoundResult(value=math.inf, weights=(1.0, 0.0, 0.0), parts=inner.solve(1.0, 0.0, 0.0)[1])
     free = [j for j, on in ((1, math.isfinite(problem.capacity)), (2, problem.max_stops is not None)) if on]
     best: dict = {}
 
