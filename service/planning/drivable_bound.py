@@ -21,6 +21,7 @@ import functools
 import itertools
 import math
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 from scipy.optimize import minimize, minimize_scalar
@@ -138,8 +139,16 @@ def _lower_hull(x: np.ndarray, y: np.ndarray) -> list[int]:
     return hull
 
 
+class GapLines(NamedTuple):
+    """``Σ g² / R ≥ max(1 / f, p_j + q_j f)`` and ``f ≥ lowest`` for every weekday pattern."""
+
+    p: np.ndarray
+    q: np.ndarray
+    lowest: float
+
+
 @functools.lru_cache(maxsize=256)
-def weekday_gap_lines(weekdays: tuple[int, ...], cap: int) -> tuple[np.ndarray, np.ndarray] | None:
+def weekday_gap_lines(weekdays: tuple[int, ...], cap: int) -> GapLines | None:
     """Lines ``p_j + q_j f`` with ``Σ g² / R ≥ max(1 / f, p_j + q_j f)`` for every periodic pattern.
 
     A pattern is ``n`` deliveries in ``R`` days (``R`` a multiple of 7), on the working ``weekdays``
@@ -154,7 +163,9 @@ def weekday_gap_lines(weekdays: tuple[int, ...], cap: int) -> tuple[np.ndarray, 
     (Cauchy–Schwarz: ``Σ g² ≥ L² / n``), so the lines are the edges of the lower hull of the listed
     points and the curve's end point, each checked below every listed point and below ``1 / f`` up
     to that frequency (and lowered by any rounding excess). ``1 / f`` itself is valid by
-    Cauchy–Schwarz.
+    Cauchy–Schwarz. When every cycle is listed (``m · cap ≤ CYCLE_DAYS``), ``f`` is also at least the
+    least cycle frequency ``lowest`` (a convex combination), and a hull of one point gets the
+    horizontal line through it.
     """
     best = _weekday_cycles(weekdays, cap)
     if not best:
@@ -169,7 +180,7 @@ def weekday_gap_lines(weekdays: tuple[int, ...], cap: int) -> tuple[np.ndarray, 
     if curve_end > 0:
         hx, hy = np.append(hx, curve_end), np.append(hy, 1.0 / curve_end)
     hull = _lower_hull(hx, hy)
-    p_lines, q_lines = [], []
+    p_lines, q_lines = ([float(hy[hull[0]])], [0.0]) if len(hull) == 1 else ([], [])
     for a, b in itertools.pairwise(hull):
         q = (hy[b] - hy[a]) / (hx[b] - hx[a])
         p = hy[a] - q * hx[a]
@@ -180,18 +191,18 @@ def weekday_gap_lines(weekdays: tuple[int, ...], cap: int) -> tuple[np.ndarray, 
         if excess <= LINE_SLACK * float(np.max(y)):
             p_lines.append(p - max(excess, 0.0))
             q_lines.append(q)
-    return np.array(p_lines), np.array(q_lines)
+    return GapLines(np.array(p_lines), np.array(q_lines), 0.0 if curve_end > 0 else float(f.min()))
 
 
-def _psi(lines: tuple[np.ndarray, np.ndarray], f: np.ndarray) -> np.ndarray:
+def _psi(lines: GapLines, f: np.ndarray) -> np.ndarray:
     """``max(1 / f, p_j + q_j f)``: the least ``Σ g² / R`` at frequency ``f`` (elementwise)."""
-    p, q = lines
+    p, q, _ = lines
     return np.maximum(1.0 / f, np.max(p[None, :] + q[None, :] * f[:, None], axis=1, initial=-np.inf))
 
 
-def _pieces(lines: tuple[np.ndarray, np.ndarray], top: float):
+def _pieces(lines: GapLines, top: float):
     """``_psi`` on ``(0, top]`` as pieces ``P + Q f + B / f`` between ``edges`` (``B`` is 1 or 0)."""
-    p, q = lines
+    p, q, _ = lines
     xs = [top]
     for (p1, q1), (p2, q2) in itertools.combinations(zip(p, q, strict=True), 2):
         if q1 != q2:
@@ -240,11 +251,15 @@ class _CalendarInner(_Inner):
     def __init__(self, problem: Problem, weekdays: tuple[int, ...]):
         super().__init__(problem)
         self.top = len(weekdays) / 7
-        self.low = 1.0 / self.caps
         groups = np.minimum(self.caps, CYCLE_DAYS).astype(np.int64)
         self.lines = {int(g): weekday_gap_lines(weekdays, int(g)) for g in np.unique(groups)}
-        self.feasible = all(v is not None for v in self.lines.values()) and self.low.max() <= self.top
         self.group = groups
+        self.feasible = all(v is not None for v in self.lines.values())
+        if not self.feasible:
+            return
+        lowest = np.array([self.lines[int(g)].lowest for g in groups])
+        self.low = np.maximum(1.0 / self.caps, lowest)
+        self.feasible = bool(self.low.max() <= self.top)
         if not self.feasible:
             return
         rows = []
