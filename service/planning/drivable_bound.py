@@ -31,7 +31,7 @@ from service.planning.inputs import WHOLE_DAY_TOLERANCE, Problem
 from service.planning.relaxation import _relaxation
 
 #: Barycentric grid step of the weights tried before the local refinement (vertices included).
-GRID_STEPS = 6
+GRID_STEPS = 2
 #: Simple cycles of the weekday graph are listed up to this length (days, a whole number of weeks);
 #: longer ones are covered by the Cauchy–Schwarz curve ``1 / f`` (see :func:`weekday_gap_lines`).
 CYCLE_DAYS = 56
@@ -273,6 +273,10 @@ class _CalendarInner(_Inner):
         site, lo, hi, P, Q, B = (np.concatenate(column) for column in zip(*rows, strict=True))
         keep = lo <= hi
         self.rows = site[keep], lo[keep], hi[keep], P[keep], Q[keep], B[keep]
+        # the rows of one site are consecutive: where each site's run starts, and which site it is
+        site = self.rows[0]
+        self.starts = np.flatnonzero(np.concatenate([[True], site[1:] != site[:-1]]))
+        self.run = np.cumsum(np.concatenate([[False], site[1:] != site[:-1]]))
 
     def psi(self, f: np.ndarray) -> np.ndarray:
         out = np.empty_like(f)
@@ -290,9 +294,11 @@ class _CalendarInner(_Inner):
         H = self.H[site]
         A, Bc, C = a[site] + H * Q, H * B, H * P
         value, where = _best_on(A, Bc, C, lo, hi)
-        order = np.lexsort((where, value, site))
-        first = order[np.concatenate([[True], site[order][1:] != site[order][:-1]])]
-        f_star, c_star = where[first], value[first]  # per site, in site order
+        least = np.minimum.reduceat(value, self.starts)
+        at_least = np.flatnonzero(value <= least[self.run])
+        first = at_least[np.searchsorted(at_least, self.starts)]  # first row of each run at its minimum
+        f_star, c_star = np.empty(self.k.shape), np.empty(self.k.shape)
+        f_star[site[self.starts]], c_star[site[self.starts]] = where[first], value[first]
         end = np.minimum(hi, f_star[site])
         live = lo < end
         positions = np.concatenate([lo[live], end[live], f_star])
