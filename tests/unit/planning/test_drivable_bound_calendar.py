@@ -2,9 +2,12 @@
 
 import itertools
 import math
+import os
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy.optimize import minimize
 
 from service.planning.drivable_bound import _psi, drivable_lower_bound, weekday_gap_lines, whole_day_caps
@@ -220,3 +223,37 @@ def test_calendar_strong_duality_with_a_direct_convex_solve(seed):
     )
     problem = validate(sites, truck)
     assert drivable_lower_bound(problem, calendar).value == pytest.approx(_primal_calendar(problem, calendar), rel=1e-6)
+
+
+@st.composite
+def calendar_problems(draw):
+    calendar = draw(st.sampled_from(CALENDARS))
+    closed = _longest_closed(calendar)
+    n = draw(st.integers(1, 3 if closed <= 3 else 2))
+    d = [draw(st.floats(50, 1000)) for _ in range(n)]
+    sites = [
+        SiteInput(
+            f"s{i}",
+            d[i],
+            draw(st.floats(0, 0.3)),
+            draw(st.floats(0, 100)),
+            d[i] * draw(st.floats(closed, closed + 2.99)),
+            1.0,
+        )
+        for i in range(n)
+    ]
+    largest = max(s.tank_capacity for s in sites)
+    W = draw(st.none() | st.floats(1.0, 3.0).map(lambda x: x * largest))
+    truck = TruckInput(draw(st.floats(0, 500)), capacity=W, max_stops=draw(st.none() | st.integers(1, 3)))
+    return calendar, sites, truck
+
+
+@settings(max_examples=int(os.environ.get("PLANNING_EXAMPLES", "25")), deadline=None)
+@given(calendar_problems())
+def test_property_calendar_bound_at_most_exhaustive_optimum(problem):
+    calendar, sites, truck = problem
+    problem = validate(sites, truck)
+    bound = drivable_lower_bound(problem, working_days=calendar).value
+    exact = _exact(sites, truck, [7, 14], [day - 1 for day in calendar])
+    assert math.isfinite(exact)
+    assert drivable_lower_bound(problem).value * (1 - 1e-12) <= bound <= exact * (1 + 1e-9)
