@@ -35,6 +35,8 @@ GRID_STEPS = 2
 #: Simple cycles of the weekday graph are listed up to this length (days, a whole number of weeks);
 #: longer ones are covered by the Cauchy–Schwarz curve ``1 / f`` (see :func:`weekday_gap_lines`).
 CYCLE_DAYS = 56
+#: Relative certified distance to the maximum over the weights below which no refinement is run.
+CERTIFIED_GAP = 1e-12
 #: Relative slack below which a numerically violated line is lowered instead of dropped.
 LINE_SLACK = 1e-9
 
@@ -89,7 +91,8 @@ class _Inner:
         stops = float(np.sum(self.k / T))
         holding = float(np.sum(self.H * T))
         parts = {"dispatch": rel.value + load - stops - holding, "stops": stops, "holding": holding}
-        gradient = np.array([K / rel.t0, K * self.load_rate, K * stops_per_day])
+        # T0 = min T_i is a minimiser too (the same one when α > 0): the smallest supergradient in α
+        gradient = np.array([K / float(T.min()), K * self.load_rate, K * stops_per_day])
         return rel.value + load, parts, gradient
 
 
@@ -326,7 +329,7 @@ class _CalendarInner(_Inner):
         holding = float(np.sum(self.H * self.psi(f)))
         extra = K * alpha * f0 + (K * gamma / S if S else 0.0) * float(np.sum(f))
         parts = {"dispatch": extra + load, "stops": stops, "holding": holding}
-        gradient = np.array([K * f0, K * self.load_rate, K * stops_per_day])
+        gradient = np.array([K * float(f.max()), K * self.load_rate, K * stops_per_day])
         return extra + load + stops + holding, parts, gradient
 
 
@@ -334,9 +337,12 @@ def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] = (1, 2
     """The drivable lower bound: ``max over the weight simplex of LB(α, β, γ)`` (see module doc).
 
     Weights whose cut is void are fixed at 0 (``β`` when there is no capacity, ``γ`` when there
-    is no stop limit). The maximum is searched on a barycentric grid (vertices included) and
-    refined from the best grid point (bounded Brent in one free weight, SLSQP with the
-    supergradient in two); every evaluated ``LB`` is a valid bound and the largest is returned.
+    is no stop limit). The maximum is searched on a barycentric grid (vertices included); unless
+    the best grid point is certified optimal it is refined (bounded Brent in one free weight, SLSQP
+    with the supergradient in two). Every evaluated ``LB`` is a valid bound and the largest is
+    returned. Certificate: with ``g`` the supergradient at ``w`` (the trip-count terms
+    ``(K / T0, K D / W, K Σ 1 / (S T_i))`` at the inner minimiser), concavity gives
+    ``max LB ≤ LB(w) + max_j g_j − g · w`` over the usable vertices ``j``.
 
     With fewer than seven ``working_days`` (ISO weekdays, 1 = Monday) the holding term of each site
     is the weekday-pattern bound of :func:`weekday_gap_lines` and ``T0 ≥ 7 / m`` (``m`` working
@@ -350,41 +356,47 @@ def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] = (1, 2
     free = [j for j, on in ((1, math.isfinite(problem.capacity)), (2, problem.max_stops is not None)) if on]
     best: dict = {}
 
-    def evaluate(x) -> float:
+    def weights_of(x) -> tuple[float, float, float]:
         w = np.zeros(3)
         w[free] = np.clip(np.asarray(x, dtype=float), 0.0, 1.0)
         if w[1:].sum() > 1.0:
             w[1:] /= w[1:].sum()
         w[0] = max(0.0, 1.0 - w[1:].sum())
-        key = tuple(float(v) for v in w)
+        return tuple(float(v) for v in w)
+
+    def evaluate(x):
+        key = weights_of(x)
         if key not in best:
             best[key] = inner.solve(*key)
         return best[key]
 
+    def certified(x) -> bool:
+        value, _, g = evaluate(x)
+        return float(np.max(g[[0, *free]]) - g @ np.array(weights_of(x))) <= CERTIFIED_GAP * abs(value)
+
     if not free or problem.dispatch_cost == 0:
         evaluate([0.0] * len(free))
     elif len(free) == 1:
-        for x in np.linspace(0.0, 1.0, GRID_STEPS + 1):
-            evaluate([x])
-        minimize_scalar(lambda x: -evaluate([x])[0], bounds=(0.0, 1.0), method="bounded", options={"xatol": 1e-10})
+        start = max(np.linspace(0.0, 1.0, GRID_STEPS + 1), key=lambda x: evaluate([x])[0])
+        if not certified([start]):
+            minimize_scalar(lambda x: -evaluate([x])[0], bounds=(0.0, 1.0), method="bounded", options={"xatol": 1e-10})
     else:
         grid = [(i / GRID_STEPS, j / GRID_STEPS) for i in range(GRID_STEPS + 1) for j in range(GRID_STEPS + 1 - i)]
-        for x in grid:
-            evaluate(x)
         start = max(grid, key=lambda x: evaluate(x)[0])
+        if not certified(start):
 
-        def objective(x):
-            value, _, g = evaluate(x)
-            return -value, -(g[1:] - g[0])
+            def objective(x):
+                value, _, g = evaluate(x)
+                return -value, -(g[1:] - g[0])
 
-        minimize(
-            objective,
-            np.asarray(start),
-            jac=True,
-            method="SLSQP",
-            bounds=[(0.0, 1.0), (0.0, 1.0)],
-            constraints=[{"type": "ineq", "fun": lambda x: 1.0 - x[0] - x[1], "jac": lambda x: -np.ones(2)}],
-            options={"ftol": 1e-15, "maxiter": 200},
-        )
+            minimize(
+                objective,
+                np.asarray(start),
+                jac=True,
+                method="SLSQP",
+                bounds=[(0.0, 1.0), (0.0, 1.0)],
+                constraints=[{"type": "ineq", "fun": lambda x: 1.0 - x[0] - x[1], "jac": lambda x: -np.ones(2)}],
+                options={"ftol": 1e-15, "maxiter": 200},
+            )
     weights, (value, parts, _) = max(best.items(), key=lambda item: item[1][0])
     return BoundResult(value=float(value), weights=weights, parts=parts)
