@@ -35,6 +35,8 @@ GRID_STEPS = 2
 #: Simple cycles of the weekday graph are listed up to this length (days, a whole number of weeks);
 #: longer ones are covered by the Cauchy–Schwarz curve ``1 / f`` (see :func:`weekday_gap_lines`).
 CYCLE_DAYS = 56
+#: Relative tolerance of the load check of rule 1 (a trip may carry ``W (1 + 1e-9)``).
+LOAD_TOLERANCE = 1e-9
 #: Relative certified distance to the maximum over the weights below which no refinement is run.
 CERTIFIED_GAP = 1e-12
 #: Relative slack below which a numerically violated line is lowered instead of dropped.
@@ -78,7 +80,8 @@ class _Inner:
         self.caps = whole_day_caps(problem)
         self.S = problem.max_stops
         W = problem.capacity
-        self.load_rate = float(problem.demand.sum()) / W if math.isfinite(W) else 0.0
+        # loads up to W (1 + LOAD_TOLERANCE) pass rule 1, so the load cut counts trips of that size
+        self.load_rate = float(problem.demand.sum()) / (W * (1.0 + LOAD_TOLERANCE)) if math.isfinite(W) else 0.0
 
     def solve(self, alpha: float, beta: float, gamma: float):
         """``(value, parts, gradient)`` where ``gradient`` is ``∂LB/∂(α, β, γ)`` at the minimiser."""

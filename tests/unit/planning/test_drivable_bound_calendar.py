@@ -10,7 +10,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import minimize
 
-from service.planning.drivable_bound import _psi, drivable_lower_bound, weekday_gap_lines, whole_day_caps
+from service.planning.drivable_bound import (
+    CYCLE_DAYS,
+    _pieces,
+    _psi,
+    drivable_lower_bound,
+    weekday_gap_lines,
+    whole_day_caps,
+)
 from service.planning.inputs import SiteInput, TruckInput, validate
 
 from .test_drivable_bound import _exact, _sites, _small_instance
@@ -95,6 +102,20 @@ def test_weekday_lines_hand_values():
     assert float(_psi(weekday_gap_lines((0, 1, 2, 3, 4), 7), np.array([1 / 7]))[0]) == pytest.approx(7.0)
     # Monday–Friday cannot serve a tank of 2 days (Friday to Monday is 3)
     assert weekday_gap_lines((0, 1, 2, 3, 4), 2) is None
+
+
+@pytest.mark.parametrize("calendar", CALENDARS)
+def test_pieces_are_the_weekday_bound(calendar):
+    # the piecewise form the scan uses (P + Q f + B/f between edges) equals max(1/f, lines) everywhere
+    weekdays = tuple(day - 1 for day in calendar)
+    top = len(weekdays) / 7
+    for cap in range(_longest_closed(calendar), CYCLE_DAYS + 1, 3):
+        lines = weekday_gap_lines(weekdays, cap)
+        edges, P, Q, B = _pieces(lines, top)
+        f = np.linspace(1e-3, top, 5001)
+        piece = np.clip(np.searchsorted(edges, f, side="right") - 1, 0, len(P) - 1)
+        assert edges[0] == 0.0 and edges[-1] == top and np.all(np.diff(edges) > 0)
+        np.testing.assert_allclose(P[piece] + Q[piece] * f + B[piece] / f, _psi(lines, f), rtol=1e-12)
 
 
 # --- the bound: valid against exhaustive search, tight for one site, above the plain bound ------
