@@ -30,6 +30,8 @@ from service.planning.cycle_cost import free_cycle
 from service.planning.inputs import WHOLE_DAY_TOLERANCE, Problem
 from service.planning.relaxation import _relaxation
 
+#: ISO weekdays, Monday = 1 … Sunday = 7.
+ALL_WEEKDAYS = (1, 2, 3, 4, 5, 6, 7)
 #: Barycentric grid step of the weights tried before the local refinement (vertices included).
 GRID_STEPS = 2
 #: Simple cycles of the weekday graph are listed up to this length (days, a whole number of weeks);
@@ -336,7 +338,7 @@ class _CalendarInner(_Inner):
         return extra + load + stops + holding, parts, gradient
 
 
-def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] = (1, 2, 3, 4, 5, 6, 7)) -> BoundResult:
+def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] | None = None) -> BoundResult:
     """The drivable lower bound: ``max over the weight simplex of LB(α, β, γ)`` (see module doc).
 
     Weights whose cut is void are fixed at 0 (``β`` when there is no capacity, ``γ`` when there
@@ -347,11 +349,14 @@ def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] = (1, 2
     ``(K / T0, K D / W, K Σ 1 / (S T_i))`` at the inner minimiser), concavity gives
     ``max LB ≤ LB(w) + max_j g_j − g · w`` over the usable vertices ``j``.
 
-    With fewer than seven ``working_days`` (ISO weekdays, 1 = Monday) the holding term of each site
+    ``working_days`` (ISO weekdays, 1 = Monday) defaults to ``problem.working_days`` when the problem
+    carries a calendar, else to all seven. With fewer than seven the holding term of each site
     is the weekday-pattern bound of :func:`weekday_gap_lines` and ``T0 ≥ 7 / m`` (``m`` working
     weekdays); the value is ``inf`` when no plan fits the calendar (a cap shorter than a closed
     stretch or than ``7 / m`` days).
     """
+    if working_days is None:
+        working_days = getattr(problem, "working_days", ALL_WEEKDAYS)
     weekdays = tuple(sorted({int(day) - 1 for day in working_days}))
     inner = _Inner(problem) if len(weekdays) == 7 else _CalendarInner(problem, weekdays)
     if not getattr(inner, "feasible", True):

@@ -1,5 +1,7 @@
 """The drivable bound with a weekly calendar: the weekday-gap lemma, exhaustive search, duality."""
 
+import copy
+import dataclasses
 import itertools
 import math
 import os
@@ -171,6 +173,24 @@ def test_seven_working_days_is_the_plain_bound():
     sites = _sites(rng, 10)
     problem = validate(sites, TruckInput(200.0, capacity=30000.0, max_stops=4))
     assert drivable_lower_bound(problem, (7, 1, 2, 3, 4, 5, 6)) == drivable_lower_bound(problem)
+
+
+def test_calendar_is_read_from_the_problem_when_not_given():
+    # a problem that carries working_days (the planner's Problem) gets the calendar bound by default
+    rng = np.random.default_rng(11)
+    sites = [
+        SiteInput(s.code, s.demand_per_day, s.holding_cost, s.stop_cost, s.tank_capacity * 4, 1.0)
+        for s in _sites(rng, 6)
+    ]
+    problem = validate(sites, TruckInput(120.0, capacity=40000.0, max_stops=3))
+    monday_to_friday = drivable_lower_bound(problem, working_days=(1, 2, 3, 4, 5))
+    assert monday_to_friday.value > drivable_lower_bound(problem).value
+    if "working_days" in {field.name for field in dataclasses.fields(problem)}:
+        calendar_problem = dataclasses.replace(problem, working_days=(1, 2, 3, 4, 5))
+    else:  # a Problem without the calendar field yet: the same arrays with the attribute added
+        calendar_problem = copy.copy(problem)
+        object.__setattr__(calendar_problem, "working_days", (1, 2, 3, 4, 5))
+    assert drivable_lower_bound(calendar_problem) == monday_to_friday
 
 
 # --- strong duality with the calendar --------------------------------------------------------------
