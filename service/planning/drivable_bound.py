@@ -51,12 +51,14 @@ class BoundResult:
 
     ``parts`` splits ``value`` at the inner minimiser ``(T0, T_i)``: ``dispatch`` is
     ``K (α / T0 + β D / W + γ Σ 1 / (S T_i))``, ``stops`` is ``Σ k_i / T_i`` and ``holding`` is
-    ``Σ H_i T_i``.
+    ``Σ H_i T_i``. ``stop_price`` is the price ``μ`` of the stop room (0 when the room does not bind);
+    its term ``μ (Σ 1 / T_i − C)`` is counted in ``dispatch``.
     """
 
     value: float
     weights: tuple[float, float, float]
     parts: dict
+    stop_price: float = 0.0
 
 
 def whole_day_caps(problem: Problem) -> np.ndarray:
@@ -75,29 +77,38 @@ def whole_day_caps(problem: Problem) -> np.ndarray:
 class _Inner:
     """``LB`` at given weights, with a supergradient, for one problem."""
 
-    def __init__(self, problem: Problem):
+    def __init__(self, problem: Problem, stop_room: float | None):
         self.K = problem.dispatch_cost
         self.k = problem.stop_cost
         self.H = problem.H
         self.caps = whole_day_caps(problem)
+        self.low = 1.0 / self.caps
         self.S = problem.max_stops
+        self.room = stop_room
         W = problem.capacity
         # loads up to W (1 + LOAD_TOLERANCE) pass rule 1, so the load cut counts trips of that size
         self.load_rate = float(problem.demand.sum()) / (W * (1.0 + LOAD_TOLERANCE)) if math.isfinite(W) else 0.0
+        self.feasible = True
 
-    def solve(self, alpha: float, beta: float, gamma: float):
-        """``(value, parts, gradient)`` where ``gradient`` is ``∂LB/∂(α, β, γ)`` at the minimiser."""
+    def steepest(self) -> float:
+        """A price per stop above which every site sits at its lowest frequency ``1 / u_i``."""
+        return float(np.max(self.H * self.caps**2)) + 1.0
+
+    def solve(self, alpha: float, beta: float, gamma: float, mu: float = 0.0):
+        """``(value, parts, gradient)``, ``gradient`` = ``∂LB/∂(α, β, γ, μ)`` at the minimiser."""
         K, S = self.K, self.S
-        per_stop = K * gamma / S if S else 0.0
+        per_stop = (K * gamma / S if S else 0.0) + mu
         rel = _relaxation(K * alpha, self.k + per_stop, self.H, self.caps, 1.0)
         T = np.maximum(rel.t0, np.minimum(free_cycle(self.k + per_stop, self.H), self.caps))
-        stops_per_day = float(np.sum(1.0 / T)) / S if S else 0.0
-        load = K * beta * self.load_rate
+        visits = float(np.sum(1.0 / T))
+        load = K * beta * self.load_rate - mu * (self.room or 0.0)
         stops = float(np.sum(self.k / T))
         holding = float(np.sum(self.H * T))
         parts = {"dispatch": rel.value + load - stops - holding, "stops": stops, "holding": holding}
         # T0 = min T_i is a minimiser too (the same one when α > 0): the smallest supergradient in α
-        gradient = np.array([K / float(T.min()), K * self.load_rate, K * stops_per_day])
+        gradient = np.array(
+            [K / float(T.min()), K * self.load_rate, K * visits / S if S else 0.0, visits - (self.room or 0.0)]
+        )
         return rel.value + load, parts, gradient
 
 
@@ -202,6 +213,19 @@ def weekday_gap_lines(weekdays: tuple[int, ...], cap: int) -> GapLines | None:
     return GapLines(np.array(p_lines), np.array(q_lines), 0.0 if curve_end > 0 else float(f.min()))
 
 
+@functools.lru_cache(maxsize=256)
+def whole_day_gap_lines(cap: int) -> GapLines:
+    """Lines of ``Σ g² / R`` for whole-day gaps on a seven-day calendar: ``(2a + 1) − a (a + 1) f``.
+
+    For every integer ``a``, ``Σ_j (g_j − a)(g_j − a − 1) ≥ 0`` (a product of two consecutive integers),
+    i.e. ``Σ g² ≥ (2a + 1) Σ g − a (a + 1) n``; divided by ``R = Σ g`` with ``f = n / R``:
+    ``Σ g² / R ≥ (2a + 1) − a (a + 1) f``, the chord of ``1 / f`` between ``T = a`` and ``a + 1``
+    (equality when every gap is ``a`` or ``a + 1``). Lines for ``a < min(cap, CYCLE_DAYS)``.
+    """
+    a = np.arange(1, max(min(cap, CYCLE_DAYS), 1), dtype=float)
+    return GapLines(2 * a + 1, -a * (a + 1), 0.0)
+
+
 def _psi(lines: GapLines, f: np.ndarray) -> np.ndarray:
     """``max(1 / f, p_j + q_j f)``: the least ``Σ g² / R`` at frequency ``f`` (elementwise)."""
     p, q, _ = lines
@@ -256,11 +280,12 @@ class _CalendarInner(_Inner):
     exactly on each segment (the scan of :mod:`service.planning.relaxation` with more breakpoints).
     """
 
-    def __init__(self, problem: Problem, weekdays: tuple[int, ...]):
-        super().__init__(problem)
+    def __init__(self, problem: Problem, weekdays: tuple[int, ...], stop_room: float | None):
+        super().__init__(problem, stop_room)
         self.top = len(weekdays) / 7
         groups = np.minimum(self.caps, CYCLE_DAYS).astype(np.int64)
-        self.lines = {int(g): weekday_gap_lines(weekdays, int(g)) for g in np.unique(groups)}
+        lines_for = whole_day_gap_lines if len(weekdays) == 7 else functools.partial(weekday_gap_lines, weekdays)
+        self.lines = {int(g): lines_for(int(g)) for g in np.unique(groups)}
         self.group = groups
         self.feasible = all(v is not None for v in self.lines.values())
         if not self.feasible:
@@ -293,11 +318,13 @@ class _CalendarInner(_Inner):
             out[mask] = _psi(lines, f[mask])
         return out
 
-    def solve(self, alpha: float, beta: float, gamma: float):
-        if not self.feasible:
-            return math.inf, {"dispatch": math.inf, "stops": 0.0, "holding": 0.0}, np.zeros(3)
+    def steepest(self) -> float:
+        slopes = [np.max(np.abs(lines.q), initial=0.0) for lines in self.lines.values()]
+        return max(super().steepest(), float(np.max(self.H)) * max(slopes) + 1.0, float(np.max(self.H / self.low**2)))
+
+    def solve(self, alpha: float, beta: float, gamma: float, mu: float = 0.0):
         K, S = self.K, self.S
-        a = self.k + (K * gamma / S if S else 0.0)
+        a = self.k + (K * gamma / S if S else 0.0) + mu
         site, lo, hi, P, Q, B = self.rows
         H = self.H[site]
         A, Bc, C = a[site] + H * Q, H * B, H * P
@@ -328,83 +355,140 @@ class _CalendarInner(_Inner):
         complete = (positions >= start) & np.append(positions[1:] > positions[:-1], True)
         f0 = float(seg_x[int(np.argmin(np.where(complete, seg_value, np.inf)))])
         f = np.minimum(f0, f_star)
-        stops_per_day = float(np.sum(f)) / S if S else 0.0
-        load = K * beta * self.load_rate
+        visits = float(np.sum(f))
+        load = K * beta * self.load_rate - mu * (self.room or 0.0)
         stops = float(np.sum(self.k * f))
         holding = float(np.sum(self.H * self.psi(f)))
-        extra = K * alpha * f0 + (K * gamma / S if S else 0.0) * float(np.sum(f))
+        extra = K * alpha * f0 + ((K * gamma / S if S else 0.0) + mu) * visits
         parts = {"dispatch": extra + load, "stops": stops, "holding": holding}
-        gradient = np.array([K * float(f.max()), K * self.load_rate, K * stops_per_day])
+        gradient = np.array(
+            [K * float(f.max()), K * self.load_rate, K * visits / S if S else 0.0, visits - (self.room or 0.0)]
+        )
         return extra + load + stops + holding, parts, gradient
 
 
-def drivable_lower_bound(problem: Problem, working_days: tuple[int, ...] | None = None) -> BoundResult:
-    """The drivable lower bound: ``max over the weight simplex of LB(α, β, γ)`` (see module doc).
+def drivable_lower_bound(
+    problem: Problem,
+    working_days: tuple[int, ...] | None = None,
+    trips_per_day: int | None = None,
+    *,
+    gap_patterns: bool = True,
+) -> BoundResult:
+    """The drivable lower bound: ``max LB(α, β, γ, μ)`` over the weight simplex and ``μ ≥ 0``.
+
+    ``working_days`` (ISO weekdays, 1 = Monday) and ``trips_per_day`` default to the problem's
+    (``problem.working_days``, ``problem.trips_per_day`` when it carries a calendar), else to all
+    seven days and no trip limit. With fewer than seven working days the holding term of each site
+    is the weekday-pattern bound of :func:`weekday_gap_lines` and ``T0 ≥ 7 / m`` (``m`` working
+    weekdays). With a stop limit ``S`` and ``trips_per_day`` ``τ`` the stops per day cannot exceed
+    ``C = τ S m / 7``; the price ``μ ≥ 0`` of that room adds ``μ (Σ_i 1 / T_i − C)`` (≤ 0 on every
+    plan). The value is ``inf`` when no plan fits (a cap shorter than a closed stretch or than
+    ``7 / m`` days, or more stops than the room).
+
+    Whenever the truck has a limit or a calendar (and ``gap_patterns``), holding is bounded through
+    the gaps' patterns: :func:`weekday_gap_lines` on a weekly calendar, :func:`whole_day_gap_lines`
+    (whole-day gaps) on seven days. With no limit and all seven days the bound stays §4's relaxation
+    on the caps ``u_i``. ``gap_patterns=False`` gives the bound of the shared note alone (plus the
+    stop room), e.g. to compare with it.
 
     Weights whose cut is void are fixed at 0 (``β`` when there is no capacity, ``γ`` when there
-    is no stop limit). The maximum is searched on a barycentric grid (vertices included); unless
-    the best grid point is certified optimal it is refined (bounded Brent in one free weight, SLSQP
-    with the supergradient in two). Every evaluated ``LB`` is a valid bound and the largest is
-    returned. Certificate: with ``g`` the supergradient at ``w`` (the trip-count terms
-    ``(K / T0, K D / W, K Σ 1 / (S T_i))`` at the inner minimiser), concavity gives
-    ``max LB ≤ LB(w) + max_j g_j − g · w`` over the usable vertices ``j``.
-
-    ``working_days`` (ISO weekdays, 1 = Monday) defaults to ``problem.working_days`` when the problem
-    carries a calendar, else to all seven. With fewer than seven the holding term of each site
-    is the weekday-pattern bound of :func:`weekday_gap_lines` and ``T0 ≥ 7 / m`` (``m`` working
-    weekdays); the value is ``inf`` when no plan fits the calendar (a cap shorter than a closed
-    stretch or than ``7 / m`` days).
+    is no stop limit, ``μ`` when there is no stop room). The maximum is searched on a barycentric
+    grid of ``(α, β, γ)`` with ``μ = 0`` (vertices included); unless the best grid point is
+    certified optimal it is refined (bounded Brent for one free weight, SLSQP with the supergradient
+    otherwise). Every evaluated ``LB`` is a valid bound and the largest is returned. Certificate:
+    with ``g`` the supergradient at ``w`` (the terms ``(K / T0, K D / W, K Σ 1 / (S T_i),
+    Σ 1 / T_i − C)`` at the inner minimiser), concavity gives ``max LB ≤ LB(w) + max_j g_j − g · w``
+    over the usable simplex vertices ``j``, plus ``−g_μ μ`` when ``g_μ ≤ 0`` (else no certificate).
     """
     if working_days is None:
         working_days = getattr(problem, "working_days", ALL_WEEKDAYS)
+    if trips_per_day is None:
+        trips_per_day = getattr(problem, "trips_per_day", None)
     weekdays = tuple(sorted({int(day) - 1 for day in working_days}))
-    inner = _Inner(problem) if len(weekdays) == 7 else _CalendarInner(problem, weekdays)
-    if not getattr(inner, "feasible", True):
-        return BoundResult(value=math.inf, weights=(1.0, 0.0, 0.0), parts=inner.solve(1.0, 0.0, 0.0)[1])
-    free = [j for j, on in ((1, math.isfinite(problem.capacity)), (2, problem.max_stops is not None)) if on]
+    room = trips_per_day * problem.max_stops * len(weekdays) / 7 if trips_per_day and problem.max_stops else None
+    limited = math.isfinite(problem.capacity) or problem.max_stops is not None or len(weekdays) < 7
+    limited = limited and gap_patterns
+    inner = _CalendarInner(problem, weekdays, room) if limited else _Inner(problem, room)
+    if not inner.feasible or (room is not None and float(np.sum(inner.low)) > room * (1 + 1e-12)):
+        return BoundResult(
+            value=math.inf, weights=(1.0, 0.0, 0.0), parts={"dispatch": math.inf, "stops": 0.0, "holding": 0.0}
+        )
+    simplex = [j for j, on in ((1, math.isfinite(problem.capacity)), (2, problem.max_stops is not None)) if on]
+    free = simplex + ([3] if room is not None else [])
+    mu_max = inner.steepest() if room is not None else 0.0
     best: dict = {}
+    coords: dict = {}
 
-    def weights_of(x) -> tuple[float, float, float]:
-        w = np.zeros(3)
+    def weights_of(x) -> tuple[float, float, float, float]:
+        w = np.zeros(4)
         w[free] = np.clip(np.asarray(x, dtype=float), 0.0, 1.0)
-        if w[1:].sum() > 1.0:
-            w[1:] /= w[1:].sum()
-        w[0] = max(0.0, 1.0 - w[1:].sum())
+        if w[1:3].sum() > 1.0:
+            w[1:3] /= w[1:3].sum()
+        w[0] = max(0.0, 1.0 - w[1:3].sum())
+        w[3] *= mu_max
         return tuple(float(v) for v in w)
 
     def evaluate(x):
         key = weights_of(x)
         if key not in best:
             best[key] = inner.solve(*key)
+            coords[key] = np.asarray(x, dtype=float)
         return best[key]
 
     def certified(x) -> bool:
         value, _, g = evaluate(x)
-        return float(np.max(g[[0, *free]]) - g @ np.array(weights_of(x))) <= CERTIFIED_GAP * abs(value)
+        w = np.array(weights_of(x))
+        gap = float(np.max(g[[0, *simplex]]) - g[:3] @ w[:3])
+        if room is not None:
+            gap = math.inf if g[3] > 0 and w[3] < mu_max else gap - g[3] * w[3]
+        return gap <= CERTIFIED_GAP * abs(value)
 
-    if not free or problem.dispatch_cost == 0:
-        evaluate([0.0] * len(free))
-    elif len(free) == 1:
-        start = max(np.linspace(0.0, 1.0, GRID_STEPS + 1), key=lambda x: evaluate([x])[0])
-        if not certified([start]):
-            minimize_scalar(lambda x: -evaluate([x])[0], bounds=(0.0, 1.0), method="bounded", options={"xatol": 1e-10})
-    else:
-        grid = [(i / GRID_STEPS, j / GRID_STEPS) for i in range(GRID_STEPS + 1) for j in range(GRID_STEPS + 1 - i)]
-        start = max(grid, key=lambda x: evaluate(x)[0])
-        if not certified(start):
+    def climb(start, dims: list[int]) -> None:
+        """Refine from ``start`` over the weights ``dims`` (the others stay as in ``start``)."""
+        at = [free.index(d) for d in dims]
+        chain = np.array([0.0, 1.0, 1.0, 0.0])[dims]  # dα/dw = −1 for β and γ
 
-            def objective(x):
-                value, _, g = evaluate(x)
-                return -value, -(g[1:] - g[0])
+        def full(z):
+            x = np.array(start, dtype=float)
+            x[at] = z
+            return x
 
-            minimize(
-                objective,
-                np.asarray(start),
-                jac=True,
-                method="SLSQP",
-                bounds=[(0.0, 1.0), (0.0, 1.0)],
-                constraints=[{"type": "ineq", "fun": lambda x: 1.0 - x[0] - x[1], "jac": lambda x: -np.ones(2)}],
-                options={"ftol": 1e-15, "maxiter": 200},
+        if len(dims) == 1 and dims != [3]:
+            minimize_scalar(
+                lambda z: -evaluate(full([z]))[0], bounds=(0.0, 1.0), method="bounded", options={"xatol": 1e-10}
             )
+            return
+
+        def objective(z):
+            value, _, g = evaluate(full(z))
+            slope = np.where(np.array(dims) == 3, g[3] * mu_max, g[dims] - chain * g[0])
+            return -value, -slope
+
+        minimize(
+            objective,
+            np.asarray(start, dtype=float)[at],
+            jac=True,
+            method="SLSQP",
+            bounds=[(0.0, 1.0)] * len(dims),
+            constraints=[{"type": "ineq", "fun": lambda z: 1.0 - z @ chain, "jac": lambda z: -chain}],
+            options={"ftol": 1e-15, "maxiter": 200},
+        )
+
+    def best_coords():
+        return coords[max(best, key=lambda key: best[key][0])]
+
+    # the simplex of (α, β, γ) at μ = 0 first: a grid, then a refinement unless certified
+    steps = range(GRID_STEPS + 1)
+    grid = [
+        [*(i / GRID_STEPS, j / GRID_STEPS)[: len(simplex)], *([0.0] if room is not None else [])]
+        for i in steps
+        for j in (steps[: GRID_STEPS + 1 - i] if len(simplex) == 2 else [0])
+    ]
+    start = max(grid, key=lambda x: evaluate(x)[0])
+    if simplex and problem.dispatch_cost > 0 and not certified(start):
+        climb(start, simplex)
+    # then the price of the stop room, together with the simplex
+    if room is not None and not certified(best_coords()):
+        climb(best_coords(), free)
     weights, (value, parts, _) = max(best.items(), key=lambda item: item[1][0])
-    return BoundResult(value=float(value), weights=weights, parts=parts)
+    return BoundResult(value=float(value), weights=weights[:3], parts=parts, stop_price=weights[3])

@@ -19,6 +19,7 @@ from service.planning.drivable_bound import (
     drivable_lower_bound,
     weekday_gap_lines,
     whole_day_caps,
+    whole_day_gap_lines,
 )
 from service.planning.inputs import SiteInput, TruckInput, validate
 
@@ -196,13 +197,16 @@ def test_calendar_is_read_from_the_problem_when_not_given():
 # --- strong duality with the calendar --------------------------------------------------------------
 
 
-def _primal_calendar(problem, calendar):
+def _primal_calendar(problem, calendar, room=None):
     """``min K t + Σ (k_i f_i + H_i z_i)`` s.t. ``t ≥ f0, D/W, Σ f_i / S``; ``z_i ≥ 1/f_i`` and every
     weekday line; ``max(1/u_i, lowest_i) ≤ f_i ≤ f0 ≤ m/7`` (frequencies); SLSQP, several starts."""
     K, k, H, n = problem.dispatch_cost, problem.stop_cost, problem.H, problem.n
     u = whole_day_caps(problem)
     weekdays = tuple(day - 1 for day in calendar)
-    lines = [weekday_gap_lines(weekdays, int(min(c, 56))) for c in u]
+    if len(weekdays) == 7:
+        lines = [whole_day_gap_lines(int(min(c, 56))) for c in u]
+    else:
+        lines = [weekday_gap_lines(weekdays, int(min(c, 56))) for c in u]
     low = np.array([max(1 / c, g.lowest) for c, g in zip(u, lines, strict=True)])
     top = len(calendar) / 7
     load = float(problem.demand.sum()) / problem.capacity
@@ -221,6 +225,8 @@ def _primal_calendar(problem, calendar):
         rows += [[z[i] - p - q * f[i] for p, q in zip(lines[i].p, lines[i].q, strict=True)] for i in range(n)]
         if S is not None:
             rows.append([t - np.sum(f) / S])
+        if room is not None:
+            rows.append([room - np.sum(f)])
         return np.concatenate([np.atleast_1d(np.asarray(r, dtype=float)) for r in rows])
 
     bounds = [(0, None), (low.max(), top)] + [(x, top) for x in low] + [(0, None)] * n
@@ -298,3 +304,32 @@ def test_property_calendar_bound_at_most_exhaustive_optimum(problem):
     exact = _exact(sites, truck, [7, 14], [day - 1 for day in calendar])
     assert math.isfinite(exact)
     assert drivable_lower_bound(problem).value * (1 - 1e-12) <= bound <= exact * (1 + 1e-9)
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_seven_day_whole_gap_bound_strong_duality(seed):
+    # seven days with a limit: the whole-day gap lines; the same duality check (Boyd & Vandenberghe
+    # 2004, §5.2-5.3), with the stop room of one or two trips a day on half of the instances
+    rng = np.random.default_rng(1000 + seed)
+    sites = _sites(rng, int(rng.integers(1, 7)), max_days=20.0)
+    D = sum(s.demand_per_day for s in sites)
+    truck = TruckInput(
+        float(rng.uniform(10, 400)),
+        capacity=float(rng.uniform(1.2, 3.0) * max(D, 2 * max(s.demand_per_day for s in sites))) if seed % 3 else None,
+        max_stops=int(rng.integers(2, 5)),
+    )
+    problem = validate(sites, truck)
+    trips = int(rng.integers(1, 3)) if seed % 2 else None
+    room = trips * truck.max_stops if trips else None
+    if room is not None and float(np.sum(1 / whole_day_caps(problem))) > room:
+        room, trips = None, None
+    bound = drivable_lower_bound(problem, trips_per_day=trips)
+    assert bound.value == pytest.approx(_primal_calendar(problem, (1, 2, 3, 4, 5, 6, 7), room=room), rel=1e-6)
+    assert bound.value >= drivable_lower_bound(problem, trips_per_day=trips, gap_patterns=False).value * (1 - 1e-12)
+
+
+def test_whole_day_gap_lines_hand_values():
+    # gaps of 2 and 3 days alternating: mean 2.5, Σ g² / R = (4 + 9) / 5 = 2.6 (by hand), above 1/f = 2.5
+    assert float(_psi(whole_day_gap_lines(10), np.array([0.4]))[0]) == pytest.approx(2.6, rel=1e-12)
+    # whole days: ψ(1/T) = T exactly
+    assert np.allclose(_psi(whole_day_gap_lines(10), 1 / np.arange(1.0, 11.0)), np.arange(1.0, 11.0))
