@@ -261,7 +261,7 @@ def _pieces(lines: GapLines, top: float):
 
 def _best_on(A, B, C, lo, hi):
     """Least ``A x + B / x + C`` on ``[lo, hi]`` (elementwise; ``B ≥ 0``, ``0 < lo ≤ hi``) and where."""
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         stationary = np.where((A > 0) & (B > 0), np.sqrt(B / np.where(A > 0, A, 1.0)), lo)
     xs = np.stack([lo, hi, np.clip(stationary, lo, hi)])
     values = A * xs + B / xs + C
@@ -383,7 +383,7 @@ def drivable_lower_bound(
     weekdays). With a stop limit ``S`` and ``trips_per_day`` ``τ`` the stops per day cannot exceed
     ``C = τ S m / 7``; the price ``μ ≥ 0`` of that room adds ``μ (Σ_i 1 / T_i − C)`` (≤ 0 on every
     plan). The value is ``inf`` when no plan fits (a cap shorter than a closed stretch or than
-    ``7 / m`` days, or more stops than the room).
+    ``7 / m`` days, more stops than the room, or more load than ``τ W m / 7`` a day).
 
     Whenever the truck has a limit or a calendar (and ``gap_patterns``), holding is bounded through
     the gaps' patterns: :func:`weekday_gap_lines` on a weekly calendar, :func:`whole_day_gap_lines`
@@ -409,7 +409,9 @@ def drivable_lower_bound(
     limited = math.isfinite(problem.capacity) or problem.max_stops is not None or len(weekdays) < 7
     limited = limited and gap_patterns
     inner = _CalendarInner(problem, weekdays, room) if limited else _Inner(problem, room)
-    if not inner.feasible or (room is not None and float(np.sum(inner.low)) > room * (1 + 1e-12)):
+    too_many_stops = room is not None and float(np.sum(inner.low)) > room * (1 + 1e-12)
+    too_much_load = bool(trips_per_day) and inner.load_rate > trips_per_day * len(weekdays) / 7 * (1 + 1e-12)
+    if not inner.feasible or too_many_stops or too_much_load:
         return BoundResult(
             value=math.inf, weights=(1.0, 0.0, 0.0), parts={"dispatch": math.inf, "stops": 0.0, "holding": 0.0}
         )

@@ -339,6 +339,11 @@ def test_no_room_for_the_stops_is_infinite():
     truck = TruckInput(10.0, max_stops=3)
     assert drivable_lower_bound(validate(sites, truck), trips_per_day=1).value == math.inf
     assert _exact(sites, truck, range(1, 8), trips_per_day=1) == math.inf
+    # two sites of 100 a day on a truck of 150 with one trip a day: 200 a day does not fit
+    sites, truck = sites[:2], TruckInput(10.0, capacity=150.0)
+    assert drivable_lower_bound(validate(sites, truck), trips_per_day=1).value == math.inf
+    assert _exact(sites, truck, range(1, 8), trips_per_day=1) == math.inf
+    assert math.isfinite(drivable_lower_bound(validate(sites, truck), trips_per_day=2).value)
 
 
 @pytest.mark.parametrize("seed", range(8))
