@@ -11,8 +11,14 @@ and stop at most ``S`` times (``D = Σ d_i``, ``u_i = ⌊min(f_i V_i − s_i, W)
 ``K N / R`` is at least any convex combination of the three. The inner minimum is the capped
 relaxation of :mod:`service.planning.relaxation` with ``K → K α`` and ``k_i → k_i + K γ / S``.
 ``LB`` is a minimum of functions affine in the weights, hence concave; the bound is its maximum
-over the simplex. Derivation and proof: ``docs/planning.md`` ("Drivable lower bound"); the
-construction is Lagrangian relaxation of the trip-count constraints (Boyd & Vandenberghe 2004, §5).
+over the simplex (the bound of the shared note ``drivable-bound.md``).
+
+Two tightenings, both valid for plans of any period: the stop room (at most ``trips_per_day × S``
+stops per working day, priced by a fourth multiplier ``μ``), and gap patterns — the holding term
+``H_i / f`` (``f = 1 / T``) becomes ``H_i ψ_i(f)`` with ``ψ_i`` the least ``Σ g² / R`` of whole-day
+gaps (:func:`whole_day_gap_lines`) or of gaps between working weekdays (:func:`weekday_gap_lines`).
+Derivation and proofs: ``docs/planning.md`` ("Drivable lower bound"); the construction is
+Lagrangian relaxation of the trip-count constraints (Boyd & Vandenberghe 2004, §5).
 """
 
 from __future__ import annotations
@@ -51,7 +57,7 @@ class BoundResult:
 
     ``parts`` splits ``value`` at the inner minimiser ``(T0, T_i)``: ``dispatch`` is
     ``K (α / T0 + β D / W + γ Σ 1 / (S T_i))``, ``stops`` is ``Σ k_i / T_i`` and ``holding`` is
-    ``Σ H_i T_i``. ``stop_price`` is the price ``μ`` of the stop room (0 when the room does not bind);
+    ``Σ H_i T_i`` (``Σ H_i ψ_i(1 / T_i)`` with gap patterns). ``stop_price`` is the price ``μ`` of the stop room (0 when the room does not bind);
     its term ``μ (Σ 1 / T_i − C)`` is counted in ``dispatch``.
     """
 
@@ -271,11 +277,11 @@ def _best_on(A, B, C, lo, hi):
 
 
 class _CalendarInner(_Inner):
-    """``LB`` in frequencies ``f = 1 / T`` with the weekday calendar: holding ``H_i ψ_i(f_i)``.
+    """``LB`` in frequencies ``f = 1 / T`` with gap patterns: holding ``H_i ψ_i(f_i)``.
 
-    ``min over f0 ∈ [max 1/u_i, m/7]`` of ``K α f0 + Σ_i min over f_i ∈ [1/u_i, min(f0, m/7)] of
-    (a_i f_i + H_i ψ_i(f_i))`` with ``a_i = k_i + K γ / S`` and ``ψ_i`` from
-    :func:`weekday_gap_lines`. Every site term is convex in ``f_i``; the sum over sites of their
+    ``min over f0 ∈ [max f_i^min, m/7]`` of ``K α f0 + Σ_i min over f_i ∈ [f_i^min, f0] of
+    (a_i f_i + H_i ψ_i(f_i))`` with ``a_i = k_i + K γ / S + μ``, ``f_i^min = max(1/u_i, lowest_i)`` and
+    ``ψ_i`` from :func:`weekday_gap_lines` (``m < 7``) or :func:`whole_day_gap_lines`. Every site term is convex in ``f_i``; the sum over sites of their
     minima with ``f_i ≤ f0`` is, between the sorted breakpoints, ``A f0 + B / f0 + C``, minimised
     exactly on each segment (the scan of :mod:`service.planning.relaxation` with more breakpoints).
     """
@@ -312,6 +318,7 @@ class _CalendarInner(_Inner):
         self.run = np.cumsum(np.concatenate([[False], site[1:] != site[:-1]]))
 
     def psi(self, f: np.ndarray) -> np.ndarray:
+        """``ψ_i(f_i)`` for every site."""
         out = np.empty_like(f)
         for g, lines in self.lines.items():
             mask = self.group == g
