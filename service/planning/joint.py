@@ -27,6 +27,7 @@ from service.planning.integer_multiple import integer_policies_by_interval, inte
 from service.planning.patterns import Patterns, from_working_cycles
 from service.planning.policy import Policy
 from service.planning.power_of_two import power_of_two_policy
+from service.planning.rebalance import rebalance
 from service.planning.relaxation import relaxation_of
 from service.planning.results import JointResult, SitePlan, Status
 from service.planning.staggering import site_weights, stagger
@@ -132,6 +133,7 @@ class _Candidate:
     patterns: Patterns
     binding: np.ndarray
     evaluation: Evaluation
+    policy: Policy
 
 
 def _axis_problem(problem: Problem, week: WorkWeek, dispatch_scale: float, stop_penalty: float) -> Problem:
@@ -198,12 +200,20 @@ def _binding(problem: Problem, axis: Problem, policy: Policy) -> np.ndarray:
     return np.where(capped, np.where(problem.tank_binds, "tank", "truck"), "")
 
 
-def _patterns(problem: Problem, week: WorkWeek, policy: Policy) -> Patterns:
+def _patterns(
+    problem: Problem, week: WorkWeek, policy: Policy, deadline: float | None, rebalanced: bool = False
+) -> Patterns:
+    """Stagger the policy's cycles (working-day axis) and, when a date may need several trips, improve the
+    phases (:func:`rebalance`); then the calendar patterns."""
     T0 = policy.dispatch_interval
     cycles = policy.cycles
     quantity = problem.demand * cycles * (7.0 / week.n)
-    residues = stagger(cycles // T0, site_weights(quantity, problem.capacity, problem.max_stops))
-    return from_working_cycles(week, cycles, residues * T0)
+    phases = stagger(cycles // T0, site_weights(quantity, problem.capacity, problem.max_stops)) * T0
+    if rebalanced:
+        phases = rebalance(
+            problem.demand, problem.capacity, problem.max_stops, problem.trips_per_day, week, cycles, phases, deadline
+        )
+    return from_working_cycles(week, cycles, phases)
 
 
 def _site_plans(problem: Problem, candidate: _Candidate) -> tuple[SitePlan, ...]:
@@ -303,15 +313,18 @@ class _Search:
         for policy in _policies(axis, self.method, self.base_days, intervals, dispatch_scale == 0):
             if self.out_of_time() and self.candidates:
                 return
-            patterns = _patterns(self.problem, self.week, policy)
+            patterns = _patterns(self.problem, self.week, policy, self.deadline)
             ev = self._evaluate(patterns)
             if ev is None and policy.method == "integer":
                 policy = _nested(policy)
-                patterns = _patterns(self.problem, self.week, policy)
+                patterns = _patterns(self.problem, self.week, policy, self.deadline)
                 ev = self._evaluate(patterns)
+            if ev is not None and not self.drivable(ev):  # repair: move phases off the dates over the limit
+                patterns = _patterns(self.problem, self.week, policy, self.deadline, rebalanced=True)
+                ev = self._evaluate(patterns) or ev
             if ev is not None:
                 binding = _binding(self.problem, axis, policy)
-                self.candidates.append(_Candidate(policy.method, policy.base_days, patterns, binding, ev))
+                self.candidates.append(_Candidate(policy.method, policy.base_days, patterns, binding, ev, policy))
 
     def _evaluate(self, patterns: Patterns) -> Evaluation | None:
         key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
@@ -324,6 +337,18 @@ class _Search:
         if not c.evaluation.exact:
             c.evaluation = evaluate(self.problem, c.patterns, self.limited)
         return c
+
+    def _improve(self) -> None:
+        """The phase search of :func:`rebalance` on the chosen plan (fewer trips); kept when cheaper."""
+        b = self.best
+        patterns = _patterns(self.problem, self.week, b.policy, self.deadline, rebalanced=True)
+        key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
+        if key in self.seen:
+            return
+        self.seen.add(key)
+        ev = evaluate(self.problem, patterns, self.limited)
+        if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+            self.best = _Candidate(b.method, b.base_days, patterns, b.binding, ev, b.policy)
 
     def finish(self) -> None:
         """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
@@ -339,6 +364,8 @@ class _Search:
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
+        if self.best is not None and self.limited and not self.out_of_time():
+            self._improve()
         if self.best is None and self.candidates:
             key = min(range(len(self.candidates)), key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost))
             self.fewest = self._exact(self.candidates[key])
