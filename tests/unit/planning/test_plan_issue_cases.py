@@ -192,3 +192,21 @@ def test_vectorised_packing_agrees_with_the_date_packing():
         assert all(q[at][trip[at] == b].sum() <= 1000.0 * (1 + 1e-9) for b in range(n))
         assert all((trip[at] == b).sum() <= 4 for b in range(n))
         assert n >= max(int(np.ceil(q[at].sum() / 1000.0 - 1e-9)), int(np.ceil(at.sum() / 4)))
+
+
+def test_a_deadline_returns_the_best_plan_so_far_with_status_time_limit():
+    sites = _network(60, 9)
+    truck = TruckInput(250.0, capacity=36000.0, max_stops=10, working_days=(1, 2, 3, 4, 5))
+    result = plan_joint(sites, truck, start_date=MONDAY, deadline_seconds=1e-6)
+    assert result.status == Status.TIME_LIMIT and result.success
+    assert any("deadline" in w for w in result.warnings)
+    check_rules(result, sites, truck)
+    full = plan_joint(sites, truck, start_date=MONDAY)
+    assert full.status in (Status.FEASIBLE, Status.OPTIMAL)
+    assert full.cost_per_day <= result.cost_per_day * (1 + 1e-12)
+
+
+def test_plans_are_deterministic():
+    sites = _network(30, 4)
+    truck = TruckInput(250.0, capacity=30000.0, max_stops=6, working_days=(1, 2, 3, 4, 5, 6), trips_per_day=2)
+    assert plan_joint(sites, truck, start_date=MONDAY) == plan_joint(sites, truck, start_date=MONDAY)
