@@ -40,6 +40,8 @@ LISTED_DAYS = 3660
 LISTED_STOPS = 200_000
 #: Truck-aware variants: dispatch cost scale and extra stop cost in units of ``K / S``.
 DISPATCH_SCALES = (1.0, 0.5, 2.0, 0.0, 0.25, 4.0)
+#: Most candidates packed exactly once a drivable plan is known (the rest are ranked by their bound).
+EXACT_CANDIDATES = 4
 #: Other dispatch intervals of the integer class evaluated exactly.
 INTERVALS = 8
 STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
@@ -283,8 +285,8 @@ class _Search:
 
     Each candidate is first evaluated with the per-date trip lower bound (no packing); the exact cost is
     at least that. :meth:`finish` evaluates exactly in increasing order of the bound and stops when the
-    best exact cost is at most the next bound, so the cheapest drivable candidate is found without
-    packing every one.
+    best exact cost is at most the next bound (then no other candidate can be cheaper), or after
+    ``EXACT_CANDIDATES`` packed candidates, or at the deadline.
     """
 
     def __init__(self, problem: Problem, week: WorkWeek, method: str, base_days, deadline: float | None):
@@ -353,14 +355,16 @@ class _Search:
     def finish(self) -> None:
         """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
         order = sorted(range(len(self.candidates)), key=lambda j: self.candidates[j].evaluation.cost)
+        packed = 0
         for j in order:
             c = self.candidates[j]
             if not self.drivable(c.evaluation):
                 continue
             if self.best is not None and (
-                self.best.evaluation.cost <= c.evaluation.cost or (self.out_of_time() and self.best is not None)
+                self.best.evaluation.cost <= c.evaluation.cost or self.out_of_time() or packed >= EXACT_CANDIDATES
             ):
                 break
+            packed += 1
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
