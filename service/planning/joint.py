@@ -31,6 +31,7 @@ from service.planning.rebalance import rebalance
 from service.planning.relaxation import relaxation_of
 from service.planning.results import JointResult, SitePlan, Status
 from service.planning.staggering import site_weights, stagger
+from service.planning.weekly import improve_weekly
 from service.planning.workweek import WorkWeek
 
 METHODS = ("best", "power_of_two", "integer")
@@ -341,16 +342,24 @@ class _Search:
         return c
 
     def _improve(self) -> None:
-        """The phase search of :func:`rebalance` on the chosen plan (fewer trips); kept when cheaper."""
+        """The phase search of :func:`rebalance` on the chosen plan (fewer trips), then weekday patterns
+        (:func:`improve_weekly`); each kept when its exact cost is lower."""
         b = self.best
         patterns = _patterns(self.problem, self.week, b.policy, self.deadline, rebalanced=True)
         key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
-        if key in self.seen:
+        if key not in self.seen:
+            self.seen.add(key)
+            ev = evaluate(self.problem, patterns, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, patterns, b.binding, ev, b.policy)
+        if self.out_of_time():
             return
-        self.seen.add(key)
-        ev = evaluate(self.problem, patterns, self.limited)
-        if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
-            self.best = _Candidate(b.method, b.base_days, patterns, b.binding, ev, b.policy)
+        b = self.best
+        weekly = improve_weekly(self.problem, self.week, b.patterns, self.deadline)
+        if weekly is not None:
+            ev = evaluate(self.problem, weekly, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, weekly, b.binding, ev, b.policy)
 
     def finish(self) -> None:
         """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
@@ -368,7 +377,7 @@ class _Search:
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
-        if self.best is not None and self.limited and not self.out_of_time():
+        if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
             self._improve()
         if self.best is None and self.candidates:
             key = min(range(len(self.candidates)), key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost))
