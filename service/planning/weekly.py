@@ -25,8 +25,10 @@ from service.planning.packing import LOAD_TOLERANCE
 from service.planning.patterns import Patterns
 from service.planning.workweek import WorkWeek
 
-#: Repeat periods (days) above which the step is skipped.
+#: Repeat periods (days), and days × sites, above which the step is skipped (it is for sub-week rhythms on
+#: a working calendar; with all seven days working the plain cycles already cover them).
 MAX_DAYS = 20_000
+MAX_WORK = 2_000_000
 
 
 def _weekday_sets(week: WorkWeek):
@@ -44,7 +46,7 @@ def _weekday_sets(week: WorkWeek):
 def improve_weekly(problem: Problem, week: WorkWeek, patterns: Patterns, deadline: float | None) -> Patterns | None:
     """Patterns with some sites on weekday sets (module docstring), or None when nothing changed."""
     R = math.lcm(patterns.repeat, 7)
-    if R > MAX_DAYS:
+    if week.n == 7 or R > MAX_DAYS or R * problem.n > MAX_WORK:
         return None
     sets = _weekday_sets(week)
     d, k, H, u = problem.demand, problem.stop_cost, problem.H, problem.whole_days
