@@ -384,6 +384,43 @@ class _Search:
             self.fewest = self._exact(self.candidates[key])
 
 
+def _search(problem: Problem, week: WorkWeek, method: str, base_days, deadline) -> _Search:
+    """All candidates (module docstring) and the exact choice among them."""
+    search = _Search(problem, week, method, base_days, deadline)
+    classic = week.n == 7 and not search.limited
+    search.variant(1.0, 0.0)
+    if not classic:
+        search.variant(1.0, 0.0, INTERVALS)
+        for scale in DISPATCH_SCALES:
+            for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
+                if search.out_of_time():
+                    break
+                search.variant(scale, penalty)
+        if not search.any_drivable():
+            for penalty in REPAIR_PENALTIES:
+                if search.out_of_time() or search.any_drivable():
+                    break
+                for scale in (1.0, 4.0, 16.0):
+                    search.variant(scale, penalty)
+    search.finish()
+    return search
+
+
+def _least_trips_needed(problem: Problem, week: WorkWeek, method: str, base_days, deadline, found: int) -> int:
+    """The least ``trips_per_day`` above the given one for which the search finds a drivable plan: each
+    smaller value than ``found`` (what the best candidate needed) whose drivable bound is finite is
+    searched, in increasing order, while time remains."""
+    for tau in range(problem.trips_per_day + 1, found):
+        if deadline is not None and time.monotonic() > deadline:
+            break
+        relaxed = replace(problem, trips_per_day=tau)
+        if not math.isfinite(drivable_lower_bound(relaxed).value):
+            continue
+        if _search(relaxed, week, method, base_days, deadline).best is not None:
+            return tau
+    return found
+
+
 def plan_joint(
     sites: Sequence[SiteInput],
     truck: TruckInput,
@@ -466,23 +503,8 @@ def plan_joint(
             base_days,
         )
     deadline = None if deadline_seconds is None else began + float(deadline_seconds)
-    search = _Search(problem, week, method, base_days if base_fits else None, deadline)
+    search = _search(problem, week, method, base_days if base_fits else None, deadline)
     classic = week.n == 7 and not search.limited
-    search.variant(1.0, 0.0)
-    if not classic:
-        search.variant(1.0, 0.0, INTERVALS)
-        for scale in DISPATCH_SCALES:
-            for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
-                if search.out_of_time():
-                    break
-                search.variant(scale, penalty)
-        if not search.any_drivable():
-            for penalty in REPAIR_PENALTIES:
-                if search.out_of_time() or search.any_drivable():
-                    break
-                for scale in (1.0, 4.0, 16.0):
-                    search.variant(scale, penalty)
-    search.finish()
     warnings: list[str] = []
     if not base_fits:
         i = int(np.argmin(axis_caps))
@@ -493,9 +515,11 @@ def plan_joint(
     if search.best is None:
         fewest = search.fewest
         need = None if fewest is None else fewest.evaluation.max_trips
+        if need is not None and not search.cut:
+            need = _least_trips_needed(problem, week, method, base_days if base_fits else None, deadline, need)
         message = (
             f"no plan found within {problem.trips_per_day} trip(s) per day"
-            + ("" if need is None else f"; the best candidate needs {need} on its busiest date")
+            + ("" if need is None else f"; {need} trips per day are enough")
         )
         return _infeasible(
             problem,
