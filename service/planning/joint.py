@@ -31,6 +31,7 @@ from service.planning.rebalance import rebalance
 from service.planning.relaxation import relaxation_of
 from service.planning.results import JointResult, SitePlan, Status
 from service.planning.staggering import site_weights, stagger
+from service.planning.weekly import improve_weekly
 from service.planning.workweek import WorkWeek
 
 METHODS = ("best", "power_of_two", "integer")
@@ -40,6 +41,8 @@ LISTED_DAYS = 3660
 LISTED_STOPS = 200_000
 #: Truck-aware variants: dispatch cost scale and extra stop cost in units of ``K / S``.
 DISPATCH_SCALES = (1.0, 0.5, 2.0, 0.0, 0.25, 4.0)
+#: Most candidates packed exactly once a drivable plan is known (the rest are ranked by their bound).
+EXACT_CANDIDATES = 4
 #: Other dispatch intervals of the integer class evaluated exactly.
 INTERVALS = 8
 STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
@@ -283,8 +286,8 @@ class _Search:
 
     Each candidate is first evaluated with the per-date trip lower bound (no packing); the exact cost is
     at least that. :meth:`finish` evaluates exactly in increasing order of the bound and stops when the
-    best exact cost is at most the next bound, so the cheapest drivable candidate is found without
-    packing every one.
+    best exact cost is at most the next bound (then no other candidate can be cheaper), or after
+    ``EXACT_CANDIDATES`` packed candidates, or at the deadline.
     """
 
     def __init__(self, problem: Problem, week: WorkWeek, method: str, base_days, deadline: float | None):
@@ -339,36 +342,83 @@ class _Search:
         return c
 
     def _improve(self) -> None:
-        """The phase search of :func:`rebalance` on the chosen plan (fewer trips); kept when cheaper."""
+        """The phase search of :func:`rebalance` on the chosen plan (fewer trips), then weekday patterns
+        (:func:`improve_weekly`); each kept when its exact cost is lower."""
         b = self.best
         patterns = _patterns(self.problem, self.week, b.policy, self.deadline, rebalanced=True)
         key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
-        if key in self.seen:
+        if key not in self.seen:
+            self.seen.add(key)
+            ev = evaluate(self.problem, patterns, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, patterns, b.binding, ev, b.policy)
+        if self.out_of_time():
             return
-        self.seen.add(key)
-        ev = evaluate(self.problem, patterns, self.limited)
-        if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
-            self.best = _Candidate(b.method, b.base_days, patterns, b.binding, ev, b.policy)
+        b = self.best
+        weekly = improve_weekly(self.problem, self.week, b.patterns, self.deadline)
+        if weekly is not None:
+            ev = evaluate(self.problem, weekly, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, weekly, b.binding, ev, b.policy)
 
     def finish(self) -> None:
         """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
         order = sorted(range(len(self.candidates)), key=lambda j: self.candidates[j].evaluation.cost)
+        packed = 0
         for j in order:
             c = self.candidates[j]
             if not self.drivable(c.evaluation):
                 continue
             if self.best is not None and (
-                self.best.evaluation.cost <= c.evaluation.cost or (self.out_of_time() and self.best is not None)
+                self.best.evaluation.cost <= c.evaluation.cost or self.out_of_time() or packed >= EXACT_CANDIDATES
             ):
                 break
+            packed += 1
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
-        if self.best is not None and self.limited and not self.out_of_time():
+        if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
             self._improve()
         if self.best is None and self.candidates:
             key = min(range(len(self.candidates)), key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost))
             self.fewest = self._exact(self.candidates[key])
+
+
+def _search(problem: Problem, week: WorkWeek, method: str, base_days, deadline) -> _Search:
+    """All candidates (module docstring) and the exact choice among them."""
+    search = _Search(problem, week, method, base_days, deadline)
+    classic = week.n == 7 and not search.limited
+    search.variant(1.0, 0.0)
+    if not classic:
+        search.variant(1.0, 0.0, INTERVALS)
+        for scale in DISPATCH_SCALES:
+            for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
+                if search.out_of_time():
+                    break
+                search.variant(scale, penalty)
+        if not search.any_drivable():
+            for penalty in REPAIR_PENALTIES:
+                if search.out_of_time() or search.any_drivable():
+                    break
+                for scale in (1.0, 4.0, 16.0):
+                    search.variant(scale, penalty)
+    search.finish()
+    return search
+
+
+def _least_trips_needed(problem: Problem, week: WorkWeek, method: str, base_days, deadline, found: int) -> int:
+    """The least ``trips_per_day`` above the given one for which the search finds a drivable plan: each
+    smaller value than ``found`` (what the best candidate needed) whose drivable bound is finite is
+    searched, in increasing order, while time remains."""
+    for tau in range(problem.trips_per_day + 1, found):
+        if deadline is not None and time.monotonic() > deadline:
+            break
+        relaxed = replace(problem, trips_per_day=tau)
+        if not math.isfinite(drivable_lower_bound(relaxed).value):
+            continue
+        if _search(relaxed, week, method, base_days, deadline).best is not None:
+            return tau
+    return found
 
 
 def plan_joint(
@@ -453,23 +503,8 @@ def plan_joint(
             base_days,
         )
     deadline = None if deadline_seconds is None else began + float(deadline_seconds)
-    search = _Search(problem, week, method, base_days if base_fits else None, deadline)
+    search = _search(problem, week, method, base_days if base_fits else None, deadline)
     classic = week.n == 7 and not search.limited
-    search.variant(1.0, 0.0)
-    if not classic:
-        search.variant(1.0, 0.0, INTERVALS)
-        for scale in DISPATCH_SCALES:
-            for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
-                if search.out_of_time():
-                    break
-                search.variant(scale, penalty)
-        if not search.any_drivable():
-            for penalty in REPAIR_PENALTIES:
-                if search.out_of_time() or search.any_drivable():
-                    break
-                for scale in (1.0, 4.0, 16.0):
-                    search.variant(scale, penalty)
-    search.finish()
     warnings: list[str] = []
     if not base_fits:
         i = int(np.argmin(axis_caps))
@@ -480,9 +515,11 @@ def plan_joint(
     if search.best is None:
         fewest = search.fewest
         need = None if fewest is None else fewest.evaluation.max_trips
+        if need is not None and not search.cut:
+            need = _least_trips_needed(problem, week, method, base_days if base_fits else None, deadline, need)
         message = (
             f"no plan found within {problem.trips_per_day} trip(s) per day"
-            + ("" if need is None else f"; the best candidate needs {need} on its busiest date")
+            + ("" if need is None else f"; {need} trips per day are enough")
         )
         return _infeasible(
             problem,

@@ -192,3 +192,35 @@ def test_vectorised_packing_agrees_with_the_date_packing():
         assert all(q[at][trip[at] == b].sum() <= 1000.0 * (1 + 1e-9) for b in range(n))
         assert all((trip[at] == b).sum() <= 4 for b in range(n))
         assert n >= max(int(np.ceil(q[at].sum() / 1000.0 - 1e-9)), int(np.ceil(at.sum() / 4)))
+
+
+def test_a_deadline_returns_the_best_plan_so_far_with_status_time_limit():
+    sites = _network(60, 9)
+    truck = TruckInput(250.0, capacity=36000.0, max_stops=10, working_days=(1, 2, 3, 4, 5))
+    result = plan_joint(sites, truck, start_date=MONDAY, deadline_seconds=1e-6)
+    assert result.status == Status.TIME_LIMIT and result.success
+    assert any("deadline" in w for w in result.warnings)
+    check_rules(result, sites, truck)
+    full = plan_joint(sites, truck, start_date=MONDAY)
+    assert full.status in (Status.FEASIBLE, Status.OPTIMAL)
+    assert full.cost_per_day <= result.cost_per_day * (1 + 1e-12)
+
+
+def test_plans_are_deterministic():
+    sites = _network(30, 4)
+    truck = TruckInput(250.0, capacity=30000.0, max_stops=6, working_days=(1, 2, 3, 4, 5, 6), trips_per_day=2)
+    assert plan_joint(sites, truck, start_date=MONDAY) == plan_joint(sites, truck, start_date=MONDAY)
+
+
+def test_a_three_day_tank_on_monday_to_friday_gets_three_weekdays():
+    # u = 3 days: every working day is allowed; every 2 working days is not (Friday → Tuesday is 4 days).
+    # Monday, Wednesday, Friday (gaps 2, 2, 3) is allowed and costs (K + k)·3/7 + H·(4+4+9)/7 a day against
+    # (K + k)·5/7 + H·(1+1+1+1+9)/7 every working day (DERIVED from the pattern cost (k n + H Σ g²)/P).
+    site = _site("small", 100.0, 300.0, stop_cost=50.0, holding=0.001)
+    truck = TruckInput(100.0, working_days=(1, 2, 3, 4, 5))
+    result = plan_joint([site], truck, start_date=MONDAY)
+    plan = result.sites[0]
+    assert (plan.period_days, len(plan.delivery_days), plan.longest_gap_days) == (7, 3, 3)
+    H = 0.001 * 100 / 2
+    assert result.cost_per_day == pytest.approx(150 * 3 / 7 + H * 17 / 7, rel=1e-12)
+    check_rules(result, [site], truck)
