@@ -52,7 +52,7 @@ PROBLEM_TYPES: dict[str, str] = {
     "no-sites": "The truck has no active sites to plan (422).",
     "too-many-sites": "More sites than one calculation or plan takes (ULLAGE_MAX_PLAN_SITES) (422).",
     "planning-input": "Parameters the planner cannot plan, e.g. a tank that holds less than a day (422).",
-    "infeasible": "No plan satisfies the limits (422).",
+    "infeasible": "No drivable plan keeps the truck calendar and the tank limits; `needed` says what would help (422).",
     "rate-limited": "Too many planning requests or heavy reads of this token this minute (429).",
     "internal": "Something went wrong in the service; nothing was recorded (500).",
     "database-unavailable": "The database is down or busy; nothing was recorded; retry after `Retry-After` (503).",
@@ -97,6 +97,7 @@ class Problem(Exception):
         errors: Iterable[Mapping[str, str]] = (),
         headers: Mapping[str, str] | None = None,
         title: str | None = None,
+        extensions: Mapping[str, Any] | None = None,
     ) -> None:
         super().__init__(detail)
         self.status = status
@@ -105,6 +106,8 @@ class Problem(Exception):
         self.errors = list(errors)
         self.headers = dict(headers or {})
         self.title = title
+        #: Extension members of the problem type (RFC 9457 §3.2), e.g. ``needed`` of ``infeasible``.
+        self.extensions = dict(extensions or {})
 
 
 def problem_response(
@@ -115,8 +118,12 @@ def problem_response(
     errors: Iterable[Mapping[str, str]] = (),
     headers: Mapping[str, str] | None = None,
     title: str | None = None,
+    extensions: Mapping[str, Any] | None = None,
 ) -> Response:
-    """Build a problem+json response (``kind`` defaults to the status's, :data:`STATUS_KINDS`)."""
+    """Build a problem+json response.
+
+    ``kind`` defaults to the status's (:data:`STATUS_KINDS`); ``extensions`` never replace a standard member.
+    """
     kind = kind or STATUS_KINDS.get(status, "http-error")
     if kind not in PROBLEM_TYPES:
         log.error("undocumented problem kind %r", kind)
@@ -130,6 +137,8 @@ def problem_response(
     errors = list(errors)
     if errors:
         body["errors"] = errors
+    for name, value in (extensions or {}).items():
+        body.setdefault(name, value)
     # Issue 6: the request id goes into problem bodies too (an extension member; clients that do
     # not know it ignore it, RFC 9457 §3.2), besides the X-Request-ID header.
     request_id = g.get("request_id")
@@ -196,7 +205,13 @@ def handle_http_exception(error: HTTPException) -> Response:
 
 def handle_problem(error: Problem) -> Response:
     return problem_response(
-        error.status, error.detail, kind=error.kind, errors=error.errors, headers=error.headers, title=error.title
+        error.status,
+        error.detail,
+        kind=error.kind,
+        errors=error.errors,
+        headers=error.headers,
+        title=error.title,
+        extensions=error.extensions,
     )
 
 

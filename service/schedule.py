@@ -12,6 +12,13 @@ demand, safe-fill level and safety stock and the truck's current capacity and ``
 site that is now inactive, deleted or on another truck gets no stop. A stop whose quantity a
 changed limit cut carries a ``limits_changed`` notice naming the field and both values; a stop
 dropped for ``max_stops`` and a site taken out are reported the same way at the top level.
+
+The calendar: trips are listed by the core's ``trips_between`` on the plan's own weekly pattern
+(its recorded ``working_days`` and ``trips_per_day``), closed on what closes the truck now
+(``service.working_calendar.window_truck``: its closed dates, its region's holidays, weekdays it
+no longer works). A delivery on a closed date moves to an earlier working day with room; where
+none has room the core's warning becomes a ``calendar`` notice naming the date and the sites.
+Trips are numbered within their date (``trip``, from 1).
 """
 
 from __future__ import annotations
@@ -26,6 +33,7 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
+from service import working_calendar
 from service.config import Settings
 from service.persistence import plans as plan_store
 from service.persistence import tanks
@@ -42,6 +50,7 @@ from service.planning.projection import (
 )
 
 WEEK = re.compile(r"^([0-9]{4})-W([0-9]{2})$")
+ISO_DATE = re.compile(r"(?<![0-9])([0-9]{4}-[0-9]{2}-[0-9]{2})(?![0-9])")
 #: Readings older than this many days before the window are not replayed (the projection would
 #: only repeat the plan by then); such a site counts as having no recent reading.
 LOOKBACK_DAYS = 400
@@ -57,7 +66,7 @@ class NoActivePlan(LookupError):
 
 @dataclass(frozen=True)
 class Notice:
-    kind: str  # run_out_risk | limits_changed | plan_stale | no_recent_reading | no_active_plan
+    kind: str  # run_out_risk | limits_changed | plan_stale | no_recent_reading | calendar | no_active_plan
     message: str
     site: str | None = None
     date: dt.date | None = None
@@ -76,6 +85,7 @@ class PlannedStop:
 @dataclass(frozen=True)
 class DayTrip:
     date: dt.date
+    trip: int  # 1-based within its date
     load: float
     capacity: float
     stops: tuple[PlannedStop, ...]
@@ -92,6 +102,7 @@ class PlanSummary:
     start_date: dt.date
     stale: bool
     changed_sites: tuple[str, ...]
+    status: str  # the joint result's: optimal | feasible | time_limit
 
 
 @dataclass(frozen=True)
@@ -143,7 +154,7 @@ def current_week(settings: Settings) -> str:
 
 def summary(session: Session, plan: Plan, drift: plan_store.Drift | None = None) -> PlanSummary:
     drift = drift or plan_store.drift(session, plan)
-    r = plan.result
+    r = plan_store.stored_result(plan)
     return PlanSummary(
         plan.id,
         r["method"],
@@ -154,6 +165,7 @@ def summary(session: Session, plan: Plan, drift: plan_store.Drift | None = None)
         plan.start_date,
         drift.stale,
         tuple(drift.changed_sites),
+        r["status"],
     )
 
 
@@ -238,6 +250,8 @@ class _Replay:
     #: only their stops can carry a stop-level limits_changed.
     room_changed: frozenset[str]
     capacity_shrank: bool
+    #: The core's warnings about closed dates no move could keep within the limits.
+    calendar_warnings: tuple[str, ...]
 
 
 def _served(plan: Plan, drift: plan_store.Drift) -> dict[str, Site]:
@@ -283,13 +297,16 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
     projection = Projection(tanks, truck.capacity, zone, truck.max_stops)
     planned: list[PlannedTrip] = []
     removed: dict[str, list[dt.date]] = {}
+    warnings: tuple[str, ...] = ()
     if sim_last >= plan.start_date:
-        for trip in trips_between(
+        window = trips_between(
             result,
-            plan_store.truck_input(plan.inputs["truck"]),
+            working_calendar.window_truck(plan.inputs["truck"], truck, sim_first, sim_last),
             (sim_first - plan.start_date).days,
             (sim_last - plan.start_date).days,
-        ):
+        )
+        warnings = window.warnings
+        for trip in window.trips:
             date = plan.start_date + dt.timedelta(days=trip.day)
             for stop in trip.stops:
                 if stop.code not in served:
@@ -315,6 +332,7 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
         settings.quantity_unit,
         frozenset(c.code for c in drift.changes if c.subject == "site" and c.field in ROOM_FIELDS),
         truck.capacity < plan.inputs["truck"]["capacity"],
+        warnings,
     )
 
 
@@ -418,6 +436,29 @@ def _limit_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | N
     return out
 
 
+def _named_sites(message: str, codes: Sequence[str]) -> list[str]:
+    """The site codes a core warning names (the core quotes codes in backticks: `A1`)."""
+    quoted = set(re.findall(r"`([^`]+)`", message))
+    return [code for code in codes if code in quoted]
+
+
+def _calendar_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None) -> list[Notice]:
+    """``calendar`` notices: the core's warnings about closed dates in the window (by the first
+    date each names; one that names none is shown in every window)."""
+    out = []
+    for message in replay.calendar_warnings:
+        match = ISO_DATE.search(message)
+        date = dt.date.fromisoformat(match[1]) if match else None
+        if date is not None and not first <= date <= last:
+            continue
+        sites = _named_sites(message, sorted(replay.recorded))
+        if only is not None and only not in sites:
+            continue
+        site = only if only is not None else (sites[0] if len(sites) == 1 else None)
+        out.append(Notice("calendar", f"Truck {replay.truck.code}: {message}", site, date))
+    return out
+
+
 def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
     out: list[Notice] = []
     earliest: dict[str, dt.date] = {}
@@ -436,6 +477,7 @@ def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = 
     for site, date in sorted(earliest.items(), key=lambda item: (item[1], item[0])):
         out.append(_run_out_notice(site, replay.names[site], date))
     out.extend(_limit_notices(replay, first, last, only))
+    out.extend(_calendar_notices(replay, first, last, only))
     if replay.summary.stale and only is None:
         out.append(_stale_notice(replay.plan, replay.drift.changes, replay.unit))
     for code, is_recent in sorted(replay.recent.items()):
@@ -460,12 +502,13 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
     if plan is None:
         raise NoActivePlan(truck.code)
     replay = _replay(session, plan, truck, first, last, settings)
-    trips = tuple(
-        DayTrip(t.date, t.load, truck.capacity, tuple(_stop(replay, s, t.date) for s in t.stops))
-        for t in replay.trips
-        if first <= t.date <= last
-    )
-    return TripsView(truck.code, replay.summary, first, last, trips, tuple(_notices(replay, first, last)))
+    trips, index = [], {}
+    for t in replay.trips:
+        if first <= t.date <= last:
+            index[t.date] = index.get(t.date, 0) + 1
+            stops = tuple(_stop(replay, s, t.date) for s in t.stops)
+            trips.append(DayTrip(t.date, index[t.date], t.load, truck.capacity, stops))
+    return TripsView(truck.code, replay.summary, first, last, tuple(trips), tuple(_notices(replay, first, last)))
 
 
 def _unplanned_levels(
@@ -683,6 +726,7 @@ class SheetStop:
 @dataclass(frozen=True)
 class SheetTrip:
     date: dt.date
+    trip: int  # 1-based within its date (a truck may run several trips a day)
     load: float
     capacity: float
     stops: tuple[SheetStop, ...]
@@ -712,7 +756,7 @@ def load_sheet(session: Session, truck: Truck, sites: Sequence[Site], day: dt.da
             safe_fill_level = site.safe_fill * site.tank_capacity
             room = None if stop.projected_level_before is None else safe_fill_level - stop.projected_level_before
             stops.append(SheetStop(stop, site.latitude, site.longitude, safe_fill_level, room))
-        trips.append(SheetTrip(trip.date, trip.load, trip.capacity, tuple(stops)))
+        trips.append(SheetTrip(trip.date, trip.trip, trip.load, trip.capacity, tuple(stops)))
     codes = {stop.site for trip in view.trips for stop in trip.stops}
     notices = tuple(n for n in view.notices if n.site is None or n.site in codes)
     plan_id = view.plan.id if view.plan is not None else None

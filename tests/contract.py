@@ -13,12 +13,20 @@ JOINT_FIELDS = {
     "lower_bound_per_day",
     "gap",
     "peak_load",
-    "extra_trips",
     "trips_truncated",
     "sites",
     "trips",
     "warnings",
+    # issue 13: the working calendar
+    "start_date",
+    "status",
+    "needed",
 }
+
+#: A truck calendar that constrains nothing (issue 13): every day, up to 24 trips a day, no closed
+#: dates. For tests about something else than the calendar; the API's defaults are Monday to
+#: Friday with one trip a day.
+UNCONSTRAINED_CALENDAR = {"working_days": [1, 2, 3, 4, 5, 6, 7], "trips_per_day": 24}
 
 #: (method, rule) → least role, per issues 2, 4, 5 and 6.
 ROUTE_ROLES = {

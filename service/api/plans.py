@@ -57,11 +57,13 @@ def _plan(plan_id: int) -> Plan:
 def plan_json(plan: Plan, truck_code: str, *, heavy: bool = True) -> dict[str, Any]:
     """A plan: its own fields plus every field of the joint result, at the top level."""
     stale, changed = plan_store.staleness(get_session(), plan)
-    result = {k: v for k, v in plan.result.items() if k not in ("status", "success", "message")}
+    stored = plan_store.stored_result(plan)
+    result = {k: v for k, v in stored.items() if k not in ("status", "success", "message")}
     body = {
         "id": plan.id,
         "truck": truck_code,
         "status": plan.status,
+        "planning_status": stored["status"],
         "stale": stale,
         "changed_sites": changed,
         "start_date": plan.start_date.isoformat(),
@@ -91,23 +93,34 @@ def _snapshot(session, code: str, *, for_update: bool = False) -> tuple[Truck, l
     return truck, sites, plan_store.snapshot(truck, sites)
 
 
-def _planned(inputs: dict[str, Any], body: dict[str, Any]) -> dict[str, Any]:
-    """The joint result for a snapshot, computed in the pool (service.bounded)."""
+def _planned(inputs: dict[str, Any], body: dict[str, Any], start: dt.date) -> dict[str, Any]:
+    """The joint result for a snapshot from ``start`` on its truck's calendar, computed in the pool
+    (service.bounded). An infeasible result is not recorded: 422 with ``needed``."""
     bounded.check_sites(len(inputs["sites"]), "#")
-    options = {"method": body["method"], "base_days": body["base_days"], **bounded.planner_options(plan_joint)}
+    options = {
+        "method": body["method"],
+        "base_days": body["base_days"],
+        "start_date": start,
+        **bounded.planner_options(plan_joint),
+    }
     try:
         result = bounded.run(
             bounded.joint_dict,
             plan_joint,
             plan_store.site_inputs(inputs["sites"]),
-            plan_store.truck_input(inputs["truck"]),
+            plan_store.truck_input(inputs["truck"], start),
             options,
             cancellable=request.headers.get(idempotency.HEADER) is None,
         )
     except PlanningInputError as exc:
         raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
     if not result["success"]:
-        raise Problem(422, f"No plan: {result['message']}", kind="infeasible")
+        raise Problem(
+            422,
+            f"No drivable plan, nothing was recorded: {result['message']}",
+            kind="infeasible",
+            extensions={"needed": result.get("needed")},
+        )
     return result
 
 
@@ -116,14 +129,14 @@ def _record(code: str, body: dict[str, Any]) -> Response:
     # (on SQLite the write transaction would hold the database's one write lock that long). The
     # truck and its sites are then locked and read again: a plan records exactly the versions it
     # was computed from, and when they changed meanwhile it is computed again under the lock.
+    start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
     with read_session() as reading:
         _, _, inputs = _snapshot(reading, code)
-    result = _planned(inputs, body)
+    result = _planned(inputs, body, start)
     session = get_session()
     truck, sites, locked = _snapshot(session, code, for_update=True)
     if locked != inputs:
-        inputs, result = locked, _planned(locked, body)
-    start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
+        inputs, result = locked, _planned(locked, body, start)
     plan = plan_store.add_plan(
         session,
         truck,
@@ -148,7 +161,8 @@ class TruckPlans(MethodView):
     @blp.alt_response(
         422,
         description="Invalid body, no plannable sites, more sites than ULLAGE_MAX_PLAN_SITES, "
-        "or Idempotency-Key reused with another body",
+        "Idempotency-Key reused with another body, or no drivable plan on the truck's calendar "
+        "(type .../infeasible: the detail names the binding limit or sites, `needed` says what would help)",
         **PROBLEM,
     )
     @blp.alt_response(429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM)
@@ -166,12 +180,13 @@ class TruckPlans(MethodView):
         }
     )
     def post(self, body, code):
-        """Compute and record a plan from the truck's active sites (honours Idempotency-Key)
+        """Compute and record a plan from the truck's active sites on its calendar (honours Idempotency-Key)
 
-        Dispatcher or admin. The plan records the exact versions of the truck and sites it was
-        computed from, and starts as `proposed`; activate it to make the weekly trips follow it.
-        Send an Idempotency-Key to retry safely: a repeat returns the first answer (marked with
-        `Ullage-Replayed: true`) and records nothing.
+        Dispatcher or admin. The plan records the exact versions of the truck (with its calendar) and
+        sites it was computed from, and starts as `proposed`; activate it to make the weekly trips
+        follow it. No drivable plan on the truck's calendar records nothing: 422 of type `infeasible`
+        with `needed`. Send an Idempotency-Key to retry safely: a repeat returns the first answer
+        (marked with `Ullage-Replayed: true`) and records nothing.
         """
         key = idempotency.parse_key(request.headers.get(idempotency.HEADER))
         claim = heartbeat = None
@@ -315,6 +330,7 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
         "trips": [
             {
                 "date": t.date.isoformat(),
+                "trip": t.trip,
                 "load": t.load,
                 "stops": [
                     {

@@ -7,8 +7,10 @@
   stock (:func:`service.schedule.tank_stock`, :func:`service.schedule.lowest_first`), with the
   days to empty and the next planned delivery; tanks without a reading last, saying so.
 * ``/status/load-sheet?date=YYYY-MM-DD`` (default tomorrow in the service time zone): one
-  printable A4 page per truck with trips that day (:func:`service.schedule.load_sheet`). Stops
-  follow the plan's site order, which is not a driving order: no route is planned.
+  printable A4 page per truck with trips that day (:func:`service.schedule.load_sheet`), one table
+  per trip (numbered when a truck runs several that day). Trips follow the truck's working calendar;
+  a truck that does not work that day is listed with the reason (weekday off, closed date, holiday).
+  Stops follow the plan's site order, which is not a driving order: no route is planned.
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ from typing import Any
 
 from flask import render_template, request
 
-from service import bounded, schedule
+from service import bounded, schedule, working_calendar
 from service.api.fields import DATE_RANGE, FIRST_DATE, LAST_DATE
 from service.auth import SESSION, allow
 from service.cache import LruCache
@@ -85,7 +87,7 @@ def load_sheet() -> Any:
         if sheet.trips:
             sheets.append((sheet, pages.sheet_warnings(sheet, truck)))
         else:
-            idle.append((truck, "no trip on this day"))
+            idle.append((truck, working_calendar.Calendar.of(truck).off_reason(day) or "no trip on this day"))
     return render_template(
         "status_load_sheet.html",
         day=day,

@@ -12,7 +12,7 @@ from markupsafe import Markup
 from sqlalchemy import select
 from sqlalchemy.exc import DBAPIError
 
-from service import bounded, schedule
+from service import bounded, schedule, working_calendar
 from service.api.fields import FIRST_DATE, LAST_DATE, WEEK_RANGE
 from service.auth import SESSION, allow
 from service.cache import LruCache
@@ -39,6 +39,7 @@ WEEK_CACHE: LruCache[tuple[Markup, Markup]] = LruCache(8)
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
     "limits_changed": ("Limits changed", 1),
+    "calendar": ("Closed date", 1),
     "no_active_plan": ("No active plan", 2),
     "plan_stale": ("Plan out of date", 3),
     "no_recent_reading": ("No recent reading", 4),
@@ -169,7 +170,8 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     all_levels = schedule.truck_levels(db, truck, sites, monday, CHART_DAYS, config)
     for site in sites:
         levels = all_levels[site.code]
-        notices.extend(levels.notices)
+        # The week's calendar notices are the trips view's (one per date, naming every site).
+        notices.extend(n for n in levels.notices if n.kind != "calendar")
         label = f"{site.name} ({site.code})"
         charts.append(
             {
@@ -196,12 +198,13 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
     safety = {code: levels.safety_stock for code, levels in all_levels.items()}
     notes = {
-        (trip.date, stop.site): _stop_notes(stop, safety.get(stop.site, 0.0))
+        (trip.date, trip.trip, stop.site): _stop_notes(stop, safety.get(stop.site, 0.0))
         for trip in (view.trips if view is not None else ())
         for stop in trip.stops
     }
     return {
         "truck": truck,
+        "calendar": working_calendar.Calendar.of(truck).describe(),
         "view": view,
         "plan": plan,
         "gap": gap,
@@ -265,6 +268,7 @@ def _broken_panel(truck: Truck) -> dict[str, Any]:
     )
     return {
         "truck": truck,
+        "calendar": None,
         "view": None,
         "plan": None,
         "gap": None,

@@ -9,6 +9,7 @@ from __future__ import annotations
 import threading
 
 import pytest
+from contract import UNCONSTRAINED_CALENDAR
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from sqlalchemy import func, select, update
@@ -25,7 +26,9 @@ HEADER = "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity,sa
 
 
 def truck(code: str, capacity: float) -> dict:
-    return {"code": code, "name": f"Truck {code}", "dispatch_cost": 150.0, "capacity": capacity}
+    # Every day, many trips: these tests are about the one-day rule, not the calendar (a tank of one
+    # day cannot last a weekend).
+    return {"code": code, "name": f"Truck {code}", "dispatch_cost": 150.0, "capacity": capacity, **UNCONSTRAINED_CALENDAR}
 
 
 def site(code: str, truck_code: str = "T1", **extra) -> dict:

@@ -263,3 +263,41 @@ def test_no_ui_loading_assets_from_the_internet(client, auth):
         response = client.get(path, headers=auth("viewer"))
         if response.status_code == 200:
             assert b"https://" not in response.get_data() and b"//cdn" not in response.get_data(), path
+
+
+def _body_schema(spec, path, method, status=None):
+    operation = spec["paths"][path][method]
+    part = operation["requestBody"] if status is None else operation["responses"][status]
+    return _resolve(spec, _resolve(spec, part)["content"]["application/json"]["schema"])
+
+
+def test_issue_13_calendar_fields_and_statuses_are_described(spec):
+    calendar = {"working_days", "trips_per_day", "closed_dates", "holiday_region"}
+    for path, method in (("/api/v1/trucks", "post"), ("/api/v1/calculations/joint", "post")):
+        properties = _body_schema(spec, path, method)["properties"]
+        assert calendar <= set(properties), (path, calendar - set(properties))
+        for name in calendar:
+            assert properties[name].get("description"), (path, name)
+        assert properties["trips_per_day"]["minimum"] == 1 and properties["trips_per_day"]["maximum"] == 24
+        assert properties["working_days"]["items"]["minimum"] == 1
+        assert properties["working_days"]["items"]["maximum"] == 7
+        assert properties["closed_dates"]["maxItems"] == 1000
+        assert properties["working_days"]["uniqueItems"] and properties["closed_dates"]["uniqueItems"]
+    assert "start_date" in _body_schema(spec, "/api/v1/calculations/joint", "post")["properties"]
+    result = _body_schema(spec, "/api/v1/calculations/joint", "post", "200")["properties"]
+    assert set(result["status"]["enum"]) == {"optimal", "feasible", "infeasible", "time_limit"}
+    assert {"start_date", "needed"} <= set(result) and "extra_trips" not in result
+    trip = _resolve(spec, result["trips"]["items"])["properties"]
+    assert {"date", "trip"} <= set(trip)
+    trips = _body_schema(spec, "/api/v1/trucks/{code}/trips", "get", "200")["properties"]
+    notice = _resolve(spec, trips["warnings"]["items"])["properties"]
+    assert "calendar" in notice["kind"]["enum"]
+
+
+def test_issue_13_holiday_regions_are_the_installed_packages(spec):
+    import holidays  # noqa: PLC0415
+
+    region = _body_schema(spec, "/api/v1/trucks", "post")["properties"]["holiday_region"]
+    supported = holidays.list_supported_countries(include_aliases=False)
+    assert {"GB", "GB-SCT", "US-NY", "DE-BY", None} <= set(region["enum"])
+    assert {c for c in region["enum"] if c and "-" not in c} == {c for c in supported if len(c) == 2}

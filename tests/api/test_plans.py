@@ -78,9 +78,10 @@ def patch_site(client, auth, code, **changes):
 
 
 def recorded_numbers(body):
+    # A plan's `status` is its own (proposed, active, superseded); its result's is `planning_status`.
+    fields = (JOINT_FIELDS - {"status"}) | {"planning_status"}
     return {
-        k: body[k]
-        for k in (*JOINT_FIELDS, "inputs", "inputs_digest", "start_date", "created_at", "created_by", "id", "truck")
+        k: body[k] for k in (*fields, "inputs", "inputs_digest", "start_date", "created_at", "created_by", "id", "truck")
     }
 
 

@@ -14,7 +14,7 @@ from service.api.fields import (
     Range,
 )
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.calculations import JointFieldsSchema
+from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema
 
 PLAN_METHODS = ("power_of_two", "integer", "best")
@@ -26,7 +26,10 @@ class PlanRequestSchema(StrictSchema):
     start_date = BoundedDate(
         load_default=None,
         allow_none=True,
-        metadata={"description": f"First day of the plan's calendar (default: today), {DATE_RANGE}"},
+        metadata={
+            "description": "Day 0 of the plan's calendar (default: today in the service time zone), "
+            f"{DATE_RANGE}; the plan uses the truck's stored calendar from this day"
+        },
     )
 
 
@@ -40,6 +43,10 @@ class PlanSchema(JointFieldsSchema):
             "follow), superseded (was active; may be activated again)"
         },
     )
+    planning_status = ma.fields.String(
+        validate=ma.validate.OneOf([s for s in STATUSES if s != "infeasible"]),
+        metadata={"description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION},
+    )
     stale = ma.fields.Boolean(
         metadata={"description": "True when a truck or site input changed since the plan was computed"}
     )
@@ -50,7 +57,9 @@ class PlanSchema(JointFieldsSchema):
     created_at = ma.fields.DateTime()
     created_by = ma.fields.String(metadata={"description": "Name of the token that recorded the plan"})
     inputs = ma.fields.Dict(
-        metadata={"description": "Snapshot of the truck's and every site's parameters with versions"}
+        metadata={
+            "description": "Snapshot of the truck's (with its calendar) and every site's parameters with versions"
+        }
     )
     inputs_digest = ma.fields.String(metadata={"description": "SHA-256 of the canonical JSON of inputs"})
 
@@ -78,7 +87,7 @@ class TripsQueryArgsSchema(StrictSchema):
     to = BoundedDate(metadata={"description": f"Last day, {DATE_RANGE}"})
 
 
-NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading")
+NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading", "calendar")
 
 
 class NoticeSchema(ma.Schema):
@@ -90,7 +99,10 @@ class NoticeSchema(ma.Schema):
             "safety_stock, capacity, max_stops, active) and cut this stop's quantity, dropped a stop or "
             "took a site out; the message names the field and both values; plan_stale: the plan's "
             "inputs changed (the message names which fields of which sites or truck); "
-            "no_recent_reading: the site's quantities are not corrected by a recent reading"
+            "no_recent_reading: the site's quantities are not corrected by a recent reading; "
+            "calendar: deliveries fall on a date the truck does not work (a closed date, a holiday of its "
+            "holiday_region, or a weekday it no longer works) and no earlier working day has room for "
+            "them within the truck's and the tanks' limits; the message names the date and the sites"
         },
     )
     message = ma.fields.String(metadata={"description": "The notice for a person: the site, the date, what to do"})
@@ -127,6 +139,7 @@ class DatedStopSchema(ma.Schema):
 
 class DatedTripSchema(ma.Schema):
     date = ma.fields.Date(metadata={"description": "Delivery day (service time zone)"})
+    trip = ma.fields.Integer(metadata={"description": "1-based index of the trip within its date"})
     load = ma.fields.Float(metadata={"description": "Sum of the stops' quantity: what the truck carries out"})
     stops = ma.fields.List(ma.fields.Nested(DatedStopSchema), metadata={"description": "The stops, in plan order"})
 

@@ -24,3 +24,10 @@ class ProblemSchema(ma.Schema):
     instance = ma.fields.String()
     request_id = ma.fields.String()
     errors = ma.fields.List(ma.fields.Nested(ProblemErrorSchema))
+    needed = ma.fields.Dict(
+        allow_none=True,
+        metadata={
+            "description": "Problem type `infeasible` (recording a plan): what would make the plan feasible, "
+            "`{trips_per_day, remove_sites}` as in the joint calculation's `needed`"
+        },
+    )

@@ -4,10 +4,11 @@ import marshmallow as ma
 
 from service.api.fields import JsonBool, JsonFloat, JsonInt, Range
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.common import StrictSchema, code_field_validate, name_validate, nonnegative, positive
+from service.api.schemas.calendar import CalendarSchema
+from service.api.schemas.common import code_field_validate, name_validate, nonnegative, positive
 
 
-class TruckSchema(StrictSchema):
+class TruckSchema(CalendarSchema):
     code = ma.fields.String(required=True, validate=code_field_validate)
     name = ma.fields.String(required=True, validate=name_validate)
     dispatch_cost = JsonFloat(
