@@ -6,6 +6,12 @@ unit per day, stop cost 5–50, dispatch cost 200, no truck limits. Times are th
 several repeats of the numerical core on validated arrays; validation of the Python input
 objects is timed separately. Every time is also given as a multiple of ``numpy.sort`` of
 ``n`` floats timed in the same run.
+
+The last table times ``plan_joint`` end to end with the truck's limits set (issue 13): the same
+networks (1 000 and 10 000 sites) on a Mon–Fri truck with three trips a day, a capacity ``W`` and
+a stop limit ``S`` sized so that the load and the stops each need 60 % of the trips the calendar
+offers (``W = D / (0.6 · 3 · 5/7)``, ``S = ⌈Σ 1/⌊U_i⌋ / (0.6 · 3 · 5/7)⌉``; both cuts bind), as a
+ratio to the same network without limits in the same run. Targets: ≤ 2 s and ≤ 20 s.
 """
 
 from __future__ import annotations
@@ -40,6 +46,9 @@ from service.planning.relaxation import relaxation_of  # noqa: E402
 from service.planning.staggering import site_weights, stagger  # noqa: E402
 
 SIZES = (10, 100, 1_000, 10_000, 100_000)
+LIMITED_SIZES = (1_000, 10_000)
+#: Share of the calendar's trips that the load and the stops each need in the limited rows.
+UTILISATION = 0.6
 
 
 def instance(n: int, seed: int = 7):
@@ -50,6 +59,16 @@ def instance(n: int, seed: int = 7):
     k = rng.uniform(5, 50, n)
     sites = [SiteInput(f"s{i}", float(d[i]), float(h[i]), float(k[i]), float(d[i] * U[i] / 0.9)) for i in range(n)]
     return sites, TruckInput(200.0)
+
+
+def limited(sites):
+    """The truck of the limits rows: Mon–Fri, three trips a day, ``W`` and ``S`` as in the docstring."""
+    offered = 3 * 5 / 7
+    D = sum(s.demand_per_day for s in sites)
+    W = D / (UTILISATION * offered)
+    whole = [math.floor(s.tank_capacity * s.safe_fill / s.demand_per_day + 1e-9) for s in sites]
+    S = math.ceil(sum(1 / u for u in whole) / (UTILISATION * offered))
+    return TruckInput(200.0, capacity=W, max_stops=S, working_days=(1, 2, 3, 4, 5), trips_per_day=3)
 
 
 def best_time(fn, repeats: int) -> float:
@@ -137,6 +156,21 @@ def main() -> None:
     print(
         f"plan_joint(method='best') end to end at n = 100 000 (validation, both methods, staggering, listing): {t_full:.2f} s"
     )
+
+    print()
+    print("| n | limits (W, S, Mon–Fri, 3 trips a day) | no limits | ratio | status | gap | target |")
+    print("|---|---|---|---|---|---|---|")
+    for n in LIMITED_SIZES:
+        sites, plain = instance(n)
+        truck = limited(sites)
+        t_plain = best_time(lambda: plan_joint(sites, plain), 1)
+        t_limits = best_time(lambda: plan_joint(sites, truck), 1)
+        result = plan_joint(sites, truck)
+        target = 2.0 if n == 1_000 else 20.0
+        print(
+            f"| {n} (W = {truck.capacity:.0f}, S = {truck.max_stops}) | {t_limits:.2f} s | {t_plain:.2f} s | "
+            f"{t_limits / t_plain:.1f}× | {result.status.name.lower()} | {result.gap * 100:.1f} % | ≤ {target:.0f} s |"
+        )
 
     sites, truck = instance(200, seed=11)
     problem = validate(sites, truck)

@@ -28,7 +28,7 @@ import numpy as np
 from scipy.optimize import Bounds, LinearConstraint, milp
 from scipy.sparse import coo_matrix
 
-from tests.unit.planning.drivable_oracle import whole_day_cap
+from .drivable_oracle import whole_day_cap
 
 
 @dataclass(frozen=True)
@@ -110,6 +110,10 @@ def exact_optimum(sites, truck, start: dt.date, period: int, *, time_limit: floa
     if L is not None:
         for i in range(n):
             upper[L[i].ravel()] = qmax[i]
+    for i in range(n):  # symmetry: trips of a date ordered by their first site, so site i rides on trips ≤ i
+        upper[y[i, :, i + 1 :].ravel()] = 0
+        if L is not None:
+            upper[L[i, :, i + 1 :].ravel()] = 0
     c = np.zeros(cols)
     c[z.ravel()] = truck.dispatch_cost
     for i in range(n):
@@ -160,7 +164,7 @@ def exact_optimum(sites, truck, start: dt.date, period: int, *, time_limit: floa
         constraints=LinearConstraint(A, lo, hi),
         integrality=integral,
         bounds=Bounds(np.zeros(cols), upper),
-        options={"time_limit": time_limit, "mip_rel_gap": 1e-9},
+        options={"time_limit": time_limit, "mip_rel_gap": 1e-6},
     )
     if res.status == 2:  # infeasible
         return None

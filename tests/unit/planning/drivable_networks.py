@@ -34,7 +34,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from service.planning import SiteInput, TruckInput
-from tests.unit.planning.drivable_oracle import bound_caps, convex_solve
+
+from .drivable_oracle import bound_caps, convex_solve
 
 KINDS = {
     # kind: (tank range, use range, safety stock as fraction of tank or litres, price, stop cost)

@@ -11,9 +11,10 @@ from types import SimpleNamespace as NS
 import pytest
 
 from service.planning import SiteInput, TruckInput
-from tests.unit.planning.drivable_exact import as_result, brute_force_optimum, exact_optimum
-from tests.unit.planning.drivable_networks import network
-from tests.unit.planning.drivable_oracle import check_plan, convex_solve, reference_bound
+
+from .drivable_exact import as_result, brute_force_optimum, exact_optimum
+from .drivable_networks import network
+from .drivable_oracle import check_plan, convex_solve, reference_bound
 
 MONDAY = dt.date(2026, 12, 7)
 WEEKDAYS = (1, 2, 3, 4, 5)
