@@ -201,6 +201,39 @@ def _check_closures(result, sites, truck) -> None:
             )
 
 
+def check_window(result, sites, truck, first_day: int, last_day: int) -> None:
+    """Rules 1–2 on ``trips_between(result, truck, first_day, last_day)``: every trip drivable, and inside
+    the window each delivery brings ``d_i ×`` the days to the site's next delivery, gaps within the caps;
+    without closures the window repeats the listed period (day ``t`` as day ``t mod R``)."""
+    from service.planning import trips_between
+
+    window = trips_between(result, truck, first_day, last_day)
+    assert all(first_day <= t.day <= last_day for t in window.trips), "trips_between lists days outside its window"
+    sites_by_code = {s.code: s for s in sites}
+    deliveries = _check_trips(window.trips, sites_by_code, truck, result.start_date, f"window {first_day}..{last_day}")
+    warned = " ".join(window.warnings)
+    for code, ds in deliveries.items():
+        site, cap = sites_by_code[code], whole_day_cap(sites_by_code[code], truck)
+        for a, b in zip(ds, ds[1:], strict=False):
+            g = b.day - a.day
+            ok = g <= cap and _close(a.quantity, site.demand_per_day * g)
+            assert ok or code in warned, (
+                f"window: site {code} day {a.day} brings {a.quantity!r} for a gap of {g} (cap {cap})"
+            )
+    if not _closed(truck) and not result.trips_truncated:
+        R = result.repeat_days
+        listed = sorted((t.day, t.trip, tuple((s.code, s.quantity) for s in t.stops)) for t in result.trips)
+        by_day = {}
+        for day, trip, stops in listed:
+            by_day.setdefault(day, []).append((trip, stops))
+        for t in window.trips:
+            want = dict(by_day.get(t.day % R, []))
+            got = tuple((s.code, s.quantity) for s in t.stops)
+            assert t.trip in want and [c for c, _ in want[t.trip]] == [c for c, _ in got], (
+                f"window day {t.day}: trip {t.trip} {got} is not listed day {t.day % R}'s {want.get(t.trip)}"
+            )
+
+
 def check_infeasible(result, sites) -> None:
     """Rule 5: the shape of an infeasible answer."""
     assert result.status.name == "INFEASIBLE", f"status {result.status!r} on an unsuccessful result"

@@ -17,7 +17,7 @@ from service.planning import SiteInput, Status, TruckInput, plan_joint
 
 from .brute_force import class_costs, integer_multiples, powers_of_two
 from .drivable_networks import longest_closed_stretch, network
-from .drivable_oracle import check_plan, reference_bound, whole_day_cap
+from .drivable_oracle import check_plan, check_window, reference_bound, whole_day_cap
 
 SETTINGS = settings(max_examples=int(os.environ.get("PLANNING_EXAMPLES", "100")) // 2, deadline=None)
 CALENDARS = ((1, 2, 3, 4, 5), (1, 2, 3, 4, 5, 6), (1, 2, 3, 4, 5, 6, 7), (1, 3, 5), (2, 3, 4, 6, 7), (6, 7))
@@ -110,6 +110,7 @@ def test_every_plan_keeps_rules_1_to_5(problem):
         assert not result.success, f"a plan where none exists ({reason})"
     if result.success:
         check_rule_4(result, sites, truck)
+        check_window(result, sites, truck, result.repeat_days - 3, result.repeat_days + 20)
     else:
         check_needed(result, sites, truck, start)
 
