@@ -421,7 +421,7 @@ def lagrangian_bound(sites, truck, alpha: float, beta: float, gamma: float) -> f
 
 
 def dual_bound(sites, truck) -> tuple[float, tuple[float, float, float]]:
-    """``max`` of :func:`lagrangian_bound` over the weights: a grid of step 0.05 refined by
+    """``max`` of :func:`lagrangian_bound` over the weights: a grid of step 0.1 refined by
     Nelder–Mead (the function is concave in the weights). Weak duality makes every value a valid
     bound; drivable-bound.md reports that the maximum equals the direct convex solve."""
     absent_load, absent_stops = truck.capacity is None, truck.max_stops is None
@@ -438,7 +438,7 @@ def dual_bound(sites, truck) -> tuple[float, tuple[float, float, float]]:
     def g(ab) -> float:
         return lagrangian_bound(sites, truck, *weights(ab))
 
-    grid = [(a, b) for a in np.linspace(0, 1, 21) for b in np.linspace(0, 1, 21) if a + b <= 1 + 1e-12]
+    grid = [(a, b) for a in np.linspace(0, 1, 11) for b in np.linspace(0, 1, 11) if a + b <= 1 + 1e-12]
     start = max(grid, key=g)
     res = minimize(
         lambda ab: -g(ab),
