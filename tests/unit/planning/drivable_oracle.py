@@ -109,7 +109,8 @@ def _check_period(result, sites, truck) -> None:
     if closed_in_window:  # the listing has closures applied; the cost is that of the plain period
         from service.planning import trips_between
 
-        trips = trips_between(result, replace(truck, closed_dates=()), 0, R - 1).trips
+        truck = replace(truck, closed_dates=())
+        trips = trips_between(result, truck, 0, R - 1).trips
         where = "trips_between without closures"
     assert all(0 <= t.day < R for t in trips), f"{where}: a trip outside days 0..{R - 1}"
     deliveries = _check_trips(trips, sites_by_code, truck, result.start_date, where)

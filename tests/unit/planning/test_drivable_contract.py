@@ -10,7 +10,7 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import given, note, settings
 from hypothesis import strategies as st
 
 from service.planning import SiteInput, Status, TruckInput, plan_joint
@@ -38,18 +38,21 @@ def drivable_problems(draw):
         trips_per_day=draw(st.none() | st.integers(1, 3)),
         closed_dates=closed,
     )
-    sites = [
-        SiteInput(
-            f"site-{i}",
-            demand[i],
-            draw(st.floats(0, 0.02)),
-            draw(st.floats(0, 100)),
-            demand[i] * draw(st.floats(1.001, 25.0)) / 0.9 + draw(st.floats(0, 50)),
-            safe_fill=0.9,
-            safety_stock=draw(st.sampled_from([0.0, 5.0])),
+    sites = []
+    for i in range(n):
+        stock = draw(st.sampled_from([0.0, 5.0]))
+        usable = demand[i] * draw(st.floats(1.001, 25.0)) + draw(st.floats(0, 50))
+        sites.append(
+            SiteInput(
+                f"site-{i}",
+                demand[i],
+                draw(st.floats(0, 0.02)),
+                draw(st.floats(0, 100)),
+                (usable + stock) / 0.9,
+                safe_fill=0.9,
+                safety_stock=stock,
+            )
         )
-        for i in range(n)
-    ]
     return sites, truck, start
 
 
@@ -102,6 +105,7 @@ def check_needed(result, sites, truck, start) -> None:
 @given(drivable_problems())
 def test_every_plan_keeps_rules_1_to_5(problem):
     sites, truck, start = problem
+    note(f"sites={sites!r}, truck={truck!r}, start={start!r}")
     result = plan_joint(sites, truck, start_date=start)
     assert result.start_date == start
     check_plan(result, sites, truck)
