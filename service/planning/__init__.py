@@ -35,7 +35,7 @@ from service.planning.consumption import (
     safety_stock,
     safety_stock_for_fill_rate,
 )
-from service.planning.dispatch_window import trips_between
+from service.planning.dispatch_window import TripWindow, trips_between
 from service.planning.errors import PlanningInputError
 from service.planning.inputs import SiteInput, TruckInput
 from service.planning.joint import plan_joint
@@ -62,6 +62,7 @@ __all__ = [
     "Status",
     "Stop",
     "Trip",
+    "TripWindow",
     "TruckInput",
     "consumption_drift",
     "degree_day_series",
