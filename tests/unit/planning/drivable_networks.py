@@ -18,7 +18,9 @@ day with 1–3 trips a day, some networks with a list of closed dates (public ho
 A dispatcher gives a truck what it can carry: when the relaxation's trip rate (the most of
 ``1/T0``, ``D/W`` and ``Σ 1/(S U'_i)``) exceeds 75 % of the trips the calendar offers, demands are
 scaled down; every tank lasts the calendar's longest closed stretch (demand capped so that
-``⌊U'_i⌋`` ≥ stretch + 1). So every network is feasible.
+``⌊U'_i⌋`` ≥ stretch + 1); then sites are taken off until :func:`witness_plan` finds a plain
+drivable plan. So every network is feasible (an infeasible answer on one is wrong), and the
+witness's cost is a naive upper bound on its optimum.
 
 Classes: **truck-binding** when the load or stop cut raises the bound of
 ``shared/reference/drivable-bound.md`` (by more than 0.1 %); **calendar-binding** when fewer than
@@ -35,7 +37,7 @@ import numpy as np
 
 from service.planning import SiteInput, TruckInput
 
-from .drivable_oracle import bound_caps, convex_solve
+from .drivable_oracle import bound_caps, convex_solve, whole_day_cap
 
 KINDS = {
     # kind: (tank range, use range, safety stock as fraction of tank or litres, price, stop cost)
@@ -150,10 +152,80 @@ def network(seed: int, n: int | None = None, *, classified: bool = True) -> Netw
         sites = [_scaled(s, 0.9) for s in sites]
     else:  # pragma: no cover - the scaling always converges on these ranges
         raise AssertionError(f"network {seed}: demand could not be brought within the calendar")
+    for _ in range(200):  # a dispatcher takes sites off until a plain plan of 28 days exists
+        if witness_plan(sites, truck, start) is not None:
+            break
+        sites = sites[:-1]
+    else:  # pragma: no cover
+        raise AssertionError(f"network {seed}: no witness plan")
     truck_binding = calendar_binding = False
     if classified:
         truck_binding, calendar_binding = classify(sites, truck)
     return Network(seed, tuple(sites), truck, start, calendar, truck_binding, calendar_binding)
+
+
+WITNESS_DAYS = 28
+
+
+def witness_plan(sites, truck, start: dt.date) -> float | None:
+    """The cost per day of a plain drivable plan of 28 days, or ``None`` when this construction fails.
+
+    A witness that the network is feasible (so an infeasible answer is wrong) and a naive upper bound on
+    its optimum. Each site is delivered every 28, 14 or 7 days (the longest its whole-day cap allows) on
+    one working day chosen greedily (heaviest first, where the largest of the affected dates' load and
+    stop shares is least), or on every working day when its cap is under 7 days (which needs a cap of at
+    least the longest weekly closed stretch + 1). Each date is packed by first-fit decreasing within
+    ``W`` and ``S``; the construction fails when a date needs more than ``trips_per_day`` trips or a gap
+    exceeds a cap. Closed dates are not applied (they are exceptions to the periodic plan).
+    """
+    R = WITNESS_DAYS
+    work = [t for t in range(R) if (start + dt.timedelta(days=t)).isoweekday() in truck.working_days]
+    if not work:
+        return None
+    W = truck.capacity or math.inf
+    S = truck.max_stops or math.inf
+    load = np.zeros(R)
+    stops = np.zeros(R)
+    items: list[list[float]] = [[] for _ in range(R)]
+    cost = 0.0
+    order = sorted(sites, key=lambda s: -s.demand_per_day)
+    for site in order:
+        cap = whole_day_cap(site, truck)
+        cycle = next((c for c in (28, 14, 7) if cap >= c), None)
+        if cycle is None:
+            days = work
+            gaps = [b - a for a, b in zip(work, work[1:], strict=False)] + [work[0] + R - work[-1]]
+            if max(gaps) > cap:
+                return None
+        else:
+
+            def share(t0, c=cycle, q=site.demand_per_day * cycle):
+                return max((load[t] + q) / W + (stops[t] + 1) / S for t in range(t0, R, c))
+
+            t0 = min((t for t in work if t < cycle), key=share)
+            days = list(range(t0, R, cycle))
+            gaps = [cycle] * len(days)
+        for t, g in zip(days, gaps, strict=True):
+            q = site.demand_per_day * g
+            load[t] += q
+            stops[t] += 1
+            items[t].append(q)
+            cost += site.stop_cost + site.holding_cost * site.demand_per_day * g * g / 2
+    trips = 0
+    for t in work:
+        bins: list[list[float]] = []
+        for q in sorted(items[t], reverse=True):
+            for b in bins:
+                if b[0] + q <= W * (1 + 1e-12) and b[1] + 1 <= S:
+                    b[0] += q
+                    b[1] += 1
+                    break
+            else:
+                bins.append([q, 1])
+        if truck.trips_per_day is not None and len(bins) > truck.trips_per_day:
+            return None
+        trips += len(bins)
+    return (cost + truck.dispatch_cost * trips) / R
 
 
 def _scaled(site: SiteInput, factor: float) -> SiteInput:

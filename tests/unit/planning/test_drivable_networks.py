@@ -6,8 +6,8 @@ import datetime as dt
 
 import pytest
 
-from .drivable_networks import CALENDARS, longest_closed_stretch, network, trip_rate
-from .drivable_oracle import whole_day_cap
+from .drivable_networks import CALENDARS, longest_closed_stretch, network, trip_rate, witness_plan
+from .drivable_oracle import reference_bound, whole_day_cap
 
 
 def test_the_same_seed_gives_the_same_network():
@@ -27,10 +27,14 @@ def test_longest_closed_stretch_counts_weekends_and_holidays():
 def test_networks_are_within_their_ranges_and_drivable_by_construction(seed):
     net = network(seed, classified=False)
     truck = net.truck
-    assert 5 <= len(net.sites) <= 150
+    assert 3 <= len(net.sites) <= 150
     assert 20_000 <= truck.capacity <= 38_000 and 6 <= truck.max_stops <= 12 and 150 <= truck.dispatch_cost <= 400
     assert truck.working_days == CALENDARS[net.calendar] and 1 <= truck.trips_per_day <= 3
     assert all(0.90 <= s.safe_fill <= 0.95 and s.safety_stock < s.tank_capacity * s.safe_fill for s in net.sites)
     stretch = longest_closed_stretch(truck.working_days, truck.closed_dates, net.start_date)
     assert all(whole_day_cap(s, truck) >= stretch + 1 for s in net.sites)
     assert trip_rate(net.sites, truck) <= 0.75 * truck.trips_per_day * len(truck.working_days) / 7
+    witness = witness_plan(net.sites, truck, net.start_date)  # a drivable plan exists
+    assert witness is not None
+    # the witness is a drivable plan, so the reference bound lies below it (rule 4, drivable-bound.md)
+    assert reference_bound(net.sites, truck, primal=False).value <= witness * (1 + 1e-9)
