@@ -59,6 +59,8 @@ def main(count: int = 150) -> None:
     violations = []
     start_all = time.perf_counter()
     for seed in range(count):
+        if seed % 10 == 0:
+            print(f"… network {seed} at {time.perf_counter() - start_all:.0f} s", file=sys.stderr, flush=True)
         net = network(seed)
         t0 = time.perf_counter()
         best = plan_joint(net.sites, net.truck, start_date=net.start_date)
