@@ -9,7 +9,8 @@ the same sum anyone gets from the listed trips (a stop of ``q = d g`` holds ``h 
 Without a load or stop limit a date is one trip, so the trips are the distinct delivery dates; a plain
 policy whose cycles are multiples of ``T0 = min T_i`` with offsets on multiples of ``T0`` (the classic
 policies) has exactly ``R / T0`` of them, which is used when ``R`` is too long to materialise (its peak
-load is then evaluated over the first ``EVALUATED_DAYS`` days, with a warning).
+load is then evaluated over the first ``EVALUATED_DAYS`` days, with a warning). With one stop per trip
+every delivery is a trip, which is also counted exactly whatever ``R``.
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from service.planning.inputs import Problem
-from service.planning.packing import pack
+from service.planning.packing import least_trips, pack
 from service.planning.patterns import Patterns
 
 #: Most deliveries materialised to evaluate one candidate.
@@ -44,6 +45,7 @@ class Evaluation:
     site_stops: np.ndarray
     site_holding: np.ndarray
     warnings: tuple[str, ...] = ()
+    exact: bool = True
 
     @property
     def cost(self) -> float:
@@ -70,25 +72,48 @@ def _classic_long(problem: Problem, patterns: Patterns, repeat: int):
         f"the repeat period has {repeat // T0} dispatch days; the peak load was evaluated over the first "
         f"{EVALUATED_DAYS}",
     )
-    return repeat // T0, float(load.max()), T0, warnings
+    return repeat // T0, float(load.max()), T0, warnings, 1
 
 
-def evaluate(problem: Problem, patterns: Patterns, limited: bool) -> Evaluation | None:
-    """Exact evaluation of ``patterns`` (None when too long to evaluate with a load or stop limit)."""
+def _alone_long(problem: Problem, patterns: Patterns, repeat: int):
+    """One stop per trip: every delivery is a trip of its own (each fits: ``d_i g ≤ q_i ≤ W``), so the
+    trips are the deliveries, counted exactly; the busiest date and the shortest gap between trip
+    dates are taken over the first ``EVALUATED_DAYS`` days (with a warning)."""
+    day, site, gap = patterns.deliveries(0, min(repeat, EVALUATED_DAYS) - 1)
+    dates, per_date = np.unique(day, return_counts=True)
+    warnings = (
+        f"the repeat period has {repeat} days; the busiest date and the shortest gap between trip dates were "
+        f"evaluated over the first {EVALUATED_DAYS}",
+    )
+    peak = float((problem.demand[patterns.site] * patterns.gap).max())
+    return patterns.deliveries_per_repeat(), peak, _interval(dates, repeat), warnings, int(per_date.max())
+
+
+def evaluate(problem: Problem, patterns: Patterns, limited: bool, exact: bool = True) -> Evaluation | None:
+    """Evaluation of ``patterns`` (None when too long to evaluate with a load or stop limit).
+
+    With ``exact=False`` the trips of each date are the lower bound ``max(⌈load / W⌉, ⌈count / S⌉, 1)``
+    (no packing): a lower bound on the exact cost, used to rank candidates cheaply.
+    """
     repeat = patterns.repeat
     site_stops, site_holding = patterns.site_costs(problem.stop_cost, problem.H)
     stops, holding = float(site_stops.sum()), float(site_holding.sum())
     warnings: tuple[str, ...] = ()
+    long = None
     if patterns.deliveries_per_repeat() > MAX_EVALUATED_DELIVERIES:
-        long = None if limited else _classic_long(problem, patterns, repeat)
+        long = _alone_long(problem, patterns, repeat) if problem.max_stops == 1 else None
+        if not limited:
+            long = _classic_long(problem, patterns, repeat)
         if long is None:
             return None
-        trips, peak, interval, warnings = long
-        max_trips = 1
+        trips, peak, interval, warnings, max_trips = long
     else:
         day, site, gap = patterns.deliveries(0, repeat - 1)
         quantity = problem.demand[site] * gap
-        if limited:
+        if limited and not exact:
+            _, _, dates, per_date = least_trips(day, quantity, problem.capacity, problem.max_stops)
+            peak = min(float(quantity.max()), problem.capacity)
+        elif limited:
             trip, dates, per_date = pack(day, site, quantity, problem.capacity, problem.max_stops)
             key = day * int(per_date.max()) + trip
             _, inverse = np.unique(key, return_inverse=True)
@@ -111,6 +136,7 @@ def evaluate(problem: Problem, patterns: Patterns, limited: bool) -> Evaluation 
         site_stops=site_stops,
         site_holding=site_holding,
         warnings=warnings,
+        exact=exact or not limited or long is not None,
     )
 
 

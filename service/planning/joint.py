@@ -17,12 +17,12 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from service.planning.cycle_cost import cycle_cost
+from service.planning.cycle_cost import best_multiple, cycle_cost
 from service.planning.dispatch_window import Limits, window_trips
 from service.planning.errors import PlanningInputError
 from service.planning.evaluation import Evaluation, evaluate, limited
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
-from service.planning.integer_multiple import integer_policy
+from service.planning.integer_multiple import integer_policies_by_interval, integer_policy
 from service.planning.patterns import Patterns, from_working_cycles
 from service.planning.policy import Policy
 from service.planning.power_of_two import power_of_two_policy
@@ -37,7 +37,9 @@ LISTED_DAYS = 3660
 #: Stops listed in ``JointResult.trips`` at most (whole days; keeps 100 000-site results small).
 LISTED_STOPS = 200_000
 #: Truck-aware variants: dispatch cost scale and extra stop cost in units of ``K / S``.
-DISPATCH_SCALES = (1.0, 0.5, 2.0, 0.25, 4.0)
+DISPATCH_SCALES = (1.0, 0.5, 2.0, 0.0, 0.25, 4.0)
+#: Other dispatch intervals of the integer class evaluated exactly.
+INTERVALS = 8
 STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
 #: Further stop penalties tried only when no candidate fits ``trips_per_day``.
 REPAIR_PENALTIES = (16.0, 32.0, 64.0, 128.0, 256.0, 1024.0)
@@ -150,13 +152,27 @@ def _axis_problem(problem: Problem, week: WorkWeek, dispatch_scale: float, stop_
     )
 
 
-def _policies(axis: Problem, method: str, base_days: int | None) -> list[Policy]:
+def _independent(axis: Problem) -> Policy:
+    """Every site on its own best whole-day cycle (``T0 = 1``): the optimum when nothing is shared, e.g.
+    one stop per trip with the dispatch cost moved into the stop cost."""
+    cycles = best_multiple(axis.stop_cost, axis.H, 1.0, 1, axis.whole_days)
+    cost = float(cycle_cost(axis.stop_cost, axis.H, cycles).sum())
+    return Policy("integer", None, 1, cycles, cycles + 1, cost)
+
+
+def _policies(axis: Problem, method: str, base_days: int | None, intervals: int, alone: bool) -> list[Policy]:
+    """The class optima of ``axis`` and, with ``intervals > 0``, the best integer policies of that many
+    other dispatch intervals; with ``alone`` also every site on its own cycle."""
     relaxation = relaxation_of(axis)
     out = []
+    if method in ("best", "integer") and alone:
+        out.append(_independent(axis))
     if method in ("best", "power_of_two") and (base_days is None or base_days <= int(axis.whole_days.min())):
         out.append(power_of_two_policy(axis, relaxation, base_days))
     if method in ("best", "integer"):
         out.append(integer_policy(axis, relaxation))
+        if intervals:
+            out.extend(integer_policies_by_interval(axis, relaxation, intervals))
     return out
 
 
@@ -249,12 +265,19 @@ def _result(problem, candidate: _Candidate, bound, start, status, message, warni
 
 
 class _Search:
-    """Candidates in a fixed order, each evaluated exactly; keeps the cheapest drivable one."""
+    """Candidates ranked by a cheap lower bound on their cost, then evaluated exactly in that order.
+
+    Each candidate is first evaluated with the per-date trip lower bound (no packing); the exact cost is
+    at least that. :meth:`finish` evaluates exactly in increasing order of the bound and stops when the
+    best exact cost is at most the next bound, so the cheapest drivable candidate is found without
+    packing every one.
+    """
 
     def __init__(self, problem: Problem, week: WorkWeek, method: str, base_days, deadline: float | None):
         self.problem, self.week, self.method, self.base_days = problem, week, method, base_days
         self.deadline = deadline
         self.limited = limited(problem)
+        self.candidates: list[_Candidate] = []
         self.best: _Candidate | None = None
         self.fewest: _Candidate | None = None  # least trips on the busiest date (for `needed`)
         self.seen: set[bytes] = set()
@@ -268,28 +291,53 @@ class _Search:
     def drivable(self, ev: Evaluation) -> bool:
         return self.problem.trips_per_day is None or ev.max_trips <= self.problem.trips_per_day
 
-    def variant(self, dispatch_scale: float, stop_penalty: float) -> None:
+    def any_drivable(self) -> bool:
+        return any(self.drivable(c.evaluation) for c in self.candidates)
+
+    def variant(self, dispatch_scale: float, stop_penalty: float, intervals: int = 0) -> None:
         axis = _axis_problem(self.problem, self.week, dispatch_scale, stop_penalty)
-        for policy in _policies(axis, self.method, self.base_days):
-            if self.out_of_time() and self.best is not None:
+        for policy in _policies(axis, self.method, self.base_days, intervals, dispatch_scale == 0):
+            if self.out_of_time() and self.candidates:
                 return
             patterns = _patterns(self.problem, self.week, policy)
-            key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
-            if key in self.seen:
-                continue
-            self.seen.add(key)
-            ev = evaluate(self.problem, patterns, self.limited)
+            ev = self._evaluate(patterns)
             if ev is None and policy.method == "integer":
                 policy = _nested(policy)
                 patterns = _patterns(self.problem, self.week, policy)
-                ev = evaluate(self.problem, patterns, self.limited)
-            if ev is None:
+                ev = self._evaluate(patterns)
+            if ev is not None:
+                binding = _binding(self.problem, axis, policy)
+                self.candidates.append(_Candidate(policy.method, policy.base_days, patterns, binding, ev))
+
+    def _evaluate(self, patterns: Patterns) -> Evaluation | None:
+        key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
+        if key in self.seen:
+            return None
+        self.seen.add(key)
+        return evaluate(self.problem, patterns, self.limited, exact=False)
+
+    def _exact(self, c: _Candidate) -> _Candidate:
+        if not c.evaluation.exact:
+            c.evaluation = evaluate(self.problem, c.patterns, self.limited)
+        return c
+
+    def finish(self) -> None:
+        """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
+        order = sorted(range(len(self.candidates)), key=lambda j: self.candidates[j].evaluation.cost)
+        for j in order:
+            c = self.candidates[j]
+            if not self.drivable(c.evaluation):
                 continue
-            c = _Candidate(policy.method, policy.base_days, patterns, _binding(self.problem, axis, policy), ev)
-            if self.fewest is None or (ev.max_trips, ev.cost) < (self.fewest.evaluation.max_trips, self.fewest.evaluation.cost):
-                self.fewest = c
-            if self.drivable(ev) and (self.best is None or ev.cost < self.best.evaluation.cost):
+            if self.best is not None and (
+                self.best.evaluation.cost <= c.evaluation.cost or (self.out_of_time() and self.best is not None)
+            ):
+                break
+            self._exact(c)
+            if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
+        if self.best is None and self.candidates:
+            key = min(range(len(self.candidates)), key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost))
+            self.fewest = self._exact(self.candidates[key])
 
 
 def plan_joint(
@@ -378,17 +426,19 @@ def plan_joint(
     classic = week.n == 7 and not search.limited
     search.variant(1.0, 0.0)
     if not classic:
+        search.variant(1.0, 0.0, INTERVALS)
         for scale in DISPATCH_SCALES:
             for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
                 if search.out_of_time():
                     break
                 search.variant(scale, penalty)
-        if search.best is None:
+        if not search.any_drivable():
             for penalty in REPAIR_PENALTIES:
-                if search.out_of_time() or search.best is not None:
+                if search.out_of_time() or search.any_drivable():
                     break
                 for scale in (1.0, 4.0, 16.0):
                     search.variant(scale, penalty)
+    search.finish()
     warnings: list[str] = []
     if not base_fits:
         i = int(np.argmin(axis_caps))

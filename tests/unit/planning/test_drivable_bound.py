@@ -246,9 +246,10 @@ def test_property_bound_at_most_exhaustive_optimum(problem):
 # --- strong duality: the maximum over weights is the primal convex minimum ----------------------
 
 
-def _primal(problem):
-    """``min K max(1/T0, D/W, Σ 1/(S T_i)) + Σ (k_i/T_i + H_i T_i)`` over ``1 ≤ T0 ≤ T_i ≤ u_i`` by SLSQP
-    with an epigraph variable ``t`` (several starts; the smallest value found)."""
+def _primal(problem, room=None):
+    """``min K max(1/T0, D/W, Σ 1/(S T_i)) + Σ (k_i/T_i + H_i T_i)`` over ``1 ≤ T0 ≤ T_i ≤ u_i`` (and
+    ``Σ 1/T_i ≤ room`` when given) by SLSQP with an epigraph variable ``t`` (several starts; the
+    smallest value found)."""
     K, k, H = problem.dispatch_cost, problem.stop_cost, problem.H
     u = whole_day_caps(problem)
     S = problem.max_stops
@@ -266,10 +267,12 @@ def _primal(problem):
     ]
     if S is not None:
         cons.append({"type": "ineq", "fun": lambda x: np.array([x[0] - np.sum(1.0 / x[2:]) / S])})
+    if room is not None:
+        cons.append({"type": "ineq", "fun": lambda x: np.array([room - np.sum(1.0 / x[2:])])})
     bounds = [(0.0, None), (1.0, u.min())] + [(1.0, c) for c in u]
     best = math.inf
-    for t0 in (1.0, np.sqrt(u.min()), u.min()):
-        T = np.clip(np.sqrt(np.where(H > 0, k / np.where(H > 0, H, 1), np.inf)), t0, u)
+    for t0, longest in itertools.product((1.0, np.sqrt(u.min()), u.min()), (False, True)):
+        T = u.copy() if longest else np.clip(np.sqrt(np.where(H > 0, k / np.where(H > 0, H, 1), np.inf)), t0, u)
         x0 = np.concatenate([[max(1.0 / t0, load, np.sum(1 / T) / (S or np.inf)) + 1e-3, t0], T])
         res = minimize(
             f, x0, jac=grad, bounds=bounds, constraints=cons, method="SLSQP", options={"ftol": 1e-15, "maxiter": 1000}
@@ -278,6 +281,8 @@ def _primal(problem):
         x[1:] = np.clip(x[1:], 1.0, np.concatenate([[u.min()], u]))
         x[2:] = np.maximum(x[2:], x[1])
         t = max(1.0 / x[1], load, np.sum(1.0 / x[2:]) / S if S else 0.0)
+        if room is not None and np.sum(1.0 / x[2:]) > room * (1 + 1e-9):
+            continue
         best = min(best, K * t + float(np.sum(k / x[2:] + H * x[2:])))
     return best
 
@@ -291,4 +296,65 @@ def test_strong_duality_with_a_direct_convex_solve(seed):
     sites = _sites(rng, int(rng.integers(1, 12)))
     truck = _random_truck(rng, sites, capacity=seed % 4 != 1, stops=seed % 4 != 2)
     problem = validate(sites, truck)
-    assert drivable_lower_bound(problem).value == pytest.approx(_primal(problem), rel=1e-6)
+    reference = drivable_lower_bound(problem, gap_patterns=False)
+    assert reference.value == pytest.approx(_primal(problem), rel=1e-6)
+    assert drivable_lower_bound(problem).value >= reference.value * (1 - 1e-12)
+
+
+# --- the stop room: at most trips_per_day × max_stops stops a day -----------------------------------
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_stop_room_valid_against_exhaustive_search(seed):
+    # one trip a day of at most S stops: exhaustive search with trips_per_day = 1
+    rng = np.random.default_rng(800 + seed)
+    sites, truck = _small_instance(rng, 3)
+    truck = TruckInput(truck.dispatch_cost, truck.capacity, int(rng.integers(1, 3)))
+    problem = validate(sites, truck)
+    bound = drivable_lower_bound(problem, trips_per_day=1)
+    exact = _exact(sites, truck, range(1, 13), trips_per_day=1)
+    assert bound.value <= exact * (1 + 1e-9)
+    assert bound.value >= drivable_lower_bound(problem).value * (1 - 1e-12)
+    if math.isinf(bound.value):
+        assert math.isinf(exact)
+
+
+def test_stop_room_binds_and_is_exact_here():
+    # three sites that each want a delivery every day, one trip a day of 2 stops: at most 2 stops a day,
+    # so the three cannot all be served daily (hand-built case; the optimum by exhaustive search)
+    sites = [SiteInput(f"s{i}", 100.0, 0.5, 1.0, 100.0 * 3.5, 1.0) for i in range(3)]
+    truck = TruckInput(10.0, capacity=None, max_stops=2)
+    problem = validate(sites, truck)
+    free = drivable_lower_bound(problem)
+    roomy = drivable_lower_bound(problem, trips_per_day=1)
+    exact = _exact(sites, truck, range(1, 13), trips_per_day=1)
+    assert roomy.stop_price > 0
+    assert free.value < roomy.value <= exact * (1 + 1e-9)
+    assert roomy.value == pytest.approx(exact, rel=1e-9)  # gaps of 1 and 2 days, two stops a day
+
+
+def test_no_room_for_the_stops_is_infinite():
+    # every tank lasts one day, four sites, one trip a day of 3 stops: 4 stops a day do not fit
+    sites = [SiteInput(f"s{i}", 100.0, 0.1, 1.0, 150.0, 1.0) for i in range(4)]
+    truck = TruckInput(10.0, max_stops=3)
+    assert drivable_lower_bound(validate(sites, truck), trips_per_day=1).value == math.inf
+    assert _exact(sites, truck, range(1, 8), trips_per_day=1) == math.inf
+    # two sites of 100 a day on a truck of 150 with one trip a day: 200 a day does not fit
+    sites, truck = sites[:2], TruckInput(10.0, capacity=150.0)
+    assert drivable_lower_bound(validate(sites, truck), trips_per_day=1).value == math.inf
+    assert _exact(sites, truck, range(1, 8), trips_per_day=1) == math.inf
+    assert math.isfinite(drivable_lower_bound(validate(sites, truck), trips_per_day=2).value)
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_stop_room_strong_duality_with_a_direct_convex_solve(seed):
+    # Lagrangian duality for convex programs (Boyd & Vandenberghe 2004, §5.2-5.3), with the room
+    # Σ 1/T_i ≤ τ S as one more convex constraint
+    rng = np.random.default_rng(900 + seed)
+    sites = _sites(rng, int(rng.integers(2, 12)))
+    truck = _random_truck(rng, sites, capacity=seed % 2 == 0, stops=True)
+    problem = validate(sites, truck)
+    need = float(np.sum(1.0 / whole_day_caps(problem)))
+    trips = max(1, int(np.ceil(need * float(rng.uniform(1.0, 2.0)) / truck.max_stops)))
+    bound = drivable_lower_bound(problem, trips_per_day=trips, gap_patterns=False)
+    assert bound.value == pytest.approx(_primal(problem, room=trips * truck.max_stops), rel=1e-6)

@@ -1,5 +1,7 @@
 """The drivable bound with a weekly calendar: the weekday-gap lemma, exhaustive search, duality."""
 
+import copy
+import dataclasses
 import itertools
 import math
 import os
@@ -10,7 +12,15 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import minimize
 
-from service.planning.drivable_bound import _psi, drivable_lower_bound, weekday_gap_lines, whole_day_caps
+from service.planning.drivable_bound import (
+    CYCLE_DAYS,
+    _pieces,
+    _psi,
+    drivable_lower_bound,
+    weekday_gap_lines,
+    whole_day_caps,
+    whole_day_gap_lines,
+)
 from service.planning.inputs import SiteInput, TruckInput, validate
 
 from .test_drivable_bound import _exact, _sites, _small_instance
@@ -97,6 +107,20 @@ def test_weekday_lines_hand_values():
     assert weekday_gap_lines((0, 1, 2, 3, 4), 2) is None
 
 
+@pytest.mark.parametrize("calendar", CALENDARS)
+def test_pieces_are_the_weekday_bound(calendar):
+    # the piecewise form the scan uses (P + Q f + B/f between edges) equals max(1/f, lines) everywhere
+    weekdays = tuple(day - 1 for day in calendar)
+    top = len(weekdays) / 7
+    for cap in range(_longest_closed(calendar), CYCLE_DAYS + 1, 3):
+        lines = weekday_gap_lines(weekdays, cap)
+        edges, P, Q, B = _pieces(lines, top)
+        f = np.linspace(1e-3, top, 5001)
+        piece = np.clip(np.searchsorted(edges, f, side="right") - 1, 0, len(P) - 1)
+        assert edges[0] == 0.0 and edges[-1] == top and np.all(np.diff(edges) > 0)
+        np.testing.assert_allclose(P[piece] + Q[piece] * f + B[piece] / f, _psi(lines, f), rtol=1e-12)
+
+
 # --- the bound: valid against exhaustive search, tight for one site, above the plain bound ------
 
 
@@ -152,16 +176,37 @@ def test_seven_working_days_is_the_plain_bound():
     assert drivable_lower_bound(problem, (7, 1, 2, 3, 4, 5, 6)) == drivable_lower_bound(problem)
 
 
+def test_calendar_is_read_from_the_problem_when_not_given():
+    # a problem that carries working_days (the planner's Problem) gets the calendar bound by default
+    rng = np.random.default_rng(11)
+    sites = [
+        SiteInput(s.code, s.demand_per_day, s.holding_cost, s.stop_cost, s.tank_capacity * 4, 1.0)
+        for s in _sites(rng, 6)
+    ]
+    problem = validate(sites, TruckInput(120.0, capacity=40000.0, max_stops=3))
+    monday_to_friday = drivable_lower_bound(problem, working_days=(1, 2, 3, 4, 5))
+    assert monday_to_friday.value > drivable_lower_bound(problem).value
+    if "working_days" in {field.name for field in dataclasses.fields(problem)}:
+        calendar_problem = dataclasses.replace(problem, working_days=(1, 2, 3, 4, 5))
+    else:  # a Problem without the calendar field yet: the same arrays with the attribute added
+        calendar_problem = copy.copy(problem)
+        object.__setattr__(calendar_problem, "working_days", (1, 2, 3, 4, 5))
+    assert drivable_lower_bound(calendar_problem) == monday_to_friday
+
+
 # --- strong duality with the calendar --------------------------------------------------------------
 
 
-def _primal_calendar(problem, calendar):
+def _primal_calendar(problem, calendar, room=None):
     """``min K t + Σ (k_i f_i + H_i z_i)`` s.t. ``t ≥ f0, D/W, Σ f_i / S``; ``z_i ≥ 1/f_i`` and every
     weekday line; ``max(1/u_i, lowest_i) ≤ f_i ≤ f0 ≤ m/7`` (frequencies); SLSQP, several starts."""
     K, k, H, n = problem.dispatch_cost, problem.stop_cost, problem.H, problem.n
     u = whole_day_caps(problem)
     weekdays = tuple(day - 1 for day in calendar)
-    lines = [weekday_gap_lines(weekdays, int(min(c, 56))) for c in u]
+    if len(weekdays) == 7:
+        lines = [whole_day_gap_lines(int(min(c, 56))) for c in u]
+    else:
+        lines = [weekday_gap_lines(weekdays, int(min(c, 56))) for c in u]
     low = np.array([max(1 / c, g.lowest) for c, g in zip(u, lines, strict=True)])
     top = len(calendar) / 7
     load = float(problem.demand.sum()) / problem.capacity
@@ -180,6 +225,8 @@ def _primal_calendar(problem, calendar):
         rows += [[z[i] - p - q * f[i] for p, q in zip(lines[i].p, lines[i].q, strict=True)] for i in range(n)]
         if S is not None:
             rows.append([t - np.sum(f) / S])
+        if room is not None:
+            rows.append([room - np.sum(f)])
         return np.concatenate([np.atleast_1d(np.asarray(r, dtype=float)) for r in rows])
 
     bounds = [(0, None), (low.max(), top)] + [(x, top) for x in low] + [(0, None)] * n
@@ -245,15 +292,44 @@ def calendar_problems(draw):
     largest = max(s.tank_capacity for s in sites)
     W = draw(st.none() | st.floats(1.0, 3.0).map(lambda x: x * largest))
     truck = TruckInput(draw(st.floats(0, 500)), capacity=W, max_stops=draw(st.none() | st.integers(1, 3)))
-    return calendar, sites, truck
+    return calendar, sites, truck, draw(st.sampled_from([None, 1, 2]))
 
 
 @settings(max_examples=int(os.environ.get("PLANNING_EXAMPLES", "25")), deadline=None)
 @given(calendar_problems())
 def test_property_calendar_bound_at_most_exhaustive_optimum(problem):
-    calendar, sites, truck = problem
+    calendar, sites, truck, trips = problem
     problem = validate(sites, truck)
-    bound = drivable_lower_bound(problem, working_days=calendar).value
-    exact = _exact(sites, truck, [7, 14], [day - 1 for day in calendar])
-    assert math.isfinite(exact)
-    assert drivable_lower_bound(problem).value * (1 - 1e-12) <= bound <= exact * (1 + 1e-9)
+    bound = drivable_lower_bound(problem, working_days=calendar, trips_per_day=trips).value
+    exact = _exact(sites, truck, [7, 14], [day - 1 for day in calendar], trips_per_day=trips)
+    assert math.isfinite(exact) or trips is not None
+    assert drivable_lower_bound(problem).value * (1 - 1e-9) <= bound <= exact * (1 + 1e-9)  # 1e-9: weight search
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_seven_day_whole_gap_bound_strong_duality(seed):
+    # seven days with a limit: the whole-day gap lines; the same duality check (Boyd & Vandenberghe
+    # 2004, §5.2-5.3), with the stop room of one or two trips a day on half of the instances
+    rng = np.random.default_rng(1000 + seed)
+    sites = _sites(rng, int(rng.integers(1, 7)), max_days=20.0)
+    D = sum(s.demand_per_day for s in sites)
+    truck = TruckInput(
+        float(rng.uniform(10, 400)),
+        capacity=float(rng.uniform(1.2, 3.0) * max(D, 2 * max(s.demand_per_day for s in sites))) if seed % 3 else None,
+        max_stops=int(rng.integers(2, 5)),
+    )
+    problem = validate(sites, truck)
+    trips = int(rng.integers(1, 3)) if seed % 2 else None
+    room = trips * truck.max_stops if trips else None
+    if room is not None and float(np.sum(1 / whole_day_caps(problem))) > room:
+        room, trips = None, None
+    bound = drivable_lower_bound(problem, trips_per_day=trips)
+    assert bound.value == pytest.approx(_primal_calendar(problem, (1, 2, 3, 4, 5, 6, 7), room=room), rel=1e-6)
+    assert bound.value >= drivable_lower_bound(problem, trips_per_day=trips, gap_patterns=False).value * (1 - 1e-12)
+
+
+def test_whole_day_gap_lines_hand_values():
+    # gaps of 2 and 3 days alternating: mean 2.5, Σ g² / R = (4 + 9) / 5 = 2.6 (by hand), above 1/f = 2.5
+    assert float(_psi(whole_day_gap_lines(10), np.array([0.4]))[0]) == pytest.approx(2.6, rel=1e-12)
+    # whole days: ψ(1/T) = T exactly
+    assert np.allclose(_psi(whole_day_gap_lines(10), 1 / np.arange(1.0, 11.0)), np.arange(1.0, 11.0))
