@@ -19,6 +19,7 @@ import numpy as np
 
 from service.planning.cycle_cost import best_multiple, cycle_cost
 from service.planning.dispatch_window import Limits, window_trips
+from service.planning.drivable_bound import drivable_lower_bound
 from service.planning.errors import PlanningInputError
 from service.planning.evaluation import Evaluation, evaluate, limited
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
@@ -67,9 +68,10 @@ def _check_options(method, base_days, start_date, deadline_seconds) -> None:
         raise PlanningInputError("base_days applies to methods power_of_two and best, not integer", field="base_days")
 
 
-def _bound(problem: Problem, truck: TruckInput) -> float:
-    """Lower bound on the cost per day of every drivable plan (the capped relaxation)."""
-    return relaxation_of(problem).value
+def _bound(problem: Problem) -> float:
+    """Lower bound on the cost per day of every drivable plan (:func:`drivable_lower_bound`; ``inf`` when
+    it proves that no plan fits the calendar)."""
+    return drivable_lower_bound(problem).value
 
 
 def _names(problem: Problem, sites) -> str:
@@ -79,6 +81,8 @@ def _names(problem: Problem, sites) -> str:
 def _infeasible(
     problem: Problem, message: str, bound: float, start: dt.date, needed: dict, method: str, base: int | None
 ) -> JointResult:
+    if not math.isfinite(bound):  # the drivable bound proved infeasibility; report the finite relaxation
+        bound = relaxation_of(problem).value
     return JointResult(
         status=Status.INFEASIBLE,
         success=False,
@@ -387,7 +391,7 @@ def plan_joint(
     _check_options(method, base_days, start_date, deadline_seconds)
     problem = validate(sites, truck)
     start = dt.date.today() if start_date is None else start_date
-    bound = _bound(problem, truck)
+    bound = _bound(problem)
     week = WorkWeek(start, problem.working_days)
     gap = _calendar_gap(problem, week, start)
     if gap is None or (problem.whole_days < gap[0]).any():
