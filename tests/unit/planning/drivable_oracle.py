@@ -104,7 +104,9 @@ def _check_period(result, sites, truck) -> None:
     R = result.repeat_days
     sites_by_code = {s.code: s for s in sites}
     trips = result.trips
-    closed_in_window = [c for c in _closed(truck) if 0 <= (c - result.start_date).days < R]
+    # a closed date up to the longest cap after the period still moves deliveries inside it
+    reach = R + max(whole_day_cap(s, truck) for s in sites)
+    closed_in_window = [c for c in _closed(truck) if 0 <= (c - result.start_date).days < reach]
     where = "listing"
     if closed_in_window:  # the listing has closures applied; the cost is that of the plain period
         from service.planning import trips_between
@@ -273,7 +275,8 @@ def check_plan(result, sites, truck) -> None:
                 assert _close(a.quantity, site.demand_per_day * (b.day - a.day)), f"site {code}: day {a.day} quantity"
         return
     _check_period(result, sites, truck)
-    if any(0 <= (c - result.start_date).days < R for c in _closed(truck)):
+    reach = R + max(whole_day_cap(s, truck) for s in sites)
+    if any(0 <= (c - result.start_date).days < reach for c in _closed(truck)):
         _check_closures(result, sites, truck)
 
 
