@@ -122,7 +122,7 @@ def main(count: int = 150) -> None:
     worst = sorted(rows, key=lambda r: -r["gap"])[:5]
     print("largest gaps: " + ", ".join(f"seed {r['seed']} ({r['class']}, n={r['n']}) {r['gap'] * 100:.1f} %" for r in worst))
     print(f"rule violations (check_plan): {len(violations)}")
-    for line in violations[:10]:
+    for line in violations[:30]:
         print(f"  {line}")
 
 
