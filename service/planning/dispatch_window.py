@@ -13,9 +13,10 @@ previous delivery then carries less and the moved one more, so every stop still 
 days to the next one (rule 2). If no such date exists after the previous delivery, the previous
 delivery alone covers the stretch when that gap is within the longest gap; else the site gets one
 delivery on the nearest earlier open date with room and one on the nearest later open date with room
-(both gaps within the longest gap). When none of these keeps the rules, the delivery goes to the
-nearest earlier open date after the previous one (or is dropped when there is none) and the window's
-warnings name the date and the sites.
+(both gaps within the longest gap). When none of these keeps the rules, the window's warnings name the
+date and the sites: the delivery then goes to the nearest earlier open date after the
+previous one that has room (the gap after it may exceed the pattern's longest gap), else to the nearest
+earlier open date (the date may need more trips than ``trips_per_day``), else it is dropped.
 """
 
 from __future__ import annotations
@@ -136,7 +137,8 @@ class _Relocation:
                     days.sort()
                     self.sites_on(after).add(i)
                     return True
-        self._move(i, c, earlier[0] if earlier else None)
+        roomy = [t for t in earlier if self._room(t, i, d * ((nxt if nxt is not None else t + cap) - t))]
+        self._move(i, c, roomy[0] if roomy else (earlier[0] if earlier else None))
         return False
 
     def result(self, affected: list[int]):

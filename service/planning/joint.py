@@ -27,9 +27,11 @@ from service.planning.integer_multiple import integer_policies_by_interval, inte
 from service.planning.patterns import Patterns, from_working_cycles
 from service.planning.policy import Policy
 from service.planning.power_of_two import power_of_two_policy
+from service.planning.rebalance import rebalance
 from service.planning.relaxation import relaxation_of
 from service.planning.results import JointResult, SitePlan, Status
 from service.planning.staggering import site_weights, stagger
+from service.planning.weekly import improve_weekly
 from service.planning.workweek import WorkWeek
 
 METHODS = ("best", "power_of_two", "integer")
@@ -39,6 +41,8 @@ LISTED_DAYS = 3660
 LISTED_STOPS = 200_000
 #: Truck-aware variants: dispatch cost scale and extra stop cost in units of ``K / S``.
 DISPATCH_SCALES = (1.0, 0.5, 2.0, 0.0, 0.25, 4.0)
+#: Most candidates packed exactly once a drivable plan is known (the rest are ranked by their bound).
+EXACT_CANDIDATES = 4
 #: Other dispatch intervals of the integer class evaluated exactly.
 INTERVALS = 8
 STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
@@ -132,6 +136,7 @@ class _Candidate:
     patterns: Patterns
     binding: np.ndarray
     evaluation: Evaluation
+    policy: Policy
 
 
 def _axis_problem(problem: Problem, week: WorkWeek, dispatch_scale: float, stop_penalty: float) -> Problem:
@@ -198,12 +203,20 @@ def _binding(problem: Problem, axis: Problem, policy: Policy) -> np.ndarray:
     return np.where(capped, np.where(problem.tank_binds, "tank", "truck"), "")
 
 
-def _patterns(problem: Problem, week: WorkWeek, policy: Policy) -> Patterns:
+def _patterns(
+    problem: Problem, week: WorkWeek, policy: Policy, deadline: float | None, rebalanced: bool = False
+) -> Patterns:
+    """Stagger the policy's cycles (working-day axis) and, when a date may need several trips, improve the
+    phases (:func:`rebalance`); then the calendar patterns."""
     T0 = policy.dispatch_interval
     cycles = policy.cycles
     quantity = problem.demand * cycles * (7.0 / week.n)
-    residues = stagger(cycles // T0, site_weights(quantity, problem.capacity, problem.max_stops))
-    return from_working_cycles(week, cycles, residues * T0)
+    phases = stagger(cycles // T0, site_weights(quantity, problem.capacity, problem.max_stops)) * T0
+    if rebalanced:
+        phases = rebalance(
+            problem.demand, problem.capacity, problem.max_stops, problem.trips_per_day, week, cycles, phases, deadline
+        )
+    return from_working_cycles(week, cycles, phases)
 
 
 def _site_plans(problem: Problem, candidate: _Candidate) -> tuple[SitePlan, ...]:
@@ -273,8 +286,8 @@ class _Search:
 
     Each candidate is first evaluated with the per-date trip lower bound (no packing); the exact cost is
     at least that. :meth:`finish` evaluates exactly in increasing order of the bound and stops when the
-    best exact cost is at most the next bound, so the cheapest drivable candidate is found without
-    packing every one.
+    best exact cost is at most the next bound (then no other candidate can be cheaper), or after
+    ``EXACT_CANDIDATES`` packed candidates, or at the deadline.
     """
 
     def __init__(self, problem: Problem, week: WorkWeek, method: str, base_days, deadline: float | None):
@@ -303,15 +316,18 @@ class _Search:
         for policy in _policies(axis, self.method, self.base_days, intervals, dispatch_scale == 0):
             if self.out_of_time() and self.candidates:
                 return
-            patterns = _patterns(self.problem, self.week, policy)
+            patterns = _patterns(self.problem, self.week, policy, self.deadline)
             ev = self._evaluate(patterns)
             if ev is None and policy.method == "integer":
                 policy = _nested(policy)
-                patterns = _patterns(self.problem, self.week, policy)
+                patterns = _patterns(self.problem, self.week, policy, self.deadline)
                 ev = self._evaluate(patterns)
+            if ev is not None and not self.drivable(ev):  # repair: move phases off the dates over the limit
+                patterns = _patterns(self.problem, self.week, policy, self.deadline, rebalanced=True)
+                ev = self._evaluate(patterns) or ev
             if ev is not None:
                 binding = _binding(self.problem, axis, policy)
-                self.candidates.append(_Candidate(policy.method, policy.base_days, patterns, binding, ev))
+                self.candidates.append(_Candidate(policy.method, policy.base_days, patterns, binding, ev, policy))
 
     def _evaluate(self, patterns: Patterns) -> Evaluation | None:
         key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
@@ -325,23 +341,84 @@ class _Search:
             c.evaluation = evaluate(self.problem, c.patterns, self.limited)
         return c
 
+    def _improve(self) -> None:
+        """The phase search of :func:`rebalance` on the chosen plan (fewer trips), then weekday patterns
+        (:func:`improve_weekly`); each kept when its exact cost is lower."""
+        b = self.best
+        patterns = _patterns(self.problem, self.week, b.policy, self.deadline, rebalanced=True)
+        key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
+        if key not in self.seen:
+            self.seen.add(key)
+            ev = evaluate(self.problem, patterns, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, patterns, b.binding, ev, b.policy)
+        if self.out_of_time():
+            return
+        b = self.best
+        weekly = improve_weekly(self.problem, self.week, b.patterns, self.deadline)
+        if weekly is not None:
+            ev = evaluate(self.problem, weekly, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, weekly, b.binding, ev, b.policy)
+
     def finish(self) -> None:
         """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
         order = sorted(range(len(self.candidates)), key=lambda j: self.candidates[j].evaluation.cost)
+        packed = 0
         for j in order:
             c = self.candidates[j]
             if not self.drivable(c.evaluation):
                 continue
             if self.best is not None and (
-                self.best.evaluation.cost <= c.evaluation.cost or (self.out_of_time() and self.best is not None)
+                self.best.evaluation.cost <= c.evaluation.cost or self.out_of_time() or packed >= EXACT_CANDIDATES
             ):
                 break
+            packed += 1
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
+        if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
+            self._improve()
         if self.best is None and self.candidates:
             key = min(range(len(self.candidates)), key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost))
             self.fewest = self._exact(self.candidates[key])
+
+
+def _search(problem: Problem, week: WorkWeek, method: str, base_days, deadline) -> _Search:
+    """All candidates (module docstring) and the exact choice among them."""
+    search = _Search(problem, week, method, base_days, deadline)
+    classic = week.n == 7 and not search.limited
+    search.variant(1.0, 0.0)
+    if not classic:
+        search.variant(1.0, 0.0, INTERVALS)
+        for scale in DISPATCH_SCALES:
+            for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
+                if search.out_of_time():
+                    break
+                search.variant(scale, penalty)
+        if not search.any_drivable():
+            for penalty in REPAIR_PENALTIES:
+                if search.out_of_time() or search.any_drivable():
+                    break
+                for scale in (1.0, 4.0, 16.0):
+                    search.variant(scale, penalty)
+    search.finish()
+    return search
+
+
+def _least_trips_needed(problem: Problem, week: WorkWeek, method: str, base_days, deadline, found: int) -> int:
+    """The least ``trips_per_day`` above the given one for which the search finds a drivable plan: each
+    smaller value than ``found`` (what the best candidate needed) whose drivable bound is finite is
+    searched, in increasing order, while time remains."""
+    for tau in range(problem.trips_per_day + 1, found):
+        if deadline is not None and time.monotonic() > deadline:
+            break
+        relaxed = replace(problem, trips_per_day=tau)
+        if not math.isfinite(drivable_lower_bound(relaxed).value):
+            continue
+        if _search(relaxed, week, method, base_days, deadline).best is not None:
+            return tau
+    return found
 
 
 def plan_joint(
@@ -426,23 +503,8 @@ def plan_joint(
             base_days,
         )
     deadline = None if deadline_seconds is None else began + float(deadline_seconds)
-    search = _Search(problem, week, method, base_days if base_fits else None, deadline)
+    search = _search(problem, week, method, base_days if base_fits else None, deadline)
     classic = week.n == 7 and not search.limited
-    search.variant(1.0, 0.0)
-    if not classic:
-        search.variant(1.0, 0.0, INTERVALS)
-        for scale in DISPATCH_SCALES:
-            for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
-                if search.out_of_time():
-                    break
-                search.variant(scale, penalty)
-        if not search.any_drivable():
-            for penalty in REPAIR_PENALTIES:
-                if search.out_of_time() or search.any_drivable():
-                    break
-                for scale in (1.0, 4.0, 16.0):
-                    search.variant(scale, penalty)
-    search.finish()
     warnings: list[str] = []
     if not base_fits:
         i = int(np.argmin(axis_caps))
@@ -453,9 +515,11 @@ def plan_joint(
     if search.best is None:
         fewest = search.fewest
         need = None if fewest is None else fewest.evaluation.max_trips
+        if need is not None and not search.cut:
+            need = _least_trips_needed(problem, week, method, base_days if base_fits else None, deadline, need)
         message = (
             f"no plan found within {problem.trips_per_day} trip(s) per day"
-            + ("" if need is None else f"; the best candidate needs {need} on its busiest date")
+            + ("" if need is None else f"; {need} trips per day are enough")
         )
         return _infeasible(
             problem,
