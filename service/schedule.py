@@ -4,7 +4,9 @@ Flask-free: every function takes a session and the settings. Used by the weekly 
 API and by the status page, so both always show the same numbers.
 
 Day ``k`` of a plan's calendar is ``start_date + k`` days; trips before the start date do not
-exist. Quantities are corrected from the latest reading of each site (service.planning.projection).
+exist. Quantities are corrected from the latest reading of each site (service.planning.projection),
+each to last until that site's next listed delivery (the calendar's gaps differ: a Friday delivery
+on Monday to Friday lasts until Monday), looking past the window for it.
 Stops are listed in the plan's order (site code order).
 
 Current limits always win over the plan's snapshot: the projection gets each site's current
@@ -23,6 +25,7 @@ Trips are numbered within their date (``trip``, from 1).
 
 from __future__ import annotations
 
+import bisect
 import datetime as dt
 import math
 import re
@@ -54,6 +57,9 @@ ISO_DATE = re.compile(r"(?<![0-9])([0-9]{4}-[0-9]{2}-[0-9]{2})(?![0-9])")
 #: Readings older than this many days before the window are not replayed (the projection would
 #: only repeat the plan by then); such a site counts as having no recent reading.
 LOOKBACK_DAYS = 400
+#: Days past a site's longest planned gap that the listing looks beyond a window for each site's
+#: next delivery (a run of closed dates moves deliveries earlier and so lengthens a gap).
+NEXT_GAP_MARGIN_DAYS = 31
 
 
 class NoActivePlan(LookupError):
@@ -264,6 +270,28 @@ def _served(plan: Plan, drift: plan_store.Drift) -> dict[str, Site]:
     }
 
 
+def _delivery_days(trips: Sequence[Any]) -> dict[str, list[int]]:
+    """Each site's delivery days (days since the plan's start), in order, from listed trips."""
+    out: dict[str, list[int]] = {}
+    for trip in sorted(trips, key=lambda t: t.day):
+        for stop in trip.stops:
+            days = out.setdefault(stop.code, [])
+            if not days or days[-1] != trip.day:
+                days.append(trip.day)
+    return out
+
+
+def _next_days(days: dict[str, list[int]], day: int, codes: Sequence[str]) -> dict[str, int]:
+    """Days from ``day`` to each site's next listed delivery (rule 2's ``g``); unknown ones left out."""
+    out = {}
+    for code in codes:
+        listed = days.get(code, [])
+        at = bisect.bisect_right(listed, day)
+        if at < len(listed):
+            out[code] = listed[at] - day
+    return out
+
+
 def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt.date, settings: Settings) -> _Replay:
     zone = ZoneInfo(settings.timezone)
     result = plan_store.result_of(plan)
@@ -299,13 +327,15 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
     removed: dict[str, list[dt.date]] = {}
     warnings: tuple[str, ...] = ()
     if sim_last >= plan.start_date:
-        window = trips_between(
-            result,
-            working_calendar.window_truck(plan.inputs["truck"], truck, sim_first, sim_last),
-            (sim_first - plan.start_date).days,
-            (sim_last - plan.start_date).days,
-        )
+        window_truck = working_calendar.window_truck(plan.inputs["truck"], truck, sim_first, sim_last)
+        first_day, last_day = (sim_first - plan.start_date).days, (sim_last - plan.start_date).days
+        window = trips_between(result, window_truck, first_day, last_day)
         warnings = window.warnings
+        # The deliveries after the window, only to know each site's next one (their warnings are
+        # other windows' business).
+        ahead = max((s.longest_gap_days for s in result.sites), default=0) + NEXT_GAP_MARGIN_DAYS
+        after = trips_between(result, window_truck, last_day + 1, last_day + ahead).trips
+        days = _delivery_days([*window.trips, *after])
         for trip in window.trips:
             date = plan.start_date + dt.timedelta(days=trip.day)
             for stop in trip.stops:
@@ -313,7 +343,7 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
                     removed.setdefault(stop.code, []).append(date)
             stops = tuple((s.code, s.quantity) for s in trip.stops if s.code in served)
             if stops:
-                planned.append(PlannedTrip(date, stops))
+                planned.append(PlannedTrip(date, stops, _next_days(days, trip.day, [c for c, _ in stops])))
     corrected = projection.correct(planned)
     projection.finish(day_start(last + dt.timedelta(days=1), zone))
     names = {code: (drift.sites[code].name if code in drift.sites else s["name"]) for code, s in recorded.items()}

@@ -334,3 +334,32 @@ def test_a_plan_recorded_before_calendars_still_loads_and_lists_its_trips(client
     # Computed for every day, it keeps delivering every third day (weekends included).
     assert [t["date"] for t in trips] == ["2026-12-21", "2026-12-24", "2026-12-27"]
     assert all(t["trip"] == 1 and t["stops"][0]["planned_quantity"] == 900.0 for t in trips)
+
+
+def test_corrected_quantities_last_until_the_sites_next_listed_delivery(client, auth):
+    """Rule 2 of issue 13 on the weekly trips: from a reading, each delivery brings the tank to what
+    it uses until its *own* next delivery, d·g + s − level (g the days to it: three from a Friday to
+    a Monday), clamped to the room below the safe fill; never the mean gap. Checked by hand from the
+    listed dates, so a Friday delivery that lasted only the mean gap would fail here."""
+    d, capacity, safe_fill, safety = 1000.0, 4000.0, 0.9, 600.0
+    add_network(
+        client,
+        auth,
+        truck(),
+        [site("TIGHT", demand_per_day=d, tank_capacity=capacity, safe_fill=safe_fill, safety_stock=safety)],
+    )
+    plan = record(client, auth, start=dt.date(2026, 11, 2)).get_json()
+    assert client.post(f"/api/v1/plans/{plan['id']}/activate", headers=auth("dispatcher")).status_code == 200
+    reading = {"level": 2500.0, "measured_at": "2026-11-10T06:00:00+00:00"}
+    assert client.post("/api/v1/sites/TIGHT/readings", json=reading, headers=auth("dispatcher")).status_code == 201
+    body = client.get("/api/v1/trucks/T1/trips?from=2026-11-11&to=2026-12-06", headers=auth("viewer")).get_json()
+    stops = [(dt.date.fromisoformat(t["date"]), s) for t in body["trips"] for s in t["stops"]]
+    dates = [date for date, _ in stops]
+    gaps = {(b - a).days for a, b in zip(dates, dates[1:], strict=False)}
+    assert 3 in gaps and len(gaps) > 1  # Friday to Monday, and shorter gaps in the week
+    for (date, stop), following in zip(stops, dates[1:], strict=False):
+        level = stop["projected_level_before"]
+        g = (following - date).days
+        expected = min(max(0.0, d * g + safety - level), safe_fill * capacity - level)
+        assert stop["quantity"] == pytest.approx(expected), (date, g, stop)
+    assert not [w for w in body["warnings"] if w["kind"] == "run_out_risk"], body["warnings"]
