@@ -10,7 +10,7 @@ from zoneinfo import ZoneInfo
 import pytest
 from status_helpers import LOW_SITE, PLANNED_TRUCK, UNPLANNED_TRUCK, Page, add_reading, record_plan, today, words
 
-from service import schedule
+from service import schedule, working_calendar
 from service.persistence import repository as repo
 from service.web import formatting
 
@@ -240,18 +240,52 @@ def test_the_load_sheet_has_one_sheet_per_truck_with_stops_room_load_and_caution
     db_session.rollback()
 
 
-def test_a_day_without_trips_says_which_trucks_have_none(app, browser_client, planned, client, auth):
+def test_a_day_without_trips_says_which_trucks_have_none(app, browser_client, planned, client, auth, db_session):
     trips = client.get(
         f"/api/v1/trucks/{PLANNED_TRUCK}/trips?from={today(app)}&to={today(app) + dt.timedelta(days=27)}",
         headers=auth("viewer"),
     ).get_json()["trips"]
     busy = {t["date"] for t in trips}
-    day = next(
-        today(app) + dt.timedelta(days=k) for k in range(1, 28) if str(today(app) + dt.timedelta(days=k)) not in busy
-    )
+    calendar = working_calendar.Calendar.of(repo.truck_by_code(db_session, PLANNED_TRUCK))
+    free = [today(app) + dt.timedelta(days=k) for k in range(1, 28)]
+    free = [day for day in free if day.isoformat() not in busy]
+    # A working day without a trip, and a weekday the truck does not work (Mon–Fri in sample_data).
+    day = next(day for day in free if calendar.off_reason(day) is None)
     text = text_of(browser_client.get(f"/status/load-sheet?date={day}"))
     assert f"No load sheet for {PLANNED_TRUCK} (no trip on this day), {UNPLANNED_TRUCK} (no active plan)." in text
     assert f"No truck has a trip on {day}." in text
+    sunday = next(day for day in free if day.isoweekday() == 7)
+    text = text_of(browser_client.get(f"/status/load-sheet?date={sunday}"))
+    assert f"No load sheet for {PLANNED_TRUCK} (does not work on Sun), {UNPLANNED_TRUCK} (no active plan)." in text
+    db_session.rollback()
+
+
+def test_a_truck_with_several_trips_a_day_gets_them_numbered_on_its_load_sheet(app, browser_client, client, auth):
+    """One stop a trip and two tanks that each hold under two days of stock: every day has two
+    trips, listed on the load sheet as "Trip 1" and "Trip 2", each with its own stop."""
+    truck = {"code": "T2", "name": "Two trips", "dispatch_cost": 100.0, "capacity": 5000.0, "max_stops": 1}
+    truck |= {"working_days": [1, 2, 3, 4, 5, 6, 7], "trips_per_day": 2}
+    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
+    for code in ("D1", "D2"):
+        site = {"code": code, "name": f"Daily {code}", "truck": "T2", "demand_per_day": 1000.0}
+        site |= {"holding_cost": 0.002, "stop_cost": 10.0, "tank_capacity": 2000.0, "safe_fill": 0.9}
+        site |= {"safety_stock": 100.0}
+        response = client.post("/api/v1/sites", json=site, headers=auth("admin"))
+        assert response.status_code == 201, response.get_json()
+    record_plan(client, auth, "T2", today(app))
+    day = today(app) + dt.timedelta(days=1)
+    [first, second] = client.get(f"/api/v1/trucks/T2/trips?from={day}&to={day}", headers=auth("viewer")).get_json()[
+        "trips"
+    ]
+    assert (first["trip"], second["trip"]) == (1, 2)
+    body = browser_client.get(f"/status/load-sheet?date={day}").get_data(as_text=True)
+    [section] = body.split('<section class="card sheet"')[1:]
+    captions = [clean(c) for c in re.findall(r"<caption>(.*?)</caption>", section, re.S)]
+    assert [c.split(":")[0] for c in captions] == ["Trip 1", "Trip 2"]
+    tables = section.split('class="sheet-stops"')[1:]
+    for trip, table in zip((first, second), tables, strict=True):
+        [row] = [clean(r) for r in rows_of('class="sheet-stops"' + table, "sheet-stops")]
+        assert trip["stops"][0]["site"] in row
 
 
 # ------------------------------------------------------------------ labels
