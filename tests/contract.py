@@ -23,6 +23,19 @@ JOINT_FIELDS = {
     "needed",
 }
 
+#: Fields of each site of a joint result (issue 4 §1; issue 13 added the pattern: period, days, longest gap).
+JOINT_SITE_FIELDS = {
+    "code",
+    "cycle_days",
+    "offset_days",
+    "quantity",
+    "cost_per_day",
+    "binding",
+    "period_days",
+    "delivery_days",
+    "longest_gap_days",
+}
+
 #: A truck calendar that constrains nothing (issue 13): every day, up to 24 trips a day, no closed
 #: dates. For tests about something else than the calendar; the API's defaults are Monday to
 #: Friday with one trip a day.

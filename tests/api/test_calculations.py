@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 
 import pytest
-from contract import JOINT_FIELDS, UNCONSTRAINED_CALENDAR
+from contract import JOINT_FIELDS, JOINT_SITE_FIELDS, UNCONSTRAINED_CALENDAR
 from sqlalchemy import func, select
 
 from service.persistence.models import IdempotencyRecord, Plan, PlanSite, Reading, Site, Truck
@@ -162,17 +162,7 @@ def test_joint_contract_field_names(client, auth, db_session):
     assert isinstance(body["warnings"], list) and isinstance(body["trips_truncated"], bool)
     assert len(body["sites"]) == 5
     for site in body["sites"]:
-        assert set(site) == {
-            "code",
-            "cycle_days",
-            "offset_days",
-            "quantity",
-            "cost_per_day",
-            "binding",
-            "period_days",
-            "delivery_days",
-            "longest_gap_days",
-        }
+        assert set(site) == JOINT_SITE_FIELDS
     assert body["status"] in ("optimal", "feasible") and body["needed"] is None
     assert body["trips"]
     for trip in body["trips"]:

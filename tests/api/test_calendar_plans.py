@@ -14,7 +14,7 @@ from collections import Counter
 
 import holidays
 import pytest
-from contract import JOINT_FIELDS, UNCONSTRAINED_CALENDAR
+from contract import JOINT_FIELDS, JOINT_SITE_FIELDS, UNCONSTRAINED_CALENDAR
 from sqlalchemy import func, select
 
 from service.persistence import plans as plan_store
@@ -25,17 +25,6 @@ JOINT = "/api/v1/calculations/joint"
 CHRISTMAS = dt.date(2026, 12, 25)
 START = dt.date(2026, 12, 21)  # the Monday of Christmas week
 STATUSES = {"optimal", "feasible", "infeasible", "time_limit"}
-SITE_FIELDS = {
-    "code",
-    "cycle_days",
-    "offset_days",
-    "quantity",
-    "cost_per_day",
-    "binding",
-    "period_days",
-    "delivery_days",
-    "longest_gap_days",
-}
 
 
 def site(code: str, **extra):
@@ -86,7 +75,7 @@ def test_joint_with_the_default_calendar_plans_monday_to_friday_one_trip(client,
     assert body["start_date"] == START.isoformat()
     assert body["repeat_days"] % 7 == 0  # not every day works: whole weeks
     for plan_site in body["sites"]:
-        assert set(plan_site) == SITE_FIELDS
+        assert set(plan_site) == JOINT_SITE_FIELDS
         assert plan_site["offset_days"] == plan_site["delivery_days"][0]
         assert plan_site["cycle_days"] == pytest.approx(plan_site["period_days"] / len(plan_site["delivery_days"]))
     for trip in body["trips"]:
