@@ -22,6 +22,7 @@ from service.planning.dispatch_window import Limits, window_trips
 from service.planning.drivable_bound import drivable_lower_bound
 from service.planning.errors import PlanningInputError
 from service.planning.evaluation import Evaluation, evaluate, limited
+from service.planning.fallback import fallback_patterns
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
 from service.planning.integer_multiple import integer_policies_by_interval, integer_policy
 from service.planning.patterns import Patterns, from_working_cycles
@@ -48,6 +49,11 @@ INTERVALS = 8
 STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
 #: Further stop penalties tried only when no candidate fits ``trips_per_day``.
 REPAIR_PENALTIES = (16.0, 32.0, 64.0, 128.0, 256.0, 1024.0)
+#: Networks up to this many sites also try the weekly fallback plan (:mod:`fallback`) as a candidate;
+#: larger ones only when no other candidate is drivable.
+FALLBACK_SITES = 500
+#: Capacity factors of the fallback's greedy bins, tried in turn until the exact packing fits.
+FALLBACK_SHRINK = (1.0, 0.9, 0.75)
 
 
 def _check_options(method, base_days, start_date, deadline_seconds) -> None:
@@ -136,7 +142,7 @@ class _Candidate:
     patterns: Patterns
     binding: np.ndarray
     evaluation: Evaluation
-    policy: Policy
+    policy: Policy | None
 
 
 def _axis_problem(problem: Problem, week: WorkWeek, dispatch_scale: float, stop_penalty: float) -> Problem:
@@ -299,6 +305,7 @@ class _Search:
         self.fewest: _Candidate | None = None  # least trips on the busiest date (for `needed`)
         self.seen: set[bytes] = set()
         self.cut = False
+        self.classic = week.n == 7 and not self.limited
 
     def out_of_time(self) -> bool:
         if self.deadline is not None and time.monotonic() > self.deadline:
@@ -345,9 +352,9 @@ class _Search:
         """The phase search of :func:`rebalance` on the chosen plan (fewer trips), then weekday patterns
         (:func:`improve_weekly`); each kept when its exact cost is lower."""
         b = self.best
-        patterns = _patterns(self.problem, self.week, b.policy, self.deadline, rebalanced=True)
-        key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
-        if key not in self.seen:
+        patterns = None if b.policy is None else _patterns(self.problem, self.week, b.policy, self.deadline, True)
+        key = b"" if patterns is None else patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
+        if patterns is not None and key not in self.seen:
             self.seen.add(key)
             ev = evaluate(self.problem, patterns, self.limited)
             if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
@@ -360,6 +367,21 @@ class _Search:
             ev = evaluate(self.problem, weekly, self.limited)
             if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
                 self.best = _Candidate(b.method, b.base_days, weekly, b.binding, ev, b.policy)
+
+    def _fallback(self) -> None:
+        """The weekly fallback plan (:mod:`fallback`), kept when drivable and cheaper (any time when nothing
+        else is drivable, even past the deadline: a drivable answer beats none). With loads packed above
+        the bins' count on some date it is retried with the capacity shrunk by ``FALLBACK_SHRINK``."""
+        for shrink in FALLBACK_SHRINK:
+            patterns = fallback_patterns(self.problem, self.week, shrink)
+            if patterns is None:
+                return
+            ev = evaluate(self.problem, patterns, self.limited)
+            if ev is not None and self.drivable(ev):
+                if self.best is None or ev.cost < self.best.evaluation.cost:
+                    binding = np.full(self.problem.n, "", dtype=object)
+                    self.best = _Candidate("integer", None, patterns, binding, ev, None)
+                return
 
     def finish(self) -> None:
         """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
@@ -377,6 +399,8 @@ class _Search:
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
+        if self.best is None or (not self.classic and self.problem.n <= FALLBACK_SITES):
+            self._fallback()
         if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
             self._improve()
         if self.best is None and self.candidates:
