@@ -52,6 +52,9 @@ REPAIR_PENALTIES = (16.0, 32.0, 64.0, 128.0, 256.0, 1024.0)
 #: Networks up to this many sites also try the weekly fallback plan (:mod:`fallback`) as a candidate;
 #: larger ones only when no other candidate is drivable.
 FALLBACK_SITES = 500
+#: Networks up to this many sites (not in the classic setting) also run each method's own search under
+#: ``best`` and keep the cheapest plan, so ``best`` is never worse than the methods it runs.
+BEST_OF_METHODS_SITES = 500
 #: Capacity factors of the fallback's greedy bins, tried in turn until the exact packing fits.
 FALLBACK_SHRINK = (1.0, 0.9, 0.75)
 
@@ -502,12 +505,21 @@ def plan_joint(
         else:
             a, b = (start + dt.timedelta(days=x) for x in gap[1:])
             text = f"cannot last the {gap[0]} days between the open dates {a.isoformat()} and {b.isoformat()}"
+        removed = {problem.codes[i] for i in short}
+        rest = [s for s in sites if s.code not in removed]
+        trips_needed = None
+        if rest and gap is not None:  # the other sites may still need more trips a day (rule 5: all that binds)
+            left = None if deadline_seconds is None else max(began + deadline_seconds - time.monotonic(), 1e-3)
+            others = plan_joint(rest, truck, method=method, base_days=base_days, start_date=start, deadline_seconds=left)
+            if not others.success:
+                trips_needed = others.needed["trips_per_day"]
+                text += f"; without them, {others.message}"
         return _infeasible(
             problem,
             f"site(s) {_names(problem, short)} {text}",
             bound,
             start,
-            {"trips_per_day": None, "remove_sites": [problem.codes[i] for i in short]},
+            {"trips_per_day": trips_needed, "remove_sites": [problem.codes[i] for i in short]},
             "power_of_two" if method == "power_of_two" else "integer",
             base_days,
         )
@@ -528,6 +540,14 @@ def plan_joint(
         )
     deadline = None if deadline_seconds is None else began + float(deadline_seconds)
     search = _search(problem, week, method, base_days if base_fits else None, deadline)
+    if method == "best" and problem.n <= BEST_OF_METHODS_SITES and not search.classic:
+        for single in ("power_of_two", "integer") if base_fits else ("integer",):
+            other = _search(problem, week, single, base_days, deadline)
+            search.cut = search.cut or other.cut
+            if other.best is not None and (
+                search.best is None or other.best.evaluation.cost < search.best.evaluation.cost * (1 - 1e-12)
+            ):
+                search.best = other.best
     classic = week.n == 7 and not search.limited
     warnings: list[str] = []
     if not base_fits:

@@ -150,9 +150,6 @@ def test_too_many_stops_for_one_trip_a_day_names_the_trips_needed():
     check_needed(result, sites, truck, dt.date(2026, 12, 7))
 
 
-@pytest.mark.xfail(
-    strict=True, reason="planner 5df030e: needed names site-1 only; the other two still need 2 trips a day"
-)
 def test_needed_covers_every_limit_that_binds():
     # Mon–Fri, one trip of one stop a day: site-1 (2 days of stock) cannot last the weekend, and the other
     # two (3 days) need Mon–Wed–Fri each, 6 stops a week for 5 trips. Taking off site-1 is not enough.
@@ -161,6 +158,7 @@ def test_needed_covers_every_limit_that_binds():
     start = dt.date(2026, 1, 1)
     result = plan_joint(sites, truck, start_date=start)
     check_plan(result, sites, truck)
+    assert result.needed == {"trips_per_day": 2, "remove_sites": ["site-1"]}
     check_needed(result, sites, truck, start)
 
 
