@@ -145,7 +145,7 @@ class _Relocation:
         return self._keep_rule_1(i, c, prev, nxt, earlier)
 
     def _keep_rule_1(self, i: int, c: int, prev: int | None, nxt: int | None, earlier: list[int]) -> bool:
-        """No move keeps rules 1–2: keep rule 1 (every date within the truck's limits) and break rule 2
+        """No earlier move keeps rules 1–2 (True when the later move below happens to keep them): keep rule 1 (every date within the truck's limits) and break rule 2
         (warned): the nearest earlier open date with room, else the nearest later one before the next
         delivery whose room and the previous delivery's date both allow it, else the delivery is dropped (the previous delivery keeps its quantity when its
         date has no room for more). Quantities above the capacity are clipped to it."""
@@ -160,7 +160,7 @@ class _Relocation:
                 continue
             if self._room(t, i, d * (end - t)) and (prev is None or self._room(prev, i, d * (t - prev))):
                 self._move(i, c, t)
-                return False
+                return (prev is None or t - prev <= cap) and end - t <= cap
         if prev is not None and not self._room(prev, i, d * (end - prev)):
             self.fixed[(i, prev)] = self._quantity(i, prev)  # the previous delivery keeps its quantity
         self._move(i, c, None)
