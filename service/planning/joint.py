@@ -49,8 +49,8 @@ INTERVALS = 8
 STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
 #: Further stop penalties tried only when no candidate fits ``trips_per_day``.
 REPAIR_PENALTIES = (16.0, 32.0, 64.0, 128.0, 256.0, 1024.0)
-#: Networks up to this many sites also try the weekly fallback plan (:mod:`fallback`) as a candidate;
-#: larger ones only when no other candidate is drivable.
+#: Under ``best``, networks up to this many sites also try the weekly fallback plan (:mod:`fallback`) as a
+#: candidate; otherwise it is tried only when no other candidate is drivable.
 FALLBACK_SITES = 500
 #: Networks up to this many sites (not in the classic setting) also run each method's own search under
 #: ``best`` and keep the cheapest plan, so ``best`` is never worse than the methods it runs.
@@ -402,7 +402,7 @@ class _Search:
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
-        if self.best is None or (not self.classic and self.problem.n <= FALLBACK_SITES):
+        if self.best is None or (self.method == "best" and not self.classic and self.problem.n <= FALLBACK_SITES):
             self._fallback()
         if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
             self._improve()
