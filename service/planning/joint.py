@@ -4,7 +4,8 @@ See ``docs/planning.md`` (sections 3–8 and "Drivable plans"). In short: the po
 power-of-two and integer-multiple optima) run on the truck's working-day axis, on the data and on
 truck-aware variants of it; each candidate is staggered, turned into calendar patterns, and evaluated
 exactly by packing every date of its repeat period into trips; the cheapest candidate that never needs
-more than ``trips_per_day`` trips on a date wins.
+more than ``trips_per_day`` trips on a date wins. When none fits, the weekly fallback plan of
+:mod:`fallback` is tried (under ``best`` also as a candidate up to ``FALLBACK_SITES`` sites).
 """
 
 from __future__ import annotations
