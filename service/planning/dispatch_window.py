@@ -14,9 +14,10 @@ days to the next one (rule 2). If no such date exists after the previous deliver
 delivery alone covers the stretch when that gap is within the longest gap; else the site gets one
 delivery on the nearest earlier open date with room and one on the nearest later open date with room
 (both gaps within the longest gap). When none of these keeps the rules, the window's warnings name the
-date and the sites: the delivery then goes to the nearest earlier open date after the
-previous one that has room (the gap after it may exceed the pattern's longest gap), else to the nearest
-earlier open date (the date may need more trips than ``trips_per_day``), else it is dropped.
+date and the sites: the delivery then goes to the nearest earlier open date that has room (the gap after it may exceed the pattern's longest gap), else to the
+nearest later open date before the next delivery where both it and the previous delivery's date have
+room, else it is dropped; quantities are clipped to the capacity. Rule 1 (dates, load, stops,
+``trips_per_day``) is kept in every case.
 """
 
 from __future__ import annotations
@@ -75,7 +76,7 @@ class _Relocation:
             int(s_sorted[a]): d_sorted[a:b].tolist() for a, b in zip(bounds[:-1], bounds[1:], strict=True)
         }
         self._day, self._site = day, site
-        self.warnings: list[str] = []
+        self.fixed: dict[tuple[int, int], float] = {}  # (site, day) -> quantity kept when a drop breaks rule 2
 
     def sites_on(self, t: int) -> set[int]:
         if t not in self.by_day:
@@ -87,16 +88,20 @@ class _Relocation:
         return bool(self.week.is_working(t)) and t not in self.closed
 
     def _quantity(self, i: int, t: int) -> float:
+        if (i, t) in self.fixed:
+            return self.fixed[(i, t)]
         days = self.site_days[i]
         k = days.index(t)
         nxt = days[k + 1] if k + 1 < len(days) else t + int(self.longest[i])
-        return float(self.demand[i] * (nxt - t))
+        return min(float(self.demand[i] * (nxt - t)), self.limits.capacity)
 
     def _room(self, t: int, i: int, q: float) -> bool:
+        """Whether date ``t`` still packs into ``trips_per_day`` trips with site ``i`` bringing ``q`` there
+        (``q`` clipped to the capacity; replaces ``i``'s own delivery on ``t`` if it has one)."""
         if self.limits.trips_per_day is None:
             return True
-        present = sorted(self.sites_on(t))
-        qs = np.array([self._quantity(j, t) for j in present] + [q])
+        present = sorted(self.sites_on(t) - {i})
+        qs = np.array([self._quantity(j, t) for j in present] + [min(q, self.limits.capacity)])
         return len(pack_date(qs, self.limits.capacity, self.limits.max_stops)) <= self.limits.trips_per_day
 
     def _move(self, i: int, old: int, new: int | None) -> None:
@@ -124,7 +129,7 @@ class _Relocation:
             if self._room(t, i, d * ((nxt if nxt is not None else t + cap) - t)):
                 self._move(i, c, t)
                 return True
-        if prev is not None and nxt is not None and nxt - prev <= cap:
+        if prev is not None and nxt is not None and nxt - prev <= cap and self._room(prev, i, d * (nxt - prev)):
             self._move(i, c, None)
             return True
         if nxt is not None:
@@ -137,8 +142,28 @@ class _Relocation:
                     days.sort()
                     self.sites_on(after).add(i)
                     return True
-        roomy = [t for t in earlier if self._room(t, i, d * ((nxt if nxt is not None else t + cap) - t))]
-        self._move(i, c, roomy[0] if roomy else (earlier[0] if earlier else None))
+        return self._keep_rule_1(i, c, prev, nxt, earlier)
+
+    def _keep_rule_1(self, i: int, c: int, prev: int | None, nxt: int | None, earlier: list[int]) -> bool:
+        """No earlier move keeps rules 1–2 (True when the later move below happens to keep them): keep rule 1 (every date within the truck's limits) and break rule 2
+        (warned): the nearest earlier open date with room, else the nearest later one before the next
+        delivery whose room and the previous delivery's date both allow it, else the delivery is dropped (the previous delivery keeps its quantity when its
+        date has no room for more). Quantities above the capacity are clipped to it."""
+        d, cap = float(self.demand[i]), int(self.longest[i])
+        for t in earlier:
+            if self._room(t, i, d * ((nxt if nxt is not None else t + cap) - t)):
+                self._move(i, c, t)
+                return False
+        end = nxt if nxt is not None else c + cap
+        for t in range(c + 1, end):
+            if not self._open(t) or i in self.sites_on(t):
+                continue
+            if self._room(t, i, d * (end - t)) and (prev is None or self._room(prev, i, d * (t - prev))):
+                self._move(i, c, t)
+                return (prev is None or t - prev <= cap) and end - t <= cap
+        if prev is not None and not self._room(prev, i, d * (end - prev)):
+            self.fixed[(i, prev)] = self._quantity(i, prev)  # the previous delivery keeps its quantity
+        self._move(i, c, None)
         return False
 
     def result(self, affected: list[int]):
@@ -176,11 +201,15 @@ def _deliveries(patterns: Patterns, demand, first: int, last: int, limits: Limit
         moved_gap = np.where(has_next, nxt - moved_day, longest[moved_site])
         day = np.concatenate([day[keep], moved_day])
         site = np.concatenate([site[keep], moved_site])
-        quantity = np.concatenate([demand[site[: keep.sum()]] * gap[keep], demand[moved_site] * moved_gap])
+        moved_quantity = np.minimum(demand[moved_site] * moved_gap, limits.capacity)
+        for (i, t), q in mover.fixed.items():
+            moved_quantity[(moved_site == i) & (moved_day == t)] = q
+        quantity = np.concatenate([demand[site[: keep.sum()]] * gap[keep], moved_quantity])
         order = np.lexsort((site, day))
         day, site, quantity = day[order], site[order], quantity[order]
+        reach = int(longest.max())  # a closure just after the window changes its last quantities
         for t, sites in sorted(failed.items()):
-            if first <= t <= last:
+            if first <= t <= last + reach:
                 warnings.append((t, sites))
     inside = (day >= first) & (day <= last)
     return day[inside], site[inside], quantity[inside], warnings
@@ -230,10 +259,10 @@ def window_trips(
         )
         j = k
     warnings = [
-        f"closed date {(start + dt.timedelta(days=t)).isoformat()}: no earlier working date keeps the rules "
+        f"closed date {(start + dt.timedelta(days=t)).isoformat()}: no move keeps every gap within the tank "
         f"for {', '.join(f'`{codes[i]}`' for i in sorted(set(s)))}"
         for t, s in failed
-        if t <= listed_last
+        if t <= listed_last + int(patterns.longest_gap().max())
     ]
     return trips, warnings, listed_last
 

@@ -65,9 +65,14 @@ def _classic_long(problem: Problem, patterns: Patterns, repeat: int):
     T0 = int(patterns.period.min())
     if len(patterns.site) != len(patterns.period) or (patterns.period % T0).any() or (patterns.offset % T0).any():
         return None
-    last = min(repeat, EVALUATED_DAYS * T0) - 1
-    day, site, gap = patterns.deliveries(0, last)
-    load = np.bincount(day // T0, weights=problem.demand[site] * gap)
+    days = min(repeat // T0, EVALUATED_DAYS)
+    load = np.zeros(days)
+    m, r = patterns.period // T0, patterns.offset // T0
+    quantity = problem.demand[patterns.site] * patterns.gap
+    for multiple in np.unique(m).tolist():  # dispatch day j gets the sites with j ≡ r_i (mod m_i)
+        members = m == multiple
+        by_residue = np.bincount(r[members], weights=quantity[members], minlength=multiple)
+        load += by_residue[np.arange(days) % multiple]
     warnings = (
         f"the repeat period has {repeat // T0} dispatch days; the peak load was evaluated over the first "
         f"{EVALUATED_DAYS}",

@@ -4,7 +4,8 @@ See ``docs/planning.md`` (sections 3–8 and "Drivable plans"). In short: the po
 power-of-two and integer-multiple optima) run on the truck's working-day axis, on the data and on
 truck-aware variants of it; each candidate is staggered, turned into calendar patterns, and evaluated
 exactly by packing every date of its repeat period into trips; the cheapest candidate that never needs
-more than ``trips_per_day`` trips on a date wins.
+more than ``trips_per_day`` trips on a date wins. When none fits, the weekly fallback plan of
+:mod:`fallback` is tried (under ``best`` also as a candidate up to ``FALLBACK_SITES`` sites).
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ from service.planning.dispatch_window import Limits, window_trips
 from service.planning.drivable_bound import drivable_lower_bound
 from service.planning.errors import PlanningInputError
 from service.planning.evaluation import Evaluation, evaluate, limited
+from service.planning.fallback import fallback_patterns
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
 from service.planning.integer_multiple import integer_policies_by_interval, integer_policy
 from service.planning.patterns import Patterns, from_working_cycles
@@ -48,6 +50,14 @@ INTERVALS = 8
 STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
 #: Further stop penalties tried only when no candidate fits ``trips_per_day``.
 REPAIR_PENALTIES = (16.0, 32.0, 64.0, 128.0, 256.0, 1024.0)
+#: Under ``best``, networks up to this many sites also try the weekly fallback plan (:mod:`fallback`) as a
+#: candidate; otherwise it is tried only when no other candidate is drivable.
+FALLBACK_SITES = 500
+#: Networks up to this many sites (not in the classic setting) also run each method's own search under
+#: ``best`` and keep the cheapest plan, so ``best`` is never worse than the methods it runs.
+BEST_OF_METHODS_SITES = 500
+#: Capacity factors of the fallback's greedy bins, tried in turn until the exact packing fits.
+FALLBACK_SHRINK = (1.0, 0.9, 0.75)
 
 
 def _check_options(method, base_days, start_date, deadline_seconds) -> None:
@@ -136,7 +146,7 @@ class _Candidate:
     patterns: Patterns
     binding: np.ndarray
     evaluation: Evaluation
-    policy: Policy
+    policy: Policy | None
 
 
 def _axis_problem(problem: Problem, week: WorkWeek, dispatch_scale: float, stop_penalty: float) -> Problem:
@@ -299,6 +309,7 @@ class _Search:
         self.fewest: _Candidate | None = None  # least trips on the busiest date (for `needed`)
         self.seen: set[bytes] = set()
         self.cut = False
+        self.classic = week.n == 7 and not self.limited
 
     def out_of_time(self) -> bool:
         if self.deadline is not None and time.monotonic() > self.deadline:
@@ -345,9 +356,9 @@ class _Search:
         """The phase search of :func:`rebalance` on the chosen plan (fewer trips), then weekday patterns
         (:func:`improve_weekly`); each kept when its exact cost is lower."""
         b = self.best
-        patterns = _patterns(self.problem, self.week, b.policy, self.deadline, rebalanced=True)
-        key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
-        if key not in self.seen:
+        patterns = None if b.policy is None else _patterns(self.problem, self.week, b.policy, self.deadline, True)
+        key = b"" if patterns is None else patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
+        if patterns is not None and key not in self.seen:
             self.seen.add(key)
             ev = evaluate(self.problem, patterns, self.limited)
             if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
@@ -360,6 +371,21 @@ class _Search:
             ev = evaluate(self.problem, weekly, self.limited)
             if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
                 self.best = _Candidate(b.method, b.base_days, weekly, b.binding, ev, b.policy)
+
+    def _fallback(self) -> None:
+        """The weekly fallback plan (:mod:`fallback`), kept when drivable and cheaper (any time when nothing
+        else is drivable, even past the deadline: a drivable answer beats none). With loads packed above
+        the bins' count on some date it is retried with the capacity shrunk by ``FALLBACK_SHRINK``."""
+        for shrink in FALLBACK_SHRINK:
+            patterns = fallback_patterns(self.problem, self.week, shrink)
+            if patterns is None:
+                return
+            ev = evaluate(self.problem, patterns, self.limited)
+            if ev is not None and self.drivable(ev):
+                if self.best is None or ev.cost < self.best.evaluation.cost:
+                    binding = np.full(self.problem.n, "", dtype=object)
+                    self.best = _Candidate("integer", None, patterns, binding, ev, None)
+                return
 
     def finish(self) -> None:
         """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
@@ -377,6 +403,8 @@ class _Search:
             self._exact(c)
             if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
                 self.best = c
+        if self.best is None or (self.method == "best" and not self.classic and self.problem.n <= FALLBACK_SITES):
+            self._fallback()
         if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
             self._improve()
         if self.best is None and self.candidates:
@@ -478,12 +506,21 @@ def plan_joint(
         else:
             a, b = (start + dt.timedelta(days=x) for x in gap[1:])
             text = f"cannot last the {gap[0]} days between the open dates {a.isoformat()} and {b.isoformat()}"
+        removed = {problem.codes[i] for i in short}
+        rest = [s for s in sites if s.code not in removed]
+        trips_needed = None
+        if rest and gap is not None:  # the other sites may still need more trips a day (rule 5: all that binds)
+            left = None if deadline_seconds is None else max(began + deadline_seconds - time.monotonic(), 1e-3)
+            others = plan_joint(rest, truck, method=method, base_days=base_days, start_date=start, deadline_seconds=left)
+            if not others.success:
+                trips_needed = others.needed["trips_per_day"]
+                text += f"; without them, {others.message}"
         return _infeasible(
             problem,
             f"site(s) {_names(problem, short)} {text}",
             bound,
             start,
-            {"trips_per_day": None, "remove_sites": [problem.codes[i] for i in short]},
+            {"trips_per_day": trips_needed, "remove_sites": [problem.codes[i] for i in short]},
             "power_of_two" if method == "power_of_two" else "integer",
             base_days,
         )
@@ -504,6 +541,14 @@ def plan_joint(
         )
     deadline = None if deadline_seconds is None else began + float(deadline_seconds)
     search = _search(problem, week, method, base_days if base_fits else None, deadline)
+    if method == "best" and problem.n <= BEST_OF_METHODS_SITES and not search.classic:
+        for single in ("power_of_two", "integer") if base_fits else ("integer",):
+            other = _search(problem, week, single, base_days, deadline)
+            search.cut = search.cut or other.cut
+            if other.best is not None and (
+                search.best is None or other.best.evaluation.cost < search.best.evaluation.cost * (1 - 1e-12)
+            ):
+                search.best = other.best
     classic = week.n == 7 and not search.limited
     warnings: list[str] = []
     if not base_fits:

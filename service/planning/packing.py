@@ -195,10 +195,3 @@ def pack(day: np.ndarray, site: np.ndarray, quantity: np.ndarray, capacity: floa
     np.logical_or.at(over, np.repeat(np.arange(len(starts)), bins), bin_load > limit)
     _pack_distinct(np.flatnonzero(over), trip, starts, counts, L, site, quantity, capacity, max_stops)
     return trip, dates, L
-    for g in np.flatnonzero(over).tolist():
-        lo, hi = starts[g], starts[g] + counts[g]
-        packing = pack_date(quantity[lo:hi], capacity, max_stops)
-        for b, members in enumerate(packing):
-            trip[lo + np.asarray(members, dtype=np.int64)] = b
-        L[g] = len(packing)
-    return trip, dates, L

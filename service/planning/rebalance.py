@@ -68,11 +68,11 @@ def rebalance(
         quantity[m] = (cal[t + m] - cal[t]).astype(float)
     load = np.zeros(N)
     count = np.zeros(N)
-    for i in range(len(cycles)):
-        m = int(cycles[i])
-        at = t[phases[i] :: m]
-        load[at] += demand[i] * quantity[m][at]
-        count[at] += 1
+    for m in np.unique(cycles).tolist():  # date t gets the sites of cycle m with r_i ≡ t (mod m)
+        members = cycles == m
+        demand_by_phase = np.bincount(phases[members], weights=demand[members], minlength=m)
+        load += demand_by_phase[t % m] * quantity[m]
+        count += np.bincount(phases[members], minlength=m)[t % m]
     order = np.argsort(-(demand * cycles), kind="stable")
     for _ in range(passes):
         changed = False

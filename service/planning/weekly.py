@@ -65,7 +65,11 @@ def improve_weekly(problem: Problem, week: WorkWeek, patterns: Patterns, deadlin
     count = np.bincount(day, minlength=R).astype(float)
     own_stops, own_hold = patterns.site_costs(k, H)
     own = own_stops + own_hold
-    per_site = {i: (day[site == i], gap[site == i]) for i in range(problem.n)}
+    by_site = np.argsort(site, kind="stable")
+    edges = np.searchsorted(site[by_site], np.arange(problem.n + 1))
+    set_len = np.array([len(o) for o, _ in sets], dtype=float)
+    set_sq = np.array([float((g * g).sum()) for _, g in sets])
+    set_max = np.array([int(g.max()) for _, g in sets])
     t7 = np.arange(R) % 7
     placed = []
     for offs, g in sets:
@@ -75,15 +79,13 @@ def improve_weekly(problem: Problem, week: WorkWeek, patterns: Patterns, deadlin
     for i in np.argsort(-own, kind="stable").tolist():
         if deadline is not None and time.monotonic() > deadline:
             break
-        options = [
-            (j, (k[i] * len(o) + H[i] * float((g * g).sum())) / 7.0)
-            for j, (o, g) in enumerate(sets)
-            if int(g.max()) <= u[i]
-        ]
-        options = [(j, c) for j, c in options if c < own[i] - 1e-12]
-        if not options:
+        costs = (k[i] * set_len + H[i] * set_sq) / 7.0
+        allowed = np.flatnonzero((set_max <= u[i]) & (costs < own[i] - 1e-12))
+        if len(allowed) == 0:
             continue
-        days_i, gaps_i = per_site[i]
+        options = zip(allowed.tolist(), costs[allowed].tolist(), strict=True)
+        mine = by_site[edges[i] : edges[i + 1]]
+        days_i, gaps_i = day[mine], gap[mine]
         load[days_i] -= d[i] * gaps_i
         count[days_i] -= 1
         before = need(load[days_i] + d[i] * gaps_i, count[days_i] + 1).sum() - need(load[days_i], count[days_i]).sum()
