@@ -11,9 +11,9 @@ from flask.json.provider import DefaultJSONProvider
 from werkzeug.middleware.proxy_fix import ProxyFix
 
 from service import api, auth, errors, health, metrics, observability, web
+from service import request_db as db
 from service.api.blueprint import guard_request, guard_text
 from service.config import load_settings
-from service.persistence import db
 
 
 class StrictJSONProvider(DefaultJSONProvider):

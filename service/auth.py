@@ -27,8 +27,9 @@ from sqlalchemy import bindparam, select, update
 
 from service.cache import LruCache
 from service.errors import Problem
-from service.persistence.db import read_engine, read_one, rollback_request_session, write_intent
+from service.persistence.db import read_one, write_intent
 from service.persistence.models import Token, utcnow
+from service.request_db import read_engine, rollback_request_session
 
 ROLES = ("viewer", "dispatcher", "admin")
 PUBLIC = "public"

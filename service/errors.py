@@ -17,8 +17,8 @@ from flask import Flask, Response, g, json, request
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 from werkzeug.exceptions import HTTPException
 
-from service.persistence.db import rollback_request_session
 from service.planning import PlanningInputError
+from service.request_db import rollback_request_session
 
 PROBLEM_JSON = "application/problem+json"
 #: One scheme for every problem ``type``: ``PROBLEM_BASE + kind``. An ``https`` URI, as RFC 9457's

@@ -29,9 +29,9 @@ from service.cache import LruCache
 from service.errors import PROBLEM_JSON, Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import get_session, read_engine, read_session
 from service.persistence.models import Plan, Truck
 from service.planning import PlanningInputError, plan_joint
+from service.request_db import get_session, read_engine, read_session
 
 PREFIX = ""
 blp = Blueprint("plans", __name__, description="Recorded plans and the trips dispatch software loads each week")

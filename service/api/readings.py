@@ -14,8 +14,8 @@ from service.api.sites import site_or_404
 from service.auth import allow, current_caller
 from service.errors import Problem
 from service.persistence import plans as plan_store
-from service.persistence.db import get_session
 from service.persistence.models import Reading, utcnow
+from service.request_db import get_session
 
 PREFIX = "/sites"
 blp = Blueprint("readings", __name__, description="Tank level readings")

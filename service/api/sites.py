@@ -23,8 +23,8 @@ from service.api.schemas.sites import (
 from service.auth import allow
 from service.errors import PROBLEM_JSON, Problem, flatten_messages
 from service.persistence import repository as repo
-from service.persistence.db import get_session
 from service.persistence.models import Site, Truck
+from service.request_db import get_session
 
 PREFIX = "/sites"
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}  # documented error bodies

@@ -14,8 +14,8 @@ from service.api.schemas.trucks import TruckListSchema, TruckPatchSchema, TruckQ
 from service.auth import allow
 from service.errors import PROBLEM_JSON, Problem
 from service.persistence import repository as repo
-from service.persistence.db import get_session
 from service.persistence.models import Truck
+from service.request_db import get_session
 
 PREFIX = "/trucks"
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}  # documented error bodies

@@ -19,9 +19,9 @@ from service.cache import LruCache
 from service.errors import Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import get_session, read_engine
 from service.persistence.models import Truck, utcnow
 from service.planning.projection import TOLERANCE
+from service.request_db import get_session, read_engine
 from service.web import bp, error_page, formatting, log, settings
 from service.web.access import page
 from service.web.chart import chart_id, level_svg

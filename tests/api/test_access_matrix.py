@@ -14,8 +14,8 @@ from werkzeug.routing import BuildError, IntegerConverter
 from service import create_app
 from service.auth import PUBLIC, ROLES, SESSION, new_token, rule_for, token_hash
 from service.persistence import repository as repo
-from service.persistence.db import dispose
 from service.persistence.models import Token
+from service.request_db import dispose
 
 #: (method, rule) → least role, for every route the issues define (tests/contract.py).
 EXPECTED = ROUTE_ROLES

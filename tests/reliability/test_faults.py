@@ -31,8 +31,8 @@ import requests
 from sqlalchemy import create_engine, event, text
 
 from service import auth, create_app
+from service import request_db as db
 from service.idempotency import LEASE
-from service.persistence import db
 
 from .helpers import (
     add_tokens,
@@ -219,7 +219,7 @@ def activate_a_plan(post) -> None:  # noqa: ANN001 - post(path) -> (status, JSON
 
 def test_postgres_down_weekly_trips_and_every_route_answer_503_logged_as_warning(own_postgres, monkeypatch, caplog):
     """PostgreSQL stops while tokens are cached: the weekly trips call, whose change-stamp read
-    connects straight through the pool (``db.RawRead``), answered 500 with a traceback at ERROR;
+    once connected straight through the pool, answered 500 with a traceback at ERROR;
     now it answers 503 problem+json with Retry-After like every other route, logged as a warning,
     and 200 again once the database is back."""
     url = own_postgres.url

@@ -22,7 +22,7 @@ from sqlalchemy import text
 from service import create_app
 from service.auth import PUBLIC, SESSION, allow, rule_for
 from service.config import Settings
-from service.persistence.db import dispose
+from service.request_db import dispose
 
 from .helpers import bearer, load_demo_network, migrate, run_cli, start_gunicorn
 
