@@ -23,12 +23,12 @@ from dataclasses import dataclass
 from typing import Any, TypeVar
 
 from flask import Flask, current_app, g, request
-from sqlalchemy import bindparam, select, update
 
 from service.cache import LruCache
 from service.errors import Problem
-from service.persistence.db import read_one, write_intent
-from service.persistence.models import Token, utcnow
+from service.persistence import tokens
+from service.persistence.db import write_intent
+from service.persistence.models import utcnow
 from service.request_db import read_engine, rollback_request_session
 
 ROLES = ("viewer", "dispatcher", "admin")
@@ -40,11 +40,6 @@ TOKEN_CACHE_SIZE = 1024
 _clock = time.monotonic  # the token cache's clock (tests move it instead of sleeping)
 
 F = TypeVar("F", bound=Callable[..., object])
-
-#: Runs on every request: columns rather than the ORM entity, and the statement built once.
-_TOKEN_BY_HASH = select(Token.id, Token.name, Token.role, Token.revoked_at, Token.last_used_at).where(
-    Token.secret_hash == bindparam("secret_hash")
-)
 
 #: Rules for endpoints that are not ours to decorate.
 EXTRA_RULES = {"api-docs.openapi_json": "viewer"}
@@ -121,7 +116,7 @@ def caller_from_token(token: str) -> Caller | None:
     hit = cache.get(digest)
     if hit is not None and hit[1] > now:
         return hit[0]
-    row = read_one(read_engine(), _TOKEN_BY_HASH, {"secret_hash": digest})
+    row = tokens.by_hash(read_engine(), digest)
     caller = None if row is None or row.revoked_at is not None else Caller(row.id, row.name, row.role)
     if caller is not None:
         if row.last_used_at is None or utcnow() - row.last_used_at > LAST_USED_RESOLUTION:
@@ -190,7 +185,7 @@ def note_token_use(response):  # type: ignore[no-untyped-def]
         intent = write_intent.set(True)
         session = current_app.extensions["ullage.sessionmaker"]()
         try:
-            session.execute(update(Token).where(Token.id == token_id).values(last_used_at=utcnow()))
+            tokens.note_use(session, token_id)
             session.commit()
         except Exception:  # noqa: BLE001 - a missed "last used" note must not fail the request
             session.rollback()

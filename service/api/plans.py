@@ -7,13 +7,12 @@ from typing import Any
 
 from flask import Response, current_app, json, request, url_for
 from flask.views import MethodView
-from sqlalchemy import select
 
 from service import bounded, idempotency, schedule
 from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified, require_if_match
-from service.api.pagination import page
+from service.api.pagination import link_headers
 from service.api.schemas.plans import (
     PlanListSchema,
     PlanQueryArgsSchema,
@@ -27,6 +26,7 @@ from service.api.trucks import truck_or_404
 from service.auth import allow, current_caller
 from service.cache import LruCache
 from service.errors import PROBLEM_JSON, Problem
+from service.persistence import pages
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence.models import Plan, Truck
@@ -221,10 +221,9 @@ class TruckPlans(MethodView):
         trips and inputs.
         """
         truck = truck_or_404(code)
-        rows, headers = page(
-            get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args, descending=True
-        )
-        return _json_response({"items": [plan_json(p, truck.code, heavy=False) for p in rows]}, **headers)
+        result = pages.plans_page(get_session(), truck.id, args["limit"], args.get("after"))
+        items = [plan_json(p, truck.code, heavy=False) for p in result.rows]
+        return _json_response({"items": items}, **link_headers(result))
 
 
 @blp.route("/plans/<id:plan_id>")
@@ -240,7 +239,7 @@ class PlanById(MethodView):
         activating to activate exactly the plan you read.
         """
         plan = _plan(plan_id)
-        truck = get_session().get(Truck, plan.truck_id)
+        truck = repo.truck_by_id(get_session(), plan.truck_id)
         body = json.dumps(plan_json(plan, truck.code)).encode()
         etag = content_etag(body)
         return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})
@@ -264,11 +263,11 @@ class PlanActivation(MethodView):
         session = get_session()
         plan = _plan(plan_id)
         if request.headers.get("If-Match") is not None:
-            truck = session.get(Truck, plan.truck_id)
+            truck = repo.truck_by_id(session, plan.truck_id)
             require_if_match(content_etag(json.dumps(plan_json(plan, truck.code)).encode()))
         plan = plan_store.activate(session, plan)
         session.commit()
-        truck = session.get(Truck, plan.truck_id)
+        truck = repo.truck_by_id(session, plan.truck_id)
         body = json.dumps(plan_json(plan, truck.code)).encode()
         return Response(body, mimetype="application/json", headers={"ETag": content_etag(body)})
 

@@ -2,7 +2,6 @@
 
 from flask import current_app, url_for
 from flask.views import MethodView
-from sqlalchemy import select
 
 from service.api import http_headers as hh
 from service.api import usable_stock
@@ -13,6 +12,7 @@ from service.api.schemas.problem import ProblemSchema
 from service.api.schemas.trucks import TruckListSchema, TruckPatchSchema, TruckQueryArgsSchema, TruckSchema
 from service.auth import allow
 from service.errors import PROBLEM_JSON, Problem
+from service.persistence import pages
 from service.persistence import repository as repo
 from service.persistence.models import Truck
 from service.request_db import get_session
@@ -44,8 +44,7 @@ class Trucks(MethodView):
         At most `limit` trucks (1–200, default 50) ordered by code; while more remain, the `Link`
         header names the next page (`after` is the last code of this one).
         """
-        rows, headers = page(get_session(), select(Truck), Truck.code, args)
-        return {"items": rows}, headers
+        return page(pages.trucks_page(get_session(), args["limit"], args.get("after")))
 
     @allow("admin")
     @blp.arguments(TruckSchema)
@@ -57,7 +56,7 @@ class Trucks(MethodView):
         Admin only. Answers 201 with the truck, its `Location` and its `ETag`.
         """
         session = get_session()
-        if session.scalar(select(Truck.id).where(Truck.code == data["code"])) is not None:
+        if repo.code_taken(session, Truck, data["code"]):
             raise Problem(409, f"A truck with code {data['code']!r} already exists.", kind="conflict")
         truck = repo.add_truck(session, data)
         session.commit()
@@ -123,5 +122,5 @@ class TruckByCode(MethodView):
                 "Sites or recorded plans reference this truck; move its sites first, or PATCH it with active=false.",
                 kind="conflict",
             )
-        session.delete(truck)
+        repo.delete_truck(session, truck)
         session.commit()
