@@ -48,10 +48,7 @@ IDEMPOTENCY_KEY_PATTERN = r'^([\x21\x23-\x5b\x5d-\x7e]{1,255}|"([\x21\x23-\x5b\x
 
 
 def _plan(plan_id: int) -> Plan:
-    try:
-        return plan_store.plan_by_id(get_session(), plan_id)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    return plan_store.plan_by_id(get_session(), plan_id)
 
 
 def plan_json(plan: Plan, truck_code: str, *, heavy: bool = True) -> dict[str, Any]:
@@ -83,10 +80,7 @@ def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
 
 
 def _snapshot(session, code: str, *, for_update: bool = False) -> tuple[Truck, list, dict[str, Any]]:  # type: ignore[no-untyped-def]
-    try:
-        truck = repo.truck_by_code(session, code, for_update=for_update)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    truck = repo.truck_by_code(session, code, for_update=for_update)
     sites = plan_store.sites_for_plan(session, truck) if for_update else repo.active_sites(session, truck)
     if not sites:
         raise Problem(422, f"Truck {code!r} has no active sites to plan.", kind="no-sites")
@@ -401,8 +395,4 @@ def _trips_body(settings, code: str, first: dt.date, last: dt.date) -> bytes:  #
     new as that stamp, as in the worker itself.
     """
     with bounded.child_session(settings.database_url) as session:
-        try:
-            truck = repo.truck_by_code(session, code)
-        except repo.NotFound as exc:
-            raise Problem(404, str(exc), kind="not-found") from exc
-        return _trips_body_here(session, truck, first, last, settings)
+        return _trips_body_here(session, repo.truck_by_code(session, code), first, last, settings)

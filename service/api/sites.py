@@ -33,10 +33,8 @@ blp = Blueprint("sites", __name__, description="Customer tanks and depots")
 
 
 def site_or_404(code: str, *, for_update: bool = False) -> Site:
-    try:
-        return repo.site_by_code(get_session(), code, for_update=for_update)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    """The site (``repo.NotFound`` answers 404, ``service.errors``)."""
+    return repo.site_by_code(get_session(), code, for_update=for_update)
 
 
 def truck_for(code: str, pointer: str = "#/truck") -> Truck:
@@ -51,10 +49,7 @@ def truck_to_check(code: str, data: dict) -> Truck:
     """The truck a change of site ``code`` is checked against (the one it names, else the site's
     own), locked before the site is: the order plan creation locks them in, so no deadlock."""
     session = get_session()
-    try:
-        truck_id = repo.site_truck_id(session, code)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    truck_id = repo.site_truck_id(session, code)
     if "truck" in data:
         return truck_for(data["truck"])
     return repo.trucks_for_site_writes(session, [truck_id])[truck_id]

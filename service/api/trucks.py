@@ -23,10 +23,8 @@ blp = Blueprint("trucks", __name__, description="Trucks: dispatch cost, capacity
 
 
 def truck_or_404(code: str, *, for_update: bool = False) -> Truck:
-    try:
-        return repo.truck_by_code(get_session(), code, for_update=for_update)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    """The truck (``repo.NotFound`` answers 404, ``service.errors``)."""
+    return repo.truck_by_code(get_session(), code, for_update=for_update)
 
 
 def etag(truck: Truck) -> str:
