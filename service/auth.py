@@ -28,10 +28,9 @@ from service.cache import LruCache
 from service.errors import Problem
 from service.persistence import tokens
 from service.persistence.db import write_intent
-from service.persistence.models import utcnow
+from service.persistence.models import ROLES, utcnow
 from service.request_db import read_engine, rollback_request_session
 
-ROLES = ("viewer", "dispatcher", "admin")
 PUBLIC = "public"
 SESSION = "session"  # the status page signs people in with its own cookie (service.web)
 TOKEN_PREFIX = "ull_"

@@ -16,7 +16,7 @@ from service.health import alembic_config
 from service.persistence import repository as repo
 from service.persistence import tokens
 from service.persistence.db import make_engine
-from service.persistence.models import Site, Truck
+from service.persistence.models import ROLES, Site, Truck
 
 SAMPLE_DATA = Path(__file__).resolve().parent.parent / "sample_data"
 
@@ -176,7 +176,7 @@ def build_parser() -> argparse.ArgumentParser:
     token = sub.add_parser("token", help="API tokens").add_subparsers(dest="token_command", required=True)
     create = token.add_parser("create", help="create a token; prints it once, alone on the last line")
     create.add_argument("name")
-    create.add_argument("--role", required=True, choices=("admin", "dispatcher", "viewer"))
+    create.add_argument("--role", required=True, choices=sorted(ROLES))
     create.add_argument(
         "--if-none",
         action="store_true",

@@ -38,22 +38,14 @@ from sqlalchemy.orm import Session
 from service.api import usable_stock
 from service.api.schemas.sites import SiteSchema
 from service.persistence import repository as repo
+from service.planning.inputs import SITE_PARAMETERS
 
 MAX_ROWS = 5000
 LITRES_PER_UNIT = {"L": 1.0, "gal": 3.785411784, "m3": 1000.0}
 VOLUME_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock")
-NUMBER_FIELDS = (
-    "demand_per_day",
-    "holding_cost",
-    "stop_cost",
-    "tank_capacity",
-    "safe_fill",
-    "safety_stock",
-    "latitude",
-    "longitude",
-)
+NUMBER_FIELDS = (*SITE_PARAMETERS, "latitude", "longitude")
 TEXT_FIELDS = ("code", "name", "truck")
-COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
+COLUMNS = (*TEXT_FIELDS, *SITE_PARAMETERS, "active", "latitude", "longitude")
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
 FORMAT = (
@@ -272,7 +264,7 @@ def export_sites(session: Session) -> str:
     writer.writerow(COLUMNS)
     for site, truck_code in repo.sites_with_truck_codes(session):
         row: list[Any] = [_defuse(site.code), _defuse(site.name), _defuse(truck_code)]
-        row += [repr(getattr(site, f)) for f in NUMBER_FIELDS[:6]]
+        row += [repr(getattr(site, f)) for f in SITE_PARAMETERS]
         row += ["true" if site.active else "false"]
         row += ["" if getattr(site, f) is None else repr(getattr(site, f)) for f in ("latitude", "longitude")]
         writer.writerow(row)

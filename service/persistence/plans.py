@@ -17,8 +17,9 @@ from service.persistence.db import read_one
 from service.persistence.models import ChangeStamp, Plan, PlanSite, Reading, Site, Truck
 from service.persistence.repository import NotFound, active_sites, lock_for_update
 from service.planning import JointResult, SiteInput, SitePlan, Status, Stop, Trip, TruckInput
+from service.planning.inputs import SITE_PARAMETERS
 
-SITE_INPUTS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
+SITE_INPUTS = SITE_PARAMETERS
 
 
 def truck_input(snapshot: dict[str, Any], start: dt.date) -> TruckInput:

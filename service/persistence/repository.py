@@ -9,19 +9,9 @@ from sqlalchemy import bindparam, delete, exists, func, select
 from sqlalchemy.orm import Session
 
 from service.persistence.models import Plan, PlanSite, Reading, Site, Token, Truck, utcnow
+from service.planning.inputs import SITE_PARAMETERS
 
-SITE_FIELDS = (
-    "name",
-    "demand_per_day",
-    "holding_cost",
-    "stop_cost",
-    "tank_capacity",
-    "safe_fill",
-    "safety_stock",
-    "active",
-    "latitude",
-    "longitude",
-)
+SITE_FIELDS = ("name", *SITE_PARAMETERS, "active", "latitude", "longitude")
 TRUCK_FIELDS = (
     "name",
     "dispatch_cost",
