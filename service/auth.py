@@ -4,8 +4,8 @@ Tokens look like ``ull_<43 url-safe characters>`` (256 random bits, Python ``sec
 SHA-256 of the whole token is stored and tokens are looked up by that hash on a unique index, so no
 secret is compared in Python. A valid token's caller is kept per process for at most
 ``ULLAGE_TOKEN_CACHE_SECONDS`` (default 2, at most 5; 0 looks every request up): a revocation is
-refused in every worker within that time, the bound the conventions set (SEC-3, "no per-process
-cache, or a TTL ≤ 5 s"). Unknown and revoked tokens are never cached, so a new token works at once.
+refused in every worker within that time (docs/reliability.md, "Access": a revocation must not
+wait for a worker's restart, so the cache lives at most 5 s). Unknown and revoked tokens are never cached, so a new token works at once.
 
 Every route declares who may call it with :func:`allow` (or :data:`EXTRA_RULES` for routes that
 libraries register). A route without a rule is refused (default deny) and the role-matrix test

@@ -1,4 +1,4 @@
-"""Faults, and what "nothing lost" means (conventions B.8):
+"""Faults, and what "nothing lost" means (docs/reliability.md, "Guarantees"):
 
 1. every plan POST that got a 2xx is durably present afterwards;
 2. a POST that did not get a 2xx is absent or present exactly once (never partial, never twice);
