@@ -30,9 +30,9 @@ import pytest
 import requests
 from sqlalchemy import create_engine, event, text
 
-from service import auth, create_app
-from service import request_db as db
+from service import auth, create_app, request_db
 from service.idempotency import LEASE
+from service.persistence import db
 
 from .helpers import (
     add_tokens,
@@ -256,7 +256,7 @@ def test_postgres_down_weekly_trips_and_every_route_answer_503_logged_as_warning
         for path in reads:
             assert client.get(path, headers=viewer).status_code == 200, path
     finally:
-        db.dispose(app)
+        request_db.dispose(app)
 
 
 def test_postgres_restart_during_requests(tmp_path, own_postgres):
@@ -537,7 +537,7 @@ def test_sqlite_write_locked_past_busy_timeout_is_503_with_retry_after(tmp_path,
             assert response.status_code in (200, 201), response.get_data(as_text=True)
         assert len(assert_no_partial_plans(url)) == 2
     finally:
-        db.dispose(app)
+        request_db.dispose(app)
 
 
 # ------------------------------------------------------------------ full disk under SQLite
