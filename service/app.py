@@ -10,8 +10,7 @@ from flask import Flask
 from flask.json.provider import DefaultJSONProvider
 from werkzeug.middleware.proxy_fix import ProxyFix
 
-from service import api, auth, errors, health, metrics, observability, web
-from service import request_db
+from service import api, auth, errors, health, metrics, observability, request_db, web
 from service.api.blueprint import guard_request, guard_text
 from service.config import load_settings
 
