@@ -4,7 +4,7 @@ On a migrated demo database (SQLite file and, separately, a fresh PostgreSQL dat
 ``ullage_reads`` on ``--pg-url``, dropped afterwards), per call:
 
 * the trips change marker through an ORM session (checkout, BEGIN, SELECT, ROLLBACK; pre-ping on
-  PostgreSQL), through ``read_one`` on the autocommit engine, and through ``RawRead`` on the driver;
+  PostgreSQL), and through ``read_one`` on the autocommit engine;
 * the token lookup through an ORM session and through ``read_one``;
 
 and once, the CPU a gunicorn worker spends to start (``import service.app; create_app()`` in a
@@ -33,12 +33,13 @@ from load import bench_postgres  # noqa: E402 - this directory is on the path wh
 from sqlalchemy import create_engine  # noqa: E402
 from sqlalchemy.orm import Session, sessionmaker  # noqa: E402
 
-from service.auth import _TOKEN_BY_HASH, new_token, token_hash  # noqa: E402
+from service.auth import new_token, token_hash  # noqa: E402
 from service.demo import load_demo  # noqa: E402
 from service.health import alembic_config  # noqa: E402
 from service.persistence import repository as repo  # noqa: E402
 from service.persistence.db import make_engine, make_read_engine, read_one  # noqa: E402
 from service.persistence.plans import _CHANGE_STAMP  # noqa: E402
+from service.persistence.tokens import TOKEN_BY_HASH  # noqa: E402
 
 
 def per_call_us(fn: Callable[[], object], calls: int) -> float:
@@ -70,7 +71,7 @@ def measure(name: str, url: str, calls: int) -> list[tuple[str, str, float]]:
     digest = prepare(url)
     main, read = make_engine(url), make_read_engine(url)
     sessions = sessionmaker(main)
-    marker_statement = _CHANGE_STAMP.statement
+    marker_statement = _CHANGE_STAMP
 
     def session_read(statement, params):  # noqa: ANN001, ANN202
         def run() -> None:
@@ -82,9 +83,8 @@ def measure(name: str, url: str, calls: int) -> list[tuple[str, str, float]]:
     rows = [
         (name, "marker, ORM session", per_call_us(session_read(marker_statement, {}), calls)),
         (name, "marker, read_one", per_call_us(lambda: read_one(read, marker_statement, {}), calls)),
-        (name, "marker, RawRead", per_call_us(lambda: _CHANGE_STAMP.first(read, {}), calls)),
-        (name, "token, ORM session", per_call_us(session_read(_TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
-        (name, "token, read_one", per_call_us(lambda: read_one(read, _TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
+        (name, "token, ORM session", per_call_us(session_read(TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
+        (name, "token, read_one", per_call_us(lambda: read_one(read, TOKEN_BY_HASH, {"secret_hash": digest}), calls)),
     ]
     main.dispose()
     read.dispose()

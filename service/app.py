@@ -10,10 +10,9 @@ from flask import Flask
 from flask.json.provider import DefaultJSONProvider
 from werkzeug.middleware.proxy_fix import ProxyFix
 
-from service import api, auth, errors, health, metrics, observability, web
+from service import api, auth, errors, health, metrics, observability, request_db, web
 from service.api.blueprint import guard_request, guard_text
 from service.config import load_settings
-from service.persistence import db
 
 
 class StrictJSONProvider(DefaultJSONProvider):
@@ -51,7 +50,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
         app.wsgi_app = ProxyFix(app.wsgi_app, x_for=n, x_proto=n)  # type: ignore[method-assign]
     logging.getLogger("ullage").setLevel(settings.log_level)
     observability.init_app(app)
-    db.init_app(app)
+    request_db.init_app(app)
     errors.init_app(app)
     auth.init_app(app)
     app.before_request(guard_text)

@@ -4,8 +4,8 @@ Tokens look like ``ull_<43 url-safe characters>`` (256 random bits, Python ``sec
 SHA-256 of the whole token is stored and tokens are looked up by that hash on a unique index, so no
 secret is compared in Python. A valid token's caller is kept per process for at most
 ``ULLAGE_TOKEN_CACHE_SECONDS`` (default 2, at most 5; 0 looks every request up): a revocation is
-refused in every worker within that time, the bound the conventions set (SEC-3, "no per-process
-cache, or a TTL ≤ 5 s"). Unknown and revoked tokens are never cached, so a new token works at once.
+refused in every worker within that time (docs/reliability.md, "Access": a revocation must not
+wait for a worker's restart, so the cache lives at most 5 s). Unknown and revoked tokens are never cached, so a new token works at once.
 
 Every route declares who may call it with :func:`allow` (or :data:`EXTRA_RULES` for routes that
 libraries register). A route without a rule is refused (default deny) and the role-matrix test
@@ -23,14 +23,14 @@ from dataclasses import dataclass
 from typing import Any, TypeVar
 
 from flask import Flask, current_app, g, request
-from sqlalchemy import bindparam, select, update
 
 from service.cache import LruCache
 from service.errors import Problem
-from service.persistence.db import read_engine, read_one, rollback_request_session, write_intent
-from service.persistence.models import Token, utcnow
+from service.persistence import tokens
+from service.persistence.db import write_intent
+from service.persistence.models import ROLES, utcnow
+from service.request_db import read_engine, rollback_request_session
 
-ROLES = ("viewer", "dispatcher", "admin")
 PUBLIC = "public"
 SESSION = "session"  # the status page signs people in with its own cookie (service.web)
 TOKEN_PREFIX = "ull_"
@@ -39,11 +39,6 @@ TOKEN_CACHE_SIZE = 1024
 _clock = time.monotonic  # the token cache's clock (tests move it instead of sleeping)
 
 F = TypeVar("F", bound=Callable[..., object])
-
-#: Runs on every request: columns rather than the ORM entity, and the statement built once.
-_TOKEN_BY_HASH = select(Token.id, Token.name, Token.role, Token.revoked_at, Token.last_used_at).where(
-    Token.secret_hash == bindparam("secret_hash")
-)
 
 #: Rules for endpoints that are not ours to decorate.
 EXTRA_RULES = {"api-docs.openapi_json": "viewer"}
@@ -120,7 +115,7 @@ def caller_from_token(token: str) -> Caller | None:
     hit = cache.get(digest)
     if hit is not None and hit[1] > now:
         return hit[0]
-    row = read_one(read_engine(), _TOKEN_BY_HASH, {"secret_hash": digest})
+    row = tokens.by_hash(read_engine(), digest)
     caller = None if row is None or row.revoked_at is not None else Caller(row.id, row.name, row.role)
     if caller is not None:
         if row.last_used_at is None or utcnow() - row.last_used_at > LAST_USED_RESOLUTION:
@@ -189,7 +184,7 @@ def note_token_use(response):  # type: ignore[no-untyped-def]
         intent = write_intent.set(True)
         session = current_app.extensions["ullage.sessionmaker"]()
         try:
-            session.execute(update(Token).where(Token.id == token_id).values(last_used_at=utcnow()))
+            tokens.note_use(session, token_id)
             session.commit()
         except Exception:  # noqa: BLE001 - a missed "last used" note must not fail the request
             session.rollback()

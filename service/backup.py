@@ -28,10 +28,11 @@ from pathlib import Path
 
 from alembic import command
 from alembic.script import ScriptDirectory
-from sqlalchemy import create_engine, inspect, text
+from sqlalchemy import create_engine
 from sqlalchemy.engine import URL, make_url
 
 from service.health import alembic_config
+from service.persistence import schema
 from service.persistence.db import SQLITE_BUSY_TIMEOUT_MS
 
 
@@ -53,14 +54,6 @@ def _sqlite_file(url: str) -> Path:
 def _revisions() -> list[str]:
     """This release's Alembic revisions, oldest first."""
     return [r.revision for r in reversed(list(ScriptDirectory.from_config(alembic_config()).walk_revisions()))]
-
-
-def _sqlite_revision(connection: sqlite3.Connection) -> str | None:
-    try:
-        row = connection.execute("SELECT version_num FROM alembic_version").fetchone()
-    except sqlite3.DatabaseError:
-        return None
-    return row[0] if row else None
 
 
 def check_revisions(backup: str | None, target: str | None, force: bool) -> None:
@@ -104,12 +97,12 @@ def sqlite_backup(url: str, path: Path, *, force: bool = False) -> str:
         copy = sqlite3.connect(partial)
         try:
             source.backup(copy)  # all pages in one step: one consistent snapshot
-            copy.execute("PRAGMA journal_mode=DELETE")  # one self-contained file, no -wal beside it
-            (verdict,) = copy.execute("PRAGMA integrity_check").fetchone()
+            schema.sqlite_journal_mode(copy, "DELETE")  # one self-contained file, no -wal beside it
+            verdict = schema.sqlite_integrity(copy)
             if verdict != "ok":
                 raise BackupError(f"the copy failed its integrity check ({verdict}); nothing was written to {path}")
-            revision = _sqlite_revision(copy)
-            plans = copy.execute("SELECT count(*) FROM plans").fetchone()[0]
+            revision = schema.sqlite_revision(copy)
+            plans = schema.sqlite_plan_count(copy)
         finally:
             copy.close()
         os.replace(partial, path)
@@ -127,19 +120,19 @@ def sqlite_restore(path: Path, url: str, *, force: bool = False) -> str:
     source = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
     try:
         try:
-            (verdict,) = source.execute("PRAGMA integrity_check").fetchone()
+            verdict = schema.sqlite_integrity(source)
         except sqlite3.DatabaseError as exc:
             raise BackupError(f"{path} is not a SQLite database ({exc})") from exc
         if verdict != "ok":
             raise BackupError(f"{path} failed its integrity check ({verdict}); nothing was restored")
-        backup_revision = _sqlite_revision(source)
+        backup_revision = schema.sqlite_revision(source)
         target_path.parent.mkdir(parents=True, exist_ok=True)
         target = sqlite3.connect(target_path, timeout=SQLITE_BUSY_TIMEOUT_MS / 1000)
         try:
-            check_revisions(backup_revision, _sqlite_revision(target), force)
+            check_revisions(backup_revision, schema.sqlite_revision(target), force)
             source.backup(target)  # under the target's write lock; its other connections see the result
-            target.execute("PRAGMA journal_mode=WAL")  # what the service runs (service.persistence.db)
-            plans = target.execute("SELECT count(*) FROM plans").fetchone()[0]
+            schema.sqlite_journal_mode(target, "WAL")  # what the service runs (service.persistence.db)
+            plans = schema.sqlite_plan_count(target)
         finally:
             target.close()
     finally:
@@ -213,9 +206,7 @@ def _pg_revision(url: str) -> str | None:
     engine = create_engine(url)
     try:
         with engine.connect() as connection:
-            if not inspect(connection).has_table("alembic_version"):
-                return None
-            return connection.execute(text("SELECT version_num FROM alembic_version")).scalar_one_or_none()
+            return schema.revision_if_any(connection)
     finally:
         engine.dispose()
 

@@ -9,14 +9,14 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from alembic import command
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.config import load_settings
 from service.health import alembic_config
 from service.persistence import repository as repo
+from service.persistence import tokens
 from service.persistence.db import make_engine
-from service.persistence.models import Site, Token, Truck
+from service.persistence.models import ROLES, Site, Truck
 
 SAMPLE_DATA = Path(__file__).resolve().parent.parent / "sample_data"
 
@@ -63,9 +63,7 @@ def token_create(args: argparse.Namespace) -> int:
     from service.auth import new_token, token_hash  # noqa: PLC0415 - keeps `ullage --help` light
 
     with _session() as session:
-        if args.if_none and session.scalar(
-            select(Token.id).where(Token.role == args.role, Token.revoked_at.is_(None)).limit(1)
-        ):
+        if args.if_none and tokens.active_exists(session, args.role):
             print(
                 f"an active {args.role} token exists already, so none was created (tokens are shown once, "
                 f"when created). Yours: `ullage token list`; another: `ullage token create NAME --role "
@@ -73,7 +71,7 @@ def token_create(args: argparse.Namespace) -> int:
                 file=sys.stderr,
             )
             return 0
-        if session.scalar(select(Token.id).where(Token.name == args.name)) is not None:
+        if tokens.named(session, args.name):
             print(f"a token named {args.name!r} exists; choose another name or revoke it", file=sys.stderr)
             return 1
         token = new_token()
@@ -98,7 +96,7 @@ def token_revoke(args: argparse.Namespace) -> int:
 
 def token_list(_args: argparse.Namespace) -> int:
     with _session() as session:
-        for token in session.scalars(select(Token).order_by(Token.name)):
+        for token in tokens.all_by_name(session):
             state = "revoked" if token.revoked_at else "active"
             print(f"{token.name}\t{token.role}\t{state}\tcreated {token.created_at:%Y-%m-%dT%H:%MZ}")
     return 0
@@ -178,7 +176,7 @@ def build_parser() -> argparse.ArgumentParser:
     token = sub.add_parser("token", help="API tokens").add_subparsers(dest="token_command", required=True)
     create = token.add_parser("create", help="create a token; prints it once, alone on the last line")
     create.add_argument("name")
-    create.add_argument("--role", required=True, choices=("admin", "dispatcher", "viewer"))
+    create.add_argument("--role", required=True, choices=sorted(ROLES))
     create.add_argument(
         "--if-none",
         action="store_true",

@@ -20,7 +20,7 @@ from typing import Any
 _CURRENCY = re.compile(r"^[A-Z]{3}$")
 _UNIT = re.compile(r"^[A-Za-z0-9³]{1,8}$")
 
-#: A revoked token must be refused in every worker within this time (conventions, SEC-3).
+#: A revoked token must be refused in every worker within this time (docs/reliability.md, "Access").
 MAX_TOKEN_CACHE_SECONDS = 5
 #: Ceilings of the bounded-work settings (an hour of planning; the calculation schema's site limit).
 MAX_PLAN_SECONDS = 3600

@@ -7,8 +7,8 @@ from pathlib import Path
 
 from sqlalchemy.orm import Session
 
-from service.api.sites_csv import import_sites
 from service.persistence import repository as repo
+from service.sites_csv import import_sites
 
 
 def load_demo(session: Session, directory: Path, service_unit: str) -> tuple[int, int]:

@@ -17,8 +17,9 @@ from flask import Flask, Response, g, json, request
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 from werkzeug.exceptions import HTTPException
 
-from service.persistence.db import rollback_request_session
+from service.persistence.repository import NotFound
 from service.planning import PlanningInputError
+from service.request_db import rollback_request_session
 
 PROBLEM_JSON = "application/problem+json"
 #: One scheme for every problem ``type``: ``PROBLEM_BASE + kind``. An ``https`` URI, as RFC 9457's
@@ -215,6 +216,11 @@ def handle_problem(error: Problem) -> Response:
     )
 
 
+def handle_not_found(error: NotFound) -> Response:
+    """A truck, site, plan or token the request names does not exist: 404 naming it (mapped here only)."""
+    return problem_response(404, str(error), kind="not-found")
+
+
 def handle_planning_input(error: PlanningInputError) -> Response:
     """A planning input the core refuses (e.g. a tank that holds less than a day) → 422."""
     path = ("sites", error.index, error.field) if error.index is not None else (error.field,)
@@ -267,6 +273,7 @@ def handle_unexpected(error: Exception) -> Response:
 def init_app(app: Flask) -> None:
     """Register the handlers (flask-smorest's own HTTPException handler is replaced in service.api)."""
     app.register_error_handler(Problem, handle_problem)
+    app.register_error_handler(NotFound, handle_not_found)
     app.register_error_handler(PlanningInputError, handle_planning_input)
     app.register_error_handler(IntegrityError, handle_integrity)
     app.register_error_handler(OperationalError, handle_database)

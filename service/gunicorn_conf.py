@@ -1,4 +1,6 @@
-"""gunicorn settings for Ullage (see conventions: graceful shutdown, no preload, heartbeat in /dev/shm)."""
+"""gunicorn settings for Ullage: graceful shutdown, no preload (each worker builds its own app and
+engines after the fork), the worker heartbeat in /dev/shm (a RAM disk: a slow disk cannot make
+the arbiter think a worker hung)."""
 
 import os
 

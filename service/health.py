@@ -7,10 +7,10 @@ from pathlib import Path
 from alembic.config import Config
 from alembic.script import ScriptDirectory
 from flask import Blueprint, Flask, current_app, jsonify
-from sqlalchemy import text
 
 from service.auth import PUBLIC, allow
 from service.errors import problem_response
+from service.persistence import schema
 from service.persistence.db import write_intent
 
 MIGRATIONS = Path(__file__).resolve().parent.parent / "migrations"
@@ -45,7 +45,7 @@ def readyz():
     intent = write_intent.set(False)  # a read: SQLite's deferred BEGIN, never queued behind writers
     try:
         with engine.connect() as conn:
-            current = conn.execute(text("SELECT version_num FROM alembic_version")).scalar_one_or_none()
+            current = schema.revision(conn)
     except Exception:  # noqa: BLE001 - any failure means not ready; details stay in the logs
         current_app.logger.warning("readiness: database not reachable")
         return problem_response(503, "The database is not reachable.", kind="not-ready", headers={"Retry-After": "2"})

@@ -41,12 +41,12 @@ import time
 from dataclasses import dataclass
 
 from flask import Response, current_app
-from sqlalchemy import delete, select, update
 from sqlalchemy.exc import DBAPIError, IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Caller
 from service.errors import Problem
+from service.persistence import idempotency_records as records
 from service.persistence.db import sqlite_write_lock_held, write_intent
 from service.persistence.models import IdempotencyRecord, utcnow
 
@@ -145,13 +145,7 @@ def _lookup(caller: Caller, key: str, now: dt.datetime) -> IdempotencyRecord | N
     intent = write_intent.set(False)
     try:
         with current_app.extensions["ullage.sessionmaker"]() as session:
-            return session.scalars(
-                select(IdempotencyRecord).where(
-                    IdempotencyRecord.token_id == caller.token_id,
-                    IdempotencyRecord.idempotency_key == key,
-                    IdempotencyRecord.created_at >= now - TTL,
-                )
-            ).one_or_none()
+            return records.find_since(session, caller.token_id, key, now - TTL)
     finally:
         write_intent.reset(intent)
 
@@ -165,16 +159,7 @@ def purge_expired(session: Session, now: dt.datetime) -> int:
         if _clock() - _last_purge[0] < PURGE_EVERY.total_seconds():
             return 0
         _last_purge[0] = _clock()
-    oldest = (
-        select(IdempotencyRecord.id)
-        .where(IdempotencyRecord.created_at < now - TTL)
-        .order_by(IdempotencyRecord.created_at)
-        .limit(PURGE_BATCH)
-    )
-    ids = list(session.scalars(oldest))
-    if ids:
-        session.execute(delete(IdempotencyRecord).where(IdempotencyRecord.id.in_(ids)))
-    return len(ids)
+    return records.purge_before(session, now - TTL, PURGE_BATCH)
 
 
 def begin(caller: Caller, key: str, method: str, path: str, body: bytes) -> Claim | Response:
@@ -204,30 +189,26 @@ def _claim(
     """Purge (its own commit), then in one write transaction insert the claim, replay, refuse or take over."""
     if purge_expired(session, now):
         session.commit()
-    statement = select(IdempotencyRecord).where(
-        IdempotencyRecord.token_id == caller.token_id, IdempotencyRecord.idempotency_key == key
-    )
-    if session.get_bind().dialect.name == "postgresql":
-        statement = statement.with_for_update()
-    row = session.scalars(statement).one_or_none()
+    row = records.find_for_claim(session, caller.token_id, key)
     if row is not None and row.created_at < now - TTL:
-        session.delete(row)
-        session.flush()
+        records.drop(session, row)
         row = None
     claim = secrets.token_hex(16)
     if row is None:
-        row = IdempotencyRecord(
-            token_id=caller.token_id,
-            idempotency_key=key,
-            method=method,
-            path=path,
-            body_sha256=print_,
-            state="in_progress",
-            claim=claim,
-            claimed_at=now,
-            created_at=now,
+        row = records.add(
+            session,
+            IdempotencyRecord(
+                token_id=caller.token_id,
+                idempotency_key=key,
+                method=method,
+                path=path,
+                body_sha256=print_,
+                state="in_progress",
+                claim=claim,
+                claimed_at=now,
+                created_at=now,
+            ),
         )
-        session.add(row)
         session.commit()
         return Claim(row.id, claim)
     answer = _answer(row, print_, now)
@@ -271,17 +252,9 @@ class Heartbeat:
 
     def _renew(self) -> bool:
         with self._factory() as session:
-            renewed = session.execute(
-                update(IdempotencyRecord)
-                .where(
-                    IdempotencyRecord.id == self._claim.record_id,
-                    IdempotencyRecord.claim == self._claim.claim,
-                    IdempotencyRecord.state == "in_progress",
-                )
-                .values(claimed_at=utcnow())
-            )
+            renewed = records.renew(session, self._claim.record_id, self._claim.claim, utcnow())
             session.commit()
-        return renewed.rowcount == 1
+        return renewed
 
     def stop(self) -> None:
         self._stopped.set()
@@ -290,21 +263,15 @@ class Heartbeat:
 
 def finish(session: Session, claim: Claim, response: Response) -> None:
     """Mark the claim done with ``response`` inside the work's transaction (before its commit)."""
-    done = session.execute(
-        update(IdempotencyRecord)
-        .where(
-            IdempotencyRecord.id == claim.record_id,
-            IdempotencyRecord.claim == claim.claim,
-            IdempotencyRecord.state == "in_progress",
-        )
-        .values(
-            state="done",
-            response_status=response.status_code,
-            response_body=response.get_data(as_text=True),
-            response_location=response.headers.get("Location"),
-        )
+    done = records.mark_done(
+        session,
+        claim.record_id,
+        claim.claim,
+        response.status_code,
+        response.get_data(as_text=True),
+        response.headers.get("Location"),
     )
-    if done.rowcount != 1:
+    if not done:
         session.rollback()
         raise Problem(
             409,
@@ -317,11 +284,5 @@ def finish(session: Session, claim: Claim, response: Response) -> None:
 def abandon(claim: Claim) -> None:
     """Forget a claim whose request failed, so a corrected retry may use the key again."""
     with _own_session() as session:
-        session.execute(
-            delete(IdempotencyRecord).where(
-                IdempotencyRecord.id == claim.record_id,
-                IdempotencyRecord.claim == claim.claim,
-                IdempotencyRecord.state == "in_progress",
-            )
-        )
+        records.forget(session, claim.record_id, claim.claim)
         session.commit()

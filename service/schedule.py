@@ -39,6 +39,7 @@ from sqlalchemy.orm import Session
 from service import working_calendar
 from service.config import Settings
 from service.persistence import plans as plan_store
+from service.persistence import repository as repo
 from service.persistence import tanks
 from service.persistence.models import Plan, Site, Truck, utcnow
 from service.planning import trips_between
@@ -624,7 +625,7 @@ def truck_levels(
 
 def site_levels(session: Session, site: Site, first: dt.date, days: int, settings: Settings) -> SiteLevels:
     """Projected level at 00:00 of each of ``days`` days from ``first``, and the planned deliveries."""
-    truck = session.get(Truck, site.truck_id)
+    truck = repo.truck_by_id(session, site.truck_id)
     return truck_levels(session, truck, [site], first, days, settings)[site.code]
 
 

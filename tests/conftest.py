@@ -25,8 +25,8 @@ from service.config import MAX_TOKEN_CACHE_SECONDS, normalise_database_url
 from service.demo import load_demo
 from service.health import alembic_config
 from service.persistence import repository as repo
-from service.persistence.db import dispose
 from service.persistence.models import Base
+from service.request_db import dispose
 
 ROOT = Path(__file__).resolve().parent.parent
 ROLES = ("viewer", "dispatcher", "admin")

@@ -25,7 +25,6 @@ from werkzeug.http import parse_set_header
 
 from service.api.fields import cannot_store, unstorable
 from service.auth import handler_for
-from service.cache import LruCache
 from service.errors import Problem
 
 JSON = "application/json"
@@ -40,29 +39,6 @@ class StrictParser(FlaskParser):
         "query": ma.RAISE,
         "querystring": ma.RAISE,
     }
-
-    def __init__(self) -> None:
-        super().__init__()
-        self._parsed_queries: LruCache[dict[str, Any]] = LruCache(512)
-
-    def parse(self, argmap: Any, req: Any = None, *, location: str | None = None, **kwargs: Any) -> Any:
-        """As webargs', but a query string this schema already accepted is answered from memory.
-
-        Our query schemas are pure functions of the query string (no context, no clock), and the
-        same few strings come back (``week=2026-W49`` every week from every dispatcher), so a
-        dictionary lookup replaces a schema load. Refused strings are not kept; each caller gets
-        its own copy of the dict.
-        """
-        if (location or self.location) not in QUERY_LOCATIONS or any(
-            isinstance(v, list | dict) for v in kwargs.values()
-        ):
-            return super().parse(argmap, req, location=location, **kwargs)
-        req = req if req is not None else self.get_default_request()
-        key = (argmap, req.query_string, tuple(sorted(kwargs.items())))
-        parsed = self._parsed_queries.get(key)
-        if parsed is None:
-            parsed = self._parsed_queries.put(key, super().parse(argmap, req, location=location, **kwargs))
-        return dict(parsed)
 
     def load_json(self, req: Any, schema: Any) -> Any:
         """As webargs', but JSON that Python's parser cannot hold is a 400 problem too, not a 500.

@@ -21,6 +21,7 @@ from service.api.schemas.problem import ProblemSchema
 from service.auth import allow
 from service.errors import PROBLEM_JSON, Problem
 from service.planning import PlanningInputError, SiteInput, TruckInput, plan_joint, single_site_cycle
+from service.planning.inputs import SITE_PARAMETERS
 
 PREFIX = "/calculations"
 blp = Blueprint("calculations", __name__, description="What-if calculations (nothing is stored)")
@@ -28,7 +29,7 @@ blp = Blueprint("calculations", __name__, description="What-if calculations (not
 #: Core field → request field, where the API names differ.
 API_FIELD = {"capacity": "truck_capacity"}
 SINGLE_CODE = "site"
-SITE_KEYS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
+SITE_KEYS = SITE_PARAMETERS
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}
 
 

@@ -6,6 +6,11 @@ version, so two clients sending it overwrite each other's changes (a lost update
 service promises never to allow); a change must name the ETag it was based on.
 ``If-None-Match`` on a read answers 304. A tag sent without its double quotes is a 400 that says so
 (not a 412 "changed since you read it", which sent people to read again and fail again).
+
+Why not flask-smorest's ``@blp.etag``: it takes ``If-Match`` through werkzeug, where ``*`` matches
+any version (the lost update above) and an unquoted tag simply does not match (412); and it hashes
+the dumped response on every request, where a row's tag comes from its ``version`` without
+dumping, and the weekly trips answer's tag is computed once per cached body (``api/plans.py``).
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """Strict input fields, and the ranges every input shares.
 
 Numbers: plain marshmallow coerces ``"5"`` to 5 and truncates ``12.7`` to 12 for integers
-(measured, conventions-and-reliability.md B.3); these fields refuse both.
+(``tests/api/test_bad_inputs.py`` sends both); these fields refuse both.
 
 Ranges stated once, here, so that no input reaches the database or the date arithmetic that
 either cannot hold (each used to answer 500, or 503 "not available" from PostgreSQL):

@@ -7,13 +7,12 @@ from typing import Any
 
 from flask import Response, current_app, json, request, url_for
 from flask.views import MethodView
-from sqlalchemy import select
 
 from service import bounded, idempotency, schedule
 from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified, require_if_match
-from service.api.pagination import page
+from service.api.pagination import link_headers
 from service.api.schemas.plans import (
     PlanListSchema,
     PlanQueryArgsSchema,
@@ -27,11 +26,12 @@ from service.api.trucks import truck_or_404
 from service.auth import allow, current_caller
 from service.cache import LruCache
 from service.errors import PROBLEM_JSON, Problem
+from service.persistence import pages
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import get_session, read_engine, read_session
 from service.persistence.models import Plan, Truck
 from service.planning import PlanningInputError, plan_joint
+from service.request_db import get_session, read_engine, read_session
 
 PREFIX = ""
 blp = Blueprint("plans", __name__, description="Recorded plans and the trips dispatch software loads each week")
@@ -48,10 +48,7 @@ IDEMPOTENCY_KEY_PATTERN = r'^([\x21\x23-\x5b\x5d-\x7e]{1,255}|"([\x21\x23-\x5b\x
 
 
 def _plan(plan_id: int) -> Plan:
-    try:
-        return plan_store.plan_by_id(get_session(), plan_id)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    return plan_store.plan_by_id(get_session(), plan_id)
 
 
 def plan_json(plan: Plan, truck_code: str, *, heavy: bool = True) -> dict[str, Any]:
@@ -83,10 +80,7 @@ def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
 
 
 def _snapshot(session, code: str, *, for_update: bool = False) -> tuple[Truck, list, dict[str, Any]]:  # type: ignore[no-untyped-def]
-    try:
-        truck = repo.truck_by_code(session, code, for_update=for_update)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    truck = repo.truck_by_code(session, code, for_update=for_update)
     sites = plan_store.sites_for_plan(session, truck) if for_update else repo.active_sites(session, truck)
     if not sites:
         raise Problem(422, f"Truck {code!r} has no active sites to plan.", kind="no-sites")
@@ -221,10 +215,9 @@ class TruckPlans(MethodView):
         trips and inputs.
         """
         truck = truck_or_404(code)
-        rows, headers = page(
-            get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args, descending=True
-        )
-        return _json_response({"items": [plan_json(p, truck.code, heavy=False) for p in rows]}, **headers)
+        result = pages.plans_page(get_session(), truck.id, args["limit"], args.get("after"))
+        items = [plan_json(p, truck.code, heavy=False) for p in result.rows]
+        return _json_response({"items": items}, **link_headers(result))
 
 
 @blp.route("/plans/<id:plan_id>")
@@ -240,7 +233,7 @@ class PlanById(MethodView):
         activating to activate exactly the plan you read.
         """
         plan = _plan(plan_id)
-        truck = get_session().get(Truck, plan.truck_id)
+        truck = repo.truck_by_id(get_session(), plan.truck_id)
         body = json.dumps(plan_json(plan, truck.code)).encode()
         etag = content_etag(body)
         return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})
@@ -264,11 +257,11 @@ class PlanActivation(MethodView):
         session = get_session()
         plan = _plan(plan_id)
         if request.headers.get("If-Match") is not None:
-            truck = session.get(Truck, plan.truck_id)
+            truck = repo.truck_by_id(session, plan.truck_id)
             require_if_match(content_etag(json.dumps(plan_json(plan, truck.code)).encode()))
         plan = plan_store.activate(session, plan)
         session.commit()
-        truck = session.get(Truck, plan.truck_id)
+        truck = repo.truck_by_id(session, plan.truck_id)
         body = json.dumps(plan_json(plan, truck.code)).encode()
         return Response(body, mimetype="application/json", headers={"ETag": content_etag(body)})
 
@@ -402,8 +395,4 @@ def _trips_body(settings, code: str, first: dt.date, last: dt.date) -> bytes:  #
     new as that stamp, as in the worker itself.
     """
     with bounded.child_session(settings.database_url) as session:
-        try:
-            truck = repo.truck_by_code(session, code)
-        except repo.NotFound as exc:
-            raise Problem(404, str(exc), kind="not-found") from exc
-        return _trips_body_here(session, truck, first, last, settings)
+        return _trips_body_here(session, repo.truck_by_code(session, code), first, last, settings)

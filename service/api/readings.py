@@ -4,18 +4,18 @@ import datetime as dt
 
 from flask import url_for
 from flask.views import MethodView
-from sqlalchemy import select
 
 from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
-from service.api.pagination import page
+from service.api.pagination import link_headers
 from service.api.schemas.plans import IdPageArgsSchema, ReadingListSchema, ReadingRequestSchema, ReadingSchema
 from service.api.sites import site_or_404
 from service.auth import allow, current_caller
 from service.errors import Problem
+from service.persistence import pages
 from service.persistence import plans as plan_store
-from service.persistence.db import get_session
 from service.persistence.models import Reading, utcnow
+from service.request_db import get_session
 
 PREFIX = "/sites"
 blp = Blueprint("readings", __name__, description="Tank level readings")
@@ -74,11 +74,5 @@ class SiteReadings(MethodView):
         Newest recorded first, at most `limit` per page; the `Link` header names the next page.
         """
         site = site_or_404(code)
-        rows, headers = page(
-            get_session(),
-            select(Reading).where(Reading.site_id == site.id),
-            Reading.id,
-            args,
-            descending=True,
-        )
-        return {"items": [dump(r, site.code) for r in rows]}, headers
+        result = pages.readings_page(get_session(), site.id, args["limit"], args.get("after"))
+        return {"items": [dump(r, site.code) for r in result.rows]}, link_headers(result)

@@ -3,13 +3,13 @@
 from flask import Response, current_app, request, url_for
 from flask.views import MethodView
 from marshmallow import ValidationError
-from sqlalchemy import select
 
+from service import sites_csv
 from service.api import http_headers as hh
-from service.api import sites_csv, usable_stock
+from service.api import usable_stock
 from service.api.blueprint import Blueprint, accepts_body
 from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
-from service.api.pagination import page
+from service.api.pagination import link_headers
 from service.api.schemas.problem import ProblemSchema
 from service.api.schemas.sites import (
     ImportArgsSchema,
@@ -22,9 +22,10 @@ from service.api.schemas.sites import (
 )
 from service.auth import allow
 from service.errors import PROBLEM_JSON, Problem, flatten_messages
+from service.persistence import pages
 from service.persistence import repository as repo
-from service.persistence.db import get_session
 from service.persistence.models import Site, Truck
+from service.request_db import get_session
 
 PREFIX = "/sites"
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}  # documented error bodies
@@ -32,10 +33,8 @@ blp = Blueprint("sites", __name__, description="Customer tanks and depots")
 
 
 def site_or_404(code: str, *, for_update: bool = False) -> Site:
-    try:
-        return repo.site_by_code(get_session(), code, for_update=for_update)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    """The site (``repo.NotFound`` answers 404, ``service.errors``)."""
+    return repo.site_by_code(get_session(), code, for_update=for_update)
 
 
 def truck_for(code: str, pointer: str = "#/truck") -> Truck:
@@ -50,10 +49,7 @@ def truck_to_check(code: str, data: dict) -> Truck:
     """The truck a change of site ``code`` is checked against (the one it names, else the site's
     own), locked before the site is: the order plan creation locks them in, so no deadlock."""
     session = get_session()
-    try:
-        truck_id = repo.site_truck_id(session, code)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    truck_id = repo.site_truck_id(session, code)
     if "truck" in data:
         return truck_for(data["truck"])
     return repo.trucks_for_site_writes(session, [truck_id])[truck_id]
@@ -85,12 +81,9 @@ class Sites(MethodView):
         more remain, the `Link` header names the next page.
         """
         session = get_session()
-        statement = select(Site)
-        if "truck" in args:
-            statement = statement.join(Truck, Site.truck_id == Truck.id).where(Truck.code == args["truck"])
-        rows, headers = page(session, statement, Site.code, args)
-        codes = repo.truck_codes(session, (s.truck_id for s in rows))
-        return {"items": [dump(s, codes[s.truck_id]) for s in rows]}, headers
+        result = pages.sites_page(session, args["limit"], args.get("after"), args.get("truck"))
+        codes = repo.truck_codes(session, (s.truck_id for s in result.rows))
+        return {"items": [dump(s, codes[s.truck_id]) for s in result.rows]}, link_headers(result)
 
     @allow("admin")
     @blp.arguments(SiteSchema)
@@ -105,7 +98,7 @@ class Sites(MethodView):
         """
         session = get_session()
         truck = truck_for(data["truck"])
-        if session.scalar(select(Site.id).where(Site.code == data["code"])) is not None:
+        if repo.code_taken(session, Site, data["code"]):
             raise Problem(409, f"A site with code {data['code']!r} already exists.", kind="conflict")
         usable_stock.check_site(data["code"], data, truck.code, truck.capacity, unit(), data.keys())
         site = repo.add_site(session, data, truck)
@@ -211,9 +204,14 @@ class SiteImport(MethodView):
         and nothing is written. `dry_run=true` checks and counts without writing.
         """
         session = get_session()
-        result = sites_csv.import_sites(
-            session, request.get_data(cache=False), dry_run=args["dry_run"], service_unit=unit()
-        )
+        try:
+            result = sites_csv.import_sites(
+                session, request.get_data(cache=False), dry_run=args["dry_run"], service_unit=unit()
+            )
+        except sites_csv.TooManyRows as exc:
+            raise Problem(413, exc.detail, kind="too-many-rows") from exc
+        except sites_csv.CsvRefused as exc:
+            raise Problem(422, exc.detail, kind="validation", errors=exc.errors) from exc
         if args["dry_run"]:
             session.rollback()
         else:

@@ -2,7 +2,6 @@
 
 from flask import current_app, url_for
 from flask.views import MethodView
-from sqlalchemy import select
 
 from service.api import http_headers as hh
 from service.api import usable_stock
@@ -13,9 +12,10 @@ from service.api.schemas.problem import ProblemSchema
 from service.api.schemas.trucks import TruckListSchema, TruckPatchSchema, TruckQueryArgsSchema, TruckSchema
 from service.auth import allow
 from service.errors import PROBLEM_JSON, Problem
+from service.persistence import pages
 from service.persistence import repository as repo
-from service.persistence.db import get_session
 from service.persistence.models import Truck
+from service.request_db import get_session
 
 PREFIX = "/trucks"
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}  # documented error bodies
@@ -23,10 +23,8 @@ blp = Blueprint("trucks", __name__, description="Trucks: dispatch cost, capacity
 
 
 def truck_or_404(code: str, *, for_update: bool = False) -> Truck:
-    try:
-        return repo.truck_by_code(get_session(), code, for_update=for_update)
-    except repo.NotFound as exc:
-        raise Problem(404, str(exc), kind="not-found") from exc
+    """The truck (``repo.NotFound`` answers 404, ``service.errors``)."""
+    return repo.truck_by_code(get_session(), code, for_update=for_update)
 
 
 def etag(truck: Truck) -> str:
@@ -44,8 +42,7 @@ class Trucks(MethodView):
         At most `limit` trucks (1–200, default 50) ordered by code; while more remain, the `Link`
         header names the next page (`after` is the last code of this one).
         """
-        rows, headers = page(get_session(), select(Truck), Truck.code, args)
-        return {"items": rows}, headers
+        return page(pages.trucks_page(get_session(), args["limit"], args.get("after")))
 
     @allow("admin")
     @blp.arguments(TruckSchema)
@@ -57,7 +54,7 @@ class Trucks(MethodView):
         Admin only. Answers 201 with the truck, its `Location` and its `ETag`.
         """
         session = get_session()
-        if session.scalar(select(Truck.id).where(Truck.code == data["code"])) is not None:
+        if repo.code_taken(session, Truck, data["code"]):
             raise Problem(409, f"A truck with code {data['code']!r} already exists.", kind="conflict")
         truck = repo.add_truck(session, data)
         session.commit()
@@ -123,5 +120,5 @@ class TruckByCode(MethodView):
                 "Sites or recorded plans reference this truck; move its sites first, or PATCH it with active=false.",
                 kind="conflict",
             )
-        session.delete(truck)
+        repo.delete_truck(session, truck)
         session.commit()

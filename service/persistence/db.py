@@ -1,9 +1,10 @@
-"""Engine, sessions and the per-request session.
+"""Engines and their per-backend settings; the autocommit single reads. No Flask here:
+the per-request session lives in ``service/request_db.py``.
 
 SQLite: every connection gets WAL, ``busy_timeout``, ``foreign_keys=ON`` and ``synchronous=FULL``,
 and every transaction starts with ``BEGIN IMMEDIATE`` so that concurrent writers queue on the busy
-handler instead of failing on the read→write lock upgrade (measured in
-shared/reference/conventions-and-reliability.md B.5). PostgreSQL gets ``pool_pre_ping``.
+handler instead of failing on the read→write lock upgrade, which a deferred ``BEGIN`` can hit
+after it has read (SQLite answers SQLITE_BUSY at once there; the busy handler does not apply). PostgreSQL gets ``pool_pre_ping``.
 Nothing connects until the first request (engines are lazy; safe under gunicorn's fork).
 
 A second, autocommit engine serves :func:`read_one`: the single SELECTs that run on (nearly) every
@@ -15,22 +16,18 @@ against 1.46 ms per marker read on this machine, SQLite 0.16 ms against 0.40 ms)
 
 from __future__ import annotations
 
-import contextlib
 import sqlite3
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Mapping
 from contextvars import ContextVar
 from pathlib import Path
 from typing import Any, TypeVar
 
-from flask import Flask, current_app, g, has_request_context, request
 from sqlalchemy import Engine, Executable, Row, create_engine, event
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import DBAPIError
-from sqlalchemy.orm import Session, sessionmaker
 
 T = TypeVar("T")
 SQLITE_BUSY_TIMEOUT_MS = 5000
-SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
 
 #: Whether the current unit of work may write (SQLite then starts it with BEGIN IMMEDIATE;
 #: read-only requests keep SQLite's deferred BEGIN and never wait for writers under WAL).
@@ -120,56 +117,6 @@ def _read(engine: Engine, statement: Executable, params: Mapping[str, Any]) -> R
         return connection.execute(statement, params).one_or_none()
 
 
-class RawRead:
-    """One prebuilt SELECT, compiled once per dialect and run straight on a pooled DBAPI connection.
-
-    For the one statement that runs on every weekly-trips call (the change marker): SQLAlchemy's
-    statement execution costs more than the query itself (``benchmarks/reads.py`` printed 0.21 ms
-    against 0.38 ms on PostgreSQL, 0.05 against 0.16 ms on SQLite). The row holds the driver's own
-    values, untouched by column types, so it suits values that are only compared for equality.
-    Driver errors, a failed connect included, come out as SQLAlchemy's ``DBAPIError`` like any
-    other (→ 503).
-    """
-
-    def __init__(self, statement: Executable) -> None:
-        self.statement = statement
-        self._compiled: dict[str, Any] = {}
-
-    def first(self, engine: Engine, params: Mapping[str, Any]) -> tuple[Any, ...] | None:
-        compiled = self._compiled.get(engine.dialect.name)
-        if compiled is None:
-            compiled = self._compiled.setdefault(engine.dialect.name, self.statement.compile(dialect=engine.dialect))
-        values = compiled.construct_params(params)
-        args = tuple(values[name] for name in compiled.positiontup) if compiled.positional else values
-        return _retry_once_if_gone(engine, lambda: _raw_first(engine, compiled.string, args))
-
-
-def _raw_first(engine: Engine, sql: str, args: Any) -> tuple[Any, ...] | None:
-    dbapi_error = engine.dialect.loaded_dbapi.Error
-    try:
-        connection = engine.raw_connection()
-    except dbapi_error as exc:
-        # The pool's connect raises the driver's own error (``Engine.connect`` would wrap it);
-        # wrapped here, a database that is down answers 503 on this path too, not 500.
-        raise DBAPIError.instance(None, None, exc, dbapi_error, dialect=engine.dialect) from exc
-    try:
-        cursor = connection.cursor()
-        try:
-            cursor.execute(sql, args)
-            return cursor.fetchone()
-        finally:
-            cursor.close()
-    except dbapi_error as exc:
-        gone = engine.dialect.is_disconnect(exc, connection.dbapi_connection, None)
-        if gone:
-            connection.invalidate(exc)
-        raise DBAPIError.instance(
-            sql, args, exc, dbapi_error, connection_invalidated=gone, dialect=engine.dialect
-        ) from exc
-    finally:
-        connection.close()
-
-
 def _retry_once_if_gone(engine: Engine, read: Callable[[], T]) -> T:
     """Run ``read``; if its connection turned out dead (the server restarted), once more.
 
@@ -185,66 +132,3 @@ def _retry_once_if_gone(engine: Engine, read: Callable[[], T]) -> T:
             raise
         engine.dispose()
         return read()
-
-
-def read_engine() -> Engine:
-    """The current app's engine for :func:`read_one`."""
-    return current_app.extensions["ullage.read_engine"]
-
-
-def dispose(app: Flask) -> None:
-    """Close every pooled connection of ``app`` (both engines)."""
-    app.extensions["ullage.engine"].dispose()
-    app.extensions["ullage.read_engine"].dispose()
-
-
-def init_app(app: Flask) -> None:
-    """Create the (lazy) engine and session factory and close the request's session at teardown."""
-    engine = make_engine(app.config["DATABASE_URL"])
-    app.extensions["ullage.engine"] = engine
-    app.extensions["ullage.read_engine"] = make_read_engine(app.config["DATABASE_URL"])
-    app.extensions["ullage.sessionmaker"] = sessionmaker(engine, expire_on_commit=False)
-    app.teardown_appcontext(_close_session)
-
-
-def get_session() -> Session:
-    """The session of the current request (opened on first use)."""
-    if "db_session" not in g:
-        write_intent.set(not has_request_context() or request.method not in SAFE_METHODS)
-        g.db_session = current_app.extensions["ullage.sessionmaker"]()
-    return g.db_session
-
-
-@contextlib.contextmanager
-def read_session() -> Iterator[Session]:
-    """A session of its own that only reads (SQLite: a deferred ``BEGIN``, never the write lock),
-    for a read that must not hold the request's write transaction open, e.g. while planning."""
-    intent = write_intent.set(False)
-    session = current_app.extensions["ullage.sessionmaker"]()
-    try:
-        yield session
-    finally:
-        session.close()
-        write_intent.reset(intent)
-
-
-def rollback_request_session() -> None:
-    """Abandon whatever the request's session has open; a dead connection is dropped instead."""
-    session = g.get("db_session")
-    if session is not None:
-        try:
-            session.rollback()
-        except Exception:  # noqa: BLE001 - the connection may already be gone (database restarted)
-            session.invalidate()
-
-
-def _close_session(_exc: BaseException | None) -> None:
-    session = g.pop("db_session", None)
-    if session is not None:
-        try:
-            session.close()
-        except Exception:  # noqa: BLE001 - e.g. PostgreSQL restarted: the ROLLBACK of close() fails
-            # Raising from teardown would replace the answer already built with gunicorn's HTML 500
-            # (found by the PostgreSQL-restart fault test); drop the dead connection instead.
-            session.invalidate()
-    write_intent.set(True)

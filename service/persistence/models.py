@@ -34,6 +34,8 @@ NAMING_CONVENTION = {
     "pk": "pk_%(table_name)s",
 }
 
+#: Token roles, least to most: a role may call every route of the roles before it.
+ROLES = ("viewer", "dispatcher", "admin")
 CODE_LENGTH = 40
 NAME_LENGTH = 200
 HOLIDAY_REGION_LENGTH = 40
@@ -132,7 +134,7 @@ class Token(Base):
     """An API token. Only the SHA-256 of the secret is stored; the secret is shown once."""
 
     __tablename__ = "tokens"
-    __table_args__ = (CheckConstraint("role IN ('admin', 'dispatcher', 'viewer')", name="role_known"),)
+    __table_args__ = (CheckConstraint(f"role IN ({', '.join(map(repr, sorted(ROLES)))})", name="role_known"),)
 
     id: Mapped[int] = mapped_column(primary_key=True)
     name: Mapped[str] = mapped_column(String(80), unique=True)

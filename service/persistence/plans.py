@@ -8,19 +8,18 @@ import json
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
-from weakref import WeakKeyDictionary
 
 from sqlalchemy import Engine, and_, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from service import working_calendar
-from service.persistence.db import RawRead
+from service.persistence.db import read_one
 from service.persistence.models import ChangeStamp, Plan, PlanSite, Reading, Site, Truck
 from service.persistence.repository import NotFound, active_sites, lock_for_update
-from service.persistence.shared_read import SharedRead
 from service.planning import JointResult, SiteInput, SitePlan, Status, Stop, Trip, TruckInput
+from service.planning.inputs import SITE_PARAMETERS
 
-SITE_INPUTS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
+SITE_INPUTS = SITE_PARAMETERS
 
 
 def truck_input(snapshot: dict[str, Any], start: dt.date) -> TruckInput:
@@ -229,9 +228,7 @@ def staleness(session: Session, plan: Plan) -> tuple[bool, list[str]]:
 
 
 #: Built once (statement construction costs more than running it): see change_stamp.
-_CHANGE_STAMP = RawRead(select(ChangeStamp.stamp).where(ChangeStamp.id == 1))
-#: One barrier per engine (tests run many apps in one process, each on its own database).
-_STAMP_READS: WeakKeyDictionary[Engine, SharedRead] = WeakKeyDictionary()
+_CHANGE_STAMP = select(ChangeStamp.stamp).where(ChangeStamp.id == 1)
 
 
 def change_stamp(engine: Engine) -> str | None:
@@ -242,15 +239,11 @@ def change_stamp(engine: Engine) -> str | None:
     visible with that transaction's commit. A view read after the marker is therefore at least as
     new as the marker says. Deliberately coarse: a change anywhere invalidates every truck's cached
     trips (a truck's own change included, so a cached view also vouches for its truck code), which
-    keeps the marker one primary-key lookup. It runs on every weekly call: one autocommit statement
-    run on the driver (:class:`~service.persistence.db.RawRead`), shared by the concurrent callers
-    of this process that arrived before it started (:class:`SharedRead`), so each still sees every
-    commit acknowledged before its request arrived. ``None`` only if the row was deleted.
+    keeps the marker one primary-key lookup. It runs on every weekly call, after the request
+    arrived, as one autocommit statement (:func:`~service.persistence.db.read_one`), so it sees
+    every commit acknowledged before the request. ``None`` only if the row was deleted.
     """
-    shared = _STAMP_READS.get(engine)
-    if shared is None:
-        shared = _STAMP_READS.setdefault(engine, SharedRead())
-    row = shared(lambda: _CHANGE_STAMP.first(engine, {}))
+    row = read_one(engine, _CHANGE_STAMP, {})
     return None if row is None else row[0]
 
 

@@ -9,19 +9,9 @@ from sqlalchemy import bindparam, delete, exists, func, select
 from sqlalchemy.orm import Session
 
 from service.persistence.models import Plan, PlanSite, Reading, Site, Token, Truck, utcnow
+from service.planning.inputs import SITE_PARAMETERS
 
-SITE_FIELDS = (
-    "name",
-    "demand_per_day",
-    "holding_cost",
-    "stop_cost",
-    "tank_capacity",
-    "safe_fill",
-    "safety_stock",
-    "active",
-    "latitude",
-    "longitude",
-)
+SITE_FIELDS = ("name", *SITE_PARAMETERS, "active", "latitude", "longitude")
 TRUCK_FIELDS = (
     "name",
     "dispatch_cost",
@@ -174,3 +164,43 @@ def revoke_token(session: Session, name: str) -> Token:
     if token.revoked_at is None:
         token.revoked_at = utcnow()
     return token
+
+
+def truck_by_id(session: Session, truck_id: int) -> Truck:
+    """The truck with this id (a site's or plan's own truck: it exists, the foreign key says so)."""
+    truck = session.get(Truck, truck_id)
+    if truck is None:
+        raise NotFound(f"No truck with id {truck_id}.")
+    return truck
+
+
+def active_trucks(session: Session) -> list[Truck]:
+    """The active trucks in code order."""
+    return list(session.scalars(select(Truck).where(Truck.active.is_(True)).order_by(Truck.code)))
+
+
+def delete_truck(session: Session, truck: Truck) -> None:
+    """Delete a truck nothing references (:func:`truck_is_referenced`)."""
+    session.delete(truck)
+    session.flush()
+
+
+def code_taken(session: Session, model: type[Truck] | type[Site], code: str) -> bool:
+    """Whether a truck (or site) with this code exists."""
+    return session.scalar(select(model.id).where(model.code == code)) is not None
+
+
+def trucks_by_code(session: Session) -> dict[str, Truck]:
+    """Every truck, by code."""
+    return {t.code: t for t in session.scalars(select(Truck))}
+
+
+def sites_by_code(session: Session, codes: Iterable[str]) -> dict[str, Site]:
+    """The stored sites among ``codes``, by code."""
+    return {s.code: s for s in session.scalars(select(Site).where(Site.code.in_(set(codes))))}
+
+
+def sites_with_truck_codes(session: Session) -> list[tuple[Site, str]]:
+    """Every site in code order, with its truck's code."""
+    codes = dict(session.execute(select(Truck.id, Truck.code)).all())
+    return [(site, codes[site.truck_id]) for site in session.scalars(select(Site).order_by(Site.code))]

@@ -11,7 +11,7 @@ and stop at most ``S`` times (``D = Σ d_i``, ``u_i = ⌊min(f_i V_i − s_i, W)
 ``K N / R`` is at least any convex combination of the three. The inner minimum is the capped
 relaxation of :mod:`service.planning.relaxation` with ``K → K α`` and ``k_i → k_i + K γ / S``.
 ``LB`` is a minimum of functions affine in the weights, hence concave; the bound is its maximum
-over the simplex (the bound of the shared note ``drivable-bound.md``).
+over the simplex (docs/planning.md, "Drivable lower bound").
 
 Two tightenings, both valid for plans of any period: the stop room (at most ``trips_per_day × S``
 stops per working day, priced by a fourth multiplier ``μ``), and gap patterns — the holding term

@@ -27,6 +27,11 @@ ALL_WEEKDAYS = (1, 2, 3, 4, 5, 6, 7)
 MAX_WHOLE_DAYS = 3660
 
 
+#: The numbers that describe a site to the planner (the fields of :class:`SiteInput` after ``code``);
+#: the API, the CSV import and the plan snapshots use this one list.
+SITE_PARAMETERS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
+
+
 @dataclass(frozen=True)
 class SiteInput:
     """One tank site: demand per day, holding cost per unit per day, cost per stop, tank data."""

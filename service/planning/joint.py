@@ -36,7 +36,10 @@ from service.planning.staggering import site_weights, stagger
 from service.planning.weekly import improve_weekly
 from service.planning.workweek import WorkWeek
 
-METHODS = ("best", "power_of_two", "integer")
+#: The policy classes a plan is drawn from (``JointResult.method``) ...
+POLICIES = ("power_of_two", "integer")
+#: ... and what a caller may ask for: one of them, or the cheaper of the two.
+METHODS = ("best", *POLICIES)
 #: Days of a repeat period listed in ``JointResult.trips`` at most.
 LISTED_DAYS = 3660
 #: Stops listed in ``JointResult.trips`` at most (whole days; keeps 100 000-site results small).

@@ -31,7 +31,7 @@ from sqlalchemy.exc import DBAPIError
 from werkzeug.exceptions import HTTPException
 
 from service.errors import Problem
-from service.persistence.db import rollback_request_session
+from service.request_db import rollback_request_session
 
 PAGE_HEADERS = {
     "Content-Security-Policy": "default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; "

@@ -28,8 +28,8 @@ from flask.sessions import SecureCookieSessionInterface
 from service.auth import SESSION, Caller, allow, caller_from_token
 from service.errors import Problem
 from service.persistence import status_sessions
-from service.persistence.db import get_session
 from service.persistence.models import utcnow
+from service.request_db import get_session
 from service.schedule import level_state
 from service.web import bp, formatting, log, settings
 

@@ -30,8 +30,8 @@ from service.errors import Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence import tanks
-from service.persistence.db import get_session, read_engine
 from service.persistence.models import utcnow
+from service.request_db import get_session, read_engine
 from service.web import bp, pages, settings
 from service.web.access import page
 

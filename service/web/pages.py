@@ -9,7 +9,6 @@ from zoneinfo import ZoneInfo
 
 from flask import render_template, request
 from markupsafe import Markup
-from sqlalchemy import select
 from sqlalchemy.exc import DBAPIError
 
 from service import bounded, schedule, working_calendar
@@ -19,9 +18,9 @@ from service.cache import LruCache
 from service.errors import Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import get_session, read_engine
 from service.persistence.models import Truck, utcnow
 from service.planning.projection import TOLERANCE
+from service.request_db import get_session, read_engine
 from service.web import bp, error_page, formatting, log, settings
 from service.web.access import page
 from service.web.chart import chart_id, level_svg
@@ -84,7 +83,7 @@ def overview() -> Any:
 
 
 def _week_html(db: Any, week: str, monday: dt.date, sunday: dt.date, config: Any) -> tuple[Markup, Markup]:
-    trucks = list(db.scalars(select(Truck).where(Truck.active.is_(True)).order_by(Truck.code)))
+    trucks = repo.active_trucks(db)
     panels, warnings = [], []
     for truck in trucks:
         try:
@@ -121,7 +120,7 @@ def site_page(code: str) -> Any:
         site = repo.site_by_code(db, code)
     except repo.NotFound as exc:
         raise Problem(404, "There is no site with this code.", title="Not found") from exc
-    truck = db.get(Truck, site.truck_id)
+    truck = repo.truck_by_id(db, site.truck_id)
     first, now = schedule.today(config), utcnow()
     reading = plan_store.latest_readings(db, [site.id]).get(site.id)
     levels = schedule.site_levels(db, site, first, CHART_DAYS, config)

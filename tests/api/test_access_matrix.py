@@ -14,8 +14,8 @@ from werkzeug.routing import BuildError, IntegerConverter
 from service import create_app
 from service.auth import PUBLIC, ROLES, SESSION, new_token, rule_for, token_hash
 from service.persistence import repository as repo
-from service.persistence.db import dispose
 from service.persistence.models import Token
+from service.request_db import dispose
 
 #: (method, rule) → least role, for every route the issues define (tests/contract.py).
 EXPECTED = ROUTE_ROLES
@@ -142,7 +142,7 @@ def test_revoked_token_fails_once_its_cache_entry_is_older_than_the_ttl(client, 
     assert client.get("/api/v1/sites", headers=headers).status_code == 200
     repo.revoke_token(db_session, "short-lived")
     db_session.commit()
-    expire_token_cache()  # ULLAGE_TOKEN_CACHE_SECONDS (≤ 5 s, conventions SEC-3) have passed
+    expire_token_cache()  # ULLAGE_TOKEN_CACHE_SECONDS (≤ 5 s, docs/reliability.md "Access") have passed
     _assert_refused_as_revoked(client.get("/api/v1/sites", headers=headers))
     assert db_session.scalars(select(Token.revoked_at).where(Token.name == "short-lived")).one() is not None
 

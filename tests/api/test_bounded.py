@@ -16,8 +16,8 @@ import pytest
 from sqlalchemy import func, select
 
 from service import bounded, compute, create_app
-from service.persistence.db import dispose
 from service.persistence.models import Plan, RequestQuota
+from service.request_db import dispose
 from tests.reliability import slow_planner
 
 JOINT = "/api/v1/calculations/joint"

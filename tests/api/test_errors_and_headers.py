@@ -11,8 +11,8 @@ from sqlalchemy import select
 from service import create_app
 from service.auth import PUBLIC, allow, new_token, token_hash
 from service.persistence import repository as repo
-from service.persistence.db import dispose
 from service.persistence.models import Token
+from service.request_db import dispose
 
 API_HEADERS = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
 TRUCK = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0}

@@ -9,7 +9,7 @@ from sqlalchemy import create_engine, text
 
 from service import create_app
 from service.health import migration_head
-from service.persistence.db import dispose
+from service.request_db import dispose
 
 UNREACHABLE = "postgresql+psycopg://postgres@127.0.0.1:1/none"
 #: Things a health answer must never show: connection strings, hosts, file paths, versions.

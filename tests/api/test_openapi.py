@@ -239,7 +239,7 @@ def test_notice_kinds_and_problem_types_are_enums(spec):
 
 
 def test_csv_columns_are_documented(spec):
-    from service.api.sites_csv import COLUMNS, REQUIRED  # noqa: PLC0415
+    from service.sites_csv import COLUMNS, REQUIRED  # noqa: PLC0415
 
     body = spec["paths"]["/api/v1/sites/import"]["post"]["requestBody"]
     assert set(body["content"]) == {"text/csv"}

@@ -13,8 +13,8 @@ from sqlalchemy import func, select
 from werkzeug.serving import make_server
 
 from service import create_app
-from service.persistence.db import dispose
 from service.persistence.models import IdempotencyRecord, Plan
+from service.request_db import dispose
 
 START = "2026-12-07"
 

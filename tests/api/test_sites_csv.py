@@ -10,8 +10,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from sqlalchemy import func, select
 
-from service.persistence.db import dispose
 from service.persistence.models import Site
+from service.request_db import dispose
 
 IMPORT = "/api/v1/sites/import"
 EXPORT = "/api/v1/sites/export"

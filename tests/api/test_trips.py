@@ -290,25 +290,3 @@ def test_query_schemas_are_built_once_not_per_request(client, auth, plan, monkey
     assert trips(client, auth, "week=2026-W99").status_code == 422
     assert built == []
 
-
-_UNSEEN_YEARS = itertools.count(2101)  # the parser's memory is per process: each run asks for a new week
-
-
-def test_an_accepted_query_string_is_parsed_once_a_refused_one_every_time(client, auth, plan, monkeypatch):
-    from service.api.schemas.plans import TripsQueryArgsSchema
-
-    year = next(_UNSEEN_YEARS)
-
-    loads = []
-    original = TripsQueryArgsSchema.load
-    monkeypatch.setattr(
-        TripsQueryArgsSchema, "load", lambda self, *a, **k: loads.append(a[0]) or original(self, *a, **k)
-    )
-    first = trips(client, auth, f"week={year}-W03")
-    again = trips(client, auth, f"week={year}-W03")
-    assert first.status_code == again.status_code == 200 and first.get_json() == again.get_json()
-    assert len(loads) == 1
-    for _ in range(2):
-        assert trips(client, auth, f"week={year}-W03&wek=1").status_code == 422
-    assert len(loads) == 3
-    assert trips(client, auth, f"from={year}-01-18&to={year}-01-24").status_code == 200 and len(loads) == 4

@@ -23,7 +23,7 @@ from zoneinfo import ZoneInfo
 import pytest
 
 from service import create_app
-from service.persistence.db import dispose
+from service.request_db import dispose
 
 WEEKS = 8
 TOL = 1e-6

@@ -19,8 +19,8 @@ from sqlalchemy import create_engine, func, inspect, select
 from service import cli, create_app
 from service.auth import token_hash
 from service.health import alembic_config, migration_head
-from service.persistence.db import dispose
 from service.persistence.models import Plan, PlanSite, Site, Token, Truck
+from service.request_db import dispose
 
 ROOT = Path(__file__).resolve().parents[2]
 

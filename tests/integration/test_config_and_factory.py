@@ -14,7 +14,7 @@ from service import create_app
 from service.auth import new_token, token_hash
 from service.config import default_database_url, load_settings, normalise_database_url
 from service.persistence import repository as repo
-from service.persistence.db import dispose
+from service.request_db import dispose
 
 ROOT = Path(__file__).resolve().parents[2]
 UNREACHABLE = "postgresql+psycopg://postgres@127.0.0.1:1/none"

@@ -1,4 +1,4 @@
-"""The single-statement reads of the hot path (service.persistence.db.read_one / RawRead) on both databases."""
+"""The single-statement reads of the hot path (service.persistence.db.read_one) on both databases."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from sqlalchemy.exc import DBAPIError
 
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.persistence.db import RawRead, read_one
+from service.persistence.db import read_one
 from service.persistence.models import Truck
 
 BY_CODE = select(Truck.id, Truck.name).where(Truck.code == bindparam("code"))
@@ -21,11 +21,9 @@ def truck_id(db_session) -> int:
     return truck.id
 
 
-def test_read_one_and_raw_read_give_the_same_row(read_engine, truck_id):
+def test_read_one_gives_the_row_or_none(read_engine, truck_id):
     assert tuple(read_one(read_engine, BY_CODE, {"code": "R-1"})) == (truck_id, "Reader")
-    assert RawRead(BY_CODE).first(read_engine, {"code": "R-1"}) == (truck_id, "Reader")
     assert read_one(read_engine, BY_CODE, {"code": "nope"}) is None
-    assert RawRead(BY_CODE).first(read_engine, {"code": "nope"}) is None
 
 
 def test_reads_run_outside_any_transaction(read_engine, truck_id):
@@ -41,20 +39,17 @@ def test_reads_run_outside_any_transaction(read_engine, truck_id):
             raw.close()
 
     read_one(read_engine, BY_CODE, {"code": "R-1"})
-    RawRead(BY_CODE).first(read_engine, {"code": "R-1"})
     assert open_transaction() is False
     sent = []
-    raw = RawRead(BY_CODE)
     event.listen(read_engine, "before_cursor_execute", lambda c, cur, statement, *a: sent.append(statement))
     read_one(read_engine, BY_CODE, {"code": "R-1"})
     assert len(sent) == 1 and sent[0].lstrip().upper().startswith("SELECT")
-    raw.first(read_engine, {"code": "R-1"})  # straight on the driver: SQLAlchemy's events see nothing
-    assert len(sent) == 1
+    assert open_transaction() is False
 
 
 def test_a_driver_error_comes_out_as_sqlalchemy_dbapierror(read_engine):
     with pytest.raises(DBAPIError) as caught:
-        RawRead(select(text("no_such_column")).select_from(text("no_such_table"))).first(read_engine, {})
+        read_one(read_engine, select(text("no_such_column")).select_from(text("no_such_table")), {})
     assert caught.value.connection_invalidated is False
 
 
@@ -71,12 +66,7 @@ def test_change_stamp_is_stable_and_moves_with_any_truck_change(read_engine, db_
 
 @pytest.mark.parametrize("database_url", ["postgresql"], indirect=True)  # a server-side disconnect
 def test_a_connection_killed_by_the_server_is_retried_once(database_url, read_engine, truck_id):
-    raw = RawRead(BY_CODE)
-    reads = (
-        lambda: raw.first(read_engine, {"code": "R-1"}),
-        lambda: tuple(read_one(read_engine, BY_CODE, {"code": "R-1"})),
-    )
-    for read in reads:
+    for read in (lambda: tuple(read_one(read_engine, BY_CODE, {"code": "R-1"})),):
         assert read() == (truck_id, "Reader")  # a pooled connection now exists
         with read_engine.connect() as connection:
             own = connection.exec_driver_sql("SELECT pg_backend_pid()").scalar()

@@ -1,4 +1,4 @@
-"""Faults, and what "nothing lost" means (conventions B.8):
+"""Faults, and what "nothing lost" means (docs/reliability.md, "Guarantees"):
 
 1. every plan POST that got a 2xx is durably present afterwards;
 2. a POST that did not get a 2xx is absent or present exactly once (never partial, never twice);
@@ -30,7 +30,7 @@ import pytest
 import requests
 from sqlalchemy import create_engine, event, text
 
-from service import auth, create_app
+from service import auth, create_app, request_db
 from service.idempotency import LEASE
 from service.persistence import db
 
@@ -219,7 +219,7 @@ def activate_a_plan(post) -> None:  # noqa: ANN001 - post(path) -> (status, JSON
 
 def test_postgres_down_weekly_trips_and_every_route_answer_503_logged_as_warning(own_postgres, monkeypatch, caplog):
     """PostgreSQL stops while tokens are cached: the weekly trips call, whose change-stamp read
-    connects straight through the pool (``db.RawRead``), answered 500 with a traceback at ERROR;
+    once connected straight through the pool, answered 500 with a traceback at ERROR;
     now it answers 503 problem+json with Retry-After like every other route, logged as a warning,
     and 200 again once the database is back."""
     url = own_postgres.url
@@ -256,7 +256,7 @@ def test_postgres_down_weekly_trips_and_every_route_answer_503_logged_as_warning
         for path in reads:
             assert client.get(path, headers=viewer).status_code == 200, path
     finally:
-        db.dispose(app)
+        request_db.dispose(app)
 
 
 def test_postgres_restart_during_requests(tmp_path, own_postgres):
@@ -537,7 +537,7 @@ def test_sqlite_write_locked_past_busy_timeout_is_503_with_retry_after(tmp_path,
             assert response.status_code in (200, 201), response.get_data(as_text=True)
         assert len(assert_no_partial_plans(url)) == 2
     finally:
-        db.dispose(app)
+        request_db.dispose(app)
 
 
 # ------------------------------------------------------------------ full disk under SQLite

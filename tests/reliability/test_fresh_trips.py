@@ -1,7 +1,7 @@
 """Weekly trips are never older than an acknowledged change, in any worker, under concurrent load.
 
-Each worker caches trips answers and shares one change-stamp read among the requests that arrived
-before it started (service.persistence.shared_read). Here gunicorn (2 workers × 4 threads) serves
+Each worker caches trips answers by the change stamp, which every request reads after it arrived
+(service.persistence.plans.change_stamp). Here gunicorn (2 workers × 4 threads) serves
 a crowd of trips readers while the test records readings of one site with ever later times and
 ever lower levels; right after each 201 it asks for the trips on a new connection (any worker).
 Each answer must show the stop's projected level lower than the one before: a cached or shared

@@ -58,7 +58,7 @@ def test_well_formed_request_id_is_echoed_and_logged_also_on_errors(client, auth
     missing = client.get("/api/v1/sites/NO-SUCH", headers=auth("viewer", **{"X-Request-ID": rid}))
     assert missing.status_code == 404
     assert missing.headers["X-Request-ID"] == rid
-    # Project decision 1 (conventions A.2 rows 1 and 9): the id travels in the X-Request-ID header
+    # The request id travels in the X-Request-ID header
     # of every response, errors included. Issue 6 also asks for it in problem bodies; where the
     # body carries it (a `request_id` member), it must be the same id.
     assert missing.mimetype == "application/problem+json"

@@ -22,7 +22,7 @@ from sqlalchemy import text
 from service import create_app
 from service.auth import PUBLIC, SESSION, allow, rule_for
 from service.config import Settings
-from service.persistence.db import dispose
+from service.request_db import dispose
 
 from .helpers import bearer, load_demo_network, migrate, run_cli, start_gunicorn
 
@@ -166,7 +166,7 @@ def test_revoked_token_is_refused_by_every_worker_and_never_logged(tmp_path):
         revoked = run_cli(url, "token", "revoke", "revoke-me", cwd=tmp_path)
         assert revoked.returncode == 0, revoked.stderr
         # Each worker may answer from its token cache for at most ULLAGE_TOKEN_CACHE_SECONDS (2 s by
-        # default; the conventions allow ≤ 5 s, SEC-3); after that every worker refuses it.
+        # default; at most 5 s, docs/reliability.md "Access"); after that every worker refuses it.
         time.sleep(Settings.token_cache_seconds + 0.05)
         statuses = [
             requests.get(server.url("/api/v1/sites"), headers=bearer(token), timeout=5).status_code for _ in range(40)

@@ -9,7 +9,7 @@ import pytest
 from status_helpers import PLANNED_TRUCK, Page, add_reading, record_plan, sign_in, today
 
 from service import bounded, create_app
-from service.persistence.db import dispose
+from service.request_db import dispose
 
 
 @pytest.fixture

@@ -26,8 +26,8 @@ from status_helpers import (
 from service import create_app, schedule
 from service.auth import SESSION, rule_for
 from service.persistence import repository as repo
-from service.persistence.db import dispose
 from service.persistence.models import Site, StatusSession, Token, utcnow
+from service.request_db import dispose
 
 CAUTION = re.compile(
     r"planning aid.*safe fill levels.*overfill prevention.*hazardous liquids.*local codes.*licensed practice",

@@ -14,7 +14,7 @@ from sqlalchemy import func, select
 from status_helpers import csrf_of, sign_in
 
 from service import create_app
-from service.persistence.db import dispose
+from service.request_db import dispose
 
 COOKIE = "ullage_session"
 

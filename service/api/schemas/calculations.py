@@ -6,10 +6,10 @@ from service.api.fields import DATE_RANGE, BoundedDate, JsonFloat, JsonInt, Rang
 from service.api.schemas.calendar import CalendarSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema, code_field_validate, nonnegative, positive
 from service.config import MAX_PLAN_SITES
+from service.planning.joint import METHODS, POLICIES
 
 #: The schema's ceiling; the service's own limit is ULLAGE_MAX_PLAN_SITES (service.bounded).
 MAX_SITES = MAX_PLAN_SITES
-METHODS = ("power_of_two", "integer", "best")
 #: Outcome of a joint computation (issue 13): ``optimal`` only where optimality is proven.
 STATUSES = ("optimal", "feasible", "infeasible", "time_limit")
 STATUS_DESCRIPTION = (
@@ -115,7 +115,7 @@ class TripSchema(ma.Schema):
 class JointFieldsSchema(ma.Schema):
     """The fields of a joint result (also at the top level of a recorded plan)."""
 
-    method = ma.fields.String(validate=ma.validate.OneOf(["power_of_two", "integer"]))
+    method = ma.fields.String(validate=ma.validate.OneOf(POLICIES))
     base_days = ma.fields.Integer(allow_none=True)
     dispatch_interval_days = ma.fields.Integer()
     repeat_days = ma.fields.Integer()

@@ -24,7 +24,7 @@ code_field_validate = _WholeCode(CODE_PATTERN, error=_CODE_ERROR)
 name_validate = ma.validate.Length(min=1, max=200)
 
 #: The smallest positive value accepted where a quantity must be > 0 (a real minimum, so the
-#: OpenAPI document states the same rule the server applies; conventions B.3).
+#: OpenAPI document states the same rule the server applies).
 POSITIVE_MIN = 1e-6
 #: A generous ceiling for any amount (quantities, money); keeps every computed figure finite.
 AMOUNT_MAX = 1e12

@@ -16,12 +16,11 @@ from service.api.fields import (
 from service.api.pagination import PageArgsSchema
 from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema
-
-PLAN_METHODS = ("power_of_two", "integer", "best")
+from service.planning.joint import METHODS
 
 
 class PlanRequestSchema(StrictSchema):
-    method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(PLAN_METHODS))
+    method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(METHODS))
     base_days = JsonInt(load_default=None, allow_none=True, validate=Range(min=1, max=3660))
     start_date = BoundedDate(
         load_default=None,

@@ -2,7 +2,7 @@
 
 * Daily mean temperature ``(max + min) / 2`` and heating degree days ``max(0, base − mean)``
   (UK Met Office base 15.5 °C, 18 °C in the Netherlands and Canada, 65 °F for the US National
-  Weather Service — PUBLISHED on the agencies' pages; ``shared/reference`` C3).
+  Weather Service — PUBLISHED on the agencies' pages).
 * Consumption of an interval ``c_j = b Δ_j + v D_j + e_j`` with ``D_j`` the interval's degree
   days, ``Var e_j = σ² Δ_j`` (the random walk of ``estimate.py``), fitted by weighted least
   squares with weights ``1/Δ_j``.

@@ -5,7 +5,7 @@ protection period ``T + L`` is ``N(μ (T + L), σ² (T + L))`` under the random 
 stock ``SS = k σ √(T + L)`` gives a cycle service level (probability of no stock-out in a cycle)
 ``Φ(k)`` and a fill rate (share of demand met from stock) ``1 − σ √(T + L) G(k) / (μ T)`` with the
 standard normal loss function ``G(k) = φ(k) − k (1 − Φ(k))`` (Axsäter, *Inventory Control*, ch. 5;
-Silver, Pyke & Peterson — MEMORY for chapter numbers; ``shared/reference`` C1). The fill-rate
+Silver, Pyke & Peterson — MEMORY for chapter numbers). The fill-rate
 formula counts the expected shortage at the end of each cycle as backordered demand (the usual
 approximation, good when the fill rate is high).
 """

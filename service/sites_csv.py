@@ -1,4 +1,7 @@
-"""CSV import and export of sites.
+"""CSV import and export of sites, for the API and the demo loader alike (no HTTP here).
+
+A refused import raises :class:`CsvRefused` (or :class:`TooManyRows`) with a ``detail`` and
+``errors`` (``{pointer, detail}``); the API answers them as 422 (413) problems.
 
 Import: UTF-8 (a BOM is accepted), a header row, at most :data:`MAX_ROWS` rows, cells separated by
 ``,`` (or ``;`` or tab, told from the header); every row is validated with the same schema as JSON,
@@ -30,30 +33,19 @@ import re
 from typing import Any
 
 from marshmallow import ValidationError
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.api import usable_stock
 from service.api.schemas.sites import SiteSchema
-from service.errors import Problem
 from service.persistence import repository as repo
-from service.persistence.models import Site, Truck
+from service.planning.inputs import SITE_PARAMETERS
 
 MAX_ROWS = 5000
 LITRES_PER_UNIT = {"L": 1.0, "gal": 3.785411784, "m3": 1000.0}
 VOLUME_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock")
-NUMBER_FIELDS = (
-    "demand_per_day",
-    "holding_cost",
-    "stop_cost",
-    "tank_capacity",
-    "safe_fill",
-    "safety_stock",
-    "latitude",
-    "longitude",
-)
+NUMBER_FIELDS = (*SITE_PARAMETERS, "latitude", "longitude")
 TEXT_FIELDS = ("code", "name", "truck")
-COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
+COLUMNS = (*TEXT_FIELDS, *SITE_PARAMETERS, "active", "latitude", "longitude")
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
 FORMAT = (
@@ -72,6 +64,19 @@ EXAMPLE = ",".join(COLUMNS) + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.003
 _NEEDS_PREFIX = re.compile(r"'*[=+\-@\t\r]")
 #: A plain decimal number in ASCII (``[0-9]``, not ``\d``, which matches every script's digits).
 _PLAIN_NUMBER = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
+
+
+class CsvRefused(ValueError):
+    """The import wrote nothing: ``detail`` says why, ``errors`` names the cells (``{pointer, detail}``)."""
+
+    def __init__(self, detail: str, errors: list[dict[str, str]] | None = None) -> None:
+        super().__init__(detail)
+        self.detail = detail
+        self.errors = errors or []
+
+
+class TooManyRows(CsvRefused):
+    """More than :data:`MAX_ROWS` rows."""
 
 
 def _unit_factor(unit: str, service_unit: str) -> float:
@@ -124,13 +129,11 @@ def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], 
 
 
 def import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit: str) -> dict[str, Any]:
-    """Validate every row, then create or update by ``code``; raise a 422 Problem naming bad rows."""
+    """Validate every row, then create or update by ``code``; raise :class:`CsvRefused` naming bad rows."""
     try:
         return _import_sites(session, body, dry_run=dry_run, service_unit=service_unit)
     except csv.Error as exc:  # e.g. a bare CR inside a field: a 500 before (found by fuzzing)
-        raise Problem(
-            422, f"The CSV cannot be read: {exc}.", kind="validation", errors=[{"pointer": "#", "detail": str(exc)}]
-        ) from exc
+        raise CsvRefused(f"The CSV cannot be read: {exc}.", [{"pointer": "#", "detail": str(exc)}]) from exc
 
 
 def _separator(first_line: str) -> str:
@@ -155,7 +158,7 @@ def _records(text: str) -> tuple[list[str], list[tuple[int, dict[str, str | None
         if not cells:
             continue
         if len(records) >= MAX_ROWS:
-            raise Problem(413, f"At most {MAX_ROWS} rows per import.", kind="too-many-rows")
+            raise TooManyRows(f"At most {MAX_ROWS} rows per import.")
         if len(cells) > len(header):
             records.append((row_number, None))
             continue
@@ -167,22 +170,20 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
     try:
         text = body.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        raise Problem(422, "The CSV must be UTF-8.", kind="validation") from exc
+        raise CsvRefused("The CSV must be UTF-8.") from exc
     header, records = _records(text)
     unknown = [h for h in header if h not in (*COLUMNS, "unit")]
     missing = [h for h in REQUIRED if h not in header]
     if unknown or missing:
         errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
         errors += [{"pointer": f"#/header/{h}", "detail": "Missing column."} for h in missing]
-        raise Problem(
-            422,
+        raise CsvRefused(
             "The CSV header is not valid: separate the cells with commas (or semicolons) and name the "
             f"columns {', '.join(COLUMNS)} and optionally unit.",
-            kind="validation",
-            errors=errors,
+            errors,
         )
     schema = SiteSchema()
-    trucks = {t.code: t for t in session.scalars(select(Truck))}
+    trucks = repo.trucks_by_code(session)
     rows: list[dict[str, Any]] = []
     numbers: list[int] = []
     errors: list[dict[str, str]] = []
@@ -226,15 +227,12 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
     if errors:
         errors.sort(key=lambda e: int(e["pointer"].split("/")[2]))
         bad_rows = sorted({int(e["pointer"].split("/")[2]) for e in errors})
-        raise Problem(
-            422,
-            f"Nothing was imported: {len(bad_rows)} bad row(s): {', '.join(map(str, bad_rows[:20]))}.",
-            kind="validation",
-            errors=errors,
+        raise CsvRefused(
+            f"Nothing was imported: {len(bad_rows)} bad row(s): {', '.join(map(str, bad_rows[:20]))}.", errors
         )
     if not rows:
-        raise Problem(422, "The CSV has no rows.", kind="validation")
-    existing = {s.code: s for s in session.scalars(select(Site).where(Site.code.in_(seen)))}
+        raise CsvRefused("The CSV has no rows.")
+    existing = repo.sites_by_code(session, seen)
     created = updated = 0
     for data in rows:
         truck = trucks[data["truck"]]
@@ -264,10 +262,9 @@ def export_sites(session: Session) -> str:
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\r\n")
     writer.writerow(COLUMNS)
-    codes = dict(session.execute(select(Truck.id, Truck.code)).all())
-    for site in session.scalars(select(Site).order_by(Site.code)):
-        row: list[Any] = [_defuse(site.code), _defuse(site.name), _defuse(codes[site.truck_id])]
-        row += [repr(getattr(site, f)) for f in NUMBER_FIELDS[:6]]
+    for site, truck_code in repo.sites_with_truck_codes(session):
+        row: list[Any] = [_defuse(site.code), _defuse(site.name), _defuse(truck_code)]
+        row += [repr(getattr(site, f)) for f in SITE_PARAMETERS]
         row += ["true" if site.active else "false"]
         row += ["" if getattr(site, f) is None else repr(getattr(site, f)) for f in ("latitude", "longitude")]
         writer.writerow(row)
