@@ -18,8 +18,6 @@ from service.persistence import repository as repo
 from service.persistence.db import make_engine
 from service.persistence.models import Site, Token, Truck
 
-SAMPLE_DATA = Path(__file__).resolve().parent.parent / "sample_data"
-
 
 def _session() -> Session:
     return Session(make_engine(load_settings().database_url), expire_on_commit=False)
@@ -95,13 +93,13 @@ def token_list(_args: argparse.Namespace) -> int:
 
 
 def demo(args: argparse.Namespace) -> int:
-    from service.demo import load_demo  # noqa: PLC0415
+    from service.demo import SAMPLE_DATA, load_demo  # noqa: PLC0415
 
     with _session() as session:
         if repo.count_rows(session, Truck) or repo.count_rows(session, Site):
             print("the database already holds trucks or sites; the demo loads only into an empty one")
             return 0 if args.if_empty else 1
-        trucks, sites = load_demo(session, Path(args.directory), load_settings().quantity_unit)
+        trucks, sites = load_demo(session, Path(args.directory or SAMPLE_DATA), load_settings().quantity_unit)
         session.commit()
     print(f"loaded the demo network: {trucks} trucks, {sites} sites")
     return 0
@@ -175,8 +173,8 @@ def build_parser() -> argparse.ArgumentParser:
     revoke.set_defaults(func=token_revoke)
     token.add_parser("list", help="names, roles and states (never secrets)").set_defaults(func=token_list)
 
-    dm = sub.add_parser("demo", help="load sample_data/ into an empty database")
-    dm.add_argument("--directory", default=str(SAMPLE_DATA))
+    dm = sub.add_parser("demo", help="load the invented demo network (service/sample_data/) into an empty database")
+    dm.add_argument("--directory", help="a directory with trucks.csv and sites.csv instead of the demo network")
     dm.add_argument("--if-empty", action="store_true", help="exit 0 without loading when data exists")
     dm.set_defaults(func=demo)
 

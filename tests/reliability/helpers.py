@@ -25,7 +25,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session
 
 from service.auth import new_token, token_hash
-from service.demo import load_demo
+from service.demo import SAMPLE_DATA, load_demo
 from service.health import alembic_config
 from service.persistence import repository as repo
 
@@ -50,7 +50,7 @@ def load_demo_network(url: str) -> None:
     engine = create_engine(url)
     try:
         with Session(engine) as session:
-            load_demo(session, ROOT / "sample_data", "L")
+            load_demo(session, SAMPLE_DATA, "L")
             session.commit()
     finally:
         engine.dispose()
