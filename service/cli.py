@@ -118,6 +118,9 @@ def _persistent_secret() -> str:
 
 
 def serve(args: argparse.Namespace) -> int:
+    settings = load_settings()  # fails here, before gunicorn starts, on any bad setting
+    # gunicorn's processes read their settings from the environment (service.config), so what
+    # `serve` decides for them is handed on there.
     os.environ.setdefault("ULLAGE_SECRET_KEY", _persistent_secret())
     # Prometheus multiprocess mode (service.metrics): one directory per server, emptied at start.
     from service.metrics import MULTIPROC_ENV, wipe_multiprocess_dir  # noqa: PLC0415
@@ -132,7 +135,7 @@ def serve(args: argparse.Namespace) -> int:
         "--config",
         str(Path(__file__).resolve().parent / "gunicorn_conf.py"),
         "--bind",
-        f"{args.host}:{args.port}",
+        f"{args.host or settings.host}:{args.port or settings.port}",
         "service.app:create_app()",
     ]
     if args.workers:
@@ -179,8 +182,8 @@ def build_parser() -> argparse.ArgumentParser:
     dm.set_defaults(func=demo)
 
     sv = sub.add_parser("serve", help="run gunicorn")
-    sv.add_argument("--host", default=os.environ.get("ULLAGE_HOST", "127.0.0.1"))
-    sv.add_argument("--port", type=int, default=int(os.environ.get("ULLAGE_PORT", "8000")))
+    sv.add_argument("--host", help="default: ULLAGE_HOST or 127.0.0.1")
+    sv.add_argument("--port", type=int, help="default: ULLAGE_PORT or 8000")
     sv.add_argument("--workers", type=int, default=0, help="default: WEB_CONCURRENCY or 2")
     sv.set_defaults(func=serve)
     return parser

@@ -1,40 +1,22 @@
-"""gunicorn settings for Ullage (see conventions: graceful shutdown, no preload, heartbeat in /dev/shm)."""
+"""gunicorn settings for Ullage (see conventions: graceful shutdown, no preload, heartbeat in /dev/shm).
+
+Loaded by gunicorn's master as ``--config python:service.gunicorn_conf`` (the Docker image, ``ullage
+serve``) or as this file's path. Its values come from the one settings object (service.config), so
+a bad value stops the master before any worker forks.
+"""
 
 import os
 
+from service.config import load_settings
 from service.observability import configure_logging
 
-
-def listener_per_worker(setting: str | None) -> bool:
-    """Whether each worker listens on its own ``SO_REUSEPORT`` socket (gunicorn's ``reuse_port``).
-
-    ``ULLAGE_REUSE_PORT=1`` turns it on; unset or ``0`` keeps gunicorn's one shared socket, which
-    the master holds for the service's whole life. The trade-off, as ``benchmarks/load.py`` printed
-    it (docs/reliability.md):
-
-    * shared socket: whichever worker wakes first accepts a burst of connections and keep-alive
-      pins them there; with 32 connections, some slices ran with all 32 on one of two workers and
-      weekly trips at 380–400 req/s against 610–700 in the other slices;
-    * a socket per worker: the kernel spreads new connections over the workers by a hash of their
-      addresses, but a socket lives and dies with its worker. While a worker restarts (recycled
-      after ``max_requests``, or crashed) connections queued on its socket are reset, and while
-      every worker restarts at once nothing listens: recycling every 1 500 requests gave thousands
-      of connection errors in a run where the shared socket gave none.
-
-    So the safe one is the default, and a socket per worker is for many long-lived connections
-    where throughput matters more than a rare refused connection that a client retries.
-    """
-    if setting in (None, "", "0"):
-        return False
-    if setting == "1":
-        return True
-    raise ValueError(f"ULLAGE_REUSE_PORT must be 1, 0 or unset, not {setting!r}")
+_settings = load_settings()
 
 
-workers = int(os.environ.get("WEB_CONCURRENCY", "2"))
+workers = _settings.workers
 worker_class = "gthread"
-threads = int(os.environ.get("ULLAGE_THREADS", "4"))
-reuse_port = listener_per_worker(os.environ.get("ULLAGE_REUSE_PORT"))
+threads = _settings.threads
+reuse_port = _settings.reuse_port  # service.config.listener_per_worker has the trade-off
 timeout = 30
 graceful_timeout = 20
 keepalive = 5
@@ -50,10 +32,24 @@ worker_tmp_dir = "/dev/shm" if os.path.isdir("/dev/shm") else None
 secure_scheme_headers: dict[str, str] = {}
 accesslog = None  # the app writes one JSON line per request itself
 errorlog = "-"
+loglevel = _settings.log_level.lower()
+# gunicorn's own lines (workers booting, exiting, timing out) as JSON lines on stderr, like the
+# app's (service.observability); anything else that logs through the root logger too.
+logconfig_dict = {
+    "version": 1,
+    "disable_existing_loggers": False,
+    "formatters": {"json": {"()": "service.observability.JsonFormatter"}},
+    "handlers": {"json": {"class": "logging.StreamHandler", "formatter": "json", "stream": "ext://sys.stderr"}},
+    "root": {"level": "WARNING", "handlers": ["json"]},
+    "loggers": {
+        "gunicorn.error": {"level": _settings.log_level, "handlers": ["json"], "propagate": False},
+        "gunicorn.access": {"level": "INFO", "handlers": ["json"], "propagate": False},
+    },
+}
 
 
 def post_worker_init(worker):  # type: ignore[no-untyped-def]
-    configure_logging(os.environ.get("LOG_LEVEL", "INFO"))
+    configure_logging(_settings.log_level)
     from service.bounded import start_pool  # noqa: PLC0415
 
     start_pool(worker.wsgi)  # the planning processes (service.compute), before the first request

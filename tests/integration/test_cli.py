@@ -164,13 +164,13 @@ def test_gunicorn_settings_are_importable_and_sane(monkeypatch):
 
 @pytest.mark.parametrize(("setting", "expected"), [(None, False), ("", False), ("0", False), ("1", True)])
 def test_a_listener_per_worker_only_when_asked_for(setting, expected):
-    from service.gunicorn_conf import listener_per_worker
+    from service.config import listener_per_worker
 
     assert listener_per_worker(setting) is expected
 
 
 def test_a_listener_per_worker_setting_refuses_other_values():
-    from service.gunicorn_conf import listener_per_worker
+    from service.config import listener_per_worker
 
     with pytest.raises(ValueError, match="ULLAGE_REUSE_PORT"):
         listener_per_worker("yes")

@@ -232,3 +232,48 @@ def test_load_settings_accepts_field_names_and_environment_names(tmp_path):
     )
     assert (settings.currency, settings.max_body_bytes) == ("USD", 2048)
     assert settings.secret_key  # a per-process key when none is configured
+
+
+def test_serving_settings_come_from_the_environment():
+    environ = {
+        "WEB_CONCURRENCY": "3",
+        "ULLAGE_THREADS": "6",
+        "ULLAGE_REUSE_PORT": "1",
+        "ULLAGE_HOST": "0.0.0.0",
+        "ULLAGE_PORT": "8100",
+    }
+    settings = load_settings(environ=environ)
+    assert (settings.workers, settings.threads, settings.reuse_port) == (3, 6, True)
+    assert (settings.host, settings.port) == ("0.0.0.0", 8100)
+    defaults = load_settings(environ={})
+    assert (defaults.workers, defaults.threads, defaults.reuse_port, defaults.host, defaults.port) == (
+        2,
+        4,
+        False,
+        "127.0.0.1",
+        8000,
+    )
+
+
+@pytest.mark.parametrize(
+    ("name", "value"),
+    [("WEB_CONCURRENCY", "0"), ("ULLAGE_THREADS", "0"), ("ULLAGE_PORT", "70000"), ("ULLAGE_REUSE_PORT", "yes")],
+)
+def test_bad_serving_settings_stop_the_start(name, value):
+    with pytest.raises(ValueError, match=name):
+        load_settings(environ={name: value})
+
+
+def test_gunicorn_reads_its_values_from_the_settings(monkeypatch):
+    import importlib
+
+    monkeypatch.setenv("WEB_CONCURRENCY", "3")
+    monkeypatch.setenv("ULLAGE_THREADS", "5")
+    monkeypatch.setenv("LOG_LEVEL", "WARNING")
+    conf = importlib.reload(importlib.import_module("service.gunicorn_conf"))
+    try:
+        assert (conf.workers, conf.threads, conf.loglevel) == (3, 5, "warning")
+        assert conf.logconfig_dict["loggers"]["gunicorn.error"]["level"] == "WARNING"
+    finally:
+        monkeypatch.undo()
+        importlib.reload(conf)
