@@ -7,8 +7,10 @@ a bad value stops the master before any worker forks.
 
 import os
 
+from gunicorn import glogging
+
 from service.config import load_settings
-from service.observability import configure_logging
+from service.observability import JsonFormatter, configure_logging
 
 _settings = load_settings()
 
@@ -33,19 +35,26 @@ secure_scheme_headers: dict[str, str] = {}
 accesslog = None  # the app writes one JSON line per request itself
 errorlog = "-"
 loglevel = _settings.log_level.lower()
-# gunicorn's own lines (workers booting, exiting, timing out) as JSON lines on stderr, like the
-# app's (service.observability); anything else that logs through the root logger too.
-logconfig_dict = {
-    "version": 1,
-    "disable_existing_loggers": False,
-    "formatters": {"json": {"()": "service.observability.JsonFormatter"}},
-    "handlers": {"json": {"class": "logging.StreamHandler", "formatter": "json", "stream": "ext://sys.stderr"}},
-    "root": {"level": "WARNING", "handlers": ["json"]},
-    "loggers": {
-        "gunicorn.error": {"level": _settings.log_level, "handlers": ["json"], "propagate": False},
-        "gunicorn.access": {"level": "INFO", "handlers": ["json"], "propagate": False},
-    },
-}
+# gunicorn 25.1+ opens a control socket (worker count, reload, shutdown) under $HOME or
+# $XDG_RUNTIME_DIR by default: one path shared by every gunicorn of the user, and a way to change
+# the service from outside its configuration. Off (older releases ignore the unknown name).
+control_socket_disable = True
+
+
+class JsonLogger(glogging.Logger):
+    """gunicorn's own lines (booting, exiting, timeouts) as JSON lines on stderr, like the app's.
+
+    A subclass rather than ``logconfig_dict``: gunicorn takes any logging config as a wish for its
+    access log too, which would add a second line per request (the app writes its own).
+    """
+
+    def setup(self, cfg):  # type: ignore[no-untyped-def]
+        super().setup(cfg)
+        for handler in self.error_log.handlers:
+            handler.setFormatter(JsonFormatter())
+
+
+logger_class = JsonLogger
 
 
 def post_worker_init(worker):  # type: ignore[no-untyped-def]
