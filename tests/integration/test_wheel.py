@@ -8,6 +8,7 @@ fresh venv has no system site-packages. Its dependencies are installed at the lo
 from __future__ import annotations
 
 import os
+import shutil
 import socket
 import subprocess
 import sys
@@ -39,7 +40,13 @@ def installed(tmp_path_factory) -> Path:
     """A fresh venv with only the wheel and its locked dependencies; returns its bin directory."""
     base = tmp_path_factory.mktemp("wheel")
     env = {"PATH": "/usr/bin:/bin", "HOME": os.environ.get("HOME", str(base))}
-    run(sys.executable, "-m", "pip", "wheel", "--quiet", "--no-deps", "--wheel-dir", base / "dist", ROOT, cwd=base, env=env)
+    # What docker/Dockerfile's build stage copies, into a clean directory: a build in the work tree
+    # would reuse its build/ directory, where files deleted from the source may linger.
+    source = base / "src"
+    source.mkdir()
+    shutil.copy(ROOT / "pyproject.toml", source)
+    shutil.copytree(ROOT / "service", source / "service", ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
+    run(sys.executable, "-m", "pip", "wheel", "--quiet", "--no-deps", "--wheel-dir", base / "dist", source, cwd=base, env=env)
     (wheel,) = (base / "dist").glob("ullage-*.whl")
     run(sys.executable, "-m", "venv", base / "venv", cwd=base, env=env)
     pip = base / "venv" / "bin" / "pip"
