@@ -1,8 +1,8 @@
 """gunicorn settings for Ullage (see conventions: graceful shutdown, no preload, heartbeat in /dev/shm).
 
-Loaded by gunicorn's master as ``--config python:service.gunicorn_conf`` (the Docker image, ``ullage
-serve``) or as this file's path. Its values come from the one settings object (service.config), so
-a bad value stops the master before any worker forks.
+Loaded by gunicorn's master from this file's path (``ullage serve``, which the Docker image runs, and
+the tests and benchmarks that start gunicorn). Its values come from the one settings object
+(service.config), so a bad value stops the master before any worker forks.
 """
 
 import os
@@ -13,7 +13,6 @@ from service.config import load_settings
 from service.observability import JsonFormatter, configure_logging
 
 _settings = load_settings()
-
 
 workers = _settings.workers
 worker_class = "gthread"
