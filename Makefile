@@ -14,7 +14,7 @@ $(VENV)/.installed: pyproject.toml requirements.lock
 	$(VENV)/bin/pip install -q --no-deps -e .
 	touch $@
 
-## lock: re-resolve requirements.lock (run and test dependencies) from pyproject.toml, newest releases allowed
+## lock: re-resolve requirements.lock (run and test dependencies) from pyproject.toml; keeps the pins already there where the bounds allow
 lock:
 	$(PYTHON) -m venv $(VENV)
 	$(VENV)/bin/pip install -q "uv>=0.5"
