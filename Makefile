@@ -21,11 +21,12 @@ lock:
 	$(VENV)/bin/uv pip compile pyproject.toml --extra test --universal --python-version 3.11 \
 	  --custom-compile-command "make lock" --quiet --output-file requirements.lock
 
-## run: venv, install, migrate, load the demo network if empty, print an admin token, serve on 127.0.0.1:8000 (SQLite)
+## run: venv, install, migrate, load the demo network if empty, print an admin token if none exists, serve on
+## 127.0.0.1:$ULLAGE_PORT (default 8000) with SQLite
 run: $(VENV)/.installed
 	$(VENV)/bin/ullage db upgrade
 	$(VENV)/bin/ullage demo --if-empty
-	@$(VENV)/bin/ullage token create "make-run-$$(date +%Y%m%d%H%M%S)" --role admin | tail -n 1 | sed 's/^/ADMIN TOKEN (shown once): /'
+	@$(VENV)/bin/ullage token create "make-run-$$(date +%Y%m%d%H%M%S)" --role admin --if-none | tail -n 1 | sed 's/^/ADMIN TOKEN (shown once): /'
 	$(VENV)/bin/ullage serve
 
 ## test: venv, install, system packages the tests need, the whole suite on SQLite and PostgreSQL

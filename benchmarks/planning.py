@@ -6,6 +6,12 @@ unit per day, stop cost 5–50, dispatch cost 200, no truck limits. Times are th
 several repeats of the numerical core on validated arrays; validation of the Python input
 objects is timed separately. Every time is also given as a multiple of ``numpy.sort`` of
 ``n`` floats timed in the same run.
+
+The last table times ``plan_joint`` end to end with the truck's limits set (issue 13): the same
+networks (1 000 and 10 000 sites) on a Mon–Fri truck with three trips a day, a capacity ``W`` and
+a stop limit ``S`` sized so that the load and the stops each need 40 % of the trips the calendar
+offers (``W = D / (0.4 · 3 · 5/7)``, ``S = ⌈Σ 1/⌊U_i⌋ / (0.4 · 3 · 5/7)⌉``; both cuts bind), as a
+ratio to the same network without limits in the same run. Targets: ≤ 2 s and ≤ 20 s.
 """
 
 from __future__ import annotations
@@ -13,6 +19,7 @@ from __future__ import annotations
 import importlib.util
 import math
 import pathlib
+import resource
 import sys
 import time
 import types
@@ -40,6 +47,11 @@ from service.planning.relaxation import relaxation_of  # noqa: E402
 from service.planning.staggering import site_weights, stagger  # noqa: E402
 
 SIZES = (10, 100, 1_000, 10_000, 100_000)
+LIMITED_SIZES = (1_000, 10_000)
+#: Share of the calendar's trips that the load and the stops each need in the limited rows.
+UTILISATION = 0.4
+#: Address space allowed to the benchmark (bytes): a plan that needs more fails with MemoryError, not the machine.
+MEMORY_LIMIT = 8 << 30
 
 
 def instance(n: int, seed: int = 7):
@@ -50,6 +62,16 @@ def instance(n: int, seed: int = 7):
     k = rng.uniform(5, 50, n)
     sites = [SiteInput(f"s{i}", float(d[i]), float(h[i]), float(k[i]), float(d[i] * U[i] / 0.9)) for i in range(n)]
     return sites, TruckInput(200.0)
+
+
+def limited(sites):
+    """The truck of the limits rows: Mon–Fri, three trips a day, ``W`` and ``S`` as in the docstring."""
+    offered = 3 * 5 / 7
+    D = sum(s.demand_per_day for s in sites)
+    W = D / (UTILISATION * offered)
+    whole = [math.floor(s.tank_capacity * s.safe_fill / s.demand_per_day + 1e-9) for s in sites]
+    S = math.ceil(sum(1 / u for u in whole) / (UTILISATION * offered))
+    return TruckInput(200.0, capacity=W, max_stops=S, working_days=(1, 2, 3, 4, 5), trips_per_day=3)
 
 
 def best_time(fn, repeats: int) -> float:
@@ -86,6 +108,37 @@ def slsqp(problem):
     )
     T0 = min(max(res.x[0], 1.0), U.min())
     return float(f(np.concatenate([[T0], np.clip(res.x[1:], T0, U)])))  # objective at the projected feasible point
+
+
+def limits_table() -> None:
+    """plan_joint end to end with the truck's limits set, against the same network without limits."""
+    print()
+    print("| n | limits (W, S, Mon–Fri, 3 trips a day) | no limits | ratio | status | gap | target |")
+    print("|---|---|---|---|---|---|---|")
+    soft, hard = resource.getrlimit(resource.RLIMIT_AS)
+    resource.setrlimit(resource.RLIMIT_AS, (MEMORY_LIMIT, hard))
+
+    def timed(sites, truck):
+        start = time.perf_counter()
+        try:
+            return plan_joint(sites, truck), time.perf_counter() - start
+        except MemoryError:
+            return None, time.perf_counter() - start
+
+    for n in LIMITED_SIZES:
+        sites, plain = instance(n)
+        truck = limited(sites)
+        result, t_limits = timed(sites, truck)
+        _, t_plain = timed(sites, plain)
+        target = 2.0 if n == 1_000 else 20.0
+        plain_cell = f"{t_plain:.2f} s" if _ is not None else f"MemoryError after {t_plain:.1f} s"
+        status = "MemoryError" if result is None else result.status.name.lower()
+        gap = "" if result is None else f"{result.gap * 100:.1f} %"
+        print(
+            f"| {n} (W = {truck.capacity:.0f}, S = {truck.max_stops}) | {t_limits:.2f} s | {plain_cell} | "
+            f"{t_limits / t_plain:.2f}× | {status} | {gap} | ≤ {target:.0f} s |"
+        )
+    resource.setrlimit(resource.RLIMIT_AS, (soft, hard))
 
 
 def main() -> None:
@@ -131,6 +184,8 @@ def main() -> None:
         f"{math.log((last[3] + last[4]) / (first[3] + first[4])) / math.log(100):.2f}, numpy.sort {slope(1):.2f}"
     )
     print(f"LB + PoT at n = 100 000: {(last[3] + last[4]) / last[1]:.1f}× numpy.sort (target ≤ 30×)")
+
+    limits_table()
 
     sites, truck = instance(100_000)
     t_full = best_time(lambda: plan_joint(sites, truck), 1)

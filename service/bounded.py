@@ -208,10 +208,12 @@ def run(fn: Callable[..., Any], *args: Any, cancellable: bool = True) -> Any:
 
 
 def planner_options(planner: Callable[..., Any]) -> dict[str, Any]:
-    """``deadline_seconds`` for a planner that takes it (an anytime search stops itself by then).
+    """``deadline_seconds=ULLAGE_PLAN_SECONDS`` for a planner that takes it, else nothing.
 
-    Today's planner has no such parameter and is stopped by the hard limit alone; once it takes
-    one, the planner's own budget takes over and the hard limit is only the safety net.
+    :func:`service.planning.plan_joint` takes it: its anytime search stops itself by then and
+    returns the best drivable plan found (status ``time_limit``), so the hard limit
+    (``ULLAGE_PLAN_GRACE_SECONDS`` later) is only the safety net. A planner without the parameter
+    (a test's stand-in) is stopped by the hard limit alone.
     """
     try:
         parameters = inspect.signature(planner).parameters

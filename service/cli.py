@@ -61,6 +61,16 @@ def token_create(args: argparse.Namespace) -> int:
     from service.auth import new_token, token_hash  # noqa: PLC0415 - keeps `ullage --help` light
 
     with _session() as session:
+        if args.if_none and session.scalar(
+            select(Token.id).where(Token.role == args.role, Token.revoked_at.is_(None)).limit(1)
+        ):
+            print(
+                f"an active {args.role} token exists already, so none was created (tokens are shown once, "
+                f"when created). Yours: `ullage token list`; another: `ullage token create NAME --role "
+                f"{args.role}`; revoke one: `ullage token revoke NAME`.",
+                file=sys.stderr,
+            )
+            return 0
         if session.scalar(select(Token.id).where(Token.name == args.name)) is not None:
             print(f"a token named {args.name!r} exists; choose another name or revoke it", file=sys.stderr)
             return 1
@@ -170,6 +180,11 @@ def build_parser() -> argparse.ArgumentParser:
     create = token.add_parser("create", help="create a token; prints it once, alone on the last line")
     create.add_argument("name")
     create.add_argument("--role", required=True, choices=("admin", "dispatcher", "viewer"))
+    create.add_argument(
+        "--if-none",
+        action="store_true",
+        help="only when no active token of this role exists (otherwise say how to list, create or revoke one)",
+    )
     create.set_defaults(func=token_create)
     revoke = token.add_parser("revoke", help="revoke a token by name")
     revoke.add_argument("name")

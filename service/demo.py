@@ -27,6 +27,9 @@ def load_demo(session: Session, directory: Path, service_unit: str) -> tuple[int
                 "dispatch_cost": float(row["dispatch_cost"]),
                 "capacity": float(row["capacity"]),
                 "max_stops": int(row["max_stops"]) if row["max_stops"] else None,
+                "working_days": [int(day) for day in row["working_days"].split()],
+                "trips_per_day": int(row["trips_per_day"]),
+                "holiday_region": row["holiday_region"] or None,
             },
         )
     result = import_sites(session, (directory / "sites.csv").read_bytes(), dry_run=False, service_unit=service_unit)

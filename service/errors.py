@@ -21,7 +21,67 @@ from service.persistence.db import rollback_request_session
 from service.planning import PlanningInputError
 
 PROBLEM_JSON = "application/problem+json"
+#: One scheme for every problem ``type``: ``PROBLEM_BASE + kind``. An ``https`` URI, as RFC 9457's
+#: own examples use, under the ``.invalid`` top-level domain that RFC 2606 §2 reserves so that it can
+#: never resolve: the type is an identifier to compare, never a page to fetch (RFC 9457 §3.1.1: clients
+#: "SHOULD NOT automatically dereference" it), and no one else can ever serve a page under that name.
+#: Each type is documented in README.md ("Problem types"), which a test checks against this table.
 PROBLEM_BASE = "https://ullage.invalid/problems/"
+
+#: Every problem kind the service answers with, and what it means.
+PROBLEM_TYPES: dict[str, str] = {
+    "bad-request": "The request cannot be read (a malformed header or query).",
+    "invalid-json": "The body is not JSON the service can read (malformed, nested too deeply, a huge number).",
+    "bad-idempotency-key": "The Idempotency-Key header is not 1–255 visible ASCII characters.",
+    "unauthenticated": "No token, an unknown or revoked token, or a token in the URL (401).",
+    "forbidden": "The token's role may not use this route (403).",
+    "not-found": "Nothing at this path: no such truck, site, plan or route (404).",
+    "method-not-allowed": "The route does not take this method; `Allow` lists those it takes (405).",
+    "not-acceptable": "The service cannot answer in a media type the request accepts (406).",
+    "conflict": "The change conflicts with stored data: a code that exists, or rows that still reference it (409).",
+    "idempotency-in-progress": "A request with this Idempotency-Key is still running; retry after `Retry-After` (409).",
+    "idempotency-key-reused": "This Idempotency-Key was used with another body; use a new key (422).",
+    "no-active-plan": "The truck has no active plan to take trips from (409).",
+    "precondition-failed": "If-Match names an ETag that is no longer current: GET again and retry (412).",
+    "precondition-required": "The change needs If-Match with the ETag of your last read (428).",
+    "bad-etag": "An entity tag in If-Match or If-None-Match is not quoted (400).",
+    "too-large": "The body is larger than the route accepts (413).",
+    "too-many-rows": "A CSV import has more rows than one import takes (413).",
+    "unsupported-media-type": "The body is not of the media type the route takes (415).",
+    "validation": "A field, query parameter or CSV cell is not valid; `errors` points at each (422).",
+    "no-sites": "The truck has no active sites to plan (422).",
+    "too-many-sites": "More sites than one calculation or plan takes (ULLAGE_MAX_PLAN_SITES) (422).",
+    "planning-input": "Parameters the planner cannot plan, e.g. a tank that holds less than a day (422).",
+    "infeasible": "No drivable plan keeps the truck calendar and the tank limits; `needed` says what would help (422).",
+    "rate-limited": "Too many planning requests or heavy reads of this token this minute (429).",
+    "internal": "Something went wrong in the service; nothing was recorded (500).",
+    "database-unavailable": "The database is down or busy; nothing was recorded; retry after `Retry-After` (503).",
+    "not-ready": "Readiness: the database is unreachable or not migrated (503).",
+    "planning-busy": "Every planning process is busy and the queue is full (503).",
+    "planning-time-limit": "The computation was stopped at the planning time limit (503).",
+    "planning-failed": "The planning process failed; retry later (503).",
+    "storage-full": "The database's storage is full; nothing was recorded (507).",
+    "http-error": "Any other HTTP error; `title` is the status phrase.",
+}
+
+#: The kind of an HTTP error raised without one (werkzeug, webargs).
+STATUS_KINDS: dict[int, str] = {
+    400: "bad-request",
+    401: "unauthenticated",
+    403: "forbidden",
+    404: "not-found",
+    405: "method-not-allowed",
+    406: "not-acceptable",
+    409: "conflict",
+    412: "precondition-failed",
+    413: "too-large",
+    415: "unsupported-media-type",
+    422: "validation",
+    428: "precondition-required",
+    429: "rate-limited",
+    500: "internal",
+    503: "database-unavailable",
+}
 log = logging.getLogger("ullage.errors")
 
 
@@ -37,6 +97,7 @@ class Problem(Exception):
         errors: Iterable[Mapping[str, str]] = (),
         headers: Mapping[str, str] | None = None,
         title: str | None = None,
+        extensions: Mapping[str, Any] | None = None,
     ) -> None:
         super().__init__(detail)
         self.status = status
@@ -45,6 +106,8 @@ class Problem(Exception):
         self.errors = list(errors)
         self.headers = dict(headers or {})
         self.title = title
+        #: Extension members of the problem type (RFC 9457 §3.2), e.g. ``needed`` of ``infeasible``.
+        self.extensions = dict(extensions or {})
 
 
 def problem_response(
@@ -55,10 +118,17 @@ def problem_response(
     errors: Iterable[Mapping[str, str]] = (),
     headers: Mapping[str, str] | None = None,
     title: str | None = None,
+    extensions: Mapping[str, Any] | None = None,
 ) -> Response:
-    """Build a problem+json response."""
+    """Build a problem+json response.
+
+    ``kind`` defaults to the status's (:data:`STATUS_KINDS`); ``extensions`` never replace a standard member.
+    """
+    kind = kind or STATUS_KINDS.get(status, "http-error")
+    if kind not in PROBLEM_TYPES:
+        log.error("undocumented problem kind %r", kind)
     body: dict[str, Any] = {
-        "type": PROBLEM_BASE + kind if kind else "about:blank",
+        "type": PROBLEM_BASE + kind,
         "title": title or HTTPStatus(status).phrase,
         "status": status,
         "detail": detail,
@@ -67,6 +137,8 @@ def problem_response(
     errors = list(errors)
     if errors:
         body["errors"] = errors
+    for name, value in (extensions or {}).items():
+        body.setdefault(name, value)
     # Issue 6: the request id goes into problem bodies too (an extension member; clients that do
     # not know it ignore it, RFC 9457 §3.2), besides the X-Request-ID header.
     request_id = g.get("request_id")
@@ -118,8 +190,9 @@ def handle_http_exception(error: HTTPException) -> Response:
     errors = webargs_errors(data["messages"]) if "messages" in data else []
     headers = {k: v for k, v in error.get_headers() if k.lower() != "content-type"}
     headers.update(data.get("headers") or {})
+    kind = None
     if status == 400 and request.is_json:
-        detail = "The request body is not valid JSON."
+        detail, kind = "The request body is not valid JSON.", "invalid-json"
     elif errors:
         listed = "; ".join(f"{e['pointer']}: {e['detail'].rstrip('.')}" for e in errors[:5])
         detail = f"The request is not valid: {listed}."
@@ -127,12 +200,18 @@ def handle_http_exception(error: HTTPException) -> Response:
         detail = data.get("message") or error.description or HTTPStatus(status).phrase
     if status == 401:
         headers.setdefault("WWW-Authenticate", 'Bearer realm="ullage"')
-    return problem_response(status, detail, errors=errors, headers=headers)
+    return problem_response(status, detail, kind=kind, errors=errors, headers=headers)
 
 
 def handle_problem(error: Problem) -> Response:
     return problem_response(
-        error.status, error.detail, kind=error.kind, errors=error.errors, headers=error.headers, title=error.title
+        error.status,
+        error.detail,
+        kind=error.kind,
+        errors=error.errors,
+        headers=error.headers,
+        title=error.title,
+        extensions=error.extensions,
     )
 
 
@@ -182,7 +261,7 @@ def handle_database(error: DBAPIError) -> Response:
 def handle_unexpected(error: Exception) -> Response:
     rollback_request_session()
     log.exception("unhandled error")
-    return problem_response(500, "Something went wrong on our side; nothing was recorded.")
+    return problem_response(500, "Something went wrong on our side; nothing was recorded.", kind="internal")
 
 
 def init_app(app: Flask) -> None:

@@ -8,7 +8,7 @@ Rules (also in the OpenAPI description and README):
 * A claim is recorded in its own short transaction before the work. The work's transaction ends
   by marking the claim done with the response, in the same commit as the plan — so a plan and
   its idempotency record are written together or not at all.
-* Same key, same fingerprint, done → the first response again, with ``Idempotent-Replayed: true``.
+* Same key, same fingerprint, done → the first response again, with ``Ullage-Replayed: true``.
   Same key, different fingerprint → 422. Same key while the first request still runs → 409 with
   ``Retry-After`` (never a second computation); the first retry after it is done gets its response.
 * A live attempt keeps its claim: :class:`Heartbeat` renews the claim's lease every third of
@@ -51,6 +51,8 @@ from service.persistence.db import sqlite_write_lock_held, write_intent
 from service.persistence.models import IdempotencyRecord, utcnow
 
 HEADER = "Idempotency-Key"
+#: Marks a replayed answer. Our own name: a response header only, never read from a request.
+REPLAYED_HEADER = "Ullage-Replayed"
 KEY = re.compile(r"^[\x21-\x7e]{1,255}$")
 #: An RFC 8941 sf-string of visible characters: ``"…"`` with ``\"`` and ``\\`` the only escapes.
 SF_STRING = re.compile(r'^"((?:[\x21\x23-\x5b\x5d-\x7e]|\\["\\])*)"$')
@@ -110,7 +112,7 @@ def _replay(row: IdempotencyRecord) -> Response:
     response = Response(row.response_body, status=row.response_status, mimetype="application/json")
     if row.response_location:
         response.headers["Location"] = row.response_location
-    response.headers["Idempotent-Replayed"] = "true"
+    response.headers[REPLAYED_HEADER] = "true"
     return response
 
 

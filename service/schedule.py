@@ -4,7 +4,9 @@ Flask-free: every function takes a session and the settings. Used by the weekly 
 API and by the status page, so both always show the same numbers.
 
 Day ``k`` of a plan's calendar is ``start_date + k`` days; trips before the start date do not
-exist. Quantities are corrected from the latest reading of each site (service.planning.projection).
+exist. Quantities are corrected from the latest reading of each site (service.planning.projection),
+each to last until that site's next listed delivery (the calendar's gaps differ: a Friday delivery
+on Monday to Friday lasts until Monday), looking past the window for it.
 Stops are listed in the plan's order (site code order).
 
 Current limits always win over the plan's snapshot: the projection gets each site's current
@@ -12,20 +14,32 @@ demand, safe-fill level and safety stock and the truck's current capacity and ``
 site that is now inactive, deleted or on another truck gets no stop. A stop whose quantity a
 changed limit cut carries a ``limits_changed`` notice naming the field and both values; a stop
 dropped for ``max_stops`` and a site taken out are reported the same way at the top level.
+
+The calendar: trips are listed by the core's ``trips_between`` on the plan's own weekly pattern
+(its recorded ``working_days`` and ``trips_per_day``), closed on what closes the truck now
+(``service.working_calendar.window_truck``: its closed dates, its region's holidays, weekdays it
+no longer works). A delivery on a closed date moves to an earlier working day with room; where
+none has room the core's warning becomes a ``calendar`` notice naming the date and the sites.
+Trips are numbered within their date (``trip``, from 1).
 """
 
 from __future__ import annotations
 
+import bisect
 import datetime as dt
+import math
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
+from service import working_calendar
 from service.config import Settings
 from service.persistence import plans as plan_store
+from service.persistence import tanks
 from service.persistence.models import Plan, Site, Truck, utcnow
 from service.planning import trips_between
 from service.planning.projection import (
@@ -39,9 +53,13 @@ from service.planning.projection import (
 )
 
 WEEK = re.compile(r"^([0-9]{4})-W([0-9]{2})$")
+ISO_DATE = re.compile(r"(?<![0-9])([0-9]{4}-[0-9]{2}-[0-9]{2})(?![0-9])")
 #: Readings older than this many days before the window are not replayed (the projection would
 #: only repeat the plan by then); such a site counts as having no recent reading.
 LOOKBACK_DAYS = 400
+#: Days past a site's longest planned gap that the listing looks beyond a window for each site's
+#: next delivery (a run of closed dates moves deliveries earlier and so lengthens a gap).
+NEXT_GAP_MARGIN_DAYS = 31
 
 
 class NoActivePlan(LookupError):
@@ -54,7 +72,7 @@ class NoActivePlan(LookupError):
 
 @dataclass(frozen=True)
 class Notice:
-    kind: str  # run_out_risk | limits_changed | plan_stale | no_recent_reading | no_active_plan
+    kind: str  # run_out_risk | limits_changed | plan_stale | no_recent_reading | calendar | no_active_plan
     message: str
     site: str | None = None
     date: dt.date | None = None
@@ -73,6 +91,7 @@ class PlannedStop:
 @dataclass(frozen=True)
 class DayTrip:
     date: dt.date
+    trip: int  # 1-based within its date
     load: float
     capacity: float
     stops: tuple[PlannedStop, ...]
@@ -89,6 +108,7 @@ class PlanSummary:
     start_date: dt.date
     stale: bool
     changed_sites: tuple[str, ...]
+    status: str  # the joint result's: optimal | feasible | time_limit
 
 
 @dataclass(frozen=True)
@@ -140,7 +160,7 @@ def current_week(settings: Settings) -> str:
 
 def summary(session: Session, plan: Plan, drift: plan_store.Drift | None = None) -> PlanSummary:
     drift = drift or plan_store.drift(session, plan)
-    r = plan.result
+    r = plan_store.stored_result(plan)
     return PlanSummary(
         plan.id,
         r["method"],
@@ -151,6 +171,7 @@ def summary(session: Session, plan: Plan, drift: plan_store.Drift | None = None)
         plan.start_date,
         drift.stale,
         tuple(drift.changed_sites),
+        r["status"],
     )
 
 
@@ -235,6 +256,8 @@ class _Replay:
     #: only their stops can carry a stop-level limits_changed.
     room_changed: frozenset[str]
     capacity_shrank: bool
+    #: The core's warnings about closed dates no move could keep within the limits.
+    calendar_warnings: tuple[str, ...]
 
 
 def _served(plan: Plan, drift: plan_store.Drift) -> dict[str, Site]:
@@ -245,6 +268,28 @@ def _served(plan: Plan, drift: plan_store.Drift) -> dict[str, Site]:
         for code, site in drift.sites.items()
         if code in recorded and site.active and site.truck_id == plan.truck_id
     }
+
+
+def _delivery_days(trips: Sequence[Any]) -> dict[str, list[int]]:
+    """Each site's delivery days (days since the plan's start), in order, from listed trips."""
+    out: dict[str, list[int]] = {}
+    for trip in sorted(trips, key=lambda t: t.day):
+        for stop in trip.stops:
+            days = out.setdefault(stop.code, [])
+            if not days or days[-1] != trip.day:
+                days.append(trip.day)
+    return out
+
+
+def _next_days(days: dict[str, list[int]], day: int, codes: Sequence[str]) -> dict[str, int]:
+    """Days from ``day`` to each site's next listed delivery (rule 2's ``g``); unknown ones left out."""
+    out = {}
+    for code in codes:
+        listed = days.get(code, [])
+        at = bisect.bisect_right(listed, day)
+        if at < len(listed):
+            out[code] = listed[at] - day
+    return out
 
 
 def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt.date, settings: Settings) -> _Replay:
@@ -280,20 +325,25 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
     projection = Projection(tanks, truck.capacity, zone, truck.max_stops)
     planned: list[PlannedTrip] = []
     removed: dict[str, list[dt.date]] = {}
+    warnings: tuple[str, ...] = ()
     if sim_last >= plan.start_date:
-        for trip in trips_between(
-            result,
-            plan_store.truck_input(plan.inputs["truck"]),
-            (sim_first - plan.start_date).days,
-            (sim_last - plan.start_date).days,
-        ):
+        window_truck = working_calendar.window_truck(plan.inputs["truck"], truck, sim_first, sim_last)
+        first_day, last_day = (sim_first - plan.start_date).days, (sim_last - plan.start_date).days
+        window = trips_between(result, window_truck, first_day, last_day)
+        warnings = window.warnings
+        # The deliveries after the window, only to know each site's next one (their warnings are
+        # other windows' business).
+        ahead = max((s.longest_gap_days for s in result.sites), default=0) + NEXT_GAP_MARGIN_DAYS
+        after = trips_between(result, window_truck, last_day + 1, last_day + ahead).trips
+        days = _delivery_days([*window.trips, *after])
+        for trip in window.trips:
             date = plan.start_date + dt.timedelta(days=trip.day)
             for stop in trip.stops:
                 if stop.code not in served:
                     removed.setdefault(stop.code, []).append(date)
             stops = tuple((s.code, s.quantity) for s in trip.stops if s.code in served)
             if stops:
-                planned.append(PlannedTrip(date, stops))
+                planned.append(PlannedTrip(date, stops, _next_days(days, trip.day, [c for c, _ in stops])))
     corrected = projection.correct(planned)
     projection.finish(day_start(last + dt.timedelta(days=1), zone))
     names = {code: (drift.sites[code].name if code in drift.sites else s["name"]) for code, s in recorded.items()}
@@ -312,6 +362,7 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
         settings.quantity_unit,
         frozenset(c.code for c in drift.changes if c.subject == "site" and c.field in ROOM_FIELDS),
         truck.capacity < plan.inputs["truck"]["capacity"],
+        warnings,
     )
 
 
@@ -415,6 +466,29 @@ def _limit_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | N
     return out
 
 
+def _named_sites(message: str, codes: Sequence[str]) -> list[str]:
+    """The site codes a core warning names (the core quotes codes in backticks: `A1`)."""
+    quoted = set(re.findall(r"`([^`]+)`", message))
+    return [code for code in codes if code in quoted]
+
+
+def _calendar_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None) -> list[Notice]:
+    """``calendar`` notices: the core's warnings about closed dates in the window (by the first
+    date each names; one that names none is shown in every window)."""
+    out = []
+    for message in replay.calendar_warnings:
+        match = ISO_DATE.search(message)
+        date = dt.date.fromisoformat(match[1]) if match else None
+        if date is not None and not first <= date <= last:
+            continue
+        sites = _named_sites(message, sorted(replay.recorded))
+        if only is not None and only not in sites:
+            continue
+        site = only if only is not None else (sites[0] if len(sites) == 1 else None)
+        out.append(Notice("calendar", f"Truck {replay.truck.code}: {message}", site, date))
+    return out
+
+
 def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
     out: list[Notice] = []
     earliest: dict[str, dt.date] = {}
@@ -433,6 +507,7 @@ def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = 
     for site, date in sorted(earliest.items(), key=lambda item: (item[1], item[0])):
         out.append(_run_out_notice(site, replay.names[site], date))
     out.extend(_limit_notices(replay, first, last, only))
+    out.extend(_calendar_notices(replay, first, last, only))
     if replay.summary.stale and only is None:
         out.append(_stale_notice(replay.plan, replay.drift.changes, replay.unit))
     for code, is_recent in sorted(replay.recent.items()):
@@ -457,12 +532,13 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
     if plan is None:
         raise NoActivePlan(truck.code)
     replay = _replay(session, plan, truck, first, last, settings)
-    trips = tuple(
-        DayTrip(t.date, t.load, truck.capacity, tuple(_stop(replay, s, t.date) for s in t.stops))
-        for t in replay.trips
-        if first <= t.date <= last
-    )
-    return TripsView(truck.code, replay.summary, first, last, trips, tuple(_notices(replay, first, last)))
+    trips, index = [], {}
+    for t in replay.trips:
+        if first <= t.date <= last:
+            index[t.date] = index.get(t.date, 0) + 1
+            stops = tuple(_stop(replay, s, t.date) for s in t.stops)
+            trips.append(DayTrip(t.date, index[t.date], t.load, truck.capacity, stops))
+    return TripsView(truck.code, replay.summary, first, last, tuple(trips), tuple(_notices(replay, first, last)))
 
 
 def _unplanned_levels(
@@ -550,3 +626,168 @@ def site_levels(session: Session, site: Site, first: dt.date, days: int, setting
     """Projected level at 00:00 of each of ``days`` days from ``first``, and the planned deliveries."""
     truck = session.get(Truck, site.truck_id)
     return truck_levels(session, truck, [site], first, days, settings)[site.code]
+
+
+# ----------------------------------------------------------------------------------------------------
+# The dispatcher's morning: every tank's stock now (lowest first) and one day's load sheet per truck.
+# No delivery is recorded yet, so a tank's stock now is its latest reading falling at its demand.
+
+#: How many days ahead the lowest-first view looks for each site's next planned delivery.
+NEXT_DELIVERY_DAYS = 28
+
+
+def level_state(level: float | None, safety_stock: float) -> str | None:
+    """``empty`` (projected level ≤ 0), ``below safety stock`` (< the safety stock), else ``ok``;
+    ``None`` without a level."""
+    if level is None:
+        return None
+    if level <= TOLERANCE:
+        return "empty"
+    if level < safety_stock - TOLERANCE:
+        return "below safety stock"
+    return "ok"
+
+
+@dataclass(frozen=True)
+class TankStock:
+    """One active site's stock at ``now``: its latest reading falling at ``demand_per_day``
+    (:class:`Projection` of the tank alone, never below 0), the days that stock lasts above the
+    safety stock, ``(level − safety_stock) / demand_per_day`` (negative below it), and to empty,
+    ``level / demand_per_day``; and the next planned delivery from today on (date, quantity)."""
+
+    site: str
+    site_name: str
+    truck: str
+    reading_level: float | None
+    reading_at: dt.datetime | None
+    level: float | None
+    safety_stock: float
+    days_above_safety: float | None
+    days_to_empty: float | None
+    next_delivery: tuple[dt.date, float] | None
+
+    @property
+    def state(self) -> str | None:
+        return level_state(self.level, self.safety_stock)
+
+
+def next_deliveries(
+    session: Session, trucks: Sequence[Truck], first: dt.date, days: int, settings: Settings
+) -> dict[str, tuple[dt.date, float]]:
+    """Each site's first planned stop with something to deliver on ``first … first + days − 1``
+    (date, corrected quantity; a stop whose corrected quantity is 0 is not a delivery)."""
+    out: dict[str, tuple[dt.date, float]] = {}
+    for truck in trucks:
+        try:
+            view = trips_view(session, truck, first, first + dt.timedelta(days=days - 1), settings)
+        except NoActivePlan:
+            continue
+        for trip in view.trips:
+            for stop in trip.stops:
+                if stop.quantity > TOLERANCE:
+                    out.setdefault(stop.site, (trip.date, stop.quantity))
+    return out
+
+
+def tank_stock(
+    site: Site, truck_code: str, reading: tuple[float, dt.datetime] | None, now: dt.datetime, zone: ZoneInfo
+) -> TankStock:
+    """:class:`TankStock` of one site (without its next delivery)."""
+    level = None
+    if reading is not None:
+        tank = Tank(site.code, site.demand_per_day, site.safe_fill * site.tank_capacity, site.safety_stock, 1, *reading)
+        level = Projection([tank], 0.0, zone).level_before(site.code, max(now, reading[1]))
+    days_above = days_empty = None
+    if level is not None:
+        demand = site.demand_per_day
+        days_above = (level - site.safety_stock) / demand if demand > 0 else math.inf
+        days_empty = level / demand if demand > 0 else math.inf
+    return TankStock(
+        site.code,
+        site.name,
+        truck_code,
+        reading[0] if reading else None,
+        reading[1] if reading else None,
+        level,
+        site.safety_stock,
+        days_above,
+        days_empty,
+        None,
+    )
+
+
+def stocks(session: Session, now: dt.datetime, settings: Settings) -> list[TankStock]:
+    """Every active site's :class:`TankStock` at ``now`` (no next delivery), in truck and site code order."""
+    pairs = tanks.active_sites(session)
+    readings = plan_store.latest_readings(session, [site.id for site, _ in pairs])
+    zone = ZoneInfo(settings.timezone)
+    out = []
+    for site, truck in pairs:
+        reading = readings.get(site.id)
+        out.append(tank_stock(site, truck.code, (reading.level, reading.measured_at) if reading else None, now, zone))
+    return out
+
+
+def lowest_first(items: Sequence[TankStock]) -> list[TankStock]:
+    """Fewest days above the safety stock first (then fewest to empty, then code); tanks without a
+    reading last, in code order."""
+
+    def key(stock: TankStock) -> tuple[Any, ...]:
+        if stock.level is None:
+            return (1, 0.0, 0.0, stock.site)
+        return (0, stock.days_above_safety, stock.days_to_empty, stock.site)
+
+    return sorted(items, key=key)
+
+
+@dataclass(frozen=True)
+class SheetStop:
+    """A stop on a load sheet: the planned stop, where the site is, and the room in its tank
+    before the delivery (``safe_fill × tank_capacity − projected_level_before``; ``None`` without a
+    projected level)."""
+
+    stop: PlannedStop
+    latitude: float | None
+    longitude: float | None
+    safe_fill_level: float
+    room: float | None
+
+
+@dataclass(frozen=True)
+class SheetTrip:
+    date: dt.date
+    trip: int  # 1-based within its date (a truck may run several trips a day)
+    load: float
+    capacity: float
+    stops: tuple[SheetStop, ...]
+
+
+@dataclass(frozen=True)
+class TruckSheet:
+    """One truck's trips on one day, and the notices of its plan that concern them."""
+
+    truck_code: str
+    truck_name: str
+    plan_id: int | None
+    trips: tuple[SheetTrip, ...]
+    notices: tuple[Notice, ...]
+
+
+def load_sheet(session: Session, truck: Truck, sites: Sequence[Site], day: dt.date, settings: Settings) -> TruckSheet:
+    """The truck's trips on ``day`` (:func:`trips_view`) with each stop's coordinates and room;
+    ``NoActivePlan`` without an active plan."""
+    view = trips_view(session, truck, day, day, settings)
+    by_code = {site.code: site for site in sites}
+    trips = []
+    for trip in view.trips:
+        stops = []
+        for stop in trip.stops:
+            site = by_code[stop.site]
+            safe_fill_level = site.safe_fill * site.tank_capacity
+            room = None if stop.projected_level_before is None else safe_fill_level - stop.projected_level_before
+            stops.append(SheetStop(stop, site.latitude, site.longitude, safe_fill_level, room))
+        trips.append(SheetTrip(trip.date, trip.trip, trip.load, trip.capacity, tuple(stops)))
+    codes = {stop.site for trip in view.trips for stop in trip.stops}
+    notices = tuple(n for n in view.notices if n.site is None or n.site in codes)
+    plan_id = view.plan.id if view.plan is not None else None
+    return TruckSheet(truck.code, truck.name, plan_id, tuple(trips), notices)

@@ -13,12 +13,33 @@ JOINT_FIELDS = {
     "lower_bound_per_day",
     "gap",
     "peak_load",
-    "extra_trips",
     "trips_truncated",
     "sites",
     "trips",
     "warnings",
+    # issue 13: the working calendar
+    "start_date",
+    "status",
+    "needed",
 }
+
+#: Fields of each site of a joint result (issue 4 §1; issue 13 added the pattern: period, days, longest gap).
+JOINT_SITE_FIELDS = {
+    "code",
+    "cycle_days",
+    "offset_days",
+    "quantity",
+    "cost_per_day",
+    "binding",
+    "period_days",
+    "delivery_days",
+    "longest_gap_days",
+}
+
+#: A truck calendar that constrains nothing (issue 13): every day, up to 24 trips a day, no closed
+#: dates. For tests about something else than the calendar; the API's defaults are Monday to
+#: Friday with one trip a day.
+UNCONSTRAINED_CALENDAR = {"working_days": [1, 2, 3, 4, 5, 6, 7], "trips_per_day": 24}
 
 #: (method, rule) → least role, per issues 2, 4, 5 and 6.
 ROUTE_ROLES = {
@@ -51,6 +72,8 @@ ROUTE_ROLES = {
     # The status page signs people in with its own cookie session (issue 5); bearer roles do not apply.
     ("GET", "/status"): SESSION,
     ("GET", "/status/sites/<code>"): SESSION,
+    ("GET", "/status/lowest"): SESSION,
+    ("GET", "/status/load-sheet"): SESSION,
     ("GET", "/status/sign-in"): SESSION,
     ("POST", "/status/sign-in"): SESSION,
     ("GET", "/status/sign-out"): SESSION,

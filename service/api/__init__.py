@@ -8,6 +8,7 @@ from flask import Flask
 from flask_smorest import Api as SmorestApi
 from flask_smorest.utils import prepare_response
 
+from service.api import http_headers
 from service.api.fields import IdConverter
 from service.api.schemas.problem import ProblemSchema
 from service.errors import PROBLEM_JSON, handle_http_exception
@@ -32,7 +33,12 @@ class Api(SmorestApi):
             else:
                 prepare_response(response, self.spec, self.DEFAULT_RESPONSE_CONTENT_TYPE)
             self.spec.components.response(status.name, response, lazy=True)
-        response = {"description": "Error (RFC 9457 problem details)", "schema": self.ERROR_SCHEMA}
+        response = {
+            "description": "Error (RFC 9457 problem details); `type` names its kind (README, \"Problem types\")",
+            "schema": self.ERROR_SCHEMA,
+            # Any route may meet a database outage (503) or full storage (507), both with Retry-After.
+            "headers": {"Retry-After": http_headers.RETRY_AFTER},
+        }
         prepare_response(response, self.spec, PROBLEM_JSON)
         self.spec.components.response("DEFAULT_ERROR", response, lazy=True)
 
@@ -72,7 +78,7 @@ All quantities are in the service's one quantity unit and all money in its one c
 **Idempotency** (`POST /api/v1/trucks/{code}/plans`): send `Idempotency-Key: "<1-255 visible
 characters>"` (an sf-string per the IETF httpapi draft; bare keys are accepted too). Keys are scoped
 to the calling token and kept for 24 hours. Repeating a key with the same body returns the first
-response (with `Idempotent-Replayed: true`) and records nothing new; the same key with a different
+response (with the response header `Ullage-Replayed: true`) and records nothing new; the same key with a different
 body is refused with 422; a repeat while the first request is still running gets 409.
 
 **Caution.** Ullage is a planning aid. Safe fill levels, overfill prevention and the handling of

@@ -87,6 +87,32 @@ def _invalid_json(detail: str) -> Problem:
 class Blueprint(SmorestBlueprint):
     ARGUMENTS_PARSER = StrictParser()
 
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        self._prepare_doc_cbks.append(self._prepare_header_parameters_doc)
+
+    @staticmethod
+    def header_parameters(*parameters: dict[str, Any]) -> Any:
+        """Declare request headers (OpenAPI parameter objects ``in: header``) of a view.
+
+        They are added to the parameters flask-smorest documents from ``@blp.arguments``;
+        ``@blp.doc(parameters=...)`` would replace that list instead.
+        """
+
+        def mark(view: Any) -> Any:
+            view._apidoc = {**getattr(view, "_apidoc", {})}
+            view._apidoc["header_parameters"] = [*view._apidoc.get("header_parameters", []), *parameters]
+            return view
+
+        return mark
+
+    @staticmethod
+    def _prepare_header_parameters_doc(doc: dict[str, Any], doc_info: dict[str, Any], **_kwargs: Any) -> dict:
+        extra = doc_info.get("header_parameters")
+        if extra:
+            doc.setdefault("parameters", []).extend(dict(p) for p in extra)
+        return doc
+
     def arguments(self, schema: Any, *args: Any, **kwargs: Any) -> Any:
         """As flask-smorest's, but a schema class is instantiated once, here.
 

@@ -5,10 +5,11 @@ bounded work (service.bounded): a size limit, a per-token limit, and the computa
 process pool under the planning budget. The single-site cycle is a closed formula and runs here.
 """
 
-from flask import Response
+from flask import Response, current_app
 from flask.views import MethodView
 
-from service import bounded
+from service import bounded, schedule, working_calendar
+from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.schemas.calculations import (
     CycleRequestSchema,
@@ -51,7 +52,11 @@ class CycleCalculation(MethodView):
     @blp.arguments(CycleRequestSchema)
     @blp.response(200, CycleResultSchema)
     def post(self, body):
-        """Cheapest whole-day delivery cycle of one site alone with the truck"""
+        """Cheapest whole-day delivery cycle of one site alone with the truck
+
+        Nothing is stored. Returns the continuous optimum, the best whole-day cycle, its quantity and
+        cost per day, and which limit binds (the tank's safe fill or the truck's capacity).
+        """
         site = SiteInput(code=SINGLE_CODE, **{k: body[k] for k in SITE_KEYS})
         truck = TruckInput(dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"])
         try:
@@ -69,15 +74,36 @@ class JointCalculation(MethodView):
     @blp.arguments(JointRequestSchema)
     @blp.response(200, JointResultSchema)
     @blp.alt_response(422, description="Invalid body, or more sites than ULLAGE_MAX_PLAN_SITES", **PROBLEM)
-    @blp.alt_response(429, description="Too many planning requests of this token; see Retry-After", **PROBLEM)
-    @blp.alt_response(503, description="Planning busy, or stopped at the planning time limit", **PROBLEM)
+    @blp.alt_response(
+        429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM
+    )
+    @blp.alt_response(
+        503, description="Planning busy, or stopped at the planning time limit", headers=hh.RETRY, **PROBLEM
+    )
     def post(self, body):
-        """Joint schedule of the sites of one truck, with the lower bound and the gap"""
+        """Joint schedule of the sites of one truck on its working calendar, with the lower bound and the gap
+
+        Nothing is stored. Computed in a planning process within the time limit; the answer holds
+        each site's cycle and offset, the trips of one repeat, the cost per day and a lower bound on
+        the cost of any schedule (`gap` is how far above it the schedule may be). Every trip is on a
+        working day, never on a closed date or a holiday of `holiday_region`, at most `trips_per_day`
+        a day. No drivable plan: 200 with status infeasible, success false, and `needed`.
+        """
         sites = [SiteInput(code=s["code"], **{k: s[k] for k in SITE_KEYS}) for s in body["sites"]]
-        truck = TruckInput(
-            dispatch_cost=body["dispatch_cost"], capacity=body["truck_capacity"], max_stops=body["max_stops"]
+        start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
+        truck = working_calendar.plan_truck(
+            body["dispatch_cost"],
+            body["truck_capacity"],
+            body["max_stops"],
+            working_calendar.Calendar.of(body),
+            start,
         )
-        options = {"method": body["method"], "base_days": body["base_days"], **bounded.planner_options(plan_joint)}
+        options = {
+            "method": body["method"],
+            "base_days": body["base_days"],
+            "start_date": start,
+            **bounded.planner_options(plan_joint),
+        }
         try:
             # In a pool child, encoded there: the body of 100 000 listed stops is megabytes.
             result = bounded.run(bounded.joint_json, plan_joint, sites, truck, options)

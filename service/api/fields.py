@@ -51,6 +51,31 @@ WEEK_PATTERN = r"^(19[7-9][0-9]|20[0-9]{2}|21[0-9]{2}|2200)-W(0[1-9]|[1-4][0-9]|
 WEEK_RANGE = f"from {FIRST_DATE.year}-W01 to {LAST_DATE.year}-W52"
 
 
+def readable(number: float) -> str:
+    """A limit as people write it: ``0.000001``, ``0.01``, ``1``, ``1 000 000 000 000`` (not ``1e-06``
+    or ``1000000000000.0``); thousands are grouped with spaces, as README.md writes them."""
+    text = f"{number:.12f}".rstrip("0").rstrip(".") if number != int(number) else str(int(number))
+    whole, dot, fraction = text.partition(".")
+    sign = "-" if whole.startswith("-") else ""
+    digits = whole.lstrip("-")
+    grouped = f"{int(digits):,}".replace(",", " ") if len(digits) > 4 else digits
+    return sign + grouped + dot + fraction
+
+
+class Range(ma.validate.Range):
+    """marshmallow's Range, with its limits written by :func:`readable` in the message."""
+
+    # Formatted twice: marshmallow fills in the operator words first (none here), then the limits.
+    message_min = "Must be {{min}} or more."
+    message_max = "Must be {{max}} or less."
+    message_all = "Must be between {{min}} and {{max}}."
+
+    def _format_error(self, value: Any, message: str) -> str:
+        low = None if self.min is None else readable(self.min)
+        high = None if self.max is None else readable(self.max)
+        return (self.error or message).format(input=value, min=low, max=high)
+
+
 def unstorable(text: str) -> str | None:
     """The first character of ``text`` that cannot be stored, described for a person; ``None`` if none."""
     match = UNSTORABLE.search(text)
@@ -170,7 +195,12 @@ class BoundedAwareDateTime(ma.fields.AwareDateTime):
     (``0001-01-01T00:00:00+14:00``).
     """
 
-    default_error_messages = {"range": f"Use a date {DATE_RANGE}."}
+    default_error_messages = {
+        "range": f"Use a date {DATE_RANGE}.",
+        "invalid": "Not a valid date and time: write ISO 8601 with a UTC offset, e.g. 2026-12-07T06:30:00+00:00.",
+        "invalid_awareness": "The time has no UTC offset: add a UTC offset such as +00:00 "
+        "(e.g. 2026-12-07T06:30:00+00:00).",
+    }
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> dt.datetime:
         result = super()._deserialize(value, attr, data, **kwargs)

@@ -10,6 +10,7 @@ from flask import request, url_for
 from sqlalchemy import Select
 from sqlalchemy.orm import Session
 
+from service.api.fields import Range
 from service.api.schemas.common import StrictSchema
 
 MAX_LIMIT = 200
@@ -20,7 +21,7 @@ class PageArgsSchema(StrictSchema):
     """``limit`` (1–200, default 50) and ``after`` (the last key of the previous page)."""
 
     limit = ma.fields.Integer(
-        load_default=DEFAULT_LIMIT, validate=ma.validate.Range(min=1, max=MAX_LIMIT), strict=False
+        load_default=DEFAULT_LIMIT, validate=Range(min=1, max=MAX_LIMIT), strict=False
     )
     after = ma.fields.String(validate=ma.validate.Length(min=1, max=80))
 

@@ -10,8 +10,9 @@ from flask.views import MethodView
 from sqlalchemy import select
 
 from service import bounded, idempotency, schedule
+from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
-from service.api.etags import content_etag, not_modified
+from service.api.etags import content_etag, not_modified, require_if_match
 from service.api.pagination import page
 from service.api.schemas.plans import (
     PlanListSchema,
@@ -56,11 +57,13 @@ def _plan(plan_id: int) -> Plan:
 def plan_json(plan: Plan, truck_code: str, *, heavy: bool = True) -> dict[str, Any]:
     """A plan: its own fields plus every field of the joint result, at the top level."""
     stale, changed = plan_store.staleness(get_session(), plan)
-    result = {k: v for k, v in plan.result.items() if k not in ("status", "success", "message")}
+    stored = plan_store.stored_result(plan)
+    result = {k: v for k, v in stored.items() if k not in ("status", "success", "message")}
     body = {
         "id": plan.id,
         "truck": truck_code,
         "status": plan.status,
+        "planning_status": stored["status"],
         "stale": stale,
         "changed_sites": changed,
         "start_date": plan.start_date.isoformat(),
@@ -90,23 +93,34 @@ def _snapshot(session, code: str, *, for_update: bool = False) -> tuple[Truck, l
     return truck, sites, plan_store.snapshot(truck, sites)
 
 
-def _planned(inputs: dict[str, Any], body: dict[str, Any]) -> dict[str, Any]:
-    """The joint result for a snapshot, computed in the pool (service.bounded)."""
+def _planned(inputs: dict[str, Any], body: dict[str, Any], start: dt.date) -> dict[str, Any]:
+    """The joint result for a snapshot from ``start`` on its truck's calendar, computed in the pool
+    (service.bounded). An infeasible result is not recorded: 422 with ``needed``."""
     bounded.check_sites(len(inputs["sites"]), "#")
-    options = {"method": body["method"], "base_days": body["base_days"], **bounded.planner_options(plan_joint)}
+    options = {
+        "method": body["method"],
+        "base_days": body["base_days"],
+        "start_date": start,
+        **bounded.planner_options(plan_joint),
+    }
     try:
         result = bounded.run(
             bounded.joint_dict,
             plan_joint,
             plan_store.site_inputs(inputs["sites"]),
-            plan_store.truck_input(inputs["truck"]),
+            plan_store.truck_input(inputs["truck"], start),
             options,
             cancellable=request.headers.get(idempotency.HEADER) is None,
         )
     except PlanningInputError as exc:
         raise Problem(422, f"The stored parameters cannot be planned: {exc}", kind="planning-input") from exc
     if not result["success"]:
-        raise Problem(422, f"No plan: {result['message']}", kind="infeasible")
+        raise Problem(
+            422,
+            f"No drivable plan, nothing was recorded: {result['message']}",
+            kind="infeasible",
+            extensions={"needed": result.get("needed")},
+        )
     return result
 
 
@@ -115,14 +129,14 @@ def _record(code: str, body: dict[str, Any]) -> Response:
     # (on SQLite the write transaction would hold the database's one write lock that long). The
     # truck and its sites are then locked and read again: a plan records exactly the versions it
     # was computed from, and when they changed meanwhile it is computed again under the lock.
+    start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
     with read_session() as reading:
         _, _, inputs = _snapshot(reading, code)
-    result = _planned(inputs, body)
+    result = _planned(inputs, body, start)
     session = get_session()
     truck, sites, locked = _snapshot(session, code, for_update=True)
     if locked != inputs:
-        inputs, result = locked, _planned(locked, body)
-    start = body["start_date"] or schedule.today(current_app.config["ULLAGE_SETTINGS"])
+        inputs, result = locked, _planned(locked, body, start)
     plan = plan_store.add_plan(
         session,
         truck,
@@ -140,29 +154,40 @@ def _record(code: str, body: dict[str, Any]) -> Response:
 class TruckPlans(MethodView):
     @allow("dispatcher")
     @blp.arguments(PlanRequestSchema)
-    @blp.response(201, PlanSchema)
-    @blp.alt_response(409, description="A request with the same Idempotency-Key is still running", **PROBLEM)
+    @blp.response(201, PlanSchema, headers=hh.PLAN_CREATED)
+    @blp.alt_response(
+        409, description="A request with the same Idempotency-Key is still running", headers=hh.RETRY, **PROBLEM
+    )
     @blp.alt_response(
         422,
         description="Invalid body, no plannable sites, more sites than ULLAGE_MAX_PLAN_SITES, "
-        "or Idempotency-Key reused with another body",
+        "Idempotency-Key reused with another body, or no drivable plan on the truck's calendar "
+        "(type .../infeasible: the detail names the binding limit or sites, `needed` says what would help)",
         **PROBLEM,
     )
-    @blp.alt_response(429, description="Too many planning requests of this token; see Retry-After", **PROBLEM)
-    @blp.alt_response(503, description="Planning busy, or stopped at the planning time limit", **PROBLEM)
-    @blp.doc(
-        parameters=[
-            {
-                "in": "header",
-                "name": "Idempotency-Key",
-                "required": False,
-                "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
-                "description": "Optional. Same key + same body → the first response; kept 24 h per token.",
-            }
-        ]
+    @blp.alt_response(429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM)
+    @blp.alt_response(
+        503, description="Planning busy, or stopped at the planning time limit", headers=hh.RETRY, **PROBLEM
+    )
+    @blp.header_parameters(
+        {
+            "in": "header",
+            "name": idempotency.HEADER,
+            "required": False,
+            "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
+            "description": "Optional. Same key + same body → the first response again, with "
+            f"`{idempotency.REPLAYED_HEADER}: true`; kept 24 h per token.",
+        }
     )
     def post(self, body, code):
-        """Compute and record a plan from the truck's active sites (honours Idempotency-Key)"""
+        """Compute and record a plan from the truck's active sites on its calendar (honours Idempotency-Key)
+
+        Dispatcher or admin. The plan records the exact versions of the truck (with its calendar) and
+        sites it was computed from, and starts as `proposed`; activate it to make the weekly trips
+        follow it. No drivable plan on the truck's calendar records nothing: 422 of type `infeasible`
+        with `needed`. Send an Idempotency-Key to retry safely: a repeat returns the first answer
+        (marked with `Ullage-Replayed: true`) and records nothing.
+        """
         key = idempotency.parse_key(request.headers.get(idempotency.HEADER))
         claim = heartbeat = None
         if key is not None:
@@ -188,9 +213,13 @@ class TruckPlans(MethodView):
 
     @allow("viewer")
     @blp.arguments(PlanQueryArgsSchema, location="query")
-    @blp.response(200, PlanListSchema)
+    @blp.response(200, PlanListSchema, headers=hh.PAGED)
     def get(self, args, code):
-        """History of the truck's plans, newest first (items omit trips and inputs)"""
+        """History of the truck's plans, newest first (items omit trips and inputs)
+
+        Paged by plan id, newest first; the `Link` header names the next page. GET a plan for its
+        trips and inputs.
+        """
         truck = truck_or_404(code)
         rows, headers = page(
             get_session(), select(Plan).where(Plan.truck_id == truck.id), Plan.id, args, descending=True
@@ -201,25 +230,47 @@ class TruckPlans(MethodView):
 @blp.route("/plans/<id:plan_id>")
 class PlanById(MethodView):
     @allow("viewer")
-    @blp.response(200, PlanSchema)
+    @blp.response(200, PlanSchema, headers=hh.TAGGED)
+    @blp.alt_response(304, description="Not modified: the If-None-Match tag is current", headers=hh.TAGGED)
+    @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, plan_id):
-        """A recorded plan, exactly as recommended (plus its current status and staleness)"""
+        """A recorded plan, exactly as recommended (plus its current status and staleness)
+
+        The `ETag` changes when the plan's status or staleness does; send it in If-Match when
+        activating to activate exactly the plan you read.
+        """
         plan = _plan(plan_id)
         truck = get_session().get(Truck, plan.truck_id)
-        return _json_response(plan_json(plan, truck.code))
+        body = json.dumps(plan_json(plan, truck.code)).encode()
+        etag = content_etag(body)
+        return not_modified(etag) or Response(body, mimetype="application/json", headers={"ETag": etag})
 
 
 @blp.route("/plans/<id:plan_id>/activate")
 class PlanActivation(MethodView):
     @allow("dispatcher")
-    @blp.response(200, PlanSchema)
+    @blp.response(200, PlanSchema, headers=hh.TAGGED)
+    @blp.alt_response(
+        412, description="If-Match names a representation of the plan that is no longer current", **PROBLEM
+    )
+    @blp.header_parameters(hh.IF_MATCH_OPTIONAL)
     def post(self, plan_id):
-        """Make the plan its truck's one active plan (the previous one becomes superseded)"""
+        """Make the plan its truck's one active plan (the previous one becomes superseded)
+
+        Dispatcher or admin. With If-Match (the `ETag` of your GET of the plan) the plan is activated
+        only if it is still as you read it (412 otherwise: read it again). Answers with the plan and
+        its new `ETag`.
+        """
         session = get_session()
-        plan = plan_store.activate(session, _plan(plan_id))
+        plan = _plan(plan_id)
+        if request.headers.get("If-Match") is not None:
+            truck = session.get(Truck, plan.truck_id)
+            require_if_match(content_etag(json.dumps(plan_json(plan, truck.code)).encode()))
+        plan = plan_store.activate(session, plan)
         session.commit()
         truck = session.get(Truck, plan.truck_id)
-        return _json_response(plan_json(plan, truck.code))
+        body = json.dumps(plan_json(plan, truck.code)).encode()
+        return Response(body, mimetype="application/json", headers={"ETag": content_etag(body)})
 
 
 def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
@@ -234,8 +285,9 @@ def _window(args: dict[str, Any]) -> tuple[dt.date, dt.date]:
         try:
             return schedule.iso_week(args["week"])
         except ValueError as exc:
+            detail = f"{str(exc).rstrip('.')}: give a week that exists, in the form 2026-W50."
             raise Problem(
-                422, str(exc), kind="validation", errors=[{"pointer": "#/query/week", "detail": str(exc)}]
+                422, detail, kind="validation", errors=[{"pointer": "#/query/week", "detail": detail}]
             ) from exc
     if "from_" not in args or "to" not in args:
         raise Problem(
@@ -278,6 +330,7 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
         "trips": [
             {
                 "date": t.date.isoformat(),
+                "trip": t.trip,
                 "load": t.load,
                 "stops": [
                     {
@@ -300,18 +353,23 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
 class TruckTrips(MethodView):
     @allow("viewer")
     @blp.arguments(TripsQueryArgsSchema, location="query")
-    @blp.response(200, TripsSchema)
-    @blp.alt_response(304, description="Not modified (If-None-Match)")
+    @blp.response(200, TripsSchema, headers=hh.TAGGED)
+    @blp.alt_response(304, description="Not modified: the If-None-Match tag is current", headers=hh.TAGGED)
     @blp.alt_response(409, description="The truck has no active plan", **PROBLEM)
     @blp.alt_response(
         422, description="Invalid window, or longer than ULLAGE_MAX_TRIPS_DAYS (default 92 days)", **PROBLEM
     )
-    @blp.alt_response(429, description="Too many long windows (heavy reads) of this token; see Retry-After", **PROBLEM)
-    @blp.alt_response(503, description="A long window found the planning processes busy", **PROBLEM)
+    @blp.alt_response(
+        429, description="Too many long windows (heavy reads) of this token", headers=hh.RETRY, **PROBLEM
+    )
+    @blp.alt_response(503, description="A long window found the planning processes busy", headers=hh.RETRY, **PROBLEM)
+    @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, args, code):
         """The active plan's trips for an ISO week or a date range, quantities corrected by readings
 
-        Windows longer than ULLAGE_LONG_TRIPS_DAYS (default 35) are heavy reads: computed in the
+        The weekly call of dispatch software. Each stop has the plan's `planned_quantity` and the
+        `quantity` to deliver, corrected by the site's latest reading; `warnings` say what to look at.
+        Send the `ETag` back in If-None-Match to get 304 while nothing changed. Windows longer than ULLAGE_LONG_TRIPS_DAYS (default 35) are heavy reads: computed in the
         planning processes and counted against the token's heavy-read limit (cached answers are free).
         """
         first, last = _window(args)

@@ -6,6 +6,7 @@ from flask import url_for
 from flask.views import MethodView
 from sqlalchemy import select
 
+from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.pagination import page
 from service.api.schemas.plans import IdPageArgsSchema, ReadingListSchema, ReadingRequestSchema, ReadingSchema
@@ -37,9 +38,13 @@ def dump(reading: Reading, code: str) -> dict:
 class SiteReadings(MethodView):
     @allow("dispatcher")
     @blp.arguments(ReadingRequestSchema)
-    @blp.response(201, ReadingSchema)
+    @blp.response(201, ReadingSchema, headers={"Location": hh.LOCATION})
     def post(self, body, code):
-        """Record a tank reading (0 ≤ level ≤ tank_capacity; measured_at with offset, not in the future)"""
+        """Record a tank reading (0 ≤ level ≤ tank_capacity; measured_at with offset, not in the future)
+
+        Dispatcher or admin. `level` is in the service unit; `measured_at` needs its UTC offset. The
+        trips answer projects each site's latest reading forward; a recorded plan never changes.
+        """
         session = get_session()
         site = site_or_404(code)
         if body["level"] > site.tank_capacity:
@@ -62,9 +67,12 @@ class SiteReadings(MethodView):
 
     @allow("viewer")
     @blp.arguments(IdPageArgsSchema, location="query")
-    @blp.response(200, ReadingListSchema)
+    @blp.response(200, ReadingListSchema, headers=hh.PAGED)
     def get(self, args, code):
-        """Readings of a site, newest first"""
+        """Readings of a site, newest first
+
+        Newest recorded first, at most `limit` per page; the `Link` header names the next page.
+        """
         site = site_or_404(code)
         rows, headers = page(
             get_session(),

@@ -21,7 +21,9 @@ class SettingsSchema(ma.Schema):
     )
     max_trips_days = ma.fields.Integer(metadata={"description": "Longest trips window (ULLAGE_MAX_TRIPS_DAYS)"})
     planning_seconds = ma.fields.Float(metadata={"description": "Planning time budget (ULLAGE_PLAN_SECONDS)"})
-    idempotency_key_hours = ma.fields.Integer()
+    idempotency_key_hours = ma.fields.Integer(
+        metadata={"description": "How long an Idempotency-Key and its stored answer are kept"}
+    )
 
 
 @blp.route("")
@@ -29,7 +31,11 @@ class Settings(MethodView):
     @allow("viewer")
     @blp.response(200, SettingsSchema)
     def get(self):
-        """Units, currency and time zone"""
+        """Units, currency and time zone
+
+        The one quantity unit and currency every quantity and amount of the API is in, the time zone
+        that decides delivery days, and the service's limits.
+        """
         settings = current_app.config["ULLAGE_SETTINGS"]
         return {
             "quantity_unit": settings.quantity_unit,

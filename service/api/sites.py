@@ -5,6 +5,7 @@ from flask.views import MethodView
 from marshmallow import ValidationError
 from sqlalchemy import select
 
+from service.api import http_headers as hh
 from service.api import sites_csv, usable_stock
 from service.api.blueprint import Blueprint, accepts_body
 from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
@@ -76,9 +77,13 @@ def dump(site: Site, truck_code: str) -> dict:
 class Sites(MethodView):
     @allow("viewer")
     @blp.arguments(SiteQueryArgsSchema, location="query")
-    @blp.response(200, SiteListSchema)
+    @blp.response(200, SiteListSchema, headers=hh.PAGED)
     def get(self, args):
-        """List sites (filter by truck; keyset pages by code)"""
+        """List sites (filter by truck; keyset pages by code)
+
+        At most `limit` sites (1–200, default 50) ordered by code, all or those `truck` serves; while
+        more remain, the `Link` header names the next page.
+        """
         session = get_session()
         statement = select(Site)
         if "truck" in args:
@@ -89,10 +94,15 @@ class Sites(MethodView):
 
     @allow("admin")
     @blp.arguments(SiteSchema)
-    @blp.response(201, SiteSchema)
+    @blp.response(201, SiteSchema, headers=hh.CREATED)
     @blp.alt_response(409, description="A site with this code exists", **PROBLEM)
     def post(self, data):
-        """Create a site"""
+        """Create a site
+
+        Admin only. The site's usable stock (`tank_capacity × safe_fill − safety_stock`, capped by its
+        truck's capacity) must last at least one day of `demand_per_day` (422 otherwise). Answers 201
+        with the site, its `Location` and its `ETag`.
+        """
         session = get_session()
         truck = truck_for(data["truck"])
         if session.scalar(select(Site.id).where(Site.code == data["code"])) is not None:
@@ -106,22 +116,31 @@ class Sites(MethodView):
 @blp.route("/<string:code>")
 class SiteByCode(MethodView):
     @allow("viewer")
-    @blp.response(200, SiteSchema)
-    @blp.alt_response(304, description="Not modified")
+    @blp.response(200, SiteSchema, headers=hh.TAGGED)
+    @blp.alt_response(304, description="Not modified: the If-None-Match tag is current", headers=hh.TAGGED)
+    @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, code):
-        """Read a site (strong ETag)"""
+        """Read a site (strong ETag)
+
+        The `ETag` changes with every change of the site (its `version`); send it in If-Match to
+        change or delete the site, or in If-None-Match to get 304 while nothing changed.
+        """
         site = site_or_404(code)
         truck_code = repo.truck_codes(get_session(), [site.truck_id])[site.truck_id]
         return not_modified(etag(site)) or (dump(site, truck_code), {"ETag": etag(site)})
 
     @allow("admin")
     @blp.arguments(SitePatchSchema(partial=True))
-    @blp.response(200, SiteSchema)
-    @blp.alt_response(412, description="ETag does not match", **PROBLEM)
+    @blp.response(200, SiteSchema, headers=hh.TAGGED)
+    @blp.alt_response(412, description="ETag does not match; the current one is sent", headers=hh.TAGGED, **PROBLEM)
     @blp.alt_response(428, description="If-Match missing", **PROBLEM)
-    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    @blp.header_parameters(IF_MATCH_PARAMETER)
     def patch(self, data, code):
-        """Change a site (needs If-Match; every change bumps version)"""
+        """Change a site (needs If-Match; every change bumps version)
+
+        Admin only. Send only the fields to change; `active: false` takes the site out of future plans.
+        Answers with the new version and `ETag`.
+        """
         session = get_session()
         truck = truck_to_check(code, data) if usable_stock.RULE_FIELDS & data.keys() else None
         site = site_or_404(code, for_update=True)
@@ -150,9 +169,13 @@ class SiteByCode(MethodView):
     @blp.alt_response(409, description="Recorded plans reference the site", **PROBLEM)
     @blp.alt_response(412, description="ETag does not match", **PROBLEM)
     @blp.alt_response(428, description="If-Match missing", **PROBLEM)
-    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    @blp.header_parameters(IF_MATCH_PARAMETER)
     def delete(self, code):
-        """Delete a site that no recorded plan references (otherwise PATCH active=false)"""
+        """Delete a site that no recorded plan references (otherwise PATCH active=false)
+
+        Admin only, with If-Match. The site's tank readings go with it. While recorded plans
+        reference the site the answer is 409.
+        """
         session = get_session()
         site = site_or_404(code, for_update=True)
         require_if_match(etag(site))
@@ -173,9 +196,20 @@ class SiteImport(MethodView):
     @accepts_body("text/csv")
     @blp.arguments(ImportArgsSchema, location="query")
     @blp.response(200, ImportResultSchema)
-    @blp.doc(requestBody={"required": True, "content": {"text/csv": {"schema": {"type": "string"}}}})
+    @blp.doc(
+        requestBody={
+            "required": True,
+            "description": sites_csv.FORMAT,
+            "content": {"text/csv": {"schema": {"type": "string"}, "example": sites_csv.EXAMPLE}},
+        }
+    )
     def post(self, args):
-        """Create or update sites from CSV (all or nothing; ?dry_run=true checks only)"""
+        """Create or update sites from CSV (all or nothing; ?dry_run=true checks only)
+
+        Admin only. Rows are matched to stored sites by `code`. One bad cell answers 422 naming every
+        bad cell as `#/rows/<row>/<column>` (rows as a spreadsheet numbers them: the header is row 1)
+        and nothing is written. `dry_run=true` checks and counts without writing.
+        """
         session = get_session()
         result = sites_csv.import_sites(
             session, request.get_data(cache=False), dry_run=args["dry_run"], service_unit=unit()
@@ -190,8 +224,19 @@ class SiteImport(MethodView):
 @blp.route("/export")
 class SiteExport(MethodView):
     @allow("viewer")
-    @blp.response(200, content_type="text/csv")
+    @blp.response(
+        200,
+        {"type": "string", "description": sites_csv.FORMAT},
+        content_type="text/csv",
+        description="The sites as CSV, in the import format",
+        example=sites_csv.EXAMPLE,
+    )
     def get(self):
-        """All sites as CSV (text cells that could be read as formulas are defused)"""
+        """All sites as CSV (text cells that could be read as formulas are defused)
+
+        Every site, ordered by code, in the service unit, with the columns of the import. A text cell
+        that starts with `=`, `+`, `-`, `@`, tab or carriage return gets a leading `'`, which the import
+        removes again, so an export imports back unchanged.
+        """
         body = sites_csv.export_sites(get_session())
         return Response(body, mimetype="text/csv", headers={"Content-Disposition": 'attachment; filename="sites.csv"'})

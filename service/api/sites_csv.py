@@ -1,7 +1,9 @@
 """CSV import and export of sites.
 
-Import: UTF-8 (a BOM is accepted), a header row, at most :data:`MAX_ROWS` rows; every row is
-validated with the same schema as JSON; all rows are written in one transaction or none is.
+Import: UTF-8 (a BOM is accepted), a header row, at most :data:`MAX_ROWS` rows, cells separated by
+``,`` (or ``;`` or tab, told from the header); every row is validated with the same schema as JSON,
+every cell of it even when one cannot be read; all rows are written in one transaction or none is.
+Errors name rows as a spreadsheet numbers them: the header is row 1.
 A ``unit`` column may give a row's volumes in ``L``, ``gal`` (US gallon, exactly 3.785411784 L,
 NIST Handbook 44 App. C) or ``m3`` (1000 L); they are converted to the service unit. Volumes are
 ``demand_per_day``, ``tank_capacity`` and ``safety_stock``; ``holding_cost`` is per volume unit and
@@ -52,6 +54,19 @@ NUMBER_FIELDS = (
 )
 TEXT_FIELDS = ("code", "name", "truck")
 COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
+REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
+#: The format, for the OpenAPI document (request body of the import, response of the export).
+FORMAT = (
+    "UTF-8 CSV with a header row. Columns (any order): "
+    + ", ".join(f"`{c}`" for c in REQUIRED)
+    + " (required); "
+    + ", ".join(f"`{c}`" for c in (*COLUMNS, "unit") if c not in REQUIRED)
+    + " (optional; the export writes every column but `unit`). Cells are separated by `,` (`;` or tab "
+    "also read, told from the header). Numbers are plain ASCII decimals with a decimal point (`1000`, "
+    "`-3.25`, `2.5e3`); `active` is true/false; `unit` is `L`, `gal` or `m3` (volumes converted to the "
+    f"service unit). At most {MAX_ROWS} rows."
+)
+EXAMPLE = ",".join(COLUMNS) + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3\r\n"
 #: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
 #: a formula (``= + - @``, tab, carriage return).
 _NEEDS_PREFIX = re.compile(r"'*[=+\-@\t\r]")
@@ -77,7 +92,10 @@ def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], 
             continue
         if name in NUMBER_FIELDS:
             if not _PLAIN_NUMBER.fullmatch(value):
-                errors.append((name, f"{value!r} is not a plain number: write digits 0-9, e.g. 1000, -3.25 or 2.5e3."))
+                comma = " with a decimal point, not a comma" if _PLAIN_NUMBER.fullmatch(value.replace(",", ".")) else ""
+                errors.append(
+                    (name, f"{value!r} is not a plain number: write digits 0-9{comma}, e.g. 1000, -3.25 or 2.5e3.")
+                )
                 continue
             number = float(value)
             if not math.isfinite(number):
@@ -115,60 +133,87 @@ def import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit: 
         ) from exc
 
 
+def _separator(first_line: str) -> str:
+    """``,``, or ``;`` / tab when the header is written with one of those instead.
+
+    Many European spreadsheets save "CSV" with ``;`` between cells (the decimal comma takes ``,``);
+    the header names the columns, so the separator that splits it into the most known column names
+    is the one the file uses.
+    """
+    known = {*COLUMNS, "unit"}
+    return max((",", ";", "\t"), key=lambda sep: len(known & {c.strip() for c in first_line.split(sep)}))
+
+
+def _records(text: str) -> tuple[list[str], list[tuple[int, dict[str, str | None] | None]]]:
+    """The header, and each record with its row number as a spreadsheet shows it (the header is
+    row 1, the first record row 2, a blank line is a row too). A record with more cells than the
+    header maps to ``None``."""
+    reader = csv.reader(io.StringIO(text), delimiter=_separator(text.split("\n", 1)[0]))
+    header = next(reader, [])
+    records: list[tuple[int, dict[str, str | None] | None]] = []
+    for row_number, cells in enumerate(reader, start=2):
+        if not cells:
+            continue
+        if len(records) >= MAX_ROWS:
+            raise Problem(413, f"At most {MAX_ROWS} rows per import.", kind="too-many-rows")
+        if len(cells) > len(header):
+            records.append((row_number, None))
+            continue
+        records.append((row_number, {name: cells[i] if i < len(cells) else None for i, name in enumerate(header)}))
+    return header, records
+
+
 def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit: str) -> dict[str, Any]:
     try:
         text = body.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise Problem(422, "The CSV must be UTF-8.", kind="validation") from exc
-    reader = csv.DictReader(io.StringIO(text))
-    header = reader.fieldnames or []
+    header, records = _records(text)
     unknown = [h for h in header if h not in (*COLUMNS, "unit")]
-    missing = [
-        h
-        for h in ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
-        if h not in header
-    ]
+    missing = [h for h in REQUIRED if h not in header]
     if unknown or missing:
         errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
         errors += [{"pointer": f"#/header/{h}", "detail": "Missing column."} for h in missing]
-        raise Problem(422, "The CSV header is not valid.", kind="validation", errors=errors)
+        raise Problem(
+            422,
+            "The CSV header is not valid: separate the cells with commas (or semicolons) and name the "
+            f"columns {', '.join(COLUMNS)} and optionally unit.",
+            kind="validation",
+            errors=errors,
+        )
     schema = SiteSchema()
     trucks = {t.code: t for t in session.scalars(select(Truck))}
     rows: list[dict[str, Any]] = []
     numbers: list[int] = []
     errors: list[dict[str, str]] = []
     seen: set[str] = set()
-    for number, raw in enumerate(reader, start=1):
-        if number > MAX_ROWS:
-            raise Problem(413, f"At most {MAX_ROWS} rows per import.", kind="too-many-rows")
-        if None in raw:
+    for number, raw in records:
+        if raw is None:
             errors.append({"pointer": f"#/rows/{number}", "detail": f"Row {number} has more cells than the header."})
             continue
         data, bad = _parse_row(raw, service_unit)
-        errors += [{"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {msg}"} for col, msg in bad]
-        if bad:
-            continue
+        problems = list(bad)
+        # A cell that could not be read is left out and not required, so the row's other cells are
+        # still checked: one bad cell does not hide the rest.
         try:
-            loaded = schema.load(data)
+            loaded = schema.load(data, partial=tuple(col for col, _msg in bad))
         except ValidationError as exc:
+            loaded = None
             for col, messages in exc.messages.items():  # type: ignore[union-attr]
-                for msg in messages if isinstance(messages, list) else [messages]:
-                    errors.append({"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {msg}"})
+                problems += [(col, msg) for msg in (messages if isinstance(messages, list) else [messages])]
+        truck = data.get("truck")
+        if isinstance(truck, str) and truck and truck not in trucks:
+            problems.append(("truck", f"no truck with code {truck!r}."))
+        code = data.get("code")
+        if isinstance(code, str) and code in seen:
+            problems.append(("code", f"{code!r} appears twice."))
+        if isinstance(code, str):
+            seen.add(code)
+        errors += [
+            {"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {msg}"} for col, msg in problems
+        ]
+        if problems or loaded is None:
             continue
-        if loaded["truck"] not in trucks:
-            errors.append(
-                {
-                    "pointer": f"#/rows/{number}/truck",
-                    "detail": f"Row {number}, truck: no truck with code {loaded['truck']!r}.",
-                }
-            )
-            continue
-        if loaded["code"] in seen:
-            errors.append(
-                {"pointer": f"#/rows/{number}/code", "detail": f"Row {number}, code: {loaded['code']!r} appears twice."}
-            )
-            continue
-        seen.add(loaded["code"])
         rows.append(loaded)
         numbers.append(number)
     locked = repo.trucks_for_site_writes(session, (trucks[data["truck"]].id for data in rows))

@@ -4,6 +4,7 @@ from flask import current_app, url_for
 from flask.views import MethodView
 from sqlalchemy import select
 
+from service.api import http_headers as hh
 from service.api import usable_stock
 from service.api.blueprint import Blueprint
 from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
@@ -36,18 +37,25 @@ def etag(truck: Truck) -> str:
 class Trucks(MethodView):
     @allow("viewer")
     @blp.arguments(TruckQueryArgsSchema, location="query")
-    @blp.response(200, TruckListSchema)
+    @blp.response(200, TruckListSchema, headers=hh.PAGED)
     def get(self, args):
-        """List trucks (keyset pages by code)"""
+        """List trucks (keyset pages by code)
+
+        At most `limit` trucks (1–200, default 50) ordered by code; while more remain, the `Link`
+        header names the next page (`after` is the last code of this one).
+        """
         rows, headers = page(get_session(), select(Truck), Truck.code, args)
         return {"items": rows}, headers
 
     @allow("admin")
     @blp.arguments(TruckSchema)
-    @blp.response(201, TruckSchema)
+    @blp.response(201, TruckSchema, headers=hh.CREATED)
     @blp.alt_response(409, description="A truck with this code exists", **PROBLEM)
     def post(self, data):
-        """Create a truck"""
+        """Create a truck
+
+        Admin only. Answers 201 with the truck, its `Location` and its `ETag`.
+        """
         session = get_session()
         if session.scalar(select(Truck.id).where(Truck.code == data["code"])) is not None:
             raise Problem(409, f"A truck with code {data['code']!r} already exists.", kind="conflict")
@@ -59,21 +67,30 @@ class Trucks(MethodView):
 @blp.route("/<string:code>")
 class TruckByCode(MethodView):
     @allow("viewer")
-    @blp.response(200, TruckSchema)
-    @blp.alt_response(304, description="Not modified")
+    @blp.response(200, TruckSchema, headers=hh.TAGGED)
+    @blp.alt_response(304, description="Not modified: the If-None-Match tag is current", headers=hh.TAGGED)
+    @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, code):
-        """Read a truck (strong ETag)"""
+        """Read a truck (strong ETag)
+
+        The `ETag` changes with every change of the truck (its `version`); send it in If-Match to
+        change or delete the truck, or in If-None-Match to get 304 while nothing changed.
+        """
         truck = truck_or_404(code)
         return not_modified(etag(truck)) or (truck, {"ETag": etag(truck)})
 
     @allow("admin")
     @blp.arguments(TruckPatchSchema(partial=True))
-    @blp.response(200, TruckSchema)
-    @blp.alt_response(412, description="ETag does not match", **PROBLEM)
+    @blp.response(200, TruckSchema, headers=hh.TAGGED)
+    @blp.alt_response(412, description="ETag does not match; the current one is sent", headers=hh.TAGGED, **PROBLEM)
     @blp.alt_response(428, description="If-Match missing", **PROBLEM)
-    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    @blp.header_parameters(IF_MATCH_PARAMETER)
     def patch(self, data, code):
-        """Change a truck (needs If-Match)"""
+        """Change a truck (needs If-Match)
+
+        Admin only. Send only the fields to change. A capacity cut below one day's demand of an
+        active site of the truck is refused with 422. Answers with the new version and `ETag`.
+        """
         session = get_session()
         truck = truck_or_404(code, for_update=True)
         require_if_match(etag(truck))
@@ -90,9 +107,13 @@ class TruckByCode(MethodView):
     @blp.alt_response(409, description="Sites or plans still reference the truck", **PROBLEM)
     @blp.alt_response(412, description="ETag does not match", **PROBLEM)
     @blp.alt_response(428, description="If-Match missing", **PROBLEM)
-    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    @blp.header_parameters(IF_MATCH_PARAMETER)
     def delete(self, code):
-        """Delete a truck that no site or plan references"""
+        """Delete a truck that no site or plan references
+
+        Admin only, with If-Match. While sites or recorded plans reference the truck the answer is
+        409: move its sites, or PATCH it with `active: false`.
+        """
         session = get_session()
         truck = truck_or_404(code, for_update=True)
         require_if_match(etag(truck))

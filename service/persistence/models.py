@@ -24,6 +24,8 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
+from service.working_calendar import DEFAULT_TRIPS_PER_DAY, DEFAULT_WORKING_DAYS
+
 NAMING_CONVENTION = {
     "ix": "ix_%(column_0_label)s",
     "uq": "uq_%(table_name)s_%(column_0_name)s",
@@ -34,6 +36,7 @@ NAMING_CONVENTION = {
 
 CODE_LENGTH = 40
 NAME_LENGTH = 200
+HOLIDAY_REGION_LENGTH = 40
 
 
 def utcnow() -> dt.datetime:
@@ -70,6 +73,7 @@ class Truck(Base):
         CheckConstraint("dispatch_cost >= 0", name="dispatch_cost_nonnegative"),
         CheckConstraint("capacity > 0", name="capacity_positive"),
         CheckConstraint("max_stops IS NULL OR max_stops >= 1", name="max_stops_positive"),
+        CheckConstraint("trips_per_day >= 1 AND trips_per_day <= 24", name="trips_per_day_range"),
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -78,6 +82,15 @@ class Truck(Base):
     dispatch_cost: Mapped[float] = mapped_column(Float)
     capacity: Mapped[float] = mapped_column(Float)
     max_stops: Mapped[int | None] = mapped_column(Integer)
+    # The working calendar (service.working_calendar): ISO weekdays 1 = Monday … 7 = Sunday, trips
+    # on one working day, ISO dates it does not work, and a `holidays` region whose public holidays
+    # close it. Lists are JSON (the same on SQLite and PostgreSQL); the API validates them.
+    working_days: Mapped[list[int]] = mapped_column(
+        JSON, default=lambda: list(DEFAULT_WORKING_DAYS), server_default=text("'[1, 2, 3, 4, 5]'")
+    )
+    trips_per_day: Mapped[int] = mapped_column(Integer, default=DEFAULT_TRIPS_PER_DAY, server_default=text("1"))
+    closed_dates: Mapped[list[str]] = mapped_column(JSON, default=list, server_default=text("'[]'"))
+    holiday_region: Mapped[str | None] = mapped_column(String(HOLIDAY_REGION_LENGTH))
     active: Mapped[bool] = mapped_column(default=True)
     version: Mapped[int] = mapped_column(default=1)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)

@@ -13,6 +13,7 @@ from weakref import WeakKeyDictionary
 from sqlalchemy import Engine, and_, func, or_, select, update
 from sqlalchemy.orm import Session
 
+from service import working_calendar
 from service.persistence.db import RawRead
 from service.persistence.models import ChangeStamp, Plan, PlanSite, Reading, Site, Truck
 from service.persistence.repository import NotFound, active_sites, lock_for_update
@@ -22,9 +23,14 @@ from service.planning import JointResult, SiteInput, SitePlan, Status, Stop, Tri
 SITE_INPUTS = ("demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock")
 
 
-def truck_input(snapshot: dict[str, Any]) -> TruckInput:
-    return TruckInput(
-        dispatch_cost=snapshot["dispatch_cost"], capacity=snapshot["capacity"], max_stops=snapshot["max_stops"]
+def truck_input(snapshot: dict[str, Any], start: dt.date) -> TruckInput:
+    """The truck of a snapshot, on its recorded calendar, for a plan starting on ``start``."""
+    return working_calendar.plan_truck(
+        snapshot["dispatch_cost"],
+        snapshot["capacity"],
+        snapshot["max_stops"],
+        working_calendar.Calendar.recorded(snapshot),
+        start,
     )
 
 
@@ -40,6 +46,7 @@ def snapshot(truck: Truck, sites: Iterable[Site]) -> dict[str, Any]:
             "dispatch_cost": truck.dispatch_cost,
             "capacity": truck.capacity,
             "max_stops": truck.max_stops,
+            **working_calendar.Calendar.of(truck).stored(),
             "version": truck.version,
         },
         "sites": [
@@ -155,16 +162,24 @@ class Drift:
         return sorted({c.code for c in self.changes if c.subject == "site"})
 
 
-TRUCK_INPUTS = ("dispatch_cost", "capacity", "max_stops")
+TRUCK_INPUTS = ("dispatch_cost", "capacity", "max_stops", *working_calendar.FIELDS)
 
 
 def _row_changes(
     subject: str, code: str, recorded: dict[str, Any], row: Truck | Site, fields: Sequence[str], more: Sequence[Change]
 ) -> list[Change]:
-    """The recorded fields that differ, plus ``more``; ``edited`` when only the version moved."""
+    """The recorded fields that differ, plus ``more``; ``edited`` when only the version moved.
+
+    A field the snapshot does not have (a truck's calendar in a plan recorded before calendars) is
+    not compared.
+    """
     if row.version == recorded["version"]:
         return []
-    out = [Change(subject, code, f, recorded[f], getattr(row, f)) for f in fields if recorded[f] != getattr(row, f)]
+    out = [
+        Change(subject, code, f, recorded[f], getattr(row, f))
+        for f in fields
+        if f in recorded and recorded[f] != getattr(row, f)
+    ]
     out.extend(more)
     return out or [Change(subject, code, "edited", recorded["version"], row.version)]
 
@@ -239,15 +254,63 @@ def change_stamp(engine: Engine) -> str | None:
     return None if row is None else row[0]
 
 
+def stored_result(plan: Plan) -> dict[str, Any]:
+    """The plan's recorded result in today's shape.
+
+    A result recorded before working calendars (issue 13) has no ``start_date`` and is upgraded as
+    it is read, nothing is written: its cycles become patterns of one delivery a cycle
+    (``period_days = longest_gap_days = cycle_days``, ``delivery_days = [offset_days]``), its trips
+    get their date (from the plan's ``start_date``) and their index within the date, ``needed`` is
+    null, ``extra_trips`` goes (every trip is listed) and ``peak_load`` becomes the largest load of
+    one listed trip. Its status stays ``optimal``: it was the exact optimum of its class.
+    """
+    result = plan.result
+    if "start_date" in result:
+        return result
+    out = {k: v for k, v in result.items() if k != "extra_trips"}
+    out["start_date"] = plan.start_date.isoformat()
+    out["needed"] = None
+    out["sites"] = [
+        {**s, "period_days": s["cycle_days"], "delivery_days": [s["offset_days"]], "longest_gap_days": s["cycle_days"]}
+        for s in result["sites"]
+    ]
+    trips, index = [], {}
+    for trip in result["trips"]:
+        index[trip["day"]] = index.get(trip["day"], 0) + 1
+        date = plan.start_date + dt.timedelta(days=trip["day"])
+        trips.append({"day": trip["day"], "date": date.isoformat(), "trip": index[trip["day"]], **trip})
+    out["trips"] = trips
+    if result.get("extra_trips") and trips:
+        out["peak_load"] = max(t["load"] for t in trips)
+    return out
+
+
+def _record(cls: type, data: dict[str, Any], **converted: Any) -> Any:
+    """``cls`` from the stored fields it has (JSON lists as tuples), with ``converted`` values."""
+    fields = cls.__dataclass_fields__
+    plain = {k: tuple(v) if isinstance(v, list) else v for k, v in data.items() if k in fields}
+    return cls(**(plain | converted))
+
+
 def result_of(plan: Plan) -> JointResult:
     """The recorded result as the planning core's object (for the trips calendar)."""
-    data = dict(plan.result)
-    data["status"] = Status[data["status"].upper()]
-    data["sites"] = tuple(SitePlan(**s) for s in data["sites"])
-    data["trips"] = tuple(Trip(t["day"], t["load"], tuple(Stop(**s) for s in t["stops"])) for t in data["trips"])
-    data["warnings"] = tuple(data["warnings"])
-    fields = JointResult.__dataclass_fields__
-    return JointResult(**{k: v for k, v in data.items() if k in fields})
+    data = stored_result(plan)
+    return _record(
+        JointResult,
+        data,
+        status=Status[data["status"].upper()],
+        start_date=dt.date.fromisoformat(data["start_date"]),
+        sites=tuple(_record(SitePlan, s) for s in data["sites"]),
+        trips=tuple(
+            _record(
+                Trip,
+                t,
+                date=dt.date.fromisoformat(t["date"]),
+                stops=tuple(Stop(**s) for s in t["stops"]),
+            )
+            for t in data["trips"]
+        ),
+    )
 
 
 def add_reading(session: Session, site: Site, level: float, measured_at: dt.datetime, created_by: str) -> Reading:

@@ -22,7 +22,17 @@ SITE_FIELDS = (
     "latitude",
     "longitude",
 )
-TRUCK_FIELDS = ("name", "dispatch_cost", "capacity", "max_stops", "active")
+TRUCK_FIELDS = (
+    "name",
+    "dispatch_cost",
+    "capacity",
+    "max_stops",
+    "working_days",
+    "trips_per_day",
+    "closed_dates",
+    "holiday_region",
+    "active",
+)
 
 
 class NotFound(LookupError):

@@ -4,11 +4,16 @@ Rule: this package uses only numpy, scipy and the standard library. It does no I
 imports no web, database or schema library (no Flask, Werkzeug, SQLAlchemy, marshmallow)
 and nothing else of the service; ``tests/unit/planning/test_purity.py`` checks this.
 
-Model (days, whole-day cycles; derivations in ``docs/planning.md``): site ``i`` has demand
+Model (days, whole-day gaps; derivations in ``docs/planning.md``): site ``i`` has demand
 ``d_i``, holding term ``H_i = h_i d_i / 2``, stop cost ``k_i`` and longest cycle
-``U_i = min(f_i V_i - s_i, W) / d_i``; the truck costs ``K`` per trip. A joint policy has
-cycles ``T_i = m_i T0`` (min ``m_i = 1``) and offsets; its cost per day is
-``K · trips / R + Σ k_i / T_i + Σ H_i T_i`` over the repeat period ``R = lcm(T_i)``.
+``U_i = min(f_i V_i - s_i, W) / d_i``; the truck costs ``K`` per trip, carries at most ``W`` in at
+most ``S`` stops, works on its working weekdays, at most ``trips_per_day`` trips a date, never on
+closed dates. A plan gives each site a pattern (period ``P_i``, delivery offsets, gaps ``g``; each
+delivery carries ``d_i g``); its cost per day over the repeat period ``R = lcm(P_i)`` is
+``(K · every trip + Σ stop costs + Σ_i H_i Σ g²) / R``. ``plan_joint`` searches the power-of-two and
+integer-multiple policies on the working-day axis and truck-aware variants, evaluating each exactly
+by packing every date into trips; ``trips_between`` lists any window with closed dates applied; the
+reported bound is ``drivable_bound.drivable_lower_bound``.
 
 ``service.planning.consumption`` learns each tank's consumption from readings and deliveries
 (drifted random walk), tests the stored demand for drift, sizes safety stock from the
@@ -35,7 +40,7 @@ from service.planning.consumption import (
     safety_stock,
     safety_stock_for_fill_rate,
 )
-from service.planning.dispatch_window import trips_between
+from service.planning.dispatch_window import TripWindow, trips_between
 from service.planning.errors import PlanningInputError
 from service.planning.inputs import SiteInput, TruckInput
 from service.planning.joint import plan_joint
@@ -62,6 +67,7 @@ __all__ = [
     "Status",
     "Stop",
     "Trip",
+    "TripWindow",
     "TruckInput",
     "consumption_drift",
     "degree_day_series",

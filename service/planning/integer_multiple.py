@@ -53,3 +53,22 @@ def integer_policy(problem: Problem, relaxation: Relaxation) -> Policy:
     assert best is not None  # the search starts inside [1, longest], so it priced at least one T0
     cost, T0, m = best
     return Policy("integer", None, T0, m * T0, (m + 1) * T0, cost)
+
+
+def integer_policies_by_interval(problem: Problem, relaxation: Relaxation, count: int) -> list[Policy]:
+    """The optimal integer-multiple policy of each of the ``count`` dispatch intervals with the lowest class cost.
+
+    ``T0`` runs over whole days in ``[t0 / 4, 4 t0] ∩ [1, min u_i]`` around the relaxation's ``t0``. A truck
+    whose load binds may need a ``T0`` other than the class optimum's (three sites that fit one trip
+    every 12 days but not every 13), so the planner evaluates these exactly too.
+    """
+    K, k, H, u = problem.dispatch_cost, problem.stop_cost, problem.H, problem.whole_days
+    longest = int(u.min())
+    lo = max(1, int(relaxation.t0 // 4))
+    hi = min(longest, max(int(math.ceil(relaxation.t0 * 4)), lo))
+    found = []
+    for T0 in range(lo, hi + 1):
+        m = _multiples_for(k, H, float(T0), u // T0)
+        found.append((_class_cost(K, k, H, float(T0), m), T0, m))
+    found.sort(key=lambda x: (x[0], x[1]))
+    return [Policy("integer", None, T0, m * T0, (m + 1) * T0, cost) for cost, T0, m in found[:count]]

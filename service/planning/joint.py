@@ -1,36 +1,69 @@
-"""Joint delivery policy for the sites of one truck: choose, stagger, count, report."""
+"""Drivable joint plan for the sites of one truck: candidate rhythms, exact evaluation, listing.
+
+See ``docs/planning.md`` (sections 3–8 and "Drivable plans"). In short: the policy algorithms (exact
+power-of-two and integer-multiple optima) run on the truck's working-day axis, on the data and on
+truck-aware variants of it; each candidate is staggered, turned into calendar patterns, and evaluated
+exactly by packing every date of its repeat period into trips; the cheapest candidate that never needs
+more than ``trips_per_day`` trips on a date wins.
+"""
 
 from __future__ import annotations
 
+import datetime as dt
 import math
+import time
 from collections.abc import Sequence
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from service.planning.cycle_cost import cycle_cost
-from service.planning.delivery_calendar import LOAD_TOLERANCE, Calendar
+from service.planning.cycle_cost import best_multiple, cycle_cost
+from service.planning.dispatch_window import Limits, window_trips
+from service.planning.drivable_bound import drivable_lower_bound
 from service.planning.errors import PlanningInputError
+from service.planning.evaluation import Evaluation, evaluate, limited
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
-from service.planning.integer_multiple import integer_policy
+from service.planning.integer_multiple import integer_policies_by_interval, integer_policy
+from service.planning.patterns import Patterns, from_working_cycles
 from service.planning.policy import Policy
 from service.planning.power_of_two import power_of_two_policy
-from service.planning.relaxation import Relaxation, relaxation_of
-from service.planning.results import JointResult, SitePlan, Status, Trip
+from service.planning.rebalance import rebalance
+from service.planning.relaxation import relaxation_of
+from service.planning.results import JointResult, SitePlan, Status
 from service.planning.staggering import site_weights, stagger
+from service.planning.weekly import improve_weekly
+from service.planning.workweek import WorkWeek
 
 METHODS = ("best", "power_of_two", "integer")
 #: Days of a repeat period listed in ``JointResult.trips`` at most.
 LISTED_DAYS = 3660
 #: Stops listed in ``JointResult.trips`` at most (whole days; keeps 100 000-site results small).
 LISTED_STOPS = 200_000
-#: Base trips of a repeat period evaluated exactly for the peak load and the extra trips.
-EVALUATED_TRIPS = 2**17
+#: Truck-aware variants: dispatch cost scale and extra stop cost in units of ``K / S``.
+DISPATCH_SCALES = (1.0, 0.5, 2.0, 0.0, 0.25, 4.0)
+#: Most candidates packed exactly once a drivable plan is known (the rest are ranked by their bound).
+EXACT_CANDIDATES = 4
+#: Other dispatch intervals of the integer class evaluated exactly.
+INTERVALS = 8
+STOP_PENALTIES = (0.0, 0.5, 1.0, 2.0, 4.0, 8.0)
+#: Further stop penalties tried only when no candidate fits ``trips_per_day``.
+REPAIR_PENALTIES = (16.0, 32.0, 64.0, 128.0, 256.0, 1024.0)
 
 
-def _check_options(method, base_days) -> None:
+def _check_options(method, base_days, start_date, deadline_seconds) -> None:
     if not isinstance(method, str) or method not in METHODS:
         raise PlanningInputError(f"method must be one of {', '.join(METHODS)}, got {method!r}", field="method")
+    if start_date is not None and (not isinstance(start_date, dt.date) or isinstance(start_date, dt.datetime)):
+        raise PlanningInputError(f"start_date must be a date, got {start_date!r}", field="start_date")
+    if deadline_seconds is not None and (
+        isinstance(deadline_seconds, bool)
+        or not isinstance(deadline_seconds, (int, float))
+        or not deadline_seconds > 0
+        or not math.isfinite(deadline_seconds)
+    ):
+        raise PlanningInputError(
+            f"deadline_seconds must be a number > 0 or null, got {deadline_seconds!r}", field="deadline_seconds"
+        )
     if base_days is None:
         return
     if isinstance(base_days, bool) or not isinstance(base_days, (int, np.integer)) or base_days < 1:
@@ -39,184 +72,471 @@ def _check_options(method, base_days) -> None:
         raise PlanningInputError("base_days applies to methods power_of_two and best, not integer", field="base_days")
 
 
-def _base_too_long(base_days: int, problem: Problem) -> str:
-    i = int(np.argmin(problem.whole_days))
-    return (
-        f"base_days {base_days} is longer than the longest whole-day cycle {int(problem.whole_days[i])} "
-        f"of site `{problem.codes[i]}`"
-    )
+def _bound(problem: Problem) -> float:
+    """Lower bound on the cost per day of every drivable plan (:func:`drivable_lower_bound`; ``inf`` when
+    it proves that no plan fits the calendar)."""
+    return drivable_lower_bound(problem).value
 
 
-def _infeasible(base_days: int, problem: Problem, relaxation: Relaxation) -> JointResult:
+def _names(problem: Problem, sites) -> str:
+    return ", ".join(f"`{problem.codes[i]}`" for i in sites)
+
+
+def _infeasible(
+    problem: Problem, message: str, bound: float, start: dt.date, needed: dict, method: str, base: int | None
+) -> JointResult:
+    if not math.isfinite(bound):  # the drivable bound proved infeasibility; report the finite relaxation
+        bound = relaxation_of(problem).value
     return JointResult(
         status=Status.INFEASIBLE,
         success=False,
-        message=_base_too_long(base_days, problem),
-        method="power_of_two",
-        base_days=base_days,
+        message=message,
+        method=method,
+        base_days=base,
         dispatch_interval_days=0,
         repeat_days=0,
         trips_per_repeat=0,
         cost_per_day=0.0,
         cost_breakdown={"dispatch": 0.0, "stops": 0.0, "holding": 0.0},
-        lower_bound_per_day=relaxation.value,
+        lower_bound_per_day=bound,
         gap=0.0,
         peak_load=0.0,
-        extra_trips=0,
         trips_truncated=False,
         sites=(),
         trips=(),
         warnings=(),
+        start_date=start,
+        needed=needed,
     )
 
 
-def _per_trip(multiples: np.ndarray, residues: np.ndarray, values: np.ndarray, trips: int) -> np.ndarray:
-    """``Σ_i values_i [t ≡ r_i mod m_i]`` for base trips ``t = 0 … trips - 1``."""
-    total = np.zeros(trips)
-    t = np.arange(trips)
-    for m in np.unique(multiples).tolist():
-        members = multiples == m
-        total += np.bincount(residues[members], weights=values[members], minlength=m)[t % m]
-    return total
+def _calendar_gap(problem: Problem, week: WorkWeek, start: dt.date):
+    """Longest stretch (days) between two consecutive open dates within the listed horizon, and its ends.
 
-
-def _count_trips(problem: Problem, calendar: Calendar, T0: int, multiples, residues, quantity, period: int):
-    """Peak day load, extra trips per repeat period, stops per dispatch day, warnings.
-
-    Exact over the first ``min(period, EVALUATED_TRIPS)`` dispatch days; beyond that the peak
-    is bounded and the extra trips are scaled from the window (with warnings).
+    Open: a working weekday that is not closed. The horizon is days ``0 … LISTED_DAYS + 6``; closed dates
+    outside it do not make a plan infeasible (the listing warns about them instead).
     """
-    evaluated = min(period, EVALUATED_TRIPS)
-    loads = _per_trip(multiples, residues, quantity, evaluated)
-    counts = _per_trip(multiples, residues, np.ones(problem.n), evaluated).astype(np.int64)
-    over = loads > problem.capacity * (1 + LOAD_TOLERANCE)
-    if problem.max_stops is not None:
-        over |= counts > problem.max_stops
-    extra = sum(len(calendar.split(calendar.sites_on(int(t) * T0))) - 1 for t in np.flatnonzero(over).tolist())
-    warnings = []
-    if evaluated < period:
-        upper = sum(
-            np.bincount(residues[multiples == m], weights=quantity[multiples == m], minlength=m).max()
-            for m in np.unique(multiples).tolist()
-        )
-        warnings.append(
-            f"the repeat period has {period} dispatch days; peak load and extra trips were evaluated over the "
-            f"first {evaluated}; the peak load over the whole period is at most {upper:g}"
-        )
-        if extra:
-            extra = extra * period // evaluated
-            warnings.append(f"extra trips per repeat period are estimated from the first {evaluated} dispatch days")
-    if extra:
-        warnings.append(f"{extra} extra trip(s) per repeat period: no offsets fit every day in the truck")
-    return float(loads.max()), int(extra), counts, warnings
+    days = np.arange(LISTED_DAYS + 7)
+    open_ = week.is_working(days)
+    closed = [(c - start).days for c in problem.closed_dates]
+    closed = [t for t in closed if 0 <= t < len(days)]
+    open_[closed] = False
+    at = np.flatnonzero(open_)
+    if len(at) < 2:
+        return None
+    gaps = np.diff(at)
+    j = int(np.argmax(gaps))
+    return int(gaps[j]), int(at[j]), int(at[j + 1])
 
 
-def _listing(calendar: Calendar, counts: np.ndarray, T0: int, repeat: int) -> tuple[list[Trip], bool]:
-    """Trips of the first ``min(R, LISTED_DAYS)`` days, cut at whole days at ``LISTED_STOPS`` stops."""
-    days = -(-min(repeat, LISTED_DAYS) // T0)
-    days = max(1, int(np.searchsorted(np.cumsum(counts[:days]), LISTED_STOPS, side="right")))
-    trips: list[Trip] = []
-    for t in range(days):
-        trips.extend(calendar.trips_on(t * T0))
-    return trips, days * T0 < repeat
+@dataclass
+class _Candidate:
+    method: str
+    base_days: int | None
+    patterns: Patterns
+    binding: np.ndarray
+    evaluation: Evaluation
+    policy: Policy
 
 
-def _assemble(problem: Problem, relaxation: Relaxation, policy: Policy) -> JointResult:
+def _axis_problem(problem: Problem, week: WorkWeek, dispatch_scale: float, stop_penalty: float) -> Problem:
+    """The problem on the working-day axis: one unit is a working day.
+
+    A cycle of ``m`` working days lasts about ``7 m / n`` calendar days, so per working day the holding
+    term is ``H (7/n)²`` (cost per working day = ``7/n`` × cost per calendar day); caps are the
+    largest ``m`` whose longest calendar span fits the tank (:meth:`WorkWeek.caps`).
+    """
+    if week.n == 7 and dispatch_scale == 1.0 and stop_penalty == 0.0:
+        return problem
+    caps = week.caps(problem.whole_days)
+    scale = 7.0 / week.n
+    extra = 0.0 if problem.max_stops is None else stop_penalty * problem.dispatch_cost / problem.max_stops
+    return replace(
+        problem,
+        H=problem.H * scale * scale,
+        whole_days=caps,
+        cap_days=caps.astype(float) if week.n < 7 else problem.cap_days,
+        dispatch_cost=problem.dispatch_cost * dispatch_scale,
+        stop_cost=problem.stop_cost + extra,
+    )
+
+
+def _independent(axis: Problem) -> Policy:
+    """Every site on its own best whole-day cycle (``T0 = 1``): the optimum when nothing is shared, e.g.
+    one stop per trip with the dispatch cost moved into the stop cost."""
+    cycles = best_multiple(axis.stop_cost, axis.H, 1.0, 1, axis.whole_days)
+    cost = float(cycle_cost(axis.stop_cost, axis.H, cycles).sum())
+    return Policy("integer", None, 1, cycles, cycles + 1, cost)
+
+
+def _policies(axis: Problem, method: str, base_days: int | None, intervals: int, alone: bool) -> list[Policy]:
+    """The class optima of ``axis`` and, with ``intervals > 0``, the best integer policies of that many
+    other dispatch intervals; with ``alone`` also every site on its own cycle."""
+    relaxation = relaxation_of(axis)
+    out = []
+    if method in ("best", "integer") and alone:
+        out.append(_independent(axis))
+    if method in ("best", "power_of_two") and (base_days is None or base_days <= int(axis.whole_days.min())):
+        out.append(power_of_two_policy(axis, relaxation, base_days))
+    if method in ("best", "integer"):
+        out.append(integer_policy(axis, relaxation))
+        if intervals:
+            out.extend(integer_policies_by_interval(axis, relaxation, intervals))
+    return out
+
+
+def _nested(policy: Policy) -> Policy:
+    """The integer policy with each multiple rounded down to a power of two (a nested integer-multiple
+    policy, repeat ``T0 · max m``), for when the exact one's repeat period is too long to evaluate."""
+    T0 = policy.dispatch_interval
+    m = policy.cycles // T0
+    nested = np.left_shift(1, np.floor(np.log2(m)).astype(np.int64))
+    nested = np.where(nested * 2 <= m, nested * 2, nested)
+    return replace(policy, cycles=nested * T0, next_cycles=nested * 2 * T0)
+
+
+def _binding(problem: Problem, axis: Problem, policy: Policy) -> np.ndarray:
+    k, H = axis.stop_cost, axis.H
+    capped = (policy.next_cycles > axis.whole_days) & (
+        cycle_cost(k, H, policy.next_cycles) < cycle_cost(k, H, policy.cycles)
+    )
+    return np.where(capped, np.where(problem.tank_binds, "tank", "truck"), "")
+
+
+def _patterns(
+    problem: Problem, week: WorkWeek, policy: Policy, deadline: float | None, rebalanced: bool = False
+) -> Patterns:
+    """Stagger the policy's cycles (working-day axis) and, when a date may need several trips, improve the
+    phases (:func:`rebalance`); then the calendar patterns."""
     T0 = policy.dispatch_interval
     cycles = policy.cycles
-    multiples = cycles // T0
-    quantity = problem.demand * cycles
-    residues = stagger(multiples, site_weights(quantity, problem.capacity, problem.max_stops))
-    offsets = residues * T0
-    calendar = Calendar(problem.codes, cycles, offsets, quantity, problem.capacity, problem.max_stops)
-    period = math.lcm(*np.unique(multiples).tolist())
-    repeat = T0 * period
-    peak, extra, counts, warnings = _count_trips(problem, calendar, T0, multiples, residues, quantity, period)
-    trips, truncated = _listing(calendar, counts, T0, repeat)
-    if truncated:
-        warnings.append(f"trips list days 0 to {trips[-1].day} of the {repeat}-day repeat period")
-    k, H = problem.stop_cost, problem.H
-    site_cost = cycle_cost(k, H, cycles)
-    dispatch = problem.dispatch_cost * (period + extra) / repeat
-    stops, holding = float((k / cycles).sum()), float((H * cycles).sum())
-    cost = dispatch + stops + holding
-    capped = (policy.next_cycles > problem.whole_days) & (cycle_cost(k, H, policy.next_cycles) < site_cost)
-    binding = np.where(capped, np.where(problem.tank_binds, "tank", "truck"), "")
-    sites = tuple(
-        SitePlan(code, T, o, q, c, b or None)
-        for code, T, o, q, c, b in zip(
-            problem.codes,
-            cycles.tolist(),
-            offsets.tolist(),
-            quantity.tolist(),
-            site_cost.tolist(),
-            binding.tolist(),
-            strict=True,
+    quantity = problem.demand * cycles * (7.0 / week.n)
+    phases = stagger(cycles // T0, site_weights(quantity, problem.capacity, problem.max_stops)) * T0
+    if rebalanced:
+        phases = rebalance(
+            problem.demand, problem.capacity, problem.max_stops, problem.trips_per_day, week, cycles, phases, deadline
         )
-    )
+    return from_working_cycles(week, cycles, phases)
+
+
+def _site_plans(problem: Problem, candidate: _Candidate) -> tuple[SitePlan, ...]:
+    p, ev = candidate.patterns, candidate.evaluation
+    count = p.slot_count()
+    longest = p.longest_gap()
+    bounds = np.concatenate([[0], np.cumsum(count)])
+    offsets = p.offset.tolist()
+    cost = ev.site_stops + ev.site_holding
+    plans = []
+    for i, code in enumerate(problem.codes):
+        period = int(p.period[i])
+        days = tuple(offsets[bounds[i] : bounds[i + 1]])
+        cycle = period / len(days)
+        plans.append(
+            SitePlan(
+                code=code,
+                cycle_days=float(cycle),
+                offset_days=days[0],
+                quantity=float(problem.demand[i] * cycle),
+                cost_per_day=float(cost[i]),
+                binding=str(candidate.binding[i]) or None,
+                period_days=period,
+                delivery_days=days,
+                longest_gap_days=int(longest[i]),
+            )
+        )
+    return tuple(plans)
+
+
+def _result(problem, candidate: _Candidate, bound, start, status, message, warnings) -> JointResult:
+    ev = candidate.evaluation
+    sites = _site_plans(problem, candidate)
+    limits = Limits(problem.capacity, problem.max_stops, problem.trips_per_day, problem.working_days, problem.closed_dates)
+    last = min(ev.repeat, LISTED_DAYS) - 1
+    trips, window_warnings, listed_last = window_trips(sites, start, limits, 0, last, stop_limit=LISTED_STOPS)
+    truncated = listed_last < ev.repeat - 1
+    warnings = list(warnings) + list(ev.warnings) + window_warnings
+    if truncated:
+        warnings.append(f"trips list days 0 to {listed_last} of the {ev.repeat}-day repeat period")
+    cost = ev.cost
     return JointResult(
-        status=Status.OPTIMAL,
+        status=status,
         success=True,
-        message=f"optimal {policy.method} policy",
-        method=policy.method,
-        base_days=policy.base_days,
-        dispatch_interval_days=T0,
-        repeat_days=repeat,
-        trips_per_repeat=period + extra,
+        message=message,
+        method=candidate.method,
+        base_days=candidate.base_days,
+        dispatch_interval_days=ev.interval,
+        repeat_days=ev.repeat,
+        trips_per_repeat=ev.trips,
         cost_per_day=cost,
-        cost_breakdown={"dispatch": dispatch, "stops": stops, "holding": holding},
-        lower_bound_per_day=relaxation.value,
-        gap=cost / relaxation.value - 1.0 if relaxation.value > 0 else 0.0,
-        peak_load=peak,
-        extra_trips=extra,
+        cost_breakdown={"dispatch": ev.dispatch, "stops": ev.stops, "holding": ev.holding},
+        lower_bound_per_day=bound,
+        gap=cost / bound - 1.0 if bound > 0 else 0.0,
+        peak_load=ev.peak_load,
         trips_truncated=truncated,
         sites=sites,
         trips=tuple(trips),
         warnings=tuple(warnings),
+        start_date=start,
+        needed=None,
     )
 
 
+class _Search:
+    """Candidates ranked by a cheap lower bound on their cost, then evaluated exactly in that order.
+
+    Each candidate is first evaluated with the per-date trip lower bound (no packing); the exact cost is
+    at least that. :meth:`finish` evaluates exactly in increasing order of the bound and stops when the
+    best exact cost is at most the next bound (then no other candidate can be cheaper), or after
+    ``EXACT_CANDIDATES`` packed candidates, or at the deadline.
+    """
+
+    def __init__(self, problem: Problem, week: WorkWeek, method: str, base_days, deadline: float | None):
+        self.problem, self.week, self.method, self.base_days = problem, week, method, base_days
+        self.deadline = deadline
+        self.limited = limited(problem)
+        self.candidates: list[_Candidate] = []
+        self.best: _Candidate | None = None
+        self.fewest: _Candidate | None = None  # least trips on the busiest date (for `needed`)
+        self.seen: set[bytes] = set()
+        self.cut = False
+
+    def out_of_time(self) -> bool:
+        if self.deadline is not None and time.monotonic() > self.deadline:
+            self.cut = True
+        return self.cut
+
+    def drivable(self, ev: Evaluation) -> bool:
+        return self.problem.trips_per_day is None or ev.max_trips <= self.problem.trips_per_day
+
+    def any_drivable(self) -> bool:
+        return any(self.drivable(c.evaluation) for c in self.candidates)
+
+    def variant(self, dispatch_scale: float, stop_penalty: float, intervals: int = 0) -> None:
+        axis = _axis_problem(self.problem, self.week, dispatch_scale, stop_penalty)
+        for policy in _policies(axis, self.method, self.base_days, intervals, dispatch_scale == 0):
+            if self.out_of_time() and self.candidates:
+                return
+            patterns = _patterns(self.problem, self.week, policy, self.deadline)
+            ev = self._evaluate(patterns)
+            if ev is None and policy.method == "integer":
+                policy = _nested(policy)
+                patterns = _patterns(self.problem, self.week, policy, self.deadline)
+                ev = self._evaluate(patterns)
+            if ev is not None and not self.drivable(ev):  # repair: move phases off the dates over the limit
+                patterns = _patterns(self.problem, self.week, policy, self.deadline, rebalanced=True)
+                ev = self._evaluate(patterns) or ev
+            if ev is not None:
+                binding = _binding(self.problem, axis, policy)
+                self.candidates.append(_Candidate(policy.method, policy.base_days, patterns, binding, ev, policy))
+
+    def _evaluate(self, patterns: Patterns) -> Evaluation | None:
+        key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
+        if key in self.seen:
+            return None
+        self.seen.add(key)
+        return evaluate(self.problem, patterns, self.limited, exact=False)
+
+    def _exact(self, c: _Candidate) -> _Candidate:
+        if not c.evaluation.exact:
+            c.evaluation = evaluate(self.problem, c.patterns, self.limited)
+        return c
+
+    def _improve(self) -> None:
+        """The phase search of :func:`rebalance` on the chosen plan (fewer trips), then weekday patterns
+        (:func:`improve_weekly`); each kept when its exact cost is lower."""
+        b = self.best
+        patterns = _patterns(self.problem, self.week, b.policy, self.deadline, rebalanced=True)
+        key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
+        if key not in self.seen:
+            self.seen.add(key)
+            ev = evaluate(self.problem, patterns, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, patterns, b.binding, ev, b.policy)
+        if self.out_of_time():
+            return
+        b = self.best
+        weekly = improve_weekly(self.problem, self.week, b.patterns, self.deadline)
+        if weekly is not None:
+            ev = evaluate(self.problem, weekly, self.limited)
+            if ev is not None and self.drivable(ev) and ev.cost < b.evaluation.cost:
+                self.best = _Candidate(b.method, b.base_days, weekly, b.binding, ev, b.policy)
+
+    def finish(self) -> None:
+        """Exact evaluation in increasing order of the lower bound (see the class docstring)."""
+        order = sorted(range(len(self.candidates)), key=lambda j: self.candidates[j].evaluation.cost)
+        packed = 0
+        for j in order:
+            c = self.candidates[j]
+            if not self.drivable(c.evaluation):
+                continue
+            if self.best is not None and (
+                self.best.evaluation.cost <= c.evaluation.cost or self.out_of_time() or packed >= EXACT_CANDIDATES
+            ):
+                break
+            packed += 1
+            self._exact(c)
+            if self.drivable(c.evaluation) and (self.best is None or c.evaluation.cost < self.best.evaluation.cost):
+                self.best = c
+        if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
+            self._improve()
+        if self.best is None and self.candidates:
+            key = min(range(len(self.candidates)), key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost))
+            self.fewest = self._exact(self.candidates[key])
+
+
+def _search(problem: Problem, week: WorkWeek, method: str, base_days, deadline) -> _Search:
+    """All candidates (module docstring) and the exact choice among them."""
+    search = _Search(problem, week, method, base_days, deadline)
+    classic = week.n == 7 and not search.limited
+    search.variant(1.0, 0.0)
+    if not classic:
+        search.variant(1.0, 0.0, INTERVALS)
+        for scale in DISPATCH_SCALES:
+            for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
+                if search.out_of_time():
+                    break
+                search.variant(scale, penalty)
+        if not search.any_drivable():
+            for penalty in REPAIR_PENALTIES:
+                if search.out_of_time() or search.any_drivable():
+                    break
+                for scale in (1.0, 4.0, 16.0):
+                    search.variant(scale, penalty)
+    search.finish()
+    return search
+
+
+def _least_trips_needed(problem: Problem, week: WorkWeek, method: str, base_days, deadline, found: int) -> int:
+    """The least ``trips_per_day`` above the given one for which the search finds a drivable plan: each
+    smaller value than ``found`` (what the best candidate needed) whose drivable bound is finite is
+    searched, in increasing order, while time remains."""
+    for tau in range(problem.trips_per_day + 1, found):
+        if deadline is not None and time.monotonic() > deadline:
+            break
+        relaxed = replace(problem, trips_per_day=tau)
+        if not math.isfinite(drivable_lower_bound(relaxed).value):
+            continue
+        if _search(relaxed, week, method, base_days, deadline).best is not None:
+            return tau
+    return found
+
+
 def plan_joint(
-    sites: Sequence[SiteInput], truck: TruckInput, *, method: str = "best", base_days: int | None = None
+    sites: Sequence[SiteInput],
+    truck: TruckInput,
+    *,
+    method: str = "best",
+    base_days: int | None = None,
+    start_date: dt.date | None = None,
+    deadline_seconds: float | None = None,
 ) -> JointResult:
-    """Plan whole-day joint deliveries for the sites of one truck.
+    """Plan drivable whole-day joint deliveries for the sites of one truck.
 
     Parameters
     ----------
     sites : sequence of SiteInput
     truck : TruckInput
     method : {"best", "power_of_two", "integer"}
-        ``power_of_two``: the optimal policy with cycles ``B 2**p`` for ``base_days`` (or the
-        best odd base when ``None``); ``integer``: the exact optimal integer-multiple policy;
-        ``best``: the cheaper of the two after staggering (a tie goes to power_of_two).
+        The policy families searched: ``power_of_two`` (cycles ``B 2**p`` on the working-day axis, for
+        ``base_days`` or the best odd base), ``integer`` (integer multiples of a dispatch interval), or
+        ``best`` (both, the cheaper plan; a tie goes to power_of_two).
     base_days : int or None
-        Base ``B`` for ``power_of_two`` and ``best``.
+        Base ``B`` for ``power_of_two`` and ``best``, in working days (days when all seven work).
+    start_date : datetime.date or None
+        Day 0 (``None``: today).
+    deadline_seconds : float or None
+        Time budget of the search (``None``: none). When it cuts the search the best drivable plan so
+        far is returned with status ``time_limit`` and a warning.
 
     Returns
     -------
     JointResult
-        ``Status.INFEASIBLE`` when ``base_days`` exceeds some site's longest whole-day cycle
-        (under ``best`` the integer policy is returned instead, with a warning).
+        With all seven working days and no load or stop limit, the exact optimum of the method's class
+        (``optimal``). Otherwise the cheapest drivable candidate (``feasible``; ``optimal`` when its cost
+        equals the bound). ``infeasible`` (``success`` false, ``needed`` filled) when a site cannot last
+        the longest stretch between two open dates (working weekdays that are not closed, within the
+        first ``LISTED_DAYS`` days: the longest closed stretch is the one named), when ``base_days``
+        exceeds a site's longest cycle under ``power_of_two``, or when no candidate fits
+        ``trips_per_day`` (``needed.trips_per_day`` is the least the candidates needed).
 
     Raises
     ------
     PlanningInputError
-        For invalid sites, truck, method or base_days.
+        For invalid sites, truck, method, base_days, start_date or deadline_seconds.
     """
-    _check_options(method, base_days)
+    began = time.monotonic()
+    _check_options(method, base_days, start_date, deadline_seconds)
     problem = validate(sites, truck)
-    relaxation = relaxation_of(problem)
-    base_fits = base_days is None or base_days <= int(problem.whole_days.min())
-    if method == "power_of_two" and not base_fits:
-        return _infeasible(int(base_days), problem, relaxation)
-    results = []
-    if method in ("best", "power_of_two") and base_fits:
-        results.append(_assemble(problem, relaxation, power_of_two_policy(problem, relaxation, base_days)))
-    if method in ("best", "integer"):
-        results.append(_assemble(problem, relaxation, integer_policy(problem, relaxation)))
-    chosen = min(results, key=lambda r: r.cost_per_day)
-    if not base_fits:
-        chosen = replace(
-            chosen, warnings=chosen.warnings + (f"power_of_two skipped: {_base_too_long(int(base_days), problem)}",)
+    start = dt.date.today() if start_date is None else start_date
+    bound = _bound(problem)
+    week = WorkWeek(start, problem.working_days)
+    gap = _calendar_gap(problem, week, start)
+    if gap is None or (problem.whole_days < gap[0]).any():
+        short = np.arange(problem.n) if gap is None else np.flatnonzero(problem.whole_days < gap[0])
+        if gap is None:
+            text = "the truck has no open date in the listed horizon"
+        else:
+            a, b = (start + dt.timedelta(days=x) for x in gap[1:])
+            text = f"cannot last the {gap[0]} days between the open dates {a.isoformat()} and {b.isoformat()}"
+        return _infeasible(
+            problem,
+            f"site(s) {_names(problem, short)} {text}",
+            bound,
+            start,
+            {"trips_per_day": None, "remove_sites": [problem.codes[i] for i in short]},
+            "power_of_two" if method == "power_of_two" else "integer",
+            base_days,
         )
-    return chosen
+    axis_caps = week.caps(problem.whole_days)
+    base_fits = base_days is None or base_days <= int(axis_caps.min())
+    if method == "power_of_two" and not base_fits:
+        i = int(np.argmin(axis_caps))
+        too_short = np.flatnonzero(axis_caps < base_days)
+        return _infeasible(
+            problem,
+            f"base_days {base_days} is longer than the longest whole-day cycle {int(axis_caps[i])} "
+            f"of site `{problem.codes[i]}`",
+            bound,
+            start,
+            {"trips_per_day": None, "remove_sites": [problem.codes[j] for j in too_short]},
+            "power_of_two",
+            base_days,
+        )
+    deadline = None if deadline_seconds is None else began + float(deadline_seconds)
+    search = _search(problem, week, method, base_days if base_fits else None, deadline)
+    classic = week.n == 7 and not search.limited
+    warnings: list[str] = []
+    if not base_fits:
+        i = int(np.argmin(axis_caps))
+        warnings.append(
+            f"power_of_two skipped: base_days {base_days} is longer than the longest whole-day cycle "
+            f"{int(axis_caps[i])} of site `{problem.codes[i]}`"
+        )
+    if search.best is None:
+        fewest = search.fewest
+        need = None if fewest is None else fewest.evaluation.max_trips
+        if need is not None and not search.cut:
+            need = _least_trips_needed(problem, week, method, base_days if base_fits else None, deadline, need)
+        message = (
+            f"no plan found within {problem.trips_per_day} trip(s) per day"
+            + ("" if need is None else f"; {need} trips per day are enough")
+        )
+        return _infeasible(
+            problem,
+            message,
+            bound,
+            start,
+            {"trips_per_day": need, "remove_sites": []},
+            "integer" if fewest is None else fewest.method,
+            None if fewest is None else fewest.base_days,
+        )
+    best = search.best
+    cost = best.evaluation.cost
+    if search.cut:
+        status, message = Status.TIME_LIMIT, f"best {best.method} plan found before the deadline"
+        warnings.append(f"the search stopped at the deadline of {deadline_seconds:g} s; the plan may not be the best")
+    elif classic or (bound > 0 and cost <= bound * (1 + 1e-9)) or cost == bound == 0:
+        status, message = Status.OPTIMAL, f"optimal {best.method} policy"
+    else:
+        status, message = Status.FEASIBLE, f"drivable {best.method} plan (optimality not proven)"
+    return _result(problem, best, bound, start, status, message, warnings)

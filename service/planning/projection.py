@@ -12,9 +12,11 @@ site's *current* values (the plan only gives the dates, the cycle and the planne
   reading's date the level is carried back to 00:00 (the reading is taken to precede that day's
   delivery).
 * The corrected quantity keeps the site at or above ``s`` until its next planned delivery
-  ``T`` days later: ``need = d·T + s − level(D)``, clamped to ``[0, min(F − level(D), free)]``
+  ``g`` days later: ``need = d·g + s − level(D)``, clamped to ``[0, min(F − level(D), free)]``
   where ``free`` is the truck's capacity minus what earlier stops of the same trip take and minus
-  what the trip's stops without a reading keep.
+  what the trip's stops without a reading keep. ``g`` is the days from ``D`` to the site's next
+  delivery in the listing (``PlannedTrip.next_days``: on a working calendar the gaps of a pattern
+  differ, e.g. a Friday delivery lasts until Monday); where the listing does not say, the cycle ``T``.
 * A site without a reading (or a delivery before its reading's date) keeps its planned quantity,
   but never more than ``F − s`` (the room when the level is at the safety stock, the level the plan
   assumes just before a delivery) nor more than ``free``.
@@ -32,7 +34,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from zoneinfo import ZoneInfo
 
@@ -56,10 +58,12 @@ class Tank:
 
 @dataclass(frozen=True)
 class PlannedTrip:
-    """One truck trip of the plan on a calendar date, stops as ``(site code, planned quantity)``."""
+    """One truck trip of the plan on a calendar date, stops as ``(site code, planned quantity)``;
+    ``next_days`` the days from ``date`` to each site's next planned delivery, where known."""
 
     date: dt.date
     stops: tuple[tuple[str, float], ...]
+    next_days: Mapping[str, int] = field(default_factory=dict, hash=False, compare=False)
 
 
 @dataclass(frozen=True)
@@ -158,7 +162,7 @@ class Projection:
         """Room below the safe-fill level when the level is at the safety stock (the plan's assumption)."""
         return max(0.0, tank.safe_fill_level - tank.safety_stock)
 
-    def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float) -> CorrectedStop:
+    def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float, gap: int) -> CorrectedStop:
         if not self._projected(tank.code, when):
             room = self._unread_room(tank)
             quantity = max(0.0, min(planned, room, free))
@@ -166,13 +170,13 @@ class Projection:
         state = self._states[tank.code]
         risk = _crossing(state, tank, when, self.zone)
         level = self._level_at(state, tank, when)
-        need = tank.demand_per_day * tank.cycle_days + tank.safety_stock - level
+        need = tank.demand_per_day * gap + tank.safety_stock - level
         room = tank.safe_fill_level - level
         quantity = max(0.0, min(need, room, free))
         after = _State(level + quantity, when)
         if risk is None:
             # Until 00:00 of the next planned delivery's day (a calendar date, whatever the clocks do).
-            following = day_start(when.astimezone(self.zone).date() + tank.cycle_days * DAY, self.zone)
+            following = day_start(when.astimezone(self.zone).date() + gap * DAY, self.zone)
             risk = _crossing(after, tank, following, self.zone)
         if risk is not None:
             self.run_outs.append(risk)
@@ -217,7 +221,9 @@ class Projection:
             reserved = sum(unread.values())
             for code, planned in kept:
                 reserved -= unread.get(code, 0.0)
-                stop = self._stop(self.tanks[code], planned, when, self.capacity - load - reserved)
+                tank = self.tanks[code]
+                gap = trip.next_days.get(code, tank.cycle_days)
+                stop = self._stop(tank, planned, when, self.capacity - load - reserved, gap)
                 load += stop.quantity
                 stops.append(stop)
             out.append(CorrectedTrip(trip.date, load, tuple(stops), dropped))

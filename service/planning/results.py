@@ -8,10 +8,18 @@ from dataclasses import dataclass, fields
 
 
 class Status(enum.IntEnum):
-    """Outcome of a joint computation (``OPTIMAL``: a policy is returned)."""
+    """Outcome of a joint computation.
+
+    ``OPTIMAL``: a plan proven optimal (its cost equals the bound to 1e-9 relative, or the class optimum
+    in the setting where the class is exact); ``FEASIBLE``: a drivable plan, optimality not proven;
+    ``TIME_LIMIT``: the deadline cut the search, the best drivable plan found is returned;
+    ``INFEASIBLE``: no plan satisfies the rules (``success`` false, ``needed`` says what would help).
+    """
 
     OPTIMAL = 0
+    FEASIBLE = 1
     INFEASIBLE = 2
+    TIME_LIMIT = 3
 
 
 def _plain(value):
@@ -62,14 +70,26 @@ class CycleResult(_ToDict):
 
 @dataclass(frozen=True)
 class SitePlan(_ToDict):
-    """One site in a joint policy; ``cost_per_day = k / T + H T`` (its stop and holding share)."""
+    """One site's delivery pattern in a joint plan.
+
+    The site is delivered on days ``o + j · period_days`` (day 0 = the plan's ``start_date``) for every
+    ``o`` in ``delivery_days`` (sorted, ``0 ≤ o < period_days``). ``cycle_days = period_days /
+    len(delivery_days)`` is the mean gap (a whole number for a plain cycle), ``offset_days =
+    delivery_days[0]``, ``quantity = d · cycle_days`` the mean delivery (each delivery is ``d`` times the
+    days to the next one), ``longest_gap_days`` the longest gap, and ``cost_per_day = (k · n + H Σ g²) /
+    period_days`` the site's stop and holding share (``H = h d / 2``, ``g`` the gaps; ``k / T + H T`` for a
+    plain cycle of ``T`` days).
+    """
 
     code: str
-    cycle_days: int
+    cycle_days: float
     offset_days: int
     quantity: float
     cost_per_day: float
     binding: str | None
+    period_days: int
+    delivery_days: tuple[int, ...]
+    longest_gap_days: int
 
 
 @dataclass(frozen=True)
@@ -82,44 +102,52 @@ class Stop(_ToDict):
 
 @dataclass(frozen=True)
 class Trip(_ToDict):
-    """One truck trip on ``day`` (day 0 = first day of the repeat period)."""
+    """One truck trip: ``day`` (days since the plan's start date), its ``date``, ``trip`` (1-based index
+    within the date), the load and the stops (in input order of the sites)."""
 
     day: int
+    date: dt.date
+    trip: int
     load: float
     stops: tuple[Stop, ...]
 
 
 @dataclass(frozen=True)
 class JointResult(_ToDict):
-    """A joint delivery policy for the sites of one truck (see ``docs/planning.md``).
+    """A drivable joint delivery plan for the sites of one truck (see ``docs/planning.md``).
 
     Attributes
     ----------
     status, success, message
-        ``Status.OPTIMAL`` with ``success=True`` when a policy is returned; otherwise
-        ``Status.INFEASIBLE``, ``success=False``, a message, zero costs and no sites.
+        See :class:`Status`; ``success`` is False only for ``INFEASIBLE`` (then zero costs, no sites,
+        no trips, and ``needed``).
     method : {"power_of_two", "integer"}
+        The policy family the plan's rhythm came from.
     base_days : int or None
-        Base ``B`` of the power-of-two cycles ``B 2**p``; ``None`` for the integer method.
+        Base of the power-of-two cycles (days, or working days on a working-day calendar); ``None``
+        for the integer method.
     dispatch_interval_days : int
-        ``T0 = min T_i``; the truck leaves every ``T0`` days.
+        Shortest gap in days between two consecutive trip dates of the repeat period (cyclically; 0
+        when infeasible).
     repeat_days : int
-        ``R = lcm(T_i)``.
+        ``R``: the plan repeats every ``R`` days (a whole number of weeks unless all seven days work).
     trips_per_repeat : int
-        Truck trips in one repeat period, ``R / T0 + extra_trips``.
+        Every trip of one repeat period.
     cost_per_day : float
-        ``K · trips_per_repeat / R + Σ k_i / T_i + Σ H_i T_i``.
+        ``(K · trips_per_repeat + Σ stop costs + Σ_i H_i Σ gaps²) / R`` over one repeat period, without
+        closed dates (the stationary cost).
     cost_breakdown : dict
         ``{"dispatch", "stops", "holding"}``, summing to ``cost_per_day``.
     lower_bound_per_day, gap : float
-        The relaxation bound and ``cost / bound - 1`` (0 when the bound is 0).
+        A lower bound on every drivable plan and ``cost / bound − 1`` (0 when the bound is 0).
     peak_load : float
-        Largest load of one dispatch day (all its trips together; the largest trip load
-        when no day needs an extra trip).
-    extra_trips : int
-        Trips per repeat period beyond one per dispatch day.
+        Largest load of one trip.
     trips_truncated : bool
         True when ``trips`` lists fewer days than ``R``.
+    start_date : datetime.date
+        Day 0.
+    needed : dict or None
+        When infeasible: ``{"trips_per_day": int or None, "remove_sites": [codes]}``.
     """
 
     status: Status
@@ -135,8 +163,9 @@ class JointResult(_ToDict):
     lower_bound_per_day: float
     gap: float
     peak_load: float
-    extra_trips: int
     trips_truncated: bool
     sites: tuple[SitePlan, ...]
     trips: tuple[Trip, ...]
     warnings: tuple[str, ...]
+    start_date: dt.date
+    needed: dict | None

@@ -16,7 +16,8 @@ or style, nothing from elsewhere), ``nosniff`` and ``no-store``. Errors are smal
 The data comes from :mod:`service.schedule`, the same module the weekly trips call uses.
 
 Modules: this one (blueprint, headers, error pages), :mod:`service.web.access` (sign-in, session,
-CSRF), :mod:`service.web.pages` (overview and site pages), :mod:`service.web.chart` (SVG),
+CSRF), :mod:`service.web.pages` (overview and site pages), :mod:`service.web.morning` (latest
+readings, lowest first, load sheets), :mod:`service.web.chart` (SVG),
 :mod:`service.web.formatting` (numbers and dates for people).
 """
 
@@ -87,7 +88,7 @@ def _unexpected(error: Exception) -> tuple[str, int]:
 
 def init_app(app: Flask) -> None:
     """Register the status page (its routes live in access.py and pages.py)."""
-    from service.web import access, pages  # noqa: F401, PLC0415 - importing registers the routes
+    from service.web import access, morning, pages  # noqa: F401, PLC0415 - importing registers the routes
 
     app.session_interface = access.SessionCookie()
     app.register_blueprint(bp)

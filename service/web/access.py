@@ -30,6 +30,7 @@ from service.errors import Problem
 from service.persistence import status_sessions
 from service.persistence.db import get_session
 from service.persistence.models import utcnow
+from service.schedule import level_state
 from service.web import bp, formatting, log, settings
 
 HERE = Path(__file__).resolve().parent
@@ -133,7 +134,14 @@ def status_csrf() -> str:
 @bp.context_processor
 def _template_values() -> dict[str, Any]:
     config = settings()
-    return {"unit": config.quantity_unit, "currency": config.currency, "caller": g.get("caller"), "fmt": formatting}
+    return {
+        "unit": config.quantity_unit,
+        "currency": config.currency,
+        "timezone": config.timezone,
+        "caller": g.get("caller"),
+        "fmt": formatting,
+        "level_state": level_state,
+    }
 
 
 @bp.get("/static/<path:filename>")

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+from zoneinfo import ZoneInfo
 
 GROUP = "\u00a0"
 
@@ -49,3 +50,29 @@ def weekday(value: dt.date) -> str:
 def iso_week_of(value: dt.date) -> str:
     year, week, _ = value.isocalendar()
     return f"{year}-W{week:02d}"
+
+
+def days(value: float | None) -> str:
+    """Days of stock with one decimal (``2.5``); ``–`` when there is none to count."""
+    if value is None or not math.isfinite(value):
+        return "–"
+    return number(value, 1)
+
+
+def age(then: dt.datetime, now: dt.datetime) -> str:
+    """How long ago, as a person says it: ``just now``, ``25 min ago``, ``3 h ago``, ``4 days ago``."""
+    minutes = int((now - then).total_seconds() // 60)
+    if minutes < 1:
+        return "just now"
+    if minutes < 60:
+        return f"{minutes} min ago"
+    if minutes < 48 * 60:
+        return f"{minutes // 60} h ago"
+    return f"{minutes // (24 * 60)} days ago"
+
+
+def moment(value: dt.datetime, zone: str, today: dt.date) -> str:
+    """A time in the service time zone: ``04:30`` today, ``2026-12-02 04:30`` on another day."""
+    local = value.astimezone(ZoneInfo(zone))
+    clock = local.strftime("%H:%M")
+    return clock if local.date() == today else f"{local.date().isoformat()} {clock}"

@@ -5,13 +5,14 @@ from __future__ import annotations
 import datetime as dt
 import re
 from typing import Any
+from zoneinfo import ZoneInfo
 
 from flask import render_template, request
 from markupsafe import Markup
 from sqlalchemy import select
 from sqlalchemy.exc import DBAPIError
 
-from service import bounded, schedule
+from service import bounded, schedule, working_calendar
 from service.api.fields import FIRST_DATE, LAST_DATE, WEEK_RANGE
 from service.auth import SESSION, allow
 from service.cache import LruCache
@@ -19,7 +20,8 @@ from service.errors import Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence.db import get_session, read_engine
-from service.persistence.models import Truck
+from service.persistence.models import Truck, utcnow
+from service.planning.projection import TOLERANCE
 from service.web import bp, error_page, formatting, log, settings
 from service.web.access import page
 from service.web.chart import chart_id, level_svg
@@ -28,17 +30,27 @@ CHART_DAYS = 28
 ASCII_WEEK = re.compile(r"[0-9]{4}-W[0-9]{2}")
 #: Per-process cache of the overview's week (HTML without the page around it, which names the
 #: person), keyed like the trips cache by the week, the day and the change stamp: a reload or a
-#: second person costs a lookup instead of a replay of every truck (seconds for 300 sites).
-WEEK_CACHE: LruCache[Markup] = LruCache(8)
+#: second person costs a lookup instead of a replay of every truck (seconds for 300 sites). Two
+#: parts (heading and warnings; the trucks), so the latest readings, whose age moves with the
+#: clock, are rendered fresh between them.
+WEEK_CACHE: LruCache[tuple[Markup, Markup]] = LruCache(8)
 
 #: Warning kinds: a word for the badge and an order (most urgent first).
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
     "limits_changed": ("Limits changed", 1),
+    "calendar": ("Closed date", 1),
     "no_active_plan": ("No active plan", 2),
     "plan_stale": ("Plan out of date", 3),
     "no_recent_reading": ("No recent reading", 4),
     "truck_not_shown": ("Not shown", 0),
+}
+#: What to do, said once after a warning whose message does not already say it (no "re-plan" in it).
+ACTIONS = {
+    "run_out_risk": "Check the tank's gauge; bring its delivery forward or re-plan.",
+    "limits_changed": "Re-plan to use the current limits.",
+    "no_active_plan": "Record a plan and activate it.",
+    "no_recent_reading": "Record a reading.",
 }
 
 
@@ -63,10 +75,15 @@ def overview() -> Any:
     if week_html is None:
         bounded.charge(bounded.HEAVY_READ)  # a cached week is free
         week_html = WEEK_CACHE.put(key, _week_html(db, week, monday, sunday, config))
-    return render_template("status_overview.html", week=week, week_html=week_html)
+    head, trucks = week_html
+    now = utcnow()
+    readings = schedule.stocks(db, now, config)
+    return render_template(
+        "status_overview.html", week=week, head=head, trucks=trucks, readings=readings, now=now, today=key[1]
+    )
 
 
-def _week_html(db: Any, week: str, monday: dt.date, sunday: dt.date, config: Any) -> Markup:
+def _week_html(db: Any, week: str, monday: dt.date, sunday: dt.date, config: Any) -> tuple[Markup, Markup]:
     trucks = list(db.scalars(select(Truck).where(Truck.active.is_(True)).order_by(Truck.code)))
     panels, warnings = [], []
     for truck in trucks:
@@ -79,19 +96,19 @@ def _week_html(db: Any, week: str, monday: dt.date, sunday: dt.date, config: Any
             panel = _broken_panel(truck)
         panels.append(panel)
         warnings.extend(panel["warnings"])
-    html = render_template(
-        "status_week.html",
-        week=week,
-        monday=monday,
-        sunday=sunday,
-        previous_week=formatting.iso_week_of(monday - dt.timedelta(days=7)),
-        next_week=formatting.iso_week_of(monday + dt.timedelta(days=7)),
-        this_week=schedule.current_week(config),
-        panels=panels,
-        warnings=_sorted_warnings(warnings),
-        chart_days=CHART_DAYS,
-    )
-    return Markup(html)  # rendered by our own autoescaping template
+    values = {
+        "week": week,
+        "monday": monday,
+        "sunday": sunday,
+        "previous_week": formatting.iso_week_of(monday - dt.timedelta(days=7)),
+        "next_week": formatting.iso_week_of(monday + dt.timedelta(days=7)),
+        "this_week": schedule.current_week(config),
+        "panels": panels,
+        "warnings": _sorted_warnings(warnings),
+        "chart_days": CHART_DAYS,
+    }
+    # Rendered by our own autoescaping template.
+    return tuple(Markup(render_template("status_week.html", part=part, **values)) for part in ("head", "trucks"))
 
 
 @bp.get("/sites/<code>")
@@ -105,7 +122,8 @@ def site_page(code: str) -> Any:
     except repo.NotFound as exc:
         raise Problem(404, "There is no site with this code.", title="Not found") from exc
     truck = db.get(Truck, site.truck_id)
-    first = schedule.today(config)
+    first, now = schedule.today(config), utcnow()
+    reading = plan_store.latest_readings(db, [site.id]).get(site.id)
     levels = schedule.site_levels(db, site, first, CHART_DAYS, config)
     label = f"{site.name} ({site.code})"
     chart = level_svg(levels, unit=config.quantity_unit, site_label=label, element_id=chart_id("chart", site.code))
@@ -123,6 +141,9 @@ def site_page(code: str) -> Any:
         has_level=any(v is not None for _, v in levels.days),
         warnings=_sorted_warnings(_group_limits(_dedupe(levels.notices))),
         week=formatting.iso_week_of(first),
+        reading=reading,
+        now=now,
+        today=first,
     )
 
 
@@ -149,7 +170,8 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     all_levels = schedule.truck_levels(db, truck, sites, monday, CHART_DAYS, config)
     for site in sites:
         levels = all_levels[site.code]
-        notices.extend(levels.notices)
+        # The week's calendar notices are the trips view's (one per date, naming every site).
+        notices.extend(n for n in levels.notices if n.kind != "calendar")
         label = f"{site.name} ({site.code})"
         charts.append(
             {
@@ -168,8 +190,73 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     if plan is None:  # the truck's own notice says it; one per site would only repeat it
         notices = [n for n in notices if _as_dict(n)["kind"] != "no_active_plan" or _as_dict(n)["site"] is None]
     warnings = [dict(w, truck=truck.code) for w in _group_readings(_group_limits(_dedupe(notices)), truck)]
+    readings = plan_store.latest_readings(db, [site.id for site in sites])
+    empty_reads = {
+        site.code: readings[site.id] for site in sites if site.id in readings and readings[site.id].level <= TOLERANCE
+    }
+    warnings = [_with_empty(w, all_levels.get(w["site"]), empty_reads.get(w["site"]), config) for w in warnings]
     gap = float(plan.gap) * 100 if plan is not None and plan.gap is not None else None
-    return {"truck": truck, "view": view, "plan": plan, "gap": gap, "charts": charts, "warnings": warnings}
+    safety = {code: levels.safety_stock for code, levels in all_levels.items()}
+    notes = {
+        (trip.date, trip.trip, stop.site): _stop_notes(stop, safety.get(stop.site, 0.0))
+        for trip in (view.trips if view is not None else ())
+        for stop in trip.stops
+    }
+    return {
+        "truck": truck,
+        "calendar": working_calendar.Calendar.of(truck).describe(),
+        "view": view,
+        "plan": plan,
+        "gap": gap,
+        "charts": charts,
+        "warnings": warnings,
+        "notes": notes,
+    }
+
+
+def _with_empty(
+    warning: dict[str, Any], levels: schedule.SiteLevels | None, empty_read: Any, config: Any
+) -> dict[str, Any]:
+    """A run-out warning also says when the tank is empty: its latest reading was 0, or it is
+    projected at 0 at 00:00 of a day the charts reach. Falling below the safety stock and running
+    empty are different things."""
+    if warning["kind"] != "run_out_risk" or warning["date"] is None:
+        return warning
+    message = warning["message"].rstrip(".")
+    if empty_read is not None:
+        at = empty_read.measured_at.astimezone(ZoneInfo(config.timezone))
+        when = f"{at:%H:%M} that day" if at.date() == warning["date"] else f"{at:%Y-%m-%d %H:%M}"
+        return dict(warning, message=f"{message}; it read 0 {config.quantity_unit} (empty) at {when}.")
+    days = levels.days if levels is not None else ()
+    empty = next((d for d, v in days if d >= warning["date"] and v is not None and v <= TOLERANCE), None)
+    if empty is None:
+        return warning
+    return dict(warning, message=f"{message}, and empty by {empty.isoformat()}.")
+
+
+def _stop_notes(stop: schedule.PlannedStop, safety_stock: float) -> list[dict[str, str]]:
+    """A stop's notes in the trips table. A run-out risk is said in the warnings with the site, date
+    and what to do; beside the stop a few words say whether the tank is projected empty or below its
+    safety stock before this delivery, or when it falls below it after. Limit changes keep their
+    message (it explains the quantity)."""
+    out = []
+    for notice in stop.notices:
+        if notice.kind != "run_out_risk":
+            out.append({"kind": notice.kind, "text": notice.message})
+            continue
+        state = schedule.level_state(stop.projected_level_before, safety_stock)
+        if state in ("empty", "below safety stock"):
+            text = f"{state} before this delivery"
+        else:
+            text = f"below safety stock from {notice.date.isoformat()}, before the next delivery"
+        out.append({"kind": notice.kind, "text": text})
+    return out
+
+
+def sheet_warnings(sheet: schedule.TruckSheet, truck: Truck) -> list[dict[str, Any]]:
+    """A load sheet's warnings: its trips' stop notices and the plan's notices about them, each once."""
+    notices = [*sheet.notices, *(n for trip in sheet.trips for s in trip.stops for n in s.stop.notices)]
+    return _sorted_warnings(_group_readings(_group_limits(_dedupe(notices)), truck))
 
 
 def _broken_panel(truck: Truck) -> dict[str, Any]:
@@ -181,6 +268,7 @@ def _broken_panel(truck: Truck) -> dict[str, Any]:
     )
     return {
         "truck": truck,
+        "calendar": None,
         "view": None,
         "plan": None,
         "gap": None,
@@ -255,7 +343,26 @@ def _sorted_warnings(notices: list[dict[str, Any]]) -> list[dict[str, Any]]:
         order = NOTICE_KINDS.get(notice["kind"], (notice["kind"], 9))[1]
         return (order, notice["date"] or dt.date.max, notice.get("truck") or "", notice["site"] or "")
 
-    return [
-        dict(n, label=NOTICE_KINDS.get(n["kind"], (n["kind"].replace("_", " ").capitalize(), 9))[0])
-        for n in sorted(notices, key=key)
-    ]
+    return [_worded(n) for n in sorted(notices, key=key)]
+
+
+def _worded(notice: dict[str, Any]) -> dict[str, Any]:
+    """The badge's word, the site code in the message as a link (``before``, ``after``), what to do,
+    and the truck, site and date shown beside the message only when it does not already name them."""
+    message, site = notice["message"], notice["site"]
+    before, after = message, None
+    if site and site in message:  # "Name (CODE)" where the message has it, else the first mention
+        at = message.find(f"({site})") + 1 or message.find(site)
+        before, after = message[:at], message[at + len(site) :]
+    action = ACTIONS.get(notice["kind"])
+    truck = notice.get("truck")
+    return dict(
+        notice,
+        label=NOTICE_KINDS.get(notice["kind"], (notice["kind"].replace("_", " ").capitalize(), 9))[0],
+        before=before,
+        after=after,
+        action=action if action and "re-plan" not in message.lower() else None,
+        show_truck=bool(truck) and truck not in message,
+        show_site=bool(site) and after is None,
+        show_date=notice["date"] is not None and notice["date"].isoformat() not in message,
+    )

@@ -58,6 +58,7 @@ TRUCK_NUMBERS = {
     "dispatch_cost": (True, False, False, False),
     "capacity": (True, True, False, False),
     "max_stops": (False, True, False, True),
+    "trips_per_day": (False, True, False, True),
 }
 NULLABLE = {"latitude", "longitude", "max_stops"}
 

@@ -194,7 +194,7 @@ def test_a_replayed_plan_is_not_counted(client_with, auth, demo, mid_window):
     first = client.post(path, json={}, headers=auth("dispatcher", **{"Idempotency-Key": '"one"'}))
     assert first.status_code == 201
     replay = client.post(path, json={}, headers=auth("dispatcher", **{"Idempotency-Key": '"one"'}))
-    assert replay.status_code == 201 and replay.headers["Idempotent-Replayed"] == "true"
+    assert replay.status_code == 201 and replay.headers["Ullage-Replayed"] == "true"
     assert replay.get_json() == first.get_json()
     refused = client.post(path, json={}, headers=auth("dispatcher", **{"Idempotency-Key": '"two"'}))
     assert refused.status_code == 429 and 1 <= int(refused.headers["Retry-After"]) <= 60

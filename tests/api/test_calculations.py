@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 
 import pytest
-from contract import JOINT_FIELDS
+from contract import JOINT_FIELDS, JOINT_SITE_FIELDS, UNCONSTRAINED_CALENDAR
 from sqlalchemy import func, select
 
 from service.persistence.models import IdempotencyRecord, Plan, PlanSite, Reading, Site, Truck
@@ -162,10 +162,11 @@ def test_joint_contract_field_names(client, auth, db_session):
     assert isinstance(body["warnings"], list) and isinstance(body["trips_truncated"], bool)
     assert len(body["sites"]) == 5
     for site in body["sites"]:
-        assert set(site) == {"code", "cycle_days", "offset_days", "quantity", "cost_per_day", "binding"}
+        assert set(site) == JOINT_SITE_FIELDS
+    assert body["status"] in ("optimal", "feasible") and body["needed"] is None
     assert body["trips"]
     for trip in body["trips"]:
-        assert set(trip) == {"day", "load", "stops"}
+        assert set(trip) == {"day", "date", "trip", "load", "stops"}
         assert 0 <= trip["day"] < body["repeat_days"]
         for stop in trip["stops"]:
             assert set(stop) == {"code", "quantity"}
@@ -196,7 +197,8 @@ def test_joint_breakdown_sums_to_cost_and_bound(client, auth):
 
 
 def test_joint_fixed_base_days(client, auth):
-    response = client.post(JOINT, json=joint_body(3, method="power_of_two", base_days=2), headers=auth("admin"))
+    body = joint_body(3, method="power_of_two", base_days=2, **UNCONSTRAINED_CALENDAR)
+    response = client.post(JOINT, json=body, headers=auth("admin"))
     assert response.status_code == 200
     body = response.get_json()
     assert body["base_days"] == 2

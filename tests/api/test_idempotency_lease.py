@@ -112,7 +112,7 @@ def test_a_plan_slower_than_the_lease_runs_once_and_the_first_retry_after_it_get
         assert response.status_code == 409 and response.mimetype == "application/problem+json"
         assert int(response.headers["Retry-After"]) >= 1
         assert sent < original["answered"], "a retry sent after the plan was recorded still got 409"
-    assert last.status_code == 201 and last.headers.get("Idempotent-Replayed") == "true"
+    assert last.status_code == 201 and last.headers.get("Ullage-Replayed") == "true"
     assert last.get_json() == first.get_json()
     assert last.headers["Location"] == first.headers["Location"]
     assert plans_count(db_session) == 1

@@ -131,7 +131,7 @@ def test_50_requests_10_keys_make_10_plans(servers, auth, network, db_session):
         select(func.count()).select_from(IdempotencyRecord).where(IdempotencyRecord.state == "done")
     )
     assert done == 10
-    replayed = sum(1 for _k, _s, r in results if r.headers.get("Idempotent-Replayed") == "true")
+    replayed = sum(1 for _k, _s, r in results if r.headers.get("Ullage-Replayed") == "true")
     assert replayed == 40
 
 

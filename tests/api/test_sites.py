@@ -267,7 +267,7 @@ def test_codes_made_only_of_dots_are_refused(client, auth, trucks, db_session, c
     csv_body = f"code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity\n{code},x,T1,1,0,0,10\n"
     imported = client.post(f"{BASE}/import", data=csv_body, headers=auth("admin"), content_type="text/csv")
     assert imported.status_code == 422, imported.get_json()
-    assert [e["pointer"] for e in imported.get_json()["errors"]] == ["#/rows/1/code"]
+    assert [e["pointer"] for e in imported.get_json()["errors"]] == ["#/rows/2/code"]
     created = client.post("/api/v1/trucks", json=truck(code), headers=auth("admin"))
     assert created.status_code == 422 and created.get_json()["errors"][0]["pointer"] == "#/code"
     assert count(db_session) == 0 and count(db_session, Truck) == 2

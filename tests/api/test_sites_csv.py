@@ -45,14 +45,14 @@ def count(db_session) -> int:
 
 def test_fifty_rows_with_one_bad_row_write_nothing_and_name_row_and_column(client, auth, trucks, db_session):
     lines = [HEADER, *rows(50)]
-    lines[37] = lines[37].replace(",137.0,", ",-5,")  # data row 37: a negative demand
+    lines[37] = lines[37].replace(",137.0,", ",-5,")  # data row 37: row 38 of a spreadsheet (header = row 1)
     assert ",-5," in lines[37]
     response = post_csv(client, auth, lines)
     assert response.status_code == 422, response.get_json()
     assert response.mimetype == "application/problem+json"
     body = response.get_json()
-    assert [e["pointer"] for e in body["errors"]] == ["#/rows/37/demand_per_day"]
-    assert "Row 37" in body["errors"][0]["detail"] and "37" in body["detail"]
+    assert [e["pointer"] for e in body["errors"]] == ["#/rows/38/demand_per_day"]
+    assert "Row 38" in body["errors"][0]["detail"] and "38" in body["detail"]
     assert count(db_session) == 0
 
 
@@ -67,12 +67,12 @@ def test_every_bad_row_and_column_is_named(client, auth, trucks, db_session):
     assert response.status_code == 422
     pointers = {e["pointer"] for e in response.get_json()["errors"]}
     assert pointers == {
-        "#/rows/2/truck",
-        "#/rows/5/safety_stock",
-        "#/rows/7/holding_cost",
-        "#/rows/7/active",
-        "#/rows/9/code",
-        "#/rows/10/latitude",
+        "#/rows/3/truck",
+        "#/rows/6/safety_stock",
+        "#/rows/8/holding_cost",
+        "#/rows/8/active",
+        "#/rows/10/code",
+        "#/rows/11/latitude",
     }
     assert count(db_session) == 0
 
@@ -87,7 +87,7 @@ def test_dry_run_writes_nothing_and_reports_counts(client, auth, trucks, db_sess
     assert count(db_session) == 3
     assert db_session.scalars(select(Site.name).where(Site.code == "S001")).one() == "Site 1"
     bad = post_csv(client, auth, [HEADER, "X,,T1,1,0,0,1,0.9,0,true,,"], "?dry_run=true")
-    assert bad.status_code == 422 and bad.get_json()["errors"][0]["pointer"] == "#/rows/1/name"
+    assert bad.status_code == 422 and bad.get_json()["errors"][0]["pointer"] == "#/rows/2/name"
 
 
 def test_import_creates_then_updates_with_version_bump(client, auth, trucks, db_session):
@@ -141,7 +141,7 @@ def test_unit_conversion_into_a_gallon_service(database_url, tokens, db_session)
         )
         assert client.post(IMPORT, data=body, headers=headers, content_type="text/csv").status_code == 200
         bad = client.post(IMPORT, data=body.replace(",L\n", ",barrel\n"), headers=headers, content_type="text/csv")
-        assert bad.status_code == 422 and bad.get_json()["errors"][0]["pointer"] == "#/rows/1/unit"
+        assert bad.status_code == 422 and bad.get_json()["errors"][0]["pointer"] == "#/rows/2/unit"
     finally:
         dispose(app)
     site = db_session.scalars(select(Site)).one()
@@ -164,7 +164,7 @@ def test_header_problems_are_named(client, auth, trucks, db_session):
     }
     assert post_csv(client, auth, [HEADER]).status_code == 422  # no rows
     extra_cell = post_csv(client, auth, [HEADER, rows(1)[0] + ",surprise"])
-    assert extra_cell.get_json()["errors"][0]["pointer"] == "#/rows/1"
+    assert extra_cell.get_json()["errors"][0]["pointer"] == "#/rows/2"
     assert count(db_session) == 0
 
 
@@ -320,8 +320,8 @@ def test_csv_numbers_must_be_plain_ascii_decimals(client, auth, trucks, db_sessi
     response = post_csv(client, auth, [HEADER, line])
     assert response.status_code == 422, response.get_json()
     errors = response.get_json()["errors"]
-    assert [e["pointer"] for e in errors] == ["#/rows/1/demand_per_day"]
-    assert "Row 1, demand_per_day" in errors[0]["detail"] and "plain number" in errors[0]["detail"]
+    assert [e["pointer"] for e in errors] == ["#/rows/2/demand_per_day"]
+    assert "Row 2, demand_per_day" in errors[0]["detail"] and "plain number" in errors[0]["detail"]
     assert count(db_session) == 0
 
 

@@ -7,15 +7,17 @@ import itertools
 from collections import Counter
 
 import pytest
+from contract import UNCONSTRAINED_CALENDAR
 
 START = dt.date(2026, 12, 7)  # Monday of ISO week 2026-W50
-TRIP_FIELDS = {"date", "load", "stops"}
+TRIP_FIELDS = {"date", "trip", "load", "stops"}
 STOP_FIELDS = {"site", "planned_quantity", "quantity", "projected_level_before", "warnings"}
 
 
 @pytest.fixture
 def network(client, auth):
     truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
+    truck |= UNCONSTRAINED_CALENDAR  # these tests are about the listing, not the calendar
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     assert client.post("/api/v1/trucks", json=truck | {"code": "T2"}, headers=auth("admin")).status_code == 201
     for i, demand in enumerate((300.0, 120.0, 650.0, 90.0)):

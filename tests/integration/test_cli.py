@@ -75,6 +75,23 @@ def test_duplicate_token_name_fails(env_db, capsys, db_session):
     assert db_session.scalars(select(Token.role).where(Token.name == "ops")).all() == ["viewer"]
 
 
+def test_if_none_creates_a_token_only_while_no_active_one_of_the_role_exists(env_db, capsys, db_session):
+    """`make run` creates its admin token with --if-none: a new one only when none is active."""
+    assert cli.main(["token", "create", "first", "--role", "admin", "--if-none"]) == 0
+    assert capsys.readouterr().out.rstrip().splitlines()[-1].startswith("ull_")
+    assert cli.main(["token", "create", "second", "--role", "admin", "--if-none"]) == 0
+    captured = capsys.readouterr()
+    assert captured.out == ""
+    assert "ullage token revoke NAME" in captured.err and "ullage token list" in captured.err
+    assert cli.main(["token", "create", "viewer-1", "--role", "viewer", "--if-none"]) == 0  # another role
+    assert capsys.readouterr().out.rstrip().splitlines()[-1].startswith("ull_")
+    assert cli.main(["token", "revoke", "first"]) == 0
+    assert cli.main(["token", "create", "third", "--role", "admin", "--if-none"]) == 0
+    assert capsys.readouterr().out.rstrip().splitlines()[-1].startswith("ull_")
+    names = set(db_session.scalars(select(Token.name).where(Token.role == "admin")))
+    assert names == {"first", "third"}
+
+
 def test_unknown_role_is_refused(env_db, capsys):
     with pytest.raises(SystemExit) as exc:
         cli.main(["token", "create", "ops", "--role", "root"])
@@ -277,7 +294,7 @@ def test_a_backup_taken_while_plans_are_written_restores_every_acknowledged_plan
         replay = copy.post(
             "/api/v1/trucks/HV-R1/plans", json={}, headers=auth("dispatcher", **{"Idempotency-Key": "w0-1"})
         )
-        assert replay.status_code == 201 and replay.headers.get("Idempotent-Replayed") == "true"
+        assert replay.status_code == 201 and replay.headers.get("Ullage-Replayed") == "true"
     finally:
         dispose(restored)
 

@@ -15,18 +15,18 @@ from service.planning import plan_joint as real_plan_joint
 RUNAWAY_SECONDS = 30.0
 
 
-def runaway(sites, truck, *, method="best", base_days=None):  # type: ignore[no-untyped-def]
-    """Today's signature (no ``deadline_seconds``), busy on the CPU for ``RUNAWAY_SECONDS``."""
+def runaway(sites, truck, *, method="best", base_days=None, start_date=None):  # type: ignore[no-untyped-def]
+    """A planner without ``deadline_seconds``, busy on the CPU for ``RUNAWAY_SECONDS``."""
     end = time.monotonic() + RUNAWAY_SECONDS
     spins = 0
     while time.monotonic() < end:
         spins += 1
-    return real_plan_joint(sites, truck, method=method, base_days=base_days)
+    return real_plan_joint(sites, truck, method=method, base_days=base_days, start_date=start_date)
 
 
-def anytime(sites, truck, *, method="best", base_days=None, deadline_seconds=None):  # type: ignore[no-untyped-def]
+def anytime(sites, truck, *, method="best", base_days=None, start_date=None, deadline_seconds=None):  # type: ignore[no-untyped-def]
     """A planner that takes a deadline: the real plan, with a warning naming the deadline it got."""
-    result = real_plan_joint(sites, truck, method=method, base_days=base_days)
+    result = real_plan_joint(sites, truck, method=method, base_days=base_days, start_date=start_date)
     return replace(result, warnings=(*result.warnings, f"deadline_seconds={deadline_seconds!r}"))
 
 
@@ -34,7 +34,7 @@ def anytime(sites, truck, *, method="best", base_days=None, deadline_seconds=Non
 SLOW_SECONDS = 5.0
 
 
-def slow(sites, truck, *, method="best", base_days=None):  # type: ignore[no-untyped-def]
+def slow(sites, truck, *, method="best", base_days=None, start_date=None):  # type: ignore[no-untyped-def]
     """The real plan, ``SLOW_SECONDS`` late (a computation longer than a shortened lease)."""
     time.sleep(SLOW_SECONDS)
-    return real_plan_joint(sites, truck, method=method, base_days=base_days)
+    return real_plan_joint(sites, truck, method=method, base_days=base_days, start_date=start_date)

@@ -36,7 +36,7 @@ def small_joint() -> bytes:
 
 
 def heavy_joint(n: int = 300) -> bytes:
-    """Random tanks on a truck with load and stop limits: today's planner needs minutes for this."""
+    """Random tanks on a truck with load and stop limits: more than the planning budget of the tests."""
     rng = np.random.default_rng(11)
     demand = rng.uniform(50, 5000, n)
     days = np.exp(rng.uniform(math.log(3), math.log(60), n))
@@ -56,7 +56,7 @@ def heavy_joint(n: int = 300) -> bytes:
 def post(connection: http.client.HTTPConnection, token: str, body: bytes) -> http.client.HTTPResponse:
     connection.request("POST", JOINT, body=body, headers=bearer(token, **{"Content-Type": "application/json"}))
     response = connection.getresponse()
-    response.read()
+    response.body = response.read()  # type: ignore[attr-defined]
     return response
 
 
@@ -140,6 +140,7 @@ def test_the_weekly_call_answers_while_planning_requests_outnumber_the_threads(t
         weekly = server.url(f"/api/v1/trucks/{TRUCK}/trips?week={iso.year}-W{iso.week:02d}")
         body, stop = heavy_joint(), threading.Event()
         heavy: list[tuple[int, str]] = []
+        planned: list[str] = []  # the joint status of each 200 answer
 
         def plan_forever(token: str) -> None:
             connection = http.client.HTTPConnection(HOST, server.port, timeout=60)
@@ -147,6 +148,8 @@ def test_the_weekly_call_answers_while_planning_requests_outnumber_the_threads(t
                 answer = post(connection, token, body)
                 kind = answer.getheader("Content-Type", "")
                 heavy.append((answer.status, kind))
+                if answer.status == 200:
+                    planned.append(json.loads(answer.body)["status"])
                 if answer.getheader("Retry-After"):
                     stop.wait(int(answer.getheader("Retry-After")))
             connection.close()
@@ -169,10 +172,14 @@ def test_the_weekly_call_answers_while_planning_requests_outnumber_the_threads(t
                 thread.join(30)
         assert weekly_statuses and set(weekly_statuses) == {200}, weekly_statuses
         statuses = {status for status, _ in heavy}
-        assert statuses <= {503, 429}, heavy  # planning busy or stopped at its limit; never a 500
-        assert all(kind == "application/problem+json" for _, kind in heavy)
+        # The anytime planner's best plan by its deadline (200), planning busy or stopped at its hard
+        # limit (503), or the per-token limit (429); never a 500.
+        assert statuses <= {200, 503, 429}, heavy
+        assert all(kind == ("application/json" if status == 200 else "application/problem+json") for status, kind in heavy)
+        assert set(planned) <= {"time_limit", "feasible", "optimal", "infeasible"}, planned
         log = server.log()
-        assert "computation stopped at its hard limit" in log  # the budget did stop computations
+        # The budget did stop computations: the planner at its deadline, or the pool at the hard limit.
+        assert "time_limit" in planned or "computation stopped at its hard limit" in log, (planned, heavy[:20])
         assert "Traceback" not in log and "WORKER TIMEOUT" not in log
     finally:
         server.stop()

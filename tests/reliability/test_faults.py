@@ -353,7 +353,7 @@ def test_postgres_restart_during_requests(tmp_path, own_postgres):
         # A retried acknowledged key replays, it does not record again.
         for key in list(acked)[:5]:
             replay = post_plan(server, tokens["dispatcher"], key)
-            assert replay.status_code == 201 and replay.headers.get("Idempotent-Replayed") == "true"
+            assert replay.status_code == 201 and replay.headers.get("Ullage-Replayed") == "true"
         assert len(plan_rows(url)) == len(plans)
     finally:
         assert server.stop() == 0

@@ -54,6 +54,8 @@ POSITIVE_ALSO = {
     "DELETE /api/v1/sites/{code}": (412,),
     "PATCH /api/v1/trucks/{code}": (412,),
     "DELETE /api/v1/trucks/{code}": (412,),
+    # The optional If-Match of an activation: a generated tag never equals the plan's current ETag.
+    "POST /api/v1/plans/{plan_id}/activate": (412,),
     # Cross-field physics: usable stock (tank_capacity × safe_fill − safety_stock, capped by the
     # truck) must hold at least one day of demand; a relation between fields, not a field bound.
     "POST /api/v1/calculations/cycle": (422,),

@@ -83,7 +83,7 @@ def test_an_impatient_client_gets_the_one_computation_on_its_first_retry_after_i
         assert first is None, "the first request should have outlasted the client's patience"
         *waiting, (last_sent, last) = retries
         assert last is not None and last.status_code == 201, [r and r.status_code for _, r in attempts]
-        assert last.headers.get("Idempotent-Replayed") == "true"
+        assert last.headers.get("Ullage-Replayed") == "true"
         for sent, response in waiting:
             # Answered at once (no timeout), told to come back; never a second computation.
             assert response is not None, f"a retry sent {sent - first_sent:.1f} s in got no answer within 1 s"

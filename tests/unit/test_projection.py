@@ -1,8 +1,8 @@
 """service.planning.projection: corrected quantities and run-out dates, computed by hand (pure, no DB).
 
 Rules (issue 4 §4 and the module docstring): level(D) = max(0, L − d·(t_D − t_r)) at 00:00 of the
-delivery day; quantity = clamp(d·T + s − level, 0, min(F − level, free space)); without a reading the
-planned quantity.
+delivery day; quantity = clamp(d·g + s − level, 0, min(F − level, free space)) with g the days to the
+site's next delivery (the cycle T where the trip does not say); without a reading the planned quantity.
 """
 
 from __future__ import annotations
@@ -44,6 +44,21 @@ def test_quantity_keeps_site_above_safety_stock_until_next_delivery():
     assert stop.planned_quantity == 3000.0
     assert trip.load == pytest.approx(2400.0)
     assert stop.run_out is None and p.run_outs == []
+
+
+def test_quantity_lasts_the_gap_to_the_next_listed_delivery_not_the_mean_cycle():
+    """Rule 2 on a working calendar: a Friday delivery on Monday to Friday lasts three days, not the
+    mean gap. Same tank as above (level 1100 on day 3) with its next delivery 3 days later."""
+    p = Projection([tank(T=2)], 18000.0, UTC)
+    friday = PlannedTrip(day(3), (("A", 3000.0),), {"A": 3})
+    stop = p.correct([friday])[0].stops[0]
+    # need = 300·3 + 500 − 1100 = 300 (by hand); with the mean T = 2 it would be 0 and the tank would
+    # cross its safety stock before Monday.
+    assert stop.quantity == pytest.approx(300.0)
+    assert stop.run_out is None and p.run_outs == []
+    # A site the trip does not give a gap for keeps the cycle: need = 300·2 + 500 − 1100 = 0.
+    p = Projection([tank(T=2)], 18000.0, UTC)
+    assert p.correct([PlannedTrip(day(3), (("A", 3000.0),))])[0].stops[0].quantity == pytest.approx(0.0)
 
 
 def test_never_negative_when_level_is_high():

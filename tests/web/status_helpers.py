@@ -97,9 +97,9 @@ def today(app) -> dt.date:
     return schedule.today(app.config["ULLAGE_SETTINGS"])
 
 
-def record_plan(client, auth, truck: str, start: dt.date) -> int:
+def record_plan(client, auth, truck: str, start: dt.date, **options) -> int:
     response = client.post(
-        f"/api/v1/trucks/{truck}/plans", json={"start_date": start.isoformat()}, headers=auth("dispatcher")
+        f"/api/v1/trucks/{truck}/plans", json={"start_date": start.isoformat(), **options}, headers=auth("dispatcher")
     )
     assert response.status_code == 201, response.get_data(as_text=True)
     plan_id = response.get_json()["id"]

@@ -6,6 +6,7 @@ Skipped only when Chromium or Playwright is missing *and* ``CI`` is unset; in CI
 from __future__ import annotations
 
 import datetime as dt
+import io
 import os
 import socket
 import subprocess
@@ -37,6 +38,8 @@ CHROMIUM_ARGS = [
 ]
 SITE = "HV-GAR-02"
 TRUCK = "HV-R1"
+OTHER_TRUCK = "HV-R2"
+EMPTY_SITE = "HV-HTG-06"  # read 0 L
 
 
 def _missing(reason: str) -> None:
@@ -59,7 +62,8 @@ def _cli(env: dict[str, str], *args: str) -> str:
 
 @pytest.fixture(scope="module")
 def server(tmp_path_factory: pytest.TempPathFactory):
-    """A prepared SQLite file (migrated, demo, a token, an active plan, readings) and gunicorn serving it."""
+    """A prepared SQLite file (migrated, demo, a token, an active plan per truck, readings, one of
+    them 0 L) and gunicorn serving it."""
     if not CHROMIUM.exists():
         _missing("/usr/bin/chromium is not installed (apt-get install chromium chromium-driver)")
     try:
@@ -104,16 +108,17 @@ def server(tmp_path_factory: pytest.TempPathFactory):
         api = requests.Session()
         api.trust_env = False
         api.headers["Authorization"] = f"Bearer {token}"
-        created = api.post(f"{base}/api/v1/trucks/{TRUCK}/plans", json={}, timeout=30)
-        assert created.status_code == 201, created.text
-        activated = api.post(f"{base}/api/v1/plans/{created.json()['id']}/activate", timeout=30)
-        assert activated.status_code == 200, activated.text
+        for truck in (TRUCK, OTHER_TRUCK):
+            created = api.post(f"{base}/api/v1/trucks/{truck}/plans", json={}, timeout=30)
+            assert created.status_code == 201, created.text
+            activated = api.post(f"{base}/api/v1/plans/{created.json()['id']}/activate", timeout=30)
+            assert activated.status_code == 200, activated.text
         now = dt.datetime.now(dt.UTC) - dt.timedelta(hours=20)  # read yesterday, before today's trip
         for site, level in (
             ("HV-GAR-02", 300.0),
             ("HV-DEP-01", 31000.0),
             ("HV-GAR-03", 5200.0),
-            ("HV-HTG-06", 4100.0),
+            (EMPTY_SITE, 0.0),
             ("HV-IND-07", 9000.0),
             ("HV-MAR-08", 2500.0),
         ):
@@ -176,8 +181,9 @@ def test_sign_in_week_trips_and_site_chart_in_chromium(server):
             assert page.locator(".warnings-card").is_visible()
             assert page.locator(".warning").count() >= 2
             assert "Run-out risk" in page.locator(".warnings").inner_text()
-            table = page.locator("table.trips")
-            assert table.count() == 1
+            panel = page.locator("section.truck").filter(has=page.locator("h2", has_text=TRUCK))
+            table = panel.locator("table.trips")
+            assert page.locator("table.trips").count() == 2 and table.count() == 1
             rows = table.locator("tbody tr")
             assert rows.count() == len(trips) > 0
             for index, trip in enumerate(trips):
@@ -216,3 +222,101 @@ def test_sign_in_week_trips_and_site_chart_in_chromium(server):
             browser.close()
     assert not [m for m in problems if "Content Security Policy" in m or "failed:" in m], problems
     assert os.path.getsize(ARTIFACTS / "status-overview.png") > 10_000
+
+
+def _non_blank(path: Path) -> None:
+    """The picture shows something: its grey levels vary (a blank page has one level, variance 0)."""
+    from PIL import Image, ImageStat  # noqa: PLC0415
+
+    with Image.open(path) as image:
+        grey = image.convert("L")
+        assert grey.width > 300 and grey.height > 300, grey.size
+        assert ImageStat.Stat(grey).var[0] > 100, f"{path.name} looks blank"
+
+
+def _pdf_pages(pdf: bytes) -> list[str]:
+    """The text of each page of a PDF."""
+    from pypdf import PdfReader  # noqa: PLC0415
+
+    return [" ".join((page.extract_text() or "").split()) for page in PdfReader(io.BytesIO(pdf)).pages]
+
+
+def test_latest_readings_lowest_first_and_load_sheets_print_one_a4_page_per_truck(server):
+    """The morning views in Chromium: the overview's latest readings (the 0 L tank plainly), the
+    lowest-first view, and the load sheets printed to PDF: one A4 page per truck with trips that
+    day; the overview prints without its charts on few pages. Screenshots go to tests/artifacts."""
+    from playwright.sync_api import sync_playwright  # noqa: PLC0415
+
+    base, api = server["base"], server["api"]
+    today = schedule.today(load_settings(environ=server["env"]))
+    window = {"from": (today + dt.timedelta(days=1)).isoformat(), "to": (today + dt.timedelta(days=28)).isoformat()}
+    days = [
+        {t["date"] for t in api.get(f"{base}/api/v1/trucks/{truck}/trips", params=window, timeout=30).json()["trips"]}
+        for truck in (TRUCK, OTHER_TRUCK)
+    ]
+    assert days[0] & days[1], "both demo trucks have a trip on some day of the next four weeks"
+    day = min(days[0] & days[1])
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            context = browser.new_context(viewport={"width": 1366, "height": 900}, java_script_enabled=False)
+            page = context.new_page()
+            page.goto(f"{base}/status")
+            page.fill("#token", server["token"])
+            page.click("button[type=submit]")
+            page.wait_for_load_state()
+
+            # The overview: each site's latest reading; the 0 L tank says so plainly.
+            row = page.locator("table.readings tbody tr").filter(has_text=EMPTY_SITE)
+            reading = row.locator("td.reading").inner_text()
+            assert reading.startswith("0\u00a0L at ") and "h ago" in reading and "empty when read" in reading
+            assert page.locator("table.readings tbody tr").count() == 16
+            overview_pdf = _pdf_pages(page.pdf(format="A4", print_background=True))
+            assert len(overview_pdf) <= 3, len(overview_pdf)  # the charts stay on screen
+            assert "Latest readings" in " ".join(overview_pdf) and "planning aid" in overview_pdf[0]
+
+            # Lowest first: the empty tank at the top, the unread ones last, the next delivery beside each.
+            page.click("nav.pages a:text-is('Lowest first')")
+            page.wait_for_load_state()
+            assert page.url.endswith("/status/lowest")
+            rows = page.locator("table.lowest tbody tr")
+            assert rows.count() == 16
+            first = rows.nth(0).inner_text()
+            assert EMPTY_SITE in first or SITE in first  # the two tanks read at (nearly) nothing
+            assert "empty" in first and "to deliver" in first
+            assert "no reading on record" in rows.nth(15).inner_text()
+            # Every column fits a laptop's width: the table does not scroll sideways.
+            assert page.locator(".table-wrap").evaluate("e => e.scrollWidth <= e.clientWidth + 1")
+            page.screenshot(path=str(ARTIFACTS / "status-lowest.png"), full_page=True)
+            _non_blank(ARTIFACTS / "status-lowest.png")
+
+            # The load sheets of a day both trucks drive: one A4 page each when printed.
+            page.goto(f"{base}/status/load-sheet?date={day}")
+            sheets = page.locator("section.sheet")
+            assert sheets.count() == 2
+            for index, truck in enumerate((TRUCK, OTHER_TRUCK)):
+                text = sheets.nth(index).inner_text()
+                assert f"Load sheet · {truck}" in text and day in text
+                assert "Stops, not in driving order" in text and "Total load" in text and "planning aid" in text
+            pdf = page.pdf(format="A4", print_background=True)
+            (ARTIFACTS / "status-load-sheets.pdf").write_bytes(pdf)
+            printed = _pdf_pages(pdf)
+            assert len(printed) == 2, [p[:80] for p in printed]
+            for text, truck in zip(printed, (TRUCK, OTHER_TRUCK), strict=True):
+                assert f"Load sheet · {truck}" in text and "Total load" in text and "planning aid" in text
+            # One sheet as it prints: A4 at 96 dpi is 794 px wide.
+            page.emulate_media(media="print")
+            page.set_viewport_size({"width": 794, "height": 1123})
+            sheets.nth(0).screenshot(path=str(ARTIFACTS / "status-load-sheet.png"))
+            _non_blank(ARTIFACTS / "status-load-sheet.png")
+            page.emulate_media(media="screen")
+            page.set_viewport_size({"width": 1366, "height": 900})
+            page.screenshot(path=str(ARTIFACTS / "status-load-sheets-screen.png"), full_page=True)
+
+            page.goto(f"{base}/status")
+            page.screenshot(path=str(ARTIFACTS / "status-overview-readings.png"), full_page=True)
+            _non_blank(ARTIFACTS / "status-overview-readings.png")
+        finally:
+            browser.close()

@@ -47,3 +47,13 @@ def test_a_change_is_shown_at_once(limited, auth, demo, monkeypatch):
     after = client.get("/status").get_data(as_text=True)
     assert after != before  # the reading moved the change stamp: not the cached week
     assert "Run-out risk" in Page(after).text and "Run-out risk" not in Page(before).text
+
+
+def test_lowest_first_is_cached_per_change_stamp_and_a_load_sheet_is_a_heavy_read(limited, auth, demo):
+    app, client = limited
+    record_plan(client, auth, PLANNED_TRUCK, today(app))
+    assert client.get("/status/lowest").status_code == 200
+    assert client.get("/status/lowest").status_code == 200  # the next deliveries come from the cache
+    refused = client.get("/status/load-sheet")
+    assert refused.status_code == 429
+    assert refused.headers["Retry-After"] == "50"

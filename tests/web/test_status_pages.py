@@ -237,6 +237,20 @@ def test_overview_shows_warnings_plan_line_and_the_weeks_trips(app, browser_clie
         assert re.search(r"\d[\d ]* L of [\d ]+ L \(\d+ %\)", row_text)
 
 
+def test_each_truck_shows_its_calendar_and_the_plan_shows_its_status(browser_client, planned, client, auth):
+    """Issue 13: the demo company works Monday to Friday with one trip a day (the south round also
+    Saturdays, two trips), closed on the Welsh public holidays."""
+    page = Page(html(browser_client.get("/status")))
+    assert [words(e) for e in page.by_class("calendar-line")] == [
+        "Works: Mon–Fri, 1 trip a day, holidays: GB-WLS",
+        "Works: Mon–Sat, 2 trips a day, holidays: GB-WLS",
+    ]
+    plan = client.get(f"/api/v1/plans/{planned}", headers=auth("viewer")).get_json()
+    assert plan["planning_status"] in ("optimal", "feasible", "time_limit")
+    line = words(page.by_class("plan-line")[0])
+    assert line.startswith(f"Active plan #{planned}: {plan['planning_status'].replace('_', ' ')} · method")
+
+
 def test_overview_has_a_small_level_chart_per_site_with_a_text_alternative(browser_client, planned, db_session):
     page = Page(html(browser_client.get("/status")))
     svgs = page.find("svg")

@@ -2,7 +2,7 @@
 
 import marshmallow as ma
 
-from service.api.fields import STORABLE_PATTERN, storable
+from service.api.fields import STORABLE_PATTERN, Range, storable
 
 #: 1–40 of A–Z, a–z, 0–9, '.', '_', '-', and not dots only: a code is a URL path segment, and
 #: clients remove ``.`` and ``..`` segments from paths (RFC 3986 §5.2.4), so such a site or truck
@@ -30,12 +30,12 @@ POSITIVE_MIN = 1e-6
 AMOUNT_MAX = 1e12
 
 
-def positive() -> ma.validate.Range:
-    return ma.validate.Range(min=POSITIVE_MIN, max=AMOUNT_MAX)
+def positive() -> Range:
+    return Range(min=POSITIVE_MIN, max=AMOUNT_MAX)
 
 
-def nonnegative() -> ma.validate.Range:
-    return ma.validate.Range(min=0, max=AMOUNT_MAX)
+def nonnegative() -> Range:
+    return Range(min=0, max=AMOUNT_MAX)
 
 
 class StrictSchema(ma.Schema):

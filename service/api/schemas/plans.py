@@ -11,9 +11,10 @@ from service.api.fields import (
     IdKey,
     JsonFloat,
     JsonInt,
+    Range,
 )
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.calculations import JointFieldsSchema
+from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema
 
 PLAN_METHODS = ("power_of_two", "integer", "best")
@@ -21,25 +22,44 @@ PLAN_METHODS = ("power_of_two", "integer", "best")
 
 class PlanRequestSchema(StrictSchema):
     method = ma.fields.String(load_default="best", validate=ma.validate.OneOf(PLAN_METHODS))
-    base_days = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=3660))
+    base_days = JsonInt(load_default=None, allow_none=True, validate=Range(min=1, max=3660))
     start_date = BoundedDate(
         load_default=None,
         allow_none=True,
-        metadata={"description": f"First day of the plan's calendar (default: today), {DATE_RANGE}"},
+        metadata={
+            "description": "Day 0 of the plan's calendar (default: today in the service time zone), "
+            f"{DATE_RANGE}; the plan uses the truck's stored calendar from this day"
+        },
     )
 
 
 class PlanSchema(JointFieldsSchema):
     id = ma.fields.Integer()
-    truck = ma.fields.String()
-    status = ma.fields.String(validate=ma.validate.OneOf(["proposed", "active", "superseded"]))
-    stale = ma.fields.Boolean()
-    changed_sites = ma.fields.List(ma.fields.String())
-    start_date = ma.fields.Date()
+    truck = ma.fields.String(metadata={"description": "Code of the truck the plan is for"})
+    status = ma.fields.String(
+        validate=ma.validate.OneOf(["proposed", "active", "superseded"]),
+        metadata={
+            "description": "proposed (recorded, not followed yet), active (the truck's one plan the trips "
+            "follow), superseded (was active; may be activated again)"
+        },
+    )
+    planning_status = ma.fields.String(
+        validate=ma.validate.OneOf([s for s in STATUSES if s != "infeasible"]),
+        metadata={"description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION},
+    )
+    stale = ma.fields.Boolean(
+        metadata={"description": "True when a truck or site input changed since the plan was computed"}
+    )
+    changed_sites = ma.fields.List(
+        ma.fields.String(), metadata={"description": "Codes of the sites whose inputs changed since the plan"}
+    )
+    start_date = ma.fields.Date(metadata={"description": "Day 0 of the plan's calendar (its first possible trip)"})
     created_at = ma.fields.DateTime()
-    created_by = ma.fields.String()
+    created_by = ma.fields.String(metadata={"description": "Name of the token that recorded the plan"})
     inputs = ma.fields.Dict(
-        metadata={"description": "Snapshot of the truck's and every site's parameters with versions"}
+        metadata={
+            "description": "Snapshot of the truck's (with its calendar) and every site's parameters with versions"
+        }
     )
     inputs_digest = ma.fields.String(metadata={"description": "SHA-256 of the canonical JSON of inputs"})
 
@@ -67,7 +87,7 @@ class TripsQueryArgsSchema(StrictSchema):
     to = BoundedDate(metadata={"description": f"Last day, {DATE_RANGE}"})
 
 
-NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading")
+NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading", "calendar")
 
 
 class NoticeSchema(ma.Schema):
@@ -79,39 +99,64 @@ class NoticeSchema(ma.Schema):
             "safety_stock, capacity, max_stops, active) and cut this stop's quantity, dropped a stop or "
             "took a site out; the message names the field and both values; plan_stale: the plan's "
             "inputs changed (the message names which fields of which sites or truck); "
-            "no_recent_reading: the site's quantities are not corrected by a recent reading"
+            "no_recent_reading: the site's quantities are not corrected by a recent reading; "
+            "calendar: deliveries fall on a date the truck does not work (a closed date, a holiday of its "
+            "holiday_region, or a weekday it no longer works) and no earlier working day has room for "
+            "them within the truck's and the tanks' limits; the message names the date and the sites"
         },
     )
-    message = ma.fields.String()
-    site = ma.fields.String(allow_none=True)
-    date = ma.fields.Date(allow_none=True)
+    message = ma.fields.String(metadata={"description": "The notice for a person: the site, the date, what to do"})
+    site = ma.fields.String(allow_none=True, metadata={"description": "Code of the site concerned, if one"})
+    date = ma.fields.Date(
+        allow_none=True,
+        metadata={
+            "description": "For run_out_risk: the first day the projected level falls below the site's "
+            "safety stock (the safety-stock crossing, not the day the tank runs empty); for limits_changed, "
+            "the delivery day concerned; otherwise null"
+        },
+    )
 
 
 class DatedStopSchema(ma.Schema):
-    site = ma.fields.String()
-    planned_quantity = ma.fields.Float()
-    quantity = ma.fields.Float(metadata={"description": "What to load and deliver, corrected by the latest reading"})
-    projected_level_before = ma.fields.Float(allow_none=True)
-    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema))
+    site = ma.fields.String(metadata={"description": "Code of the site to deliver to"})
+    planned_quantity = ma.fields.Float(metadata={"description": "The quantity the recorded plan gave this stop"})
+    quantity = ma.fields.Float(
+        metadata={
+            "description": "What to load and deliver, in the service unit: the plan's quantity corrected by "
+            "the latest reading and trimmed to the current limits (room below the safe fill, truck space)"
+        }
+    )
+    projected_level_before = ma.fields.Float(
+        allow_none=True,
+        metadata={
+            "description": "The tank's projected level at the delivery time (00:00 of the delivery day in the "
+            "service time zone), before this delivery: the latest reading minus demand_per_day for the "
+            "elapsed time, plus earlier deliveries; null when the site has no usable reading"
+        },
+    )
+    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema), metadata={"description": "Notices about this stop"})
 
 
 class DatedTripSchema(ma.Schema):
-    date = ma.fields.Date()
-    load = ma.fields.Float()
-    stops = ma.fields.List(ma.fields.Nested(DatedStopSchema))
+    date = ma.fields.Date(metadata={"description": "Delivery day (service time zone)"})
+    trip = ma.fields.Integer(metadata={"description": "1-based index of the trip within its date"})
+    load = ma.fields.Float(metadata={"description": "Sum of the stops' quantity: what the truck carries out"})
+    stops = ma.fields.List(ma.fields.Nested(DatedStopSchema), metadata={"description": "The stops, in plan order"})
 
 
 class TripsSchema(ma.Schema):
-    truck = ma.fields.String()
-    plan_id = ma.fields.Integer()
-    from_ = ma.fields.Date(data_key="from")
-    to = ma.fields.Date()
-    trips = ma.fields.List(ma.fields.Nested(DatedTripSchema))
-    warnings = ma.fields.List(ma.fields.Nested(NoticeSchema))
+    truck = ma.fields.String(metadata={"description": "Code of the truck"})
+    plan_id = ma.fields.Integer(metadata={"description": "Id of the active plan the trips come from"})
+    from_ = ma.fields.Date(data_key="from", metadata={"description": "First day of the window"})
+    to = ma.fields.Date(metadata={"description": "Last day of the window"})
+    trips = ma.fields.List(ma.fields.Nested(DatedTripSchema), metadata={"description": "One item per delivery day"})
+    warnings = ma.fields.List(
+        ma.fields.Nested(NoticeSchema), metadata={"description": "Every notice of the window, stops' included"}
+    )
 
 
 class ReadingRequestSchema(StrictSchema):
-    level = JsonFloat(required=True, validate=ma.validate.Range(min=0, max=AMOUNT_MAX))
+    level = JsonFloat(required=True, validate=Range(min=0, max=AMOUNT_MAX))
     measured_at = BoundedAwareDateTime(
         required=True,
         format="iso",
@@ -121,11 +166,11 @@ class ReadingRequestSchema(StrictSchema):
 
 class ReadingSchema(ma.Schema):
     id = ma.fields.Integer()
-    site = ma.fields.String()
-    level = ma.fields.Float()
-    measured_at = ma.fields.DateTime()
-    created_at = ma.fields.DateTime()
-    created_by = ma.fields.String()
+    site = ma.fields.String(metadata={"description": "Code of the site"})
+    level = ma.fields.Float(metadata={"description": "Level in the tank, in the service unit"})
+    measured_at = ma.fields.DateTime(metadata={"description": "When the level was measured, in UTC"})
+    created_at = ma.fields.DateTime(metadata={"description": "When the reading was recorded, in UTC"})
+    created_by = ma.fields.String(metadata={"description": "Name of the token that recorded it"})
 
 
 class ReadingListSchema(ma.Schema):

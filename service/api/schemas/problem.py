@@ -2,6 +2,8 @@
 
 import marshmallow as ma
 
+from service.errors import PROBLEM_BASE, PROBLEM_TYPES
+
 
 class ProblemErrorSchema(ma.Schema):
     pointer = ma.fields.String(metadata={"description": "JSON Pointer to the offending member"})
@@ -9,10 +11,23 @@ class ProblemErrorSchema(ma.Schema):
 
 
 class ProblemSchema(ma.Schema):
-    type = ma.fields.String(metadata={"description": "URI of the problem type, or about:blank"})
+    type = ma.fields.String(
+        validate=ma.validate.OneOf([PROBLEM_BASE + kind for kind in PROBLEM_TYPES]),
+        metadata={
+            "description": "The problem type: https://ullage.invalid/problems/<kind>, one of the kinds the "
+            "README lists under \"Problem types\" (an identifier; it does not resolve)"
+        },
+    )
     title = ma.fields.String()
     status = ma.fields.Integer()
     detail = ma.fields.String()
     instance = ma.fields.String()
     request_id = ma.fields.String()
     errors = ma.fields.List(ma.fields.Nested(ProblemErrorSchema))
+    needed = ma.fields.Dict(
+        allow_none=True,
+        metadata={
+            "description": "Problem type `infeasible` (recording a plan): what would make the plan feasible, "
+            "`{trips_per_day, remove_sites}` as in the joint calculation's `needed`"
+        },
+    )

@@ -2,7 +2,7 @@
 
 import marshmallow as ma
 
-from service.api.fields import JsonBool, JsonFloat
+from service.api.fields import JsonBool, JsonFloat, Range
 from service.api.pagination import PageArgsSchema
 from service.api.schemas.common import (
     AMOUNT_MAX,
@@ -37,17 +37,17 @@ class SiteSchema(StrictSchema):
     tank_capacity = JsonFloat(required=True, validate=positive(), metadata={"description": "Nominal tank size"})
     safe_fill = JsonFloat(
         load_default=0.9,
-        validate=ma.validate.Range(min=0.01, max=1.0),
+        validate=Range(min=0.01, max=1.0),
         metadata={"description": "Fraction of the tank that may be filled, (0, 1]"},
     )
     safety_stock = JsonFloat(
         load_default=0.0,
-        validate=ma.validate.Range(min=0, max=AMOUNT_MAX),
+        validate=Range(min=0, max=AMOUNT_MAX),
         metadata={"description": "Stock kept in reserve; below safe_fill × tank_capacity"},
     )
     active = JsonBool(load_default=True)
-    latitude = JsonFloat(load_default=None, allow_none=True, validate=ma.validate.Range(min=-90, max=90))
-    longitude = JsonFloat(load_default=None, allow_none=True, validate=ma.validate.Range(min=-180, max=180))
+    latitude = JsonFloat(load_default=None, allow_none=True, validate=Range(min=-90, max=90))
+    longitude = JsonFloat(load_default=None, allow_none=True, validate=Range(min=-180, max=180))
     version = ma.fields.Integer(dump_only=True)
     created_at = ma.fields.DateTime(dump_only=True)
     updated_at = ma.fields.DateTime(dump_only=True)

@@ -2,12 +2,13 @@
 
 import marshmallow as ma
 
-from service.api.fields import JsonBool, JsonFloat, JsonInt
+from service.api.fields import JsonBool, JsonFloat, JsonInt, Range
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.common import StrictSchema, code_field_validate, name_validate, nonnegative, positive
+from service.api.schemas.calendar import CalendarSchema
+from service.api.schemas.common import code_field_validate, name_validate, nonnegative, positive
 
 
-class TruckSchema(StrictSchema):
+class TruckSchema(CalendarSchema):
     code = ma.fields.String(required=True, validate=code_field_validate)
     name = ma.fields.String(required=True, validate=name_validate)
     dispatch_cost = JsonFloat(
@@ -18,7 +19,7 @@ class TruckSchema(StrictSchema):
     capacity = JsonFloat(
         required=True, validate=positive(), metadata={"description": "Quantity one trip can carry, in the service unit"}
     )
-    max_stops = JsonInt(load_default=None, allow_none=True, validate=ma.validate.Range(min=1, max=1000))
+    max_stops = JsonInt(load_default=None, allow_none=True, validate=Range(min=1, max=1000))
     active = JsonBool(load_default=True)
     version = ma.fields.Integer(dump_only=True)
     created_at = ma.fields.DateTime(dump_only=True)

@@ -1,14 +1,17 @@
 """Property tests: bound, quantities, calendar, cost recomputed from trips, cost scaling."""
 
+import dataclasses
+import datetime as dt
 import math
 import os
-from collections import defaultdict
 
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from service.planning import SiteInput, TruckInput, lower_bound, plan_joint, trips_between
+
+from .plan_checks import check_rules
 
 SETTINGS = settings(max_examples=int(os.environ.get("PLANNING_EXAMPLES", "100")), deadline=None)
 
@@ -34,57 +37,66 @@ def problems(draw):
     return sites, truck, draw(st.sampled_from(["power_of_two", "integer", "best"]))
 
 
-def _usable(site, truck):
-    tank = site.tank_capacity * site.safe_fill - site.safety_stock
-    return tank if truck.capacity is None else min(tank, truck.capacity)
-
-
 @SETTINGS
 @given(problems())
 def test_policy_properties(problem):
+    # the no-regression setting (all seven days, no trip limit) with and without load and stop limits
     sites, truck, method = problem
-    result = plan_joint(sites, truck, method=method)
+    result = plan_joint(sites, truck, method=method, start_date=dt.date(2026, 3, 2))
     assert result.success
     assert result.cost_per_day >= result.lower_bound_per_day * (1 - 1e-12)
-    assert result.lower_bound_per_day == lower_bound(sites, truck)
     assert math.isclose(sum(result.cost_breakdown.values()), result.cost_per_day, rel_tol=1e-12)
-    by_code = {s.code: s for s in sites}
-    T0 = result.dispatch_interval_days
-    assert min(p.cycle_days for p in result.sites) == T0
+    check_rules(result, sites, truck)
     for plan in result.sites:
-        assert plan.quantity <= _usable(by_code[plan.code], truck) * (1 + 1e-9)
-        assert plan.cycle_days % T0 == 0 and plan.offset_days % T0 == 0 and 0 <= plan.offset_days < plan.cycle_days
-        assert result.repeat_days % plan.cycle_days == 0
+        assert result.repeat_days % plan.period_days == 0
+        assert plan.cycle_days == plan.period_days / len(plan.delivery_days)
+        assert plan.offset_days == plan.delivery_days[0] and 0 <= plan.offset_days < plan.period_days
+    if truck.capacity is None and truck.max_stops is None:  # rule 6: the classic class optimum
+        assert result.lower_bound_per_day >= lower_bound(sites, truck) * (1 - 1e-12)
+        assert result.status.name == "OPTIMAL"
+        T0 = result.dispatch_interval_days
+        assert min(p.cycle_days for p in result.sites) == T0
+        for plan in result.sites:
+            assert len(plan.delivery_days) == 1 and plan.cycle_days % T0 == 0 and plan.offset_days % T0 == 0
+        if not result.trips_truncated:
+            assert result.trips_per_repeat == result.repeat_days // T0
     listed = result.trips[-1].day + 1 if result.trips_truncated else result.repeat_days
-    days = defaultdict(list)
-    for trip in result.trips:
-        assert truck.capacity is None or trip.load <= truck.capacity * (1 + 1e-9)
-        assert truck.max_stops is None or len(trip.stops) <= truck.max_stops
-        assert trip.load == pytest.approx(sum(s.quantity for s in trip.stops), rel=1e-12)
-        for stop in trip.stops:
-            days[stop.code].append(trip.day)
-    for plan in result.sites:  # each site delivered every T_i days, once per delivery day
-        assert days[plan.code] == list(range(plan.offset_days, listed, plan.cycle_days))
-    if not result.trips_truncated:  # the cost recomputed from the calendar
-        R = result.repeat_days
-        dispatch = truck.dispatch_cost * len(result.trips) / R
-        stops = holding = 0.0
-        for trip in result.trips:
-            for stop in trip.stops:
-                site = by_code[stop.code]
-                stops += site.stop_cost / R
-                holding += site.holding_cost * stop.quantity**2 / (2 * site.demand_per_day) / R
-        assert len(result.trips) == result.trips_per_repeat == R // T0 + result.extra_trips
-        assert dispatch + stops + holding == pytest.approx(result.cost_per_day, rel=1e-9)
-        day_loads = defaultdict(float)
-        for trip in result.trips:
-            day_loads[trip.day] += trip.load
-        assert result.peak_load == pytest.approx(max(day_loads.values()), rel=1e-12)
     window = trips_between(result, truck, 0, min(listed, 400) - 1)
-    assert window == [t for t in result.trips if t.day < min(listed, 400)]
-    shifted = trips_between(result, truck, result.repeat_days, result.repeat_days + 30)
-    start = trips_between(result, truck, 0, 30)
-    assert [(t.day - result.repeat_days, t.load, t.stops) for t in shifted] == [(t.day, t.load, t.stops) for t in start]
+    assert window.trips == tuple(t for t in result.trips if t.day < min(listed, 400))
+    shifted = trips_between(result, truck, result.repeat_days, result.repeat_days + 30).trips
+    start = trips_between(result, truck, 0, 30).trips
+    assert [(t.day - result.repeat_days, t.trip, t.load, t.stops) for t in shifted] == [
+        (t.day, t.trip, t.load, t.stops) for t in start
+    ]
+
+
+@st.composite
+def calendars(draw):
+    sites, truck, _ = draw(problems())
+    days = tuple(sorted(draw(st.sets(st.integers(1, 7), min_size=1, max_size=7))))
+    trips = draw(st.none() | st.integers(1, 4))
+    return sites, dataclasses.replace(truck, working_days=days, trips_per_day=trips), draw(st.integers(0, 6))
+
+
+@SETTINGS
+@given(calendars())
+def test_working_calendars(problem):
+    sites, truck, shift = problem
+    start = dt.date(2026, 3, 2) + dt.timedelta(days=shift)
+    result = plan_joint(sites, truck, start_date=start)
+    if not result.success:
+        assert result.status.name == "INFEASIBLE" and result.cost_per_day == 0.0 and result.trips == ()
+        assert set(result.needed) == {"trips_per_day", "remove_sites"}
+        if result.needed["remove_sites"]:
+            assert all(f"`{c}`" in result.message for c in result.needed["remove_sites"])
+        else:
+            assert truck.trips_per_day is not None
+            assert result.needed["trips_per_day"] is None or result.needed["trips_per_day"] > truck.trips_per_day
+        return
+    assert result.cost_per_day >= result.lower_bound_per_day * (1 - 1e-12)
+    if len(truck.working_days) < 7:
+        assert result.repeat_days % 7 == 0
+    check_rules(result, sites, truck)
 
 
 @SETTINGS
@@ -99,9 +111,10 @@ def test_scaling_costs_scales_cost_and_bound_and_keeps_the_policy(problem, expon
         for s in sites
     ]
     scaled_truck = TruckInput(truck.dispatch_cost * c, truck.capacity, truck.max_stops)
-    a = plan_joint(sites, truck, method=method)
-    b = plan_joint(scaled_sites, scaled_truck, method=method)
+    a = plan_joint(sites, truck, method=method, start_date=dt.date(2026, 3, 2))
+    b = plan_joint(scaled_sites, scaled_truck, method=method, start_date=dt.date(2026, 3, 2))
     assert b.cost_per_day == pytest.approx(c * a.cost_per_day, rel=1e-12)
-    assert b.lower_bound_per_day == pytest.approx(c * a.lower_bound_per_day, rel=1e-12)
-    assert [(s.cycle_days, s.offset_days) for s in b.sites] == [(s.cycle_days, s.offset_days) for s in a.sites]
+    # the drivable bound maximises its weights numerically (Brent / SLSQP): scaled to 1e-9, not to the last digit
+    assert b.lower_bound_per_day == pytest.approx(c * a.lower_bound_per_day, rel=1e-9)
+    assert [(s.period_days, s.delivery_days) for s in b.sites] == [(s.period_days, s.delivery_days) for s in a.sites]
     assert (b.method, b.base_days, b.dispatch_interval_days) == (a.method, a.base_days, a.dispatch_interval_days)

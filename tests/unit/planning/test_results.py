@@ -1,6 +1,7 @@
 """Result records: JSON form, infeasible results, truncated listings, the dispatch window."""
 
 import dataclasses
+import datetime as dt
 import json
 import math
 import time
@@ -35,11 +36,23 @@ JOINT_FIELDS = [
     "lower_bound_per_day",
     "gap",
     "peak_load",
-    "extra_trips",
     "trips_truncated",
     "sites",
     "trips",
     "warnings",
+    "start_date",
+    "needed",
+]
+SITE_FIELDS = [
+    "code",
+    "cycle_days",
+    "offset_days",
+    "quantity",
+    "cost_per_day",
+    "binding",
+    "period_days",
+    "delivery_days",
+    "longest_gap_days",
 ]
 
 
@@ -68,16 +81,18 @@ def test_joint_to_dict_is_plain_json():
     result = plan_joint(_sites(), TruckInput(100.0, capacity=30000.0, max_stops=2))
     data = result.to_dict()
     assert list(data) == JOINT_FIELDS
-    assert data["status"] == "optimal" and data["success"] is True
+    assert data["status"] in ("optimal", "feasible") and data["success"] is True
     assert set(data["cost_breakdown"]) == {"dispatch", "stops", "holding"}
-    assert list(data["sites"][0]) == ["code", "cycle_days", "offset_days", "quantity", "cost_per_day", "binding"]
-    assert list(data["trips"][0]) == ["day", "load", "stops"] and list(data["trips"][0]["stops"][0]) == [
+    assert list(data["sites"][0]) == SITE_FIELDS
+    assert list(data["trips"][0]) == ["day", "date", "trip", "load", "stops"] and list(data["trips"][0]["stops"][0]) == [
         "code",
         "quantity",
     ]
     text = json.dumps(data, allow_nan=False)
     assert json.loads(text) == data
-    assert type(data["repeat_days"]) is int and type(data["sites"][0]["cycle_days"]) is int
+    assert type(data["repeat_days"]) is int and type(data["sites"][0]["cycle_days"]) is float
+    assert type(data["sites"][0]["period_days"]) is int and type(data["sites"][0]["delivery_days"][0]) is int
+    assert data["start_date"] == result.start_date.isoformat() and data["needed"] is None
     assert type(data["cost_per_day"]) is float and type(data["sites"][0]["quantity"]) is float
 
 
@@ -115,7 +130,8 @@ def test_infeasible_base_is_a_result_not_a_crash():
     assert result.message == "base_days 7 is longer than the longest whole-day cycle 3 of site `short`"
     assert result.sites == () and result.trips == () and result.cost_per_day == 0.0
     assert result.to_dict()["status"] == "infeasible"
-    assert trips_between(result, TruckInput(10.0), 0, 10) == []
+    assert trips_between(result, TruckInput(10.0), 0, 10).trips == ()
+    assert result.needed == {"trips_per_day": None, "remove_sites": ["short"]}
     best = plan_joint(sites, TruckInput(10.0), base_days=7)
     assert best.success and best.method == "integer" and best.base_days is None
     assert best.warnings[-1] == "power_of_two skipped: " + result.message
@@ -145,15 +161,15 @@ def test_long_repeat_period_is_truncated_and_the_window_is_fast():
     assert result.repeat_days == math.prod([53, 59, 61, 67, 71, 73])
     assert result.trips_truncated and result.trips[-1].day == joint.LISTED_DAYS - 1
     assert any(w.startswith("trips list days 0 to 3659 of the ") for w in result.warnings)
-    start = 10**12 + 17
+    start = 2_000_017  # far beyond the repeat period listed, still a representable date
     began = time.perf_counter()
-    window = trips_between(result, truck, start, start + 91)
+    window = trips_between(result, truck, start, start + 91).trips
     assert time.perf_counter() - began < 0.5
     assert [t.day for t in window] == list(range(start, start + 92))
     for trip in window:  # exactly the policy's deliveries
         expected = [p.code for p in result.sites if (trip.day - p.offset_days) % p.cycle_days == 0]
         assert [s.code for s in trip.stops] == expected
-    assert trips_between(result, truck, 0, 99) == list(result.trips[:100])
+    assert trips_between(result, truck, 0, 99).trips == result.trips[:100]
 
 
 def test_listing_is_cut_at_whole_days_by_the_stop_limit(monkeypatch):
@@ -171,23 +187,26 @@ def test_result_rebuilds_from_its_dict():
     result = plan_joint(_sites(), truck)
     data = result.to_dict()
     data["status"] = Status[data["status"].upper()]
-    data["sites"] = tuple(SitePlan(**s) for s in data["sites"])
-    data["trips"] = tuple(Trip(t["day"], t["load"], tuple(Stop(**s) for s in t["stops"])) for t in data["trips"])
+    data["sites"] = tuple(SitePlan(**{**s, "delivery_days": tuple(s["delivery_days"])}) for s in data["sites"])
+    data["trips"] = tuple(
+        Trip(t["day"], dt.date.fromisoformat(t["date"]), t["trip"], t["load"], tuple(Stop(**s) for s in t["stops"]))
+        for t in data["trips"]
+    )
     data["warnings"] = tuple(data["warnings"])
+    data["start_date"] = dt.date.fromisoformat(data["start_date"])
     rebuilt = type(result)(**data)
     assert rebuilt == result
     assert trips_between(rebuilt, truck, 0, 60) == trips_between(result, truck, 0, 60)
 
 
-def test_extra_trips_beyond_the_evaluated_window_are_estimated_with_a_warning():
+def test_a_too_long_integer_repeat_with_a_load_limit_falls_back_to_nested_multiples():
     truck = TruckInput(5.0, capacity=1000.0)  # two prime-cycle deliveries on one day exceed 1000
     result = plan_joint(_prime_sites(), truck, method="integer")
-    period = result.repeat_days // result.dispatch_interval_days
-    assert period > joint.EVALUATED_TRIPS
-    assert result.extra_trips > 0 and result.trips_per_repeat == period + result.extra_trips
-    assert any("estimated from the first 131072 dispatch days" in w for w in result.warnings)
-    assert any("peak load over the whole period is at most" in w for w in result.warnings)
+    assert result.success and result.method == "integer"
+    assert result.repeat_days <= 128  # cycles rounded down to 1, 32, 64
+    assert all(p.cycle_days in (1, 32, 64) for p in result.sites)
+    assert all(t.load <= 1000.0 for t in result.trips)
+    assert len(result.trips) == result.trips_per_repeat
     assert result.cost_breakdown["dispatch"] == pytest.approx(
         5.0 * result.trips_per_repeat / result.repeat_days, rel=1e-12
     )
-    assert all(t.load <= 1000.0 for t in trips_between(result, truck, 0, 4000))

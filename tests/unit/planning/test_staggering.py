@@ -6,8 +6,13 @@ import numpy as np
 import pytest
 
 from service.planning import SiteInput, TruckInput, plan_joint
-from service.planning.joint import _per_trip
 from service.planning.staggering import site_weights, stagger
+
+
+def _per_trip(multiples, residues, values, trips):
+    """``Σ_i values_i [t ≡ r_i mod m_i]`` for base trips ``t = 0 … trips - 1``."""
+    t = np.arange(trips)
+    return sum(np.where(t % m == r, v, 0.0) for m, r, v in zip(multiples, residues, values, strict=True))
 
 
 def _loads(m, Q):
@@ -79,39 +84,39 @@ def test_staggering_avoids_extra_trips_when_offsets_fit():
     result = plan_joint(sites, TruckInput(50.0, capacity=500.0), method="integer")
     assert [s.cycle_days for s in result.sites] == [1, 2, 2]
     assert {s.offset_days for s in result.sites[1:]} == {0, 1}
-    assert result.extra_trips == 0
+    assert result.trips_per_repeat == result.repeat_days == 2
     assert result.peak_load == pytest.approx(400.0)
     assert result.cost_breakdown["dispatch"] == pytest.approx(50.0)
 
 
-def test_extra_trips_counted_when_nothing_fits():
+def test_every_trip_is_counted_when_nothing_fits():
     # three daily 600-unit deliveries, truck of 1000: no two share a trip, so 3 trips a day
     sites = [_site(c, 600, 600) for c in "ABC"]
     truck = TruckInput(80.0, capacity=1000.0)
     result = plan_joint(sites, truck)
-    assert result.repeat_days == 1 and result.trips_per_repeat == 3 and result.extra_trips == 2
-    assert [len(t.stops) for t in result.trips] == [1, 1, 1]
+    assert result.repeat_days == 1 and result.trips_per_repeat == 3
+    assert [len(t.stops) for t in result.trips] == [1, 1, 1] and [t.trip for t in result.trips] == [1, 2, 3]
     assert all(t.day == 0 for t in result.trips)
     assert result.cost_breakdown["dispatch"] == pytest.approx(3 * 80.0)
     assert result.cost_per_day == pytest.approx(240.0 + 30.0)
-    assert any("2 extra trip(s)" in w for w in result.warnings)
-    assert result.peak_load == pytest.approx(1800.0)
+    assert result.peak_load == pytest.approx(600.0)
 
 
 def test_max_stops_respected_per_trip():
     sites = [_site(f"s{i}", 100, 100) for i in range(5)]
     result = plan_joint(sites, TruckInput(80.0, max_stops=2))
-    assert [len(t.stops) for t in result.trips] == [2, 2, 1]
-    assert result.extra_trips == 2
+    assert sorted(len(t.stops) for t in result.trips) == [1, 2, 2]
+    assert result.trips_per_repeat == 3
     assert sorted(s.code for t in result.trips for s in t.stops) == [f"s{i}" for i in range(5)]
 
 
-def test_first_fit_decreasing_split_of_an_over_full_day():
-    # loads 700, 400, 300, 200 into trips of 1000: FFD gives {700, 300} and {400, 200}; stops listed in input order
+def test_snake_split_of_an_over_full_day():
+    # loads 700, 400, 300, 200 into trips of 1000: at least 2 trips; dealt heaviest first in snake order
+    # (trip 1, 2, 2, 1) this gives {700, 200} and {400, 300}; stops listed in input order
     sites = [_site("a", 400, 400), _site("b", 700, 700), _site("c", 200, 200), _site("d", 300, 300)]
     result = plan_joint(sites, TruckInput(10.0, capacity=1000.0))
-    assert [[s.code for s in t.stops] for t in result.trips] == [["b", "d"], ["a", "c"]]
-    assert [t.load for t in result.trips] == [1000.0, 600.0]
+    assert [[s.code for s in t.stops] for t in result.trips] == [["b", "c"], ["a", "d"]]
+    assert [t.load for t in result.trips] == [900.0, 700.0]
 
 
 def test_unlimited_truck_still_levels_loads():
