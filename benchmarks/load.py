@@ -207,14 +207,12 @@ def gunicorn(
 ) -> Iterator[tuple[int, int]]:
     """gunicorn on a free loopback port, ready: yields (port, master pid)."""
     port = free_port()
-    metrics_dir = workdir / "prometheus"
-    metrics_dir.mkdir(exist_ok=True)
     env = {
         **os.environ,
         "DATABASE_URL": url,
         "WEB_CONCURRENCY": str(workers),
         "ULLAGE_SECRET_KEY": "bench",
-        "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
+        "ULLAGE_METRICS_DIR": str(workdir / "prometheus"),
         "LOG_LEVEL": "WARNING",
         # No worker recycling while measuring (unless --max-requests): a worker's start costs about
         # 1.7 s of CPU and would land in one scenario's slice at random (in service, 20 000 requests

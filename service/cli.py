@@ -128,15 +128,12 @@ def _persistent_secret() -> str:
 
 
 def serve(args: argparse.Namespace) -> int:
-    settings = load_settings()  # fails here, before gunicorn starts, on any bad setting
+    # Fails here, before gunicorn starts, on any bad setting.
+    settings = load_settings(ephemeral_secret=False)
     # gunicorn's processes read their settings from the environment (service.config), so what
-    # `serve` decides for them is handed on there.
-    os.environ.setdefault("ULLAGE_SECRET_KEY", _persistent_secret())
-    # Prometheus multiprocess mode (service.metrics): one directory per server, emptied at start.
-    from service.metrics import MULTIPROC_ENV, wipe_multiprocess_dir  # noqa: PLC0415
-
-    os.environ.setdefault(MULTIPROC_ENV, str(Path("var") / "prometheus"))
-    wipe_multiprocess_dir(os.environ[MULTIPROC_ENV])
+    # `serve` decides for them is handed on there. (The metrics directory is gunicorn_conf's.)
+    if not settings.secret_key:
+        os.environ["ULLAGE_SECRET_KEY"] = _persistent_secret()
     # This interpreter's gunicorn, so `.venv/bin/ullage serve` works without the venv on PATH.
     argv = [
         sys.executable,

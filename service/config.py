@@ -4,10 +4,12 @@ Twelve-factor style: everything that varies between deployments is an environmen
 variable names are listed in README.md (configuration table). Nothing here connects anywhere.
 
 This is the one place the service reads its environment: the app, the CLI and the gunicorn
-configuration (``service/gunicorn_conf.py``) all take their values from :func:`load_settings`.
-Read elsewhere, on purpose (DEVELOPERS.md, "Configuration"): ``PROMETHEUS_MULTIPROC_DIR``, which
-prometheus_client itself reads when it is imported (``service/metrics.py`` must agree with it),
-and ``ULLAGE_SKIP_MIGRATIONS``, which only the Docker entrypoint (a shell script) reads.
+configuration (``service/gunicorn_conf.py``) all take their values from :func:`load_settings`
+(``tests/integration/test_config_and_factory.py`` checks that no other module of ``service`` reads
+it). Two variables are read by others, on purpose (DEVELOPERS.md, "Configuration"):
+``PROMETHEUS_MULTIPROC_DIR``, which gunicorn_conf *sets* from ``ULLAGE_METRICS_DIR`` for
+prometheus_client (the library reads it when imported), and ``ULLAGE_SKIP_MIGRATIONS``, which only
+the Docker entrypoint (a shell script) reads.
 """
 
 from __future__ import annotations
@@ -65,6 +67,7 @@ ENVIRONMENT = {
     "ULLAGE_REUSE_PORT": "reuse_port",
     "ULLAGE_HOST": "host",
     "ULLAGE_PORT": "port",
+    "ULLAGE_METRICS_DIR": "metrics_dir",
 }
 
 
@@ -125,6 +128,9 @@ class Settings:
     reuse_port: bool = False
     host: str = "127.0.0.1"
     port: int = 8000
+    #: Under gunicorn, the directory where every worker keeps its metrics, so that a scrape of
+    #: /metrics sums them all (service/metrics.py); emptied when gunicorn starts. One per server.
+    metrics_dir: str = str(Path("var") / "prometheus")
     testing: bool = False
 
     def validate(self) -> Settings:
@@ -165,6 +171,8 @@ class Settings:
                 raise ValueError(f"{variable} must be at least 1")
         if not 1 <= self.port <= 65535:
             raise ValueError(f"ULLAGE_PORT must be a TCP port (1 to 65535), got {self.port}")
+        if not self.metrics_dir.strip():
+            raise ValueError("ULLAGE_METRICS_DIR must name a directory")
         if not 0 <= self.token_cache_seconds <= MAX_TOKEN_CACHE_SECONDS:
             raise ValueError(f"ULLAGE_TOKEN_CACHE_SECONDS must be 0 to {MAX_TOKEN_CACHE_SECONDS}")
         return self
@@ -209,11 +217,18 @@ def _coerce(name: str, value: Any) -> Any:
     return value
 
 
-def load_settings(overrides: Mapping[str, Any] | None = None, environ: Mapping[str, str] | None = None) -> Settings:
+def load_settings(
+    overrides: Mapping[str, Any] | None = None,
+    environ: Mapping[str, str] | None = None,
+    *,
+    ephemeral_secret: bool = True,
+) -> Settings:
     """Build the settings: defaults, then the environment, then ``overrides``.
 
     ``overrides`` may use either the environment names (``DATABASE_URL``) or the field names
-    (``database_url``); ``TESTING`` maps to ``testing``.
+    (``database_url``); ``TESTING`` maps to ``testing``. Without ``ULLAGE_SECRET_KEY`` a random
+    per-process key is made, unless ``ephemeral_secret`` is false (``secret_key`` then stays empty,
+    for ``ullage serve`` to hand every worker the same key).
     """
     environ = os.environ if environ is None else environ
     values: dict[str, Any] = {"database_url": default_database_url()}
@@ -227,7 +242,7 @@ def load_settings(overrides: Mapping[str, Any] | None = None, environ: Mapping[s
             values[field_name] = _coerce(field_name, value)
     settings = Settings(**values)
     settings = replace(settings, database_url=normalise_database_url(settings.database_url))
-    if not settings.secret_key:
+    if not settings.secret_key and ephemeral_secret:
         # A per-process key: sessions do not survive a restart and are not shared between
         # workers. Production sets ULLAGE_SECRET_KEY (README).
         settings = replace(settings, secret_key=secrets.token_urlsafe(32))

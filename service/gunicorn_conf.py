@@ -6,6 +6,7 @@ the tests and benchmarks that start gunicorn). Its values come from the one sett
 """
 
 import os
+from pathlib import Path
 
 from gunicorn import glogging
 
@@ -14,6 +15,10 @@ from service.observability import JsonFormatter, configure_logging
 
 _settings = load_settings()
 
+# Prometheus multiprocess mode (service/metrics.py): every worker keeps its metrics in files of
+# ULLAGE_METRICS_DIR and a scrape of /metrics sums them, so it counts the requests of all workers.
+METRICS_DIR = Path(_settings.metrics_dir).resolve()
+
 workers = _settings.workers
 worker_class = "gthread"
 threads = _settings.threads
@@ -21,7 +26,7 @@ reuse_port = _settings.reuse_port  # service.config.listener_per_worker has the 
 timeout = 30
 graceful_timeout = 20
 keepalive = 5
-preload_app = False  # each worker opens its own database connections after the fork
+preload_app = False  # each worker opens its own database connections and metrics files after the fork
 # Workers are recycled against slow leaks, but a worker's start costs about 1.7 s of CPU (imports,
 # app, OpenAPI document; benchmarks/reads.py prints it): at 2 000 requests that was 0.85 ms per
 # request, more than a /livez answer itself. At 20 000 it is under 0.1 ms.
@@ -54,6 +59,17 @@ class JsonLogger(glogging.Logger):
 
 
 logger_class = JsonLogger
+
+
+def on_starting(server):  # type: ignore[no-untyped-def]
+    """Once per master, before any worker forks: an empty metrics directory (a previous run's
+    files would be summed in; a reload on SIGHUP keeps the running workers' counts), handed to
+    prometheus_client in its own variable, which it reads when a worker imports it (so the app is
+    never preloaded in the master)."""
+    METRICS_DIR.mkdir(parents=True, exist_ok=True)
+    for stale in METRICS_DIR.glob("*.db"):
+        stale.unlink()
+    os.environ["PROMETHEUS_MULTIPROC_DIR"] = str(METRICS_DIR)
 
 
 def post_worker_init(worker):  # type: ignore[no-untyped-def]

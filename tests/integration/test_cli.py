@@ -135,8 +135,6 @@ def test_demo_network_is_served(env_db, capsys, client):
 def test_serve_execs_gunicorn_on_the_loopback_by_default(monkeypatch, tmp_path):
     monkeypatch.chdir(tmp_path)
     monkeypatch.setenv("ULLAGE_SECRET_KEY", "test-key")
-    # serve() sets this for gunicorn; setting it here lets monkeypatch restore the test process.
-    monkeypatch.setenv("PROMETHEUS_MULTIPROC_DIR", str(tmp_path / "prometheus"))
     monkeypatch.delenv("ULLAGE_HOST", raising=False)
     monkeypatch.delenv("ULLAGE_PORT", raising=False)
     seen = {}

@@ -105,7 +105,7 @@ def test_dockerfile_is_slim_non_root_and_exec_form():
     assert json.loads(dict(steps)["ENTRYPOINT"]) == ["/usr/local/bin/ullage-entrypoint"]
     env = image_environment()
     assert env["ULLAGE_HOST"] == "0.0.0.0" and env["ULLAGE_PORT"] == "8000"
-    assert env["PROMETHEUS_MULTIPROC_DIR"].startswith("/app/var/")  # under the WORKDIR the user owns
+    assert env["ULLAGE_METRICS_DIR"].startswith("/app/var/")  # under the WORKDIR the user owns
     assert ("WORKDIR", "/app") in steps
 
 
@@ -121,7 +121,13 @@ def test_dockerignore_keeps_what_the_dockerfile_copies_and_nothing_else():
         assert (ROOT / source).exists(), source
         assert not docker_ignored(source.rstrip("/")), source
     assert not docker_ignored("service/migrations/env.py")
-    for kept_out in (".venv/bin/python", ".git/HEAD", "var/ullage.db", "tests/conftest.py", "service/__pycache__/x.pyc"):
+    for kept_out in (
+        ".venv/bin/python",
+        ".git/HEAD",
+        "var/ullage.db",
+        "tests/conftest.py",
+        "service/__pycache__/x.pyc",
+    ):
         assert docker_ignored(kept_out), kept_out
 
 
@@ -214,7 +220,7 @@ def test_the_image_command_serves_json_logs_and_metrics_of_every_worker(tmp_path
         "ULLAGE_SECRET_KEY": "image-test-secret",
         "ULLAGE_HOST": "127.0.0.1",
         "ULLAGE_PORT": str(port),
-        "PROMETHEUS_MULTIPROC_DIR": str(tmp_path / "prometheus"),
+        "ULLAGE_METRICS_DIR": str(tmp_path / "prometheus"),
         "WEB_CONCURRENCY": "2",
         "ULLAGE_REUSE_PORT": "1",  # the kernel spreads the connections below over both workers
     }
@@ -233,13 +239,24 @@ def test_the_image_command_serves_json_logs_and_metrics_of_every_worker(tmp_path
                 break
             time.sleep(0.5)
         assert healthy.returncode == 0, healthy.stderr
-        token = subprocess.run(
-            ["ullage", "token", "create", "scraper", "--role", "viewer"],
-            cwd=tmp_path, env=env, capture_output=True, text=True, timeout=60, check=True,
-        ).stdout.strip().splitlines()[-1]
+        token = (
+            subprocess.run(
+                ["ullage", "token", "create", "scraper", "--role", "viewer"],
+                cwd=tmp_path,
+                env=env,
+                capture_output=True,
+                text=True,
+                timeout=60,
+                check=True,
+            )
+            .stdout.strip()
+            .splitlines()[-1]
+        )
         for _ in range(60):  # a new connection each time
             assert requests.get(f"http://127.0.0.1:{port}/readyz", timeout=10).status_code == 200
-        scrape = requests.get(f"http://127.0.0.1:{port}/metrics", headers={"Authorization": f"Bearer {token}"}, timeout=10)
+        scrape = requests.get(
+            f"http://127.0.0.1:{port}/metrics", headers={"Authorization": f"Bearer {token}"}, timeout=10
+        )
         assert scrape.status_code == 200
         assert _counter(scrape.text, "/readyz") == 60  # every worker's requests, summed
         pids = {p.stem.rsplit("_", 1)[1] for p in (tmp_path / "prometheus").glob("counter_*.db")}

@@ -212,8 +212,6 @@ def start_gunicorn(
     """
     port = free_port()
     log_path = tmp_path / f"gunicorn-{port}.log"
-    metrics_dir = tmp_path / f"prom-{port}"
-    metrics_dir.mkdir(exist_ok=True)
     env = {k: v for k, v in os.environ.items() if k not in ("DATABASE_URL", "PROMETHEUS_MULTIPROC_DIR")}
     env.update(
         {
@@ -221,7 +219,7 @@ def start_gunicorn(
             "WEB_CONCURRENCY": str(workers),
             "ULLAGE_THREADS": str(threads),
             "ULLAGE_SECRET_KEY": "reliability-suite-secret",
-            "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
+            "ULLAGE_METRICS_DIR": str(tmp_path / f"prom-{port}"),
             "PYTHONUNBUFFERED": "1",
         }
     )
