@@ -436,7 +436,9 @@ def dual_bound(sites, truck) -> tuple[float, tuple[float, float, float]]:
             beta = 0.0
         if alpha + beta > 1:
             alpha, beta = alpha / (alpha + beta), beta / (alpha + beta)
-        gamma = 0.0 if absent_stops else 1 - alpha - beta
+        # max(0, …): the normalised alpha + beta may exceed 1 by a rounding step, and a negative
+        # gamma would make a stop weight below zero (sqrt of a negative in lagrangian_bound).
+        gamma = 0.0 if absent_stops else max(0.0, 1 - alpha - beta)
         return 1 - beta - gamma, beta, gamma
 
     def g(ab) -> float:
