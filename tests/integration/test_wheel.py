@@ -46,7 +46,19 @@ def installed(tmp_path_factory) -> Path:
     source.mkdir()
     shutil.copy(ROOT / "pyproject.toml", source)
     shutil.copytree(ROOT / "service", source / "service", ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
-    run(sys.executable, "-m", "pip", "wheel", "--quiet", "--no-deps", "--wheel-dir", base / "dist", source, cwd=base, env=env)
+    run(
+        sys.executable,
+        "-m",
+        "pip",
+        "wheel",
+        "--quiet",
+        "--no-deps",
+        "--wheel-dir",
+        base / "dist",
+        source,
+        cwd=base,
+        env=env,
+    )
     (wheel,) = (base / "dist").glob("ullage-*.whl")
     run(sys.executable, "-m", "venv", base / "venv", cwd=base, env=env)
     pip = base / "venv" / "bin" / "pip"
