@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from pathlib import Path
 
 from alembic import command
@@ -19,8 +20,15 @@ from service.persistence.db import make_engine
 from service.persistence.models import Site, Token, Truck
 
 
-def _session() -> Session:
-    return Session(make_engine(load_settings().database_url), expire_on_commit=False)
+@contextmanager
+def _session() -> Iterator[Session]:
+    """A session on its own engine, closed with its connections when the command is done."""
+    engine = make_engine(load_settings().database_url)
+    try:
+        with Session(engine, expire_on_commit=False) as session:
+            yield session
+    finally:
+        engine.dispose()
 
 
 def db_upgrade(args: argparse.Namespace) -> int:
