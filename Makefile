@@ -4,13 +4,22 @@ PYTHON ?= python3
 TEST_POSTGRES_URL ?= postgresql+psycopg://postgres@127.0.0.1:5432/test
 export TEST_POSTGRES_URL
 
-.PHONY: run test system-deps benchmarks clean
+.PHONY: run test lock system-deps benchmarks clean
 
-$(VENV)/.installed: pyproject.toml
+# The venv holds exactly the locked versions (requirements.lock), then the project itself, editable.
+$(VENV)/.installed: pyproject.toml requirements.lock
 	$(PYTHON) -m venv $(VENV)
 	$(VENV)/bin/pip install -q --upgrade pip
-	$(VENV)/bin/pip install -q -e '.[test]'
+	$(VENV)/bin/pip install -q -r requirements.lock
+	$(VENV)/bin/pip install -q --no-deps -e .
 	touch $@
+
+## lock: re-resolve requirements.lock (run and test dependencies) from pyproject.toml; keeps the pins already there where the bounds allow
+lock:
+	$(PYTHON) -m venv $(VENV)
+	$(VENV)/bin/pip install -q "uv>=0.5"
+	$(VENV)/bin/uv pip compile pyproject.toml --extra test --universal --python-version 3.11 \
+	  --custom-compile-command "make lock" --quiet --output-file requirements.lock
 
 ## run: venv, install, migrate, load the demo network if empty, print an admin token if none exists, serve on
 ## 127.0.0.1:$ULLAGE_PORT (default 8000) with SQLite
@@ -23,8 +32,8 @@ run: $(VENV)/.installed
 ## test: venv, install, system packages the tests need, the whole suite on SQLite and PostgreSQL
 test: $(VENV)/.installed system-deps
 	$(VENV)/bin/lint-imports
-	$(VENV)/bin/ruff check service tests benchmarks migrations
-	$(VENV)/bin/python -m pytest
+	$(VENV)/bin/ruff check service tests benchmarks
+	$(VENV)/bin/python -m pytest --cov --cov-report=term:skip-covered
 
 system-deps:
 	@bash .ci/system-deps

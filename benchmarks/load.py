@@ -62,7 +62,7 @@ from sqlalchemy.engine import make_url  # noqa: E402
 from sqlalchemy.orm import Session  # noqa: E402
 
 from service.auth import new_token, token_hash  # noqa: E402
-from service.demo import load_demo  # noqa: E402
+from service.demo import SAMPLE_DATA, load_demo  # noqa: E402
 from service.health import alembic_config  # noqa: E402
 from service.persistence import repository as repo  # noqa: E402
 from tests.reliability.helpers import connections_per_worker  # noqa: E402
@@ -207,14 +207,12 @@ def gunicorn(
 ) -> Iterator[tuple[int, int]]:
     """gunicorn on a free loopback port, ready: yields (port, master pid)."""
     port = free_port()
-    metrics_dir = workdir / "prometheus"
-    metrics_dir.mkdir(exist_ok=True)
     env = {
         **os.environ,
         "DATABASE_URL": url,
         "WEB_CONCURRENCY": str(workers),
         "ULLAGE_SECRET_KEY": "bench",
-        "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
+        "ULLAGE_METRICS_DIR": str(workdir / "prometheus"),
         "LOG_LEVEL": "WARNING",
         # No worker recycling while measuring (unless --max-requests): a worker's start costs about
         # 1.7 s of CPU and would land in one scenario's slice at random (in service, 20 000 requests
@@ -274,7 +272,7 @@ def prepare(url: str) -> dict[str, str]:
     engine = create_engine(url)
     tokens = {}
     with Session(engine) as session:
-        load_demo(session, ROOT / "sample_data", "L")
+        load_demo(session, SAMPLE_DATA, "L")
         for role in ("viewer", "dispatcher", "admin"):
             tokens[role] = new_token()
             repo.add_token(session, f"bench-{role}", role, token_hash(tokens[role]))

@@ -34,7 +34,7 @@ from sqlalchemy import create_engine  # noqa: E402
 from sqlalchemy.orm import Session, sessionmaker  # noqa: E402
 
 from service.auth import new_token, token_hash  # noqa: E402
-from service.demo import load_demo  # noqa: E402
+from service.demo import SAMPLE_DATA, load_demo  # noqa: E402
 from service.health import alembic_config  # noqa: E402
 from service.persistence import repository as repo  # noqa: E402
 from service.persistence.db import make_engine, make_read_engine, read_one  # noqa: E402
@@ -59,7 +59,7 @@ def prepare(url: str) -> str:
     command.upgrade(alembic_config(url), "head")
     engine = create_engine(url)
     with Session(engine) as session:
-        load_demo(session, ROOT / "sample_data", "L")
+        load_demo(session, SAMPLE_DATA, "L")
         token = new_token()
         repo.add_token(session, "reads", "viewer", token_hash(token))
         session.commit()

@@ -230,6 +230,7 @@ def pg_restore(path: Path, url: str, *, force: bool = False) -> str:
     backup_revision = _dump_revision(path, env)
     target_revision = _pg_revision(url)
     check_revisions(backup_revision, target_revision, force)
+    assert backup_revision is not None  # check_revisions refuses a file without one
     if target_revision is not None and target_revision != backup_revision and force:
         known = _revisions()
         if known.index(target_revision) > known.index(backup_revision):

@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from pathlib import Path
 
 from alembic import command
@@ -18,11 +19,16 @@ from service.persistence import tokens
 from service.persistence.db import make_engine
 from service.persistence.models import ROLES, Site, Truck
 
-SAMPLE_DATA = Path(__file__).resolve().parent.parent / "sample_data"
 
-
-def _session() -> Session:
-    return Session(make_engine(load_settings().database_url), expire_on_commit=False)
+@contextmanager
+def _session() -> Iterator[Session]:
+    """A session on its own engine, closed with its connections when the command is done."""
+    engine = make_engine(load_settings().database_url)
+    try:
+        with Session(engine, expire_on_commit=False) as session:
+            yield session
+    finally:
+        engine.dispose()
 
 
 def db_upgrade(args: argparse.Namespace) -> int:
@@ -103,13 +109,13 @@ def token_list(_args: argparse.Namespace) -> int:
 
 
 def demo(args: argparse.Namespace) -> int:
-    from service.demo import load_demo  # noqa: PLC0415
+    from service.demo import SAMPLE_DATA, load_demo  # noqa: PLC0415
 
     with _session() as session:
         if repo.count_rows(session, Truck) or repo.count_rows(session, Site):
             print("the database already holds trucks or sites; the demo loads only into an empty one")
             return 0 if args.if_empty else 1
-        trucks, sites = load_demo(session, Path(args.directory), load_settings().quantity_unit)
+        trucks, sites = load_demo(session, Path(args.directory or SAMPLE_DATA), load_settings().quantity_unit)
         session.commit()
     print(f"loaded the demo network: {trucks} trucks, {sites} sites")
     return 0
@@ -128,12 +134,12 @@ def _persistent_secret() -> str:
 
 
 def serve(args: argparse.Namespace) -> int:
-    os.environ.setdefault("ULLAGE_SECRET_KEY", _persistent_secret())
-    # Prometheus multiprocess mode (service.metrics): one directory per server, emptied at start.
-    from service.metrics import MULTIPROC_ENV, wipe_multiprocess_dir  # noqa: PLC0415
-
-    os.environ.setdefault(MULTIPROC_ENV, str(Path("var") / "prometheus"))
-    wipe_multiprocess_dir(os.environ[MULTIPROC_ENV])
+    # Fails here, before gunicorn starts, on any bad setting.
+    settings = load_settings(ephemeral_secret=False)
+    # gunicorn's processes read their settings from the environment (service.config), so what
+    # `serve` decides for them is handed on there. (The metrics directory is gunicorn_conf's.)
+    if not settings.secret_key:
+        os.environ["ULLAGE_SECRET_KEY"] = _persistent_secret()
     # This interpreter's gunicorn, so `.venv/bin/ullage serve` works without the venv on PATH.
     argv = [
         sys.executable,
@@ -142,7 +148,7 @@ def serve(args: argparse.Namespace) -> int:
         "--config",
         str(Path(__file__).resolve().parent / "gunicorn_conf.py"),
         "--bind",
-        f"{args.host}:{args.port}",
+        f"{args.host or settings.host}:{args.port or settings.port}",
         "service.app:create_app()",
     ]
     if args.workers:
@@ -188,14 +194,14 @@ def build_parser() -> argparse.ArgumentParser:
     revoke.set_defaults(func=token_revoke)
     token.add_parser("list", help="names, roles and states (never secrets)").set_defaults(func=token_list)
 
-    dm = sub.add_parser("demo", help="load sample_data/ into an empty database")
-    dm.add_argument("--directory", default=str(SAMPLE_DATA))
+    dm = sub.add_parser("demo", help="load the invented demo network (service/sample_data/) into an empty database")
+    dm.add_argument("--directory", help="a directory with trucks.csv and sites.csv instead of the demo network")
     dm.add_argument("--if-empty", action="store_true", help="exit 0 without loading when data exists")
     dm.set_defaults(func=demo)
 
     sv = sub.add_parser("serve", help="run gunicorn")
-    sv.add_argument("--host", default=os.environ.get("ULLAGE_HOST", "127.0.0.1"))
-    sv.add_argument("--port", type=int, default=int(os.environ.get("ULLAGE_PORT", "8000")))
+    sv.add_argument("--host", help="default: ULLAGE_HOST or 127.0.0.1")
+    sv.add_argument("--port", type=int, help="default: ULLAGE_PORT or 8000")
     sv.add_argument("--workers", type=int, default=0, help="default: WEB_CONCURRENCY or 2")
     sv.set_defaults(func=serve)
     return parser

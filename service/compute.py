@@ -33,13 +33,13 @@ import contextlib
 import math
 import multiprocessing
 import os
-import queue
 import signal
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from multiprocessing.connection import Connection
+from queue import Empty, Queue
 from typing import Any
 
 #: Niceness of the children (19 is the lowest priority: CFS weight 15 against 1 024 at niceness 0).
@@ -125,7 +125,7 @@ class Pool:
     preload: Sequence[str] = ()
     niceness: int = NICENESS
     _slots: list[_Slot] = field(init=False, repr=False)
-    _free: queue.Queue[_Slot] = field(init=False, repr=False)
+    _free: Queue[_Slot] = field(init=False, repr=False)
     _admitted: int = field(default=0, init=False)
     _lock: threading.Lock = field(default_factory=threading.Lock, init=False, repr=False)
     _context: Any = field(init=False, repr=False)
@@ -134,7 +134,7 @@ class Pool:
         self._context = multiprocessing.get_context("forkserver")
         self._context.set_forkserver_preload(list(self.preload))
         self._slots = [_Slot() for _ in range(self.processes)]
-        self._free = queue.Queue()
+        self._free = Queue()
         for slot in self._slots:
             self._free.put(slot)
 
@@ -171,7 +171,7 @@ class Pool:
         """
         try:
             slot = self._free.get(timeout=wait)
-        except queue.Empty:
+        except Empty:
             raise Busy(f"no planning process became free within {wait:g} s") from None
         try:
             return self._run_on(slot, fn, args, kwargs or {}, limit, cancelled)

@@ -2,6 +2,14 @@
 
 Twelve-factor style: everything that varies between deployments is an environment variable. The
 variable names are listed in README.md (configuration table). Nothing here connects anywhere.
+
+This is the one place the service reads its environment: the app, the CLI and the gunicorn
+configuration (``service/gunicorn_conf.py``) all take their values from :func:`load_settings`
+(``tests/integration/test_config_and_factory.py`` checks that no other module of ``service`` reads
+it). Two variables are read by others, on purpose (DEVELOPERS.md, "Configuration"):
+``PROMETHEUS_MULTIPROC_DIR``, which gunicorn_conf *sets* from ``ULLAGE_METRICS_DIR`` for
+prometheus_client (the library reads it when imported), and ``ULLAGE_SKIP_MIGRATIONS``, which only
+the Docker entrypoint (a shell script) reads.
 """
 
 from __future__ import annotations
@@ -52,6 +60,14 @@ ENVIRONMENT = {
     "ULLAGE_SECURE_COOKIES": "secure_cookies",
     "ULLAGE_TRUSTED_PROXIES": "trusted_proxies",
     "LOG_LEVEL": "log_level",
+    # Serving (``ullage serve`` and service/gunicorn_conf.py); WEB_CONCURRENCY is the name gunicorn
+    # and most platforms use for the number of worker processes.
+    "WEB_CONCURRENCY": "workers",
+    "ULLAGE_THREADS": "threads",
+    "ULLAGE_REUSE_PORT": "reuse_port",
+    "ULLAGE_HOST": "host",
+    "ULLAGE_PORT": "port",
+    "ULLAGE_METRICS_DIR": "metrics_dir",
 }
 
 
@@ -105,6 +121,16 @@ class Settings:
     #: (werkzeug's ProxyFix); 0 believes none.
     trusted_proxies: int = 0
     log_level: str = "INFO"
+    #: gunicorn: worker processes, threads per worker, a listening socket per worker
+    #: (:func:`listener_per_worker`), and where ``ullage serve`` listens.
+    workers: int = 2
+    threads: int = 4
+    reuse_port: bool = False
+    host: str = "127.0.0.1"
+    port: int = 8000
+    #: Under gunicorn, the directory where every worker keeps its metrics, so that a scrape of
+    #: /metrics sums them all (service/metrics.py); emptied when gunicorn starts. One per server.
+    metrics_dir: str = str(Path("var") / "prometheus")
     testing: bool = False
 
     def validate(self) -> Settings:
@@ -140,12 +166,47 @@ class Settings:
             )
         if not 0 <= self.trusted_proxies <= MAX_TRUSTED_PROXIES:
             raise ValueError(f"ULLAGE_TRUSTED_PROXIES must be 0 to {MAX_TRUSTED_PROXIES}")
+        for name, variable in (("workers", "WEB_CONCURRENCY"), ("threads", "ULLAGE_THREADS")):
+            if getattr(self, name) < 1:
+                raise ValueError(f"{variable} must be at least 1")
+        if not 1 <= self.port <= 65535:
+            raise ValueError(f"ULLAGE_PORT must be a TCP port (1 to 65535), got {self.port}")
+        if not self.metrics_dir.strip():
+            raise ValueError("ULLAGE_METRICS_DIR must name a directory")
         if not 0 <= self.token_cache_seconds <= MAX_TOKEN_CACHE_SECONDS:
             raise ValueError(f"ULLAGE_TOKEN_CACHE_SECONDS must be 0 to {MAX_TOKEN_CACHE_SECONDS}")
         return self
 
 
+def listener_per_worker(setting: str | None) -> bool:
+    """Whether each worker listens on its own ``SO_REUSEPORT`` socket (gunicorn's ``reuse_port``).
+
+    ``ULLAGE_REUSE_PORT=1`` turns it on; unset or ``0`` keeps gunicorn's one shared socket, which
+    the master holds for the service's whole life. The trade-off, as ``benchmarks/load.py`` printed
+    it (docs/reliability.md):
+
+    * shared socket: whichever worker wakes first accepts a burst of connections and keep-alive
+      pins them there; with 32 connections, some slices ran with all 32 on one of two workers and
+      weekly trips at 380–400 req/s against 610–700 in the other slices;
+    * a socket per worker: the kernel spreads new connections over the workers by a hash of their
+      addresses, but a socket lives and dies with its worker. While a worker restarts (recycled
+      after ``max_requests``, or crashed) connections queued on its socket are reset, and while
+      every worker restarts at once nothing listens: recycling every 1 500 requests gave thousands
+      of connection errors in a run where the shared socket gave none.
+
+    So the safe one is the default, and a socket per worker is for many long-lived connections
+    where throughput matters more than a rare refused connection that a client retries.
+    """
+    if setting in (None, "", "0"):
+        return False
+    if setting == "1":
+        return True
+    raise ValueError(f"ULLAGE_REUSE_PORT must be 1, 0 or unset, not {setting!r}")
+
+
 def _coerce(name: str, value: Any) -> Any:
+    if name == "reuse_port" and isinstance(value, str):
+        return listener_per_worker(value)
     kind = {f.name: f.type for f in fields(Settings)}[name]
     if kind == "int" and isinstance(value, str):
         return int(value)
@@ -156,11 +217,18 @@ def _coerce(name: str, value: Any) -> Any:
     return value
 
 
-def load_settings(overrides: Mapping[str, Any] | None = None, environ: Mapping[str, str] | None = None) -> Settings:
+def load_settings(
+    overrides: Mapping[str, Any] | None = None,
+    environ: Mapping[str, str] | None = None,
+    *,
+    ephemeral_secret: bool = True,
+) -> Settings:
     """Build the settings: defaults, then the environment, then ``overrides``.
 
     ``overrides`` may use either the environment names (``DATABASE_URL``) or the field names
-    (``database_url``); ``TESTING`` maps to ``testing``.
+    (``database_url``); ``TESTING`` maps to ``testing``. Without ``ULLAGE_SECRET_KEY`` a random
+    per-process key is made, unless ``ephemeral_secret`` is false (``secret_key`` then stays empty,
+    for ``ullage serve`` to hand every worker the same key).
     """
     environ = os.environ if environ is None else environ
     values: dict[str, Any] = {"database_url": default_database_url()}
@@ -174,7 +242,7 @@ def load_settings(overrides: Mapping[str, Any] | None = None, environ: Mapping[s
             values[field_name] = _coerce(field_name, value)
     settings = Settings(**values)
     settings = replace(settings, database_url=normalise_database_url(settings.database_url))
-    if not settings.secret_key:
+    if not settings.secret_key and ephemeral_secret:
         # A per-process key: sessions do not survive a restart and are not shared between
         # workers. Production sets ULLAGE_SECRET_KEY (README).
         settings = replace(settings, secret_key=secrets.token_urlsafe(32))

@@ -1,4 +1,4 @@
-"""Load the invented demo network in ``sample_data/`` (trucks.csv, then sites.csv via the CSV import)."""
+"""Load the invented demo network in ``service/sample_data/`` (trucks.csv, then sites.csv via the CSV import)."""
 
 from __future__ import annotations
 
@@ -9,6 +9,9 @@ from sqlalchemy.orm import Session
 
 from service.persistence import repository as repo
 from service.sites_csv import import_sites
+
+#: The demo network ships inside the package, so `ullage demo` works from an installed wheel.
+SAMPLE_DATA = Path(__file__).resolve().parent / "sample_data"
 
 
 def load_demo(session: Session, directory: Path, service_unit: str) -> tuple[int, int]:

@@ -1,46 +1,34 @@
 """gunicorn settings for Ullage: graceful shutdown, no preload (each worker builds its own app and
-engines after the fork), the worker heartbeat in /dev/shm (a RAM disk: a slow disk cannot make
-the arbiter think a worker hung)."""
+engines after the fork), the worker heartbeat in /dev/shm (a RAM disk: a slow disk cannot make the
+arbiter think a worker hung).
+
+Loaded by gunicorn's master from this file's path (``ullage serve``, which the Docker image runs, and
+the tests and benchmarks that start gunicorn). Its values come from the one settings object
+(service.config), so a bad value stops the master before any worker forks.
+"""
 
 import os
+from pathlib import Path
 
-from service.observability import configure_logging
+from gunicorn import glogging
 
+from service.config import load_settings
+from service.observability import JsonFormatter, configure_logging
 
-def listener_per_worker(setting: str | None) -> bool:
-    """Whether each worker listens on its own ``SO_REUSEPORT`` socket (gunicorn's ``reuse_port``).
+_settings = load_settings()
 
-    ``ULLAGE_REUSE_PORT=1`` turns it on; unset or ``0`` keeps gunicorn's one shared socket, which
-    the master holds for the service's whole life. The trade-off, as ``benchmarks/load.py`` printed
-    it (docs/reliability.md):
+# Prometheus multiprocess mode (service/metrics.py): every worker keeps its metrics in files of
+# ULLAGE_METRICS_DIR and a scrape of /metrics sums them, so it counts the requests of all workers.
+METRICS_DIR = Path(_settings.metrics_dir).resolve()
 
-    * shared socket: whichever worker wakes first accepts a burst of connections and keep-alive
-      pins them there; with 32 connections, some slices ran with all 32 on one of two workers and
-      weekly trips at 380–400 req/s against 610–700 in the other slices;
-    * a socket per worker: the kernel spreads new connections over the workers by a hash of their
-      addresses, but a socket lives and dies with its worker. While a worker restarts (recycled
-      after ``max_requests``, or crashed) connections queued on its socket are reset, and while
-      every worker restarts at once nothing listens: recycling every 1 500 requests gave thousands
-      of connection errors in a run where the shared socket gave none.
-
-    So the safe one is the default, and a socket per worker is for many long-lived connections
-    where throughput matters more than a rare refused connection that a client retries.
-    """
-    if setting in (None, "", "0"):
-        return False
-    if setting == "1":
-        return True
-    raise ValueError(f"ULLAGE_REUSE_PORT must be 1, 0 or unset, not {setting!r}")
-
-
-workers = int(os.environ.get("WEB_CONCURRENCY", "2"))
+workers = _settings.workers
 worker_class = "gthread"
-threads = int(os.environ.get("ULLAGE_THREADS", "4"))
-reuse_port = listener_per_worker(os.environ.get("ULLAGE_REUSE_PORT"))
+threads = _settings.threads
+reuse_port = _settings.reuse_port  # service.config.listener_per_worker has the trade-off
 timeout = 30
 graceful_timeout = 20
 keepalive = 5
-preload_app = False  # each worker opens its own database connections after the fork
+preload_app = False  # each worker opens its own database connections and metrics files after the fork
 # Workers are recycled against slow leaks, but a worker's start costs about 1.7 s of CPU (imports,
 # app, OpenAPI document; benchmarks/reads.py prints it): at 2 000 requests that was 0.85 ms per
 # request, more than a /livez answer itself. At 20 000 it is under 0.1 ms.
@@ -52,10 +40,42 @@ worker_tmp_dir = "/dev/shm" if os.path.isdir("/dev/shm") else None
 secure_scheme_headers: dict[str, str] = {}
 accesslog = None  # the app writes one JSON line per request itself
 errorlog = "-"
+loglevel = _settings.log_level.lower()
+# gunicorn 25.1+ opens a control socket (worker count, reload, shutdown) under $HOME or
+# $XDG_RUNTIME_DIR by default: one path shared by every gunicorn of the user, and a way to change
+# the service from outside its configuration. Off (older releases ignore the unknown name).
+control_socket_disable = True
+
+
+class JsonLogger(glogging.Logger):
+    """gunicorn's own lines (booting, exiting, timeouts) as JSON lines on stderr, like the app's.
+
+    A subclass rather than ``logconfig_dict``: gunicorn takes any logging config as a wish for its
+    access log too, which would add a second line per request (the app writes its own).
+    """
+
+    def setup(self, cfg):  # type: ignore[no-untyped-def]
+        super().setup(cfg)
+        for handler in self.error_log.handlers:
+            handler.setFormatter(JsonFormatter())
+
+
+logger_class = JsonLogger
+
+
+def on_starting(server):  # type: ignore[no-untyped-def]
+    """Once per master, before any worker forks: an empty metrics directory (a previous run's
+    files would be summed in; a reload on SIGHUP keeps the running workers' counts), handed to
+    prometheus_client in its own variable, which it reads when a worker imports it (so the app is
+    never preloaded in the master)."""
+    METRICS_DIR.mkdir(parents=True, exist_ok=True)
+    for stale in METRICS_DIR.glob("*.db"):
+        stale.unlink()
+    os.environ["PROMETHEUS_MULTIPROC_DIR"] = str(METRICS_DIR)
 
 
 def post_worker_init(worker):  # type: ignore[no-untyped-def]
-    configure_logging(os.environ.get("LOG_LEVEL", "INFO"))
+    configure_logging(_settings.log_level)
     from service.bounded import start_pool  # noqa: PLC0415
 
     start_pool(worker.wsgi)  # the planning processes (service.compute), before the first request

@@ -13,7 +13,8 @@ from service.errors import problem_response
 from service.persistence import schema
 from service.persistence.db import write_intent
 
-MIGRATIONS = Path(__file__).resolve().parent.parent / "migrations"
+#: The Alembic chain ships inside the package, so an installed wheel can migrate.
+MIGRATIONS = Path(__file__).resolve().parent / "migrations"
 bp = Blueprint("health", __name__)
 
 

@@ -1,10 +1,11 @@
 """``GET /metrics``: Prometheus text format, viewer role, safe under gunicorn's worker processes.
 
 Under gunicorn every worker is its own process, so a per-process registry would show whichever
-worker answered the scrape. With ``PROMETHEUS_MULTIPROC_DIR`` set (``ullage serve`` sets it and
-empties it at start; the gunicorn ``child_exit`` hook marks dead workers), prometheus_client keeps
-each worker's values in memory-mapped files there and the scrape sums them. Without it (tests,
-``flask run``) the process's own registry is served.
+worker answered the scrape. ``service/gunicorn_conf.py`` therefore points prometheus_client at
+``ULLAGE_METRICS_DIR`` (through the library's own ``PROMETHEUS_MULTIPROC_DIR``, set in the master
+and emptied at start; the ``child_exit`` hook marks dead workers): each worker keeps its values in
+memory-mapped files there and the scrape sums them, including the counts of recycled workers.
+Outside gunicorn (tests, ``flask run``) the process's own registry is served.
 
 Metrics (labels are bounded: the route *rule*, never the raw path):
 
@@ -15,15 +16,14 @@ Metrics (labels are bounded: the route *rule*, never the raw path):
 
 from __future__ import annotations
 
-import os
 import time
 
 from flask import Blueprint, Flask, Response, g, request
 from prometheus_client import CONTENT_TYPE_LATEST, REGISTRY, CollectorRegistry, Counter, Histogram, generate_latest
+from prometheus_client import values as prometheus_values
 
 from service.auth import allow
 
-MULTIPROC_ENV = "PROMETHEUS_MULTIPROC_DIR"
 UNMATCHED = "unmatched"
 
 # Module level: created once per process, whatever the number of apps (tests build many).
@@ -38,13 +38,14 @@ DURATION = Histogram(
 bp = Blueprint("metrics", __name__)
 
 
-def multiprocess_dir() -> str | None:
-    return os.environ.get(MULTIPROC_ENV) or os.environ.get(MULTIPROC_ENV.lower()) or None
+def multiprocess_mode() -> bool:
+    """Whether this process keeps its values in files (prometheus_client decided on import)."""
+    return prometheus_values.ValueClass is not prometheus_values.MutexValue
 
 
 def exposition() -> bytes:
     """The current metrics, summed over the workers in multiprocess mode."""
-    if multiprocess_dir():
+    if multiprocess_mode():
         from prometheus_client import multiprocess  # noqa: PLC0415
 
         registry = CollectorRegistry()
@@ -83,15 +84,7 @@ def init_app(app: Flask) -> None:
 
 def mark_process_dead(pid: int) -> None:
     """gunicorn ``child_exit``: drop a dead worker's live-gauge files (counters are kept and summed)."""
-    if multiprocess_dir():
+    if multiprocess_mode():
         from prometheus_client import multiprocess  # noqa: PLC0415
 
         multiprocess.mark_process_dead(pid)
-
-
-def wipe_multiprocess_dir(path: str) -> None:
-    """Empty the directory at start-up: values of a previous run must not be summed in."""
-    os.makedirs(path, exist_ok=True)
-    for name in os.listdir(path):
-        if name.endswith(".db"):
-            os.remove(os.path.join(path, name))

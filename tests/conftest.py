@@ -22,7 +22,7 @@ from sqlalchemy.orm import Session
 from service import create_app
 from service.auth import new_token, token_hash
 from service.config import MAX_TOKEN_CACHE_SECONDS, normalise_database_url
-from service.demo import load_demo
+from service.demo import SAMPLE_DATA, load_demo
 from service.health import alembic_config
 from service.persistence import repository as repo
 from service.persistence.models import Base
@@ -188,6 +188,6 @@ def auth(tokens: dict[str, str]):
 
 @pytest.fixture
 def demo(app, db_session: Session) -> None:
-    """The invented demo network of sample_data/."""
-    load_demo(db_session, ROOT / "sample_data", app.config["ULLAGE_SETTINGS"].quantity_unit)
+    """The invented demo network of service/sample_data/."""
+    load_demo(db_session, SAMPLE_DATA, app.config["ULLAGE_SETTINGS"].quantity_unit)
     db_session.commit()

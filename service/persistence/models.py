@@ -1,4 +1,4 @@
-"""Typed SQLAlchemy 2 models. Alembic (migrations/) owns the schema built from these."""
+"""Typed SQLAlchemy 2 models. Alembic (service/migrations/) owns the schema built from these."""
 
 from __future__ import annotations
 

@@ -50,6 +50,7 @@ def integer_policy(problem: Problem, relaxation: Relaxation) -> Policy:
             if best is None or cost < best[0] or (cost == best[0] and T0 < best[1]):
                 best = (cost, T0, m)
             T0 += direction
+    assert best is not None  # the search starts inside [1, longest], so it priced at least one T0
     cost, T0, m = best
     return Policy("integer", None, T0, m * T0, (m + 1) * T0, cost)
 

@@ -102,4 +102,5 @@ def power_of_two_policy(problem: Problem, relaxation: Relaxation, base_days: int
         candidate = _policy_for_base(problem, int(bases[j]))
         if best is None or (candidate.class_cost, candidate.base_days) < (best.class_cost, best.base_days):
             best = candidate
+    assert best is not None  # the first base is always tried
     return best

@@ -1,8 +1,8 @@
 """Every README example marked ``<!-- readme-example: … -->`` runs as written against a live server
 on a fresh database with the demo network (issue 18), on any day.
 
-The blocks run in bash, in order, in a scratch directory holding a copy of ``sample_data/`` (the
-CSV example reads ``@sample_data/sites.csv`` and the export writes ``sites.csv``). The one change
+The blocks run in bash, in order, in a scratch directory holding a copy of ``service/sample_data/``
+(the CSV example reads ``@service/sample_data/sites.csv`` and the export writes ``sites.csv``). The one change
 made to them is the reader's own: the placeholder token ``ull_...`` becomes a real admin token.
 The port comes from ``ULLAGE_PORT``, which the examples read. Every request the examples make is
 recorded at the server, and each must have answered as the README says (2xx, the one 304).
@@ -54,7 +54,7 @@ def test_the_readme_marks_its_runnable_examples():
 def test_every_marked_readme_example_runs_as_written(app, tokens, demo, tmp_path):
     if shutil.which("curl") is None or shutil.which("bash") is None:
         pytest.fail("the README examples need bash and curl")
-    shutil.copytree(ROOT / "sample_data", tmp_path / "sample_data")
+    shutil.copytree(ROOT / "service" / "sample_data", tmp_path / "service" / "sample_data")
     log: list[tuple[str, str, int]] = []
     app.wsgi_app = _recording(app, log)
     with serving(app) as base:

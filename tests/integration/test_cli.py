@@ -135,8 +135,6 @@ def test_demo_network_is_served(env_db, capsys, client):
 def test_serve_execs_gunicorn_on_the_loopback_by_default(monkeypatch, tmp_path):
     monkeypatch.chdir(tmp_path)
     monkeypatch.setenv("ULLAGE_SECRET_KEY", "test-key")
-    # serve() sets this for gunicorn; setting it here lets monkeypatch restore the test process.
-    monkeypatch.setenv("PROMETHEUS_MULTIPROC_DIR", str(tmp_path / "prometheus"))
     monkeypatch.delenv("ULLAGE_HOST", raising=False)
     monkeypatch.delenv("ULLAGE_PORT", raising=False)
     seen = {}
@@ -181,13 +179,13 @@ def test_gunicorn_settings_are_importable_and_sane(monkeypatch):
 
 @pytest.mark.parametrize(("setting", "expected"), [(None, False), ("", False), ("0", False), ("1", True)])
 def test_a_listener_per_worker_only_when_asked_for(setting, expected):
-    from service.gunicorn_conf import listener_per_worker
+    from service.config import listener_per_worker
 
     assert listener_per_worker(setting) is expected
 
 
 def test_a_listener_per_worker_setting_refuses_other_values():
-    from service.gunicorn_conf import listener_per_worker
+    from service.config import listener_per_worker
 
     with pytest.raises(ValueError, match="ULLAGE_REUSE_PORT"):
         listener_per_worker("yes")

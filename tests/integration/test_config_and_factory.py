@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import ast
 import shutil
 import subprocess
 import sys
@@ -232,3 +233,106 @@ def test_load_settings_accepts_field_names_and_environment_names(tmp_path):
     )
     assert (settings.currency, settings.max_body_bytes) == ("USD", 2048)
     assert settings.secret_key  # a per-process key when none is configured
+    assert load_settings(environ={}, ephemeral_secret=False).secret_key == ""  # `ullage serve` makes one
+
+
+def test_serving_settings_come_from_the_environment():
+    environ = {
+        "WEB_CONCURRENCY": "3",
+        "ULLAGE_THREADS": "6",
+        "ULLAGE_REUSE_PORT": "1",
+        "ULLAGE_HOST": "0.0.0.0",
+        "ULLAGE_PORT": "8100",
+        "ULLAGE_METRICS_DIR": "/srv/metrics",
+    }
+    settings = load_settings(environ=environ)
+    assert (settings.workers, settings.threads, settings.reuse_port) == (3, 6, True)
+    assert (settings.host, settings.port, settings.metrics_dir) == ("0.0.0.0", 8100, "/srv/metrics")
+    defaults = load_settings(environ={})
+    assert defaults.metrics_dir == "var/prometheus"  # under the working directory, like the database
+    assert (defaults.workers, defaults.threads, defaults.reuse_port, defaults.host, defaults.port) == (
+        2,
+        4,
+        False,
+        "127.0.0.1",
+        8000,
+    )
+
+
+@pytest.mark.parametrize(
+    ("name", "value"),
+    [
+        ("WEB_CONCURRENCY", "0"),
+        ("ULLAGE_THREADS", "0"),
+        ("ULLAGE_PORT", "70000"),
+        ("ULLAGE_REUSE_PORT", "yes"),
+        ("ULLAGE_METRICS_DIR", " "),
+    ],
+)
+def test_bad_serving_settings_stop_the_start(name, value):
+    with pytest.raises(ValueError, match=name):
+        load_settings(environ={name: value})
+
+
+def test_gunicorn_reads_its_values_from_the_settings(monkeypatch):
+    import importlib
+
+    monkeypatch.setenv("WEB_CONCURRENCY", "3")
+    monkeypatch.setenv("ULLAGE_THREADS", "5")
+    monkeypatch.setenv("LOG_LEVEL", "WARNING")
+    conf = importlib.reload(importlib.import_module("service.gunicorn_conf"))
+    try:
+        assert (conf.workers, conf.threads, conf.loglevel) == (3, 5, "warning")
+        assert conf.control_socket_disable is True
+    finally:
+        monkeypatch.undo()
+        importlib.reload(conf)
+
+
+_READERS = ("environ", "environb", "getenv", "getenvb")
+
+
+def _environment_reads(tree: ast.AST) -> list[int]:
+    """Lines of ``tree`` that read the process environment (``os.environ``, ``os.getenv``, or
+    ``from os import environ``; a request's WSGI ``environ`` is something else).
+
+    Allowed: assigning to ``os.environ[...]`` (handing a value to a library or a child process)
+    and ``{**os.environ, ...}`` (a child process's environment: everything, passed on unread).
+    """
+    allowed: set[int] = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Dict):
+            allowed |= {id(value) for key, value in zip(node.keys, node.values, strict=True) if key is None}
+        if isinstance(node, ast.Subscript) and isinstance(node.ctx, ast.Store):
+            allowed.add(id(node.value))
+    lines = []
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom) and node.module == "os" and {a.name for a in node.names} & set(_READERS):
+            lines.append(node.lineno)
+        is_os = isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name) and node.value.id == "os"
+        if is_os and node.attr in _READERS and id(node) not in allowed:
+            lines.append(node.lineno)
+    return lines
+
+
+def test_only_the_settings_module_reads_the_environment():
+    """Issue 17: every variable goes through service.config's one settings object."""
+    root = Path(__file__).resolve().parents[2] / "service"
+    readers = {}
+    for path in sorted(root.rglob("*.py")):
+        if path == root / "config.py":
+            continue
+        lines = _environment_reads(ast.parse(path.read_text(), str(path)))
+        if lines:
+            readers[str(path.relative_to(root))] = lines
+    assert readers == {}
+    # The check itself sees the usual ways of reading, and lets the two hand-overs pass.
+    for code in (
+        "os.environ.get('X')",
+        "os.getenv('X')",
+        "'X' in os.environ",
+        "os.environ['X']",
+        "from os import environ",
+    ):
+        assert _environment_reads(ast.parse(code)) == [1], code
+    assert _environment_reads(ast.parse("os.environ['X'] = 'y'\nrun(env={**os.environ})\nrequest.environ['a']")) == []

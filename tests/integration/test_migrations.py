@@ -82,3 +82,31 @@ def test_0005_gives_existing_trucks_the_default_calendar_and_keeps_the_change_st
             conn.execute(text("UPDATE trucks SET trips_per_day = 25 WHERE code = 'OLD-1'"))
     finally:
         engine.dispose()
+
+
+def test_the_migration_chain_and_the_demo_data_have_one_home():
+    """Inside the package (issue 17): the alembic command (pyproject's [tool.alembic]), the service
+    (``ullage db upgrade``, /readyz) and an installed wheel all use ``service/migrations``."""
+    import subprocess
+    from pathlib import Path
+
+    from alembic.config import Config
+    from alembic.script import ScriptDirectory
+
+    from service.demo import SAMPLE_DATA
+    from service.health import MIGRATIONS
+
+    root = Path(__file__).resolve().parents[2]
+    package = root / "service"
+    assert MIGRATIONS == package / "migrations" and SAMPLE_DATA == package / "sample_data"
+    assert not (root / "migrations").exists() and not (root / "sample_data").exists()
+    tracked = subprocess.run(["git", "ls-files"], cwd=root, capture_output=True, text=True, check=True).stdout.split()
+    homes = {Path(name).parent for name in tracked if Path(name).name in ("env.py", "script.py.mako")}
+    assert homes == {Path("service/migrations")}
+    assert {Path(name).parent for name in tracked if name.endswith(".csv") and "sample" in name} == {
+        Path("service/sample_data")
+    }
+    cli = ScriptDirectory.from_config(Config(toml_file=str(root / "pyproject.toml")))
+    assert Path(cli.dir).resolve() == MIGRATIONS
+    files = sorted((MIGRATIONS / "versions").glob("*.py"))
+    assert len(files) == len(list(cli.walk_revisions())) and cli.get_heads() == [migration_head()]

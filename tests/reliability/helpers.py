@@ -25,7 +25,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session
 
 from service.auth import new_token, token_hash
-from service.demo import load_demo
+from service.demo import SAMPLE_DATA, load_demo
 from service.health import alembic_config
 from service.persistence import repository as repo
 
@@ -50,7 +50,7 @@ def load_demo_network(url: str) -> None:
     engine = create_engine(url)
     try:
         with Session(engine) as session:
-            load_demo(session, ROOT / "sample_data", "L")
+            load_demo(session, SAMPLE_DATA, "L")
             session.commit()
     finally:
         engine.dispose()
@@ -212,8 +212,6 @@ def start_gunicorn(
     """
     port = free_port()
     log_path = tmp_path / f"gunicorn-{port}.log"
-    metrics_dir = tmp_path / f"prom-{port}"
-    metrics_dir.mkdir(exist_ok=True)
     env = {k: v for k, v in os.environ.items() if k not in ("DATABASE_URL", "PROMETHEUS_MULTIPROC_DIR")}
     env.update(
         {
@@ -221,7 +219,7 @@ def start_gunicorn(
             "WEB_CONCURRENCY": str(workers),
             "ULLAGE_THREADS": str(threads),
             "ULLAGE_SECRET_KEY": "reliability-suite-secret",
-            "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir),
+            "ULLAGE_METRICS_DIR": str(tmp_path / f"prom-{port}"),
             "PYTHONUNBUFFERED": "1",
         }
     )

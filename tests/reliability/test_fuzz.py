@@ -37,7 +37,7 @@ CASES: dict[tuple[str, str], int] = {}
 TRIPS = "GET /api/v1/trucks/{code}/trips"
 #: Trips cases answered 200, per database.
 TRIPS_OK: dict[str, int] = {}
-#: The demo network's trucks (sample_data/trucks.csv); each gets an active plan before fuzzing.
+#: The demo network's trucks (service/sample_data/trucks.csv); each gets an active plan before fuzzing.
 DEMO_TRUCKS = ("HV-R1", "HV-R2")
 #: About half the fuzzing cases are negative (and the coverage phase adds ~50 mostly negative
 #: ones), so the weekly call gets enough examples for its positive ones to be a third or more.

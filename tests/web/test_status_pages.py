@@ -175,10 +175,11 @@ def test_every_response_carries_the_strict_headers(browser_client, planned):
         ("/status/nothing/here", 404),
         ("/status?week=2026-W99", 400),
     ]:
-        response = browser_client.get(path)
-        assert response.status_code == status, path
-        check_headers(response)
-    assert browser_client.get("/status/static/ullage.css").mimetype == "text/css"
+        with browser_client.get(path) as response:  # closed: a static file's answer holds it open
+            assert response.status_code == status, path
+            check_headers(response)
+    with browser_client.get("/status/static/ullage.css") as response:
+        assert response.mimetype == "text/css"
 
 
 def test_the_redirect_to_sign_in_carries_the_headers_too(client, demo):

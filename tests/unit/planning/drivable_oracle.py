@@ -413,7 +413,8 @@ def lagrangian_bound(sites, truck, alpha: float, beta: float, gamma: float) -> f
     d, k, H, U = _arrays(sites, truck)
     load = K * beta * d.sum() / truck.capacity if truck.capacity is not None else 0.0
     a = k + (K * gamma / truck.max_stops if truck.max_stops is not None else 0.0)
-    free = np.where(H > 0, np.sqrt(np.divide(a, H, out=np.zeros_like(a), where=H > 0)), np.inf)
+    with np.errstate(over="ignore"):  # a holding cost near 0 puts the free optimum at +inf, clipped to U below
+        free = np.where(H > 0, np.sqrt(np.divide(a, H, out=np.zeros_like(a), where=H > 0)), np.inf)
     u0 = float(U.min())
 
     def F(T0: float) -> float:
@@ -436,7 +437,9 @@ def dual_bound(sites, truck) -> tuple[float, tuple[float, float, float]]:
             beta = 0.0
         if alpha + beta > 1:
             alpha, beta = alpha / (alpha + beta), beta / (alpha + beta)
-        gamma = 0.0 if absent_stops else 1 - alpha - beta
+        # max(0, …): the normalised alpha + beta may exceed 1 by a rounding step, and a negative
+        # gamma would make a stop weight below zero (sqrt of a negative in lagrangian_bound).
+        gamma = 0.0 if absent_stops else max(0.0, 1 - alpha - beta)
         return 1 - beta - gamma, beta, gamma
 
     def g(ab) -> float:
