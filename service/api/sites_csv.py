@@ -51,9 +51,11 @@ NUMBER_FIELDS = (
     "safety_stock",
     "latitude",
     "longitude",
+    "service_level",
+    "lead_time_days",
 )
 TEXT_FIELDS = ("code", "name", "truck")
-COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
+COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude", "service_level", "lead_time_days")
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
 FORMAT = (
@@ -66,7 +68,10 @@ FORMAT = (
     "`-3.25`, `2.5e3`); `active` is true/false; `unit` is `L`, `gal` or `m3` (volumes converted to the "
     f"service unit). At most {MAX_ROWS} rows."
 )
-EXAMPLE = ",".join(COLUMNS) + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3\r\n"
+EXAMPLE = (
+    ",".join(COLUMNS)
+    + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3,0.98,1.0\r\n"
+)
 #: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
 #: a formula (``= + - @``, tab, carriage return).
 _NEEDS_PREFIX = re.compile(r"'*[=+\-@\t\r]")
@@ -269,6 +274,10 @@ def export_sites(session: Session) -> str:
         row: list[Any] = [_defuse(site.code), _defuse(site.name), _defuse(codes[site.truck_id])]
         row += [repr(getattr(site, f)) for f in NUMBER_FIELDS[:6]]
         row += ["true" if site.active else "false"]
-        row += ["" if getattr(site, f) is None else repr(getattr(site, f)) for f in ("latitude", "longitude")]
+        row += [
+            "" if getattr(site, f) is None else repr(getattr(site, f))
+            for f in ("latitude", "longitude", "service_level")
+        ]
+        row += [repr(site.lead_time_days)]
         writer.writerow(row)
     return out.getvalue()

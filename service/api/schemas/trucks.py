@@ -1,5 +1,7 @@
 """Truck schemas."""
 
+import datetime as dt
+
 import marshmallow as ma
 
 from service.api.fields import JsonBool, JsonFloat, JsonInt, Range
@@ -20,6 +22,11 @@ class TruckSchema(CalendarSchema):
         required=True, validate=positive(), metadata={"description": "Quantity one trip can carry, in the service unit"}
     )
     max_stops = JsonInt(load_default=None, allow_none=True, validate=Range(min=1, max=1000))
+    shift_start = ma.fields.Time(
+        load_default=dt.time(6, 0),
+        format="iso",
+        metadata={"description": "Local time of day deliveries are made (HH:MM or HH:MM:SS), default 06:00"},
+    )
     active = JsonBool(load_default=True)
     version = ma.fields.Integer(dump_only=True)
     created_at = ma.fields.DateTime(dump_only=True)
