@@ -137,7 +137,9 @@ class SiteDeliveries(MethodView):
             truck_id = _truck_id(body["truck"])
             delivery = store.add_delivery(session, site, body, truck_id, current_caller().name)
             response = Response(
-                json.dumps(DeliverySchema().dump(dump(delivery, site.code, body["truck"]))), status=201, mimetype="application/json"
+                json.dumps(DeliverySchema().dump(dump(delivery, site.code, body["truck"]))),
+                status=201,
+                mimetype="application/json",
             )
             response.headers["Location"] = url_for("deliveries.SiteDeliveries", code=site.code)
             return response
