@@ -74,7 +74,9 @@ class JointCalculation(MethodView):
     @blp.arguments(JointRequestSchema)
     @blp.response(200, JointResultSchema)
     @blp.alt_response(422, description="Invalid body, or more sites than ULLAGE_MAX_PLAN_SITES", **PROBLEM)
-    @blp.alt_response(429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM)
+    @blp.alt_response(
+        429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM
+    )
     @blp.alt_response(
         503, description="Planning busy, or stopped at the planning time limit", headers=hh.RETRY, **PROBLEM
     )

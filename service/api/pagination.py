@@ -20,7 +20,9 @@ DEFAULT_LIMIT = 50
 class PageArgsSchema(StrictSchema):
     """``limit`` (1–200, default 50) and ``after`` (the last key of the previous page)."""
 
-    limit = ma.fields.Integer(load_default=DEFAULT_LIMIT, validate=Range(min=1, max=MAX_LIMIT), strict=False)
+    limit = ma.fields.Integer(
+        load_default=DEFAULT_LIMIT, validate=Range(min=1, max=MAX_LIMIT), strict=False
+    )
     after = ma.fields.String(validate=ma.validate.Length(min=1, max=80))
 
 

@@ -359,7 +359,9 @@ class TruckTrips(MethodView):
     @blp.alt_response(
         422, description="Invalid window, or longer than ULLAGE_MAX_TRIPS_DAYS (default 92 days)", **PROBLEM
     )
-    @blp.alt_response(429, description="Too many long windows (heavy reads) of this token", headers=hh.RETRY, **PROBLEM)
+    @blp.alt_response(
+        429, description="Too many long windows (heavy reads) of this token", headers=hh.RETRY, **PROBLEM
+    )
     @blp.alt_response(503, description="A long window found the planning processes busy", headers=hh.RETRY, **PROBLEM)
     @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, args, code):

@@ -162,15 +162,15 @@ def check_calendar(truck: TruckInput) -> tuple[tuple[int, ...], int | None, tupl
         raise PlanningInputError(
             f"truck: working_days must be a non-empty set of ISO weekdays 1..7, got {days!r}", field="working_days"
         )
-    trips = check_truck_number(
-        truck.trips_per_day, "trips_per_day", optional=True, integer=True, minimum=1, strict=False
-    )
+    trips = check_truck_number(truck.trips_per_day, "trips_per_day", optional=True, integer=True, minimum=1, strict=False)
     closed = truck.closed_dates
     try:
         closed_items = list(closed)
     except TypeError:
         closed_items = None
-    if closed_items is None or any(not isinstance(x, dt.date) or isinstance(x, dt.datetime) for x in closed_items):
+    if closed_items is None or any(
+        not isinstance(x, dt.date) or isinstance(x, dt.datetime) for x in closed_items
+    ):
         raise PlanningInputError(f"truck: closed_dates must be a list of dates, got {closed!r}", field="closed_dates")
     return tuple(sorted(int(x) for x in items)), trips, tuple(sorted(set(closed_items)))
 

@@ -250,9 +250,7 @@ def _site_plans(problem: Problem, candidate: _Candidate) -> tuple[SitePlan, ...]
 def _result(problem, candidate: _Candidate, bound, start, status, message, warnings) -> JointResult:
     ev = candidate.evaluation
     sites = _site_plans(problem, candidate)
-    limits = Limits(
-        problem.capacity, problem.max_stops, problem.trips_per_day, problem.working_days, problem.closed_dates
-    )
+    limits = Limits(problem.capacity, problem.max_stops, problem.trips_per_day, problem.working_days, problem.closed_dates)
     last = min(ev.repeat, LISTED_DAYS) - 1
     trips, window_warnings, listed_last = window_trips(sites, start, limits, 0, last, stop_limit=LISTED_STOPS)
     truncated = listed_last < ev.repeat - 1
@@ -382,10 +380,7 @@ class _Search:
         if self.best is not None and (self.limited or self.week.n < 7) and not self.out_of_time():
             self._improve()
         if self.best is None and self.candidates:
-            key = min(
-                range(len(self.candidates)),
-                key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost),
-            )
+            key = min(range(len(self.candidates)), key=lambda j: (self.candidates[j].evaluation.max_trips, self.candidates[j].evaluation.cost))
             self.fewest = self._exact(self.candidates[key])
 
 
@@ -522,8 +517,9 @@ def plan_joint(
         need = None if fewest is None else fewest.evaluation.max_trips
         if need is not None and not search.cut:
             need = _least_trips_needed(problem, week, method, base_days if base_fits else None, deadline, need)
-        message = f"no plan found within {problem.trips_per_day} trip(s) per day" + (
-            "" if need is None else f"; {need} trips per day are enough"
+        message = (
+            f"no plan found within {problem.trips_per_day} trip(s) per day"
+            + ("" if need is None else f"; {need} trips per day are enough")
         )
         return _infeasible(
             problem,

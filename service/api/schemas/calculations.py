@@ -56,9 +56,7 @@ class JointRequestSchema(CalendarSchema):
     start_date = BoundedDate(
         load_default=None,
         allow_none=True,
-        metadata={
-            "description": f"Day 0 of the plan's calendar (default: today in the service time zone), {DATE_RANGE}"
-        },
+        metadata={"description": f"Day 0 of the plan's calendar (default: today in the service time zone), {DATE_RANGE}"},
     )
     sites = ma.fields.List(
         ma.fields.Nested(JointSiteSchema), required=True, validate=ma.validate.Length(min=1, max=MAX_SITES)

@@ -45,9 +45,7 @@ class PlanSchema(JointFieldsSchema):
     )
     planning_status = ma.fields.String(
         validate=ma.validate.OneOf([s for s in STATUSES if s != "infeasible"]),
-        metadata={
-            "description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION
-        },
+        metadata={"description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION},
     )
     stale = ma.fields.Boolean(
         metadata={"description": "True when a truck or site input changed since the plan was computed"}

@@ -15,7 +15,7 @@ class ProblemSchema(ma.Schema):
         validate=ma.validate.OneOf([PROBLEM_BASE + kind for kind in PROBLEM_TYPES]),
         metadata={
             "description": "The problem type: https://ullage.invalid/problems/<kind>, one of the kinds the "
-            'README lists under "Problem types" (an identifier; it does not resolve)'
+            "README lists under \"Problem types\" (an identifier; it does not resolve)"
         },
     )
     title = ma.fields.String()
