@@ -2,7 +2,7 @@
 
 import marshmallow as ma
 
-from service.api.fields import DATE_RANGE, BoundedAwareDateTime, JsonBool, JsonFloat, JsonInt, Range
+from service.api.fields import DATE_RANGE, BoundedAwareDateTime, JsonBool, JsonFloat, Range
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema, code_field_validate, positive
 from service.persistence.models import NOTE_LENGTH
 
@@ -69,7 +69,7 @@ class BulkResultSchema(ma.Schema):
 
 
 class ConsumptionArgsSchema(StrictSchema):
-    days = JsonInt(
+    days = ma.fields.Integer(
         load_default=90,
         strict=False,
         validate=Range(min=1, max=3660),
