@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
+from statistics import NormalDist
 from typing import Any
 
 from sqlalchemy.orm import Session
@@ -32,6 +33,18 @@ from service.planning.consumption import (
     pooled_relative_sigma,
     safety_stock,
 )
+
+#: The data window of the trips notices and apply-estimate (days), the consumption answer's default.
+DEFAULT_DAYS = 90
+
+
+def noise_cover(site: Site, estimate: ConsumptionEstimate) -> float:
+    """``z·σ`` per √day for a site with a ``service_level`` (``z = Φ⁻¹(service_level)``), else 0:
+    a corrected delivery then also covers ``z·σ·√g`` of consumption noise until the next one."""
+    sigma = estimate.sigma_per_sqrt_day
+    if site.service_level is None or not sigma or site.service_level < 0.5:
+        return 0.0
+    return NormalDist().inv_cdf(site.service_level) * sigma
 
 
 @dataclass(frozen=True)
@@ -124,4 +137,13 @@ def answer(result: SiteConsumption) -> dict[str, Any]:
     }
 
 
-__all__ = ["DEFAULT_ALPHA", "SiteConsumption", "answer", "cycle_days", "for_sites", "site_consumption"]
+__all__ = [
+    "DEFAULT_ALPHA",
+    "DEFAULT_DAYS",
+    "noise_cover",
+    "SiteConsumption",
+    "answer",
+    "cycle_days",
+    "for_sites",
+    "site_consumption",
+]

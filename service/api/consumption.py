@@ -66,7 +66,7 @@ class ApplyEstimate(MethodView):
         truck = truck_to_check(code, {})
         site = site_or_404(code, for_update=True)
         require_if_match(etag(site))
-        result = consumption.site_consumption(session, site, 90)
+        result = consumption.site_consumption(session, site, consumption.DEFAULT_DAYS)
         rate = result.estimate.rate_per_day
         if not rate or rate <= 0:
             raise Problem(

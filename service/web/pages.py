@@ -38,6 +38,8 @@ WEEK_CACHE: LruCache[tuple[Markup, Markup]] = LruCache(8)
 #: Warning kinds: a word for the badge and an order (most urgent first).
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
+    "empty_risk": ("Empty risk", 0),
+    "consumption_changed": ("Consumption changed", 1),
     "limits_changed": ("Limits changed", 1),
     "calendar": ("Closed date", 1),
     "no_active_plan": ("No active plan", 2),
@@ -48,6 +50,7 @@ NOTICE_KINDS = {
 #: What to do, said once after a warning whose message does not already say it (no "re-plan" in it).
 ACTIONS = {
     "run_out_risk": "Check the tank's gauge; bring its delivery forward or re-plan.",
+    "empty_risk": "Check the tank's gauge; bring its delivery forward or re-plan.",
     "limits_changed": "Re-plan to use the current limits.",
     "no_active_plan": "Record a plan and activate it.",
     "no_recent_reading": "Record a reading.",
