@@ -5,8 +5,9 @@ Pure (standard library only). The rules, per site with demand ``d``, safe-fill l
 site's *current* values (the plan only gives the dates, the cycle and the planned quantities):
 
 * From a reading ``L`` taken at time ``t_r`` the level falls at ``d`` per day and never below 0.
-  A delivery on day ``D`` is projected at 00:00 of ``D`` (service time zone), before that day's
-  delivery: ``level(D) = max(0, level_prev − d·(t_D − t_prev))``, where ``t_D − t_prev`` is the
+  A delivery on day ``D`` is projected at the truck's shift start of ``D`` (service time zone;
+  00:00 by default here), before that day's delivery:
+  ``level(D) = max(0, level_prev − d·(t_D − t_prev))``, where ``t_D − t_prev`` is the
   elapsed time (computed in UTC, so a daylight-saving change adds or removes no hour of demand).
   Deliveries on days before the reading's own date are history and are not replayed; on the
   reading's date the level is carried back to 00:00 (the reading is taken to precede that day's
@@ -14,7 +15,10 @@ site's *current* values (the plan only gives the dates, the cycle and the planne
 * The corrected quantity keeps the site at or above ``s`` until its next planned delivery
   ``g`` days later: ``need = d·g + s − level(D)``, clamped to ``[0, min(F − level(D), free)]``
   where ``free`` is the truck's capacity minus what earlier stops of the same trip take and minus
-  what the trip's stops without a reading keep. ``g`` is the days from ``D`` to the site's next
+  what the trip's stops without a reading keep; when the trip cannot carry every corrected stop's
+  quantity, the space goes first to what keeps each site at ``s`` until its next delivery (scaled
+  alike when even that does not fit), then to the noise covers (``Projection._shares``). A site
+  with a ``service_level`` adds ``z·σ·√g`` (``Tank.noise_cover``) to ``need``. ``g`` is the days from ``D`` to the site's next
   delivery in the listing (``PlannedTrip.next_days``: on a working calendar the gaps of a pattern
   differ, e.g. a Friday delivery lasts until Monday); where the listing does not say, the cycle ``T``.
 * A site without a reading (or a delivery before its reading's date) keeps its planned quantity,
@@ -25,6 +29,9 @@ site's *current* values (the plan only gives the dates, the cycle and the planne
   projected level counts as at its safety stock, 0 days; ties in the plan's stop order); the
   others are dropped from the trip (listed in ``CorrectedTrip.dropped``) and their tanks go on
   falling.
+* Deliveries are made at ``shift_start`` of their day (local time). Recorded deliveries are
+  history: a stop of a day with one shows what was delivered, and the recorded deliveries after
+  the reading are replayed in time order (a reading after a same-day delivery counts after it).
 * A stop carries ``run_out_risk`` when the site is projected below ``s`` before the delivery, or
   when the clamped quantity cannot carry it to the next delivery above ``s``; the warning names
   the projected date the level crosses ``s``.
@@ -292,6 +299,40 @@ class Projection:
         keep = set(ranked[: self.max_stops])
         return [s for i, s in enumerate(stops) if i in keep], tuple(s[0] for i, s in enumerate(stops) if i not in keep)
 
+    def _shares(
+        self, trip: PlannedTrip, kept: Sequence[tuple[str, float]], when: dt.datetime, budget: float
+    ) -> dict[str, float]:
+        """The truck space each stop corrected from a reading may take, when the trip cannot carry
+        every such stop's wanted quantity: first what keeps each site at its safety stock until its
+        next delivery (``base``, scaled down alike when even that does not fit), then the noise
+        covers, scaled alike. Recorded deliveries of the day take their quantity first."""
+        base: dict[str, float] = {}
+        want: dict[str, float] = {}
+        day = when.astimezone(self.zone).date()
+        for code, _planned in kept:
+            done = self._delivered.get((code, day))
+            if done is not None:
+                budget -= done[0]
+                continue
+            if not self._projected(code, when):
+                continue
+            tank = self.tanks[code]
+            self._advance(code, when)
+            gap = trip.next_days.get(code, tank.cycle_days)
+            level = self._level_at(self._states[code], tank, when)
+            room = max(0.0, tank.safe_fill_level - level)
+            need = tank.demand_per_day * gap + tank.safety_stock - level
+            base[code] = min(room, max(0.0, need))
+            want[code] = min(room, max(0.0, need + tank.noise_cover * math.sqrt(gap)))
+        budget = max(0.0, budget)
+        if sum(want.values()) <= budget + TOLERANCE:
+            return {}
+        total = sum(base.values())
+        if total >= budget:
+            return {code: b * budget / total for code, b in base.items()} if total > 0 else dict.fromkeys(base, 0.0)
+        extra = sum(want.values()) - total
+        return {code: base[code] + (want[code] - base[code]) * (budget - total) / extra for code in base}
+
     def correct(self, trips: Sequence[PlannedTrip]) -> list[CorrectedTrip]:
         """Corrected trips, in date order (the trips must be given in date order)."""
         out = []
@@ -308,11 +349,13 @@ class Projection:
                 if not self._projected(code, when)
             }
             reserved = sum(unread.values())
+            shares = self._shares(trip, kept, when, self.capacity - reserved)
             for code, planned in kept:
                 reserved -= unread.get(code, 0.0)
                 tank = self.tanks[code]
                 gap = trip.next_days.get(code, tank.cycle_days)
-                stop = self._stop(tank, planned, when, self.capacity - load - reserved, gap)
+                free = shares.get(code, self.capacity - load - reserved)
+                stop = self._stop(tank, planned, when, free, gap)
                 load += stop.quantity
                 stops.append(stop)
             out.append(CorrectedTrip(trip.date, load, tuple(stops), dropped))
