@@ -98,6 +98,18 @@ def for_sites(session: Session, sites: list[Site], days: int, now: dt.datetime |
     return out
 
 
+def estimated_rates(session: Session, sites: list[Site], days: int = DEFAULT_DAYS) -> dict[str, float | None]:
+    """Each site's estimated consumption per day (``None``: too little data), by code."""
+    by_truck: dict[int, list[Site]] = {}
+    for site in sites:
+        by_truck.setdefault(site.truck_id, []).append(site)
+    out: dict[str, float | None] = {}
+    for group in by_truck.values():
+        learned = for_sites(session, group, days)
+        out.update({s.code: learned[s.id][0].rate_per_day for s in group})
+    return out
+
+
 def site_consumption(session: Session, site: Site, days: int) -> SiteConsumption:
     """The consumption of one site, its drift tested against its truck's other active sites."""
     fleet = [s for s in store.truck_sites(session, site.truck_id) if s.id != site.id] + [site]

@@ -12,13 +12,14 @@ from markupsafe import Markup
 from sqlalchemy import select
 from sqlalchemy.exc import DBAPIError
 
-from service import bounded, schedule, working_calendar
+from service import bounded, consumption, schedule, working_calendar
 from service.api.fields import FIRST_DATE, LAST_DATE, WEEK_RANGE
 from service.auth import SESSION, allow
 from service.cache import LruCache
 from service.errors import Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
+from service.persistence import tanks
 from service.persistence.db import get_session, read_engine
 from service.persistence.models import Truck, utcnow
 from service.planning.projection import TOLERANCE
@@ -81,8 +82,19 @@ def overview() -> Any:
     head, trucks = week_html
     now = utcnow()
     readings = schedule.stocks(db, now, config)
+    active = [site for site, _truck in tanks.active_sites(db)]
+    demand = {site.code: site.demand_per_day for site in active}
+    rates = consumption.estimated_rates(db, active)
     return render_template(
-        "status_overview.html", week=week, head=head, trucks=trucks, readings=readings, now=now, today=key[1]
+        "status_overview.html",
+        week=week,
+        head=head,
+        trucks=trucks,
+        readings=readings,
+        demand=demand,
+        rates=rates,
+        now=now,
+        today=key[1],
     )
 
 
@@ -141,6 +153,7 @@ def site_page(code: str) -> Any:
         first=first,
         last=last,
         deliveries=deliveries,
+        rate=consumption.estimated_rates(db, [site])[site.code],
         has_level=any(v is not None for _, v in levels.days),
         warnings=_sorted_warnings(_group_limits(_dedupe(levels.notices))),
         week=formatting.iso_week_of(first),
