@@ -45,7 +45,7 @@ class SiteConsumption(MethodView):
 @blp.route("/<string:code>/apply-estimate")
 class ApplyEstimate(MethodView):
     @allow("admin")
-    @blp.arguments(ApplyEstimateSchema)
+    @blp.arguments(ApplyEstimateSchema, required=False)
     @blp.response(200, SiteSchema, headers=hh.TAGGED)
     @blp.alt_response(412, description="ETag does not match; the current one is sent", headers=hh.TAGGED, **PROBLEM)
     @blp.alt_response(

@@ -178,7 +178,9 @@ class BulkDeliveries(MethodView):
             "required": True,
             "description": BULK_FORMAT,
             "content": {
-                "application/json": {"schema": {"type": "array", "items": {"type": "object"}}},
+                "application/json": {
+                    "schema": {"type": "array", "items": {"type": "object"}, "minItems": 1, "maxItems": bulk.MAX_ROWS}
+                },
                 "text/csv": {
                     "schema": {"type": "string"},
                     "example": "site,quantity,delivered_at\r\nHV-FARM-01,1800,2026-12-01T07:10:00+01:00\r\n",
@@ -233,7 +235,9 @@ class BulkReadings(MethodView):
             "required": True,
             "description": BULK_FORMAT,
             "content": {
-                "application/json": {"schema": {"type": "array", "items": {"type": "object"}}},
+                "application/json": {
+                    "schema": {"type": "array", "items": {"type": "object"}, "minItems": 1, "maxItems": bulk.MAX_ROWS}
+                },
                 "text/csv": {
                     "schema": {"type": "string"},
                     "example": "site,level,measured_at\r\nHV-FARM-01,1240,2026-12-01T07:00:00+01:00\r\n",
