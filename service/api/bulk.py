@@ -72,8 +72,13 @@ def _json_rows(body: bytes) -> list[tuple[str, dict[str, Any] | str]]:
             kind="validation",
             errors=[{"pointer": "#", "detail": "Not an array."}],
         )
-    if len(data) > MAX_ROWS:
-        raise Problem(413, f"At most {MAX_ROWS} rows per upload.", kind="too-many-rows")
+    if len(data) > MAX_ROWS:  # the document's maxItems: a validation failure of the body
+        raise Problem(
+            422,
+            f"At most {MAX_ROWS} rows per upload.",
+            kind="validation",
+            errors=[{"pointer": "#", "detail": f"More than {MAX_ROWS} rows."}],
+        )
     return [(f"#/{i}", row if isinstance(row, dict) else "Not an object.") for i, row in enumerate(data)]
 
 

@@ -171,7 +171,7 @@ class BulkDeliveries(MethodView):
     @allow("dispatcher")
     @accepts_body("application/json", "text/csv")
     @blp.response(201, BulkResultSchema)
-    @blp.alt_response(413, description=f"More than {bulk.MAX_ROWS} rows", **PROBLEM)
+    @blp.alt_response(413, description=f"More than {bulk.MAX_ROWS} CSV rows (a JSON array that long: 422)", **PROBLEM)
     @blp.alt_response(422, description="A bad row: `errors` points at each bad cell; nothing recorded", **PROBLEM)
     @blp.doc(
         requestBody={
@@ -228,7 +228,7 @@ class BulkReadings(MethodView):
     @allow("dispatcher")
     @accepts_body("application/json", "text/csv")
     @blp.response(201, BulkResultSchema)
-    @blp.alt_response(413, description=f"More than {bulk.MAX_ROWS} rows", **PROBLEM)
+    @blp.alt_response(413, description=f"More than {bulk.MAX_ROWS} CSV rows (a JSON array that long: 422)", **PROBLEM)
     @blp.alt_response(422, description="A bad row: `errors` points at each bad cell; nothing recorded", **PROBLEM)
     @blp.doc(
         requestBody={

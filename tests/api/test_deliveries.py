@@ -124,7 +124,12 @@ def test_bulk_readings_json_and_csv_all_or_nothing(client, auth, network, db_ses
     assert [e["pointer"] for e in response.get_json()["errors"]] == ["#/rows/3", "#/rows/4/level"]
     assert count(db_session, Reading) == 4
     too_many = [rows[0]] * 5001
-    assert client.post("/api/v1/readings", json=too_many, headers=auth("dispatcher")).status_code == 413
+    assert client.post("/api/v1/readings", json=too_many, headers=auth("dispatcher")).status_code == 422
+    too_many_csv = "site,level,measured_at\r\n" + f"A0,1,{ago(hours=1)}\r\n" * 5001
+    response = client.post(
+        "/api/v1/readings", data=too_many_csv, headers=auth("dispatcher", **{"Content-Type": "text/csv"})
+    )
+    assert response.status_code == 413 and response.get_json()["type"].endswith("/too-many-rows")
     assert (
         client.post(
             "/api/v1/readings", data="x", headers=auth("dispatcher", **{"Content-Type": "text/plain"})
