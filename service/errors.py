@@ -51,6 +51,7 @@ PROBLEM_TYPES: dict[str, str] = {
     "unsupported-media-type": "The body is not of the media type the route takes (415).",
     "validation": "A field, query parameter or CSV cell is not valid; `errors` points at each (422).",
     "no-sites": "The truck has no active sites to plan (422).",
+    "no-estimate": "Too little data (readings, deliveries) to estimate a site's consumption (422).",
     "too-many-sites": "More sites than one calculation or plan takes (ULLAGE_MAX_PLAN_SITES) (422).",
     "planning-input": "Parameters the planner cannot plan, e.g. a tank that holds less than a day (422).",
     "infeasible": "No drivable plan keeps the truck calendar and the tank limits; `needed` says what would help (422).",

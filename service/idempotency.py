@@ -38,17 +38,19 @@ import re
 import secrets
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
-from flask import Response, current_app
+from flask import Response, current_app, request
 from sqlalchemy.exc import DBAPIError, IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.auth import Caller
+from service.auth import Caller, current_caller
 from service.errors import Problem
 from service.persistence import idempotency_records as records
 from service.persistence.db import sqlite_write_lock_held, write_intent
 from service.persistence.models import IdempotencyRecord, utcnow
+from service.request_db import get_session
 
 HEADER = "Idempotency-Key"
 #: Marks a replayed answer. Our own name: a response header only, never read from a request.
@@ -286,3 +288,35 @@ def abandon(claim: Claim) -> None:
     with _own_session() as session:
         records.forget(session, claim.record_id, claim.claim)
         session.commit()
+
+
+def run(work: Callable[[], Response]) -> Response:
+    """Run ``work`` under the request's ``Idempotency-Key`` (if any) and commit once.
+
+    ``work`` writes on the request's session and returns the response without committing; the
+    claim is marked done in the same commit, so the record and its idempotency answer are written
+    together or not at all. A repeat gets the first answer (:func:`begin`); a failure forgets the
+    claim so a corrected retry may use the key again.
+    """
+    key = parse_key(request.headers.get(HEADER))
+    claim = heartbeat = None
+    if key is not None:
+        outcome = begin(current_caller(), key, request.method, request.path, request.get_data())
+        if isinstance(outcome, Response):
+            return outcome
+        claim, heartbeat = outcome, Heartbeat.start(outcome)
+    session = get_session()
+    try:
+        response = work()
+        if claim is not None:
+            finish(session, claim, response)
+        session.commit()
+    except Exception:
+        session.rollback()
+        if claim is not None:
+            abandon(claim)
+        raise
+    finally:
+        if heartbeat is not None:
+            heartbeat.stop()  # after the transaction: a renewal may wait for its lock
+    return response

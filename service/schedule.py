@@ -36,8 +36,9 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
-from service import working_calendar
+from service import consumption, working_calendar
 from service.config import Settings
+from service.persistence import deliveries as delivery_store
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence import tanks
@@ -73,7 +74,9 @@ class NoActivePlan(LookupError):
 
 @dataclass(frozen=True)
 class Notice:
-    kind: str  # run_out_risk | limits_changed | plan_stale | no_recent_reading | calendar | no_active_plan
+    # run_out_risk | empty_risk | consumption_changed | limits_changed | plan_stale | no_recent_reading |
+    # calendar | no_active_plan
+    kind: str
     message: str
     site: str | None = None
     date: dt.date | None = None
@@ -87,6 +90,8 @@ class PlannedStop:
     quantity: float
     projected_level_before: float | None
     notices: tuple[Notice, ...]
+    delivered_quantity: float | None = None
+    delivered_at: dt.datetime | None = None
 
 
 @dataclass(frozen=True)
@@ -185,6 +190,22 @@ def _run_out_notice(site: str, name: str, date: dt.date) -> Notice:
     )
 
 
+def _empty_notice(site: str, name: str, date: dt.date) -> Notice:
+    return Notice("empty_risk", f"{name} ({site}) is projected to run empty on {date.isoformat()}.", site, date)
+
+
+def _consumption_notice(site: Site, drift: Any, unit: str) -> Notice:
+    """``consumption_changed``: the drift test says the stored demand is wrong (docs/planning.md §11.4)."""
+    return Notice(
+        "consumption_changed",
+        f"{site.name} ({site.code}) uses {amount(drift.rate_per_day)} {unit}/day "
+        f"({amount(drift.rate_low)}–{amount(drift.rate_high)} at {1 - drift.alpha:.0%}), not the stored "
+        f"{amount(site.demand_per_day)}: the readings and deliveries show it at a false-alarm rate of "
+        f"{drift.alpha:g}. Check the tank, then apply the estimate (POST .../apply-estimate) and re-plan.",
+        site.code,
+    )
+
+
 def amount(value: float | None) -> str:
     """A number for a message: at most three decimals, no trailing zeros ("none" for no limit)."""
     if value is None:
@@ -259,6 +280,8 @@ class _Replay:
     capacity_shrank: bool
     #: The core's warnings about closed dates no move could keep within the limits.
     calendar_warnings: tuple[str, ...]
+    #: The sites whose stored demand the drift test rejects (``consumption_changed``), by code.
+    drifted: dict[str, Notice]
 
 
 def _served(plan: Plan, drift: plan_store.Drift) -> dict[str, Site]:
@@ -302,6 +325,8 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
     served = _served(plan, drift)
     readings = plan_store.latest_readings(session, [s.id for s in served.values()])
     horizon = day_start(first, zone) - dt.timedelta(days=LOOKBACK_DAYS)
+    _readings, recorded_deliveries = delivery_store.history(session, [s.id for s in served.values()], horizon)
+    learned = consumption.for_sites(session, list(served.values()), consumption.DEFAULT_DAYS)
     stale_before = day_start(today(settings), zone) - dt.timedelta(days=settings.reading_stale_days)
     tanks, recent = [], {}
     for code, site in served.items():
@@ -318,12 +343,14 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
                 cycles[code],
                 reading.level if reading else None,
                 reading.measured_at if reading else None,
+                tuple((d.delivered_at, d.quantity) for d in recorded_deliveries[site.id]),
+                consumption.noise_cover(site, learned[site.id][0]),
             )
         )
     starts = [t.reading_at.astimezone(zone).date() for t in tanks if t.reading_at is not None]
     sim_first = max(plan.start_date, min([first, *starts]))
     sim_last = max(last, sim_first)
-    projection = Projection(tanks, truck.capacity, zone, truck.max_stops)
+    projection = Projection(tanks, truck.capacity, zone, truck.max_stops, truck.shift_start)
     planned: list[PlannedTrip] = []
     removed: dict[str, list[dt.date]] = {}
     warnings: tuple[str, ...] = ()
@@ -364,6 +391,11 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
         frozenset(c.code for c in drift.changes if c.subject == "site" and c.field in ROOM_FIELDS),
         truck.capacity < plan.inputs["truck"]["capacity"],
         warnings,
+        {
+            code: _consumption_notice(site, learned[site.id][1], settings.quantity_unit)
+            for code, site in served.items()
+            if learned[site.id][1].drifted
+        },
     )
 
 
@@ -411,9 +443,19 @@ def _limit_notices_of(replay: _Replay, stop: CorrectedStop, date: dt.date) -> li
 def _stop(replay: _Replay, stop: CorrectedStop, date: dt.date) -> PlannedStop:
     name = replay.names[stop.site]
     notices = [_run_out_notice(stop.site, name, stop.run_out.date)] if stop.run_out else []
-    notices.extend(_limit_notices_of(replay, stop, date))
+    if stop.empty:
+        notices.append(_empty_notice(stop.site, name, stop.empty.date))
+    if stop.delivered_quantity is None:
+        notices.extend(_limit_notices_of(replay, stop, date))
     return PlannedStop(
-        stop.site, name, stop.planned_quantity, stop.quantity, stop.projected_level_before, tuple(notices)
+        stop.site,
+        name,
+        stop.planned_quantity,
+        stop.quantity,
+        stop.projected_level_before,
+        tuple(notices),
+        stop.delivered_quantity,
+        stop.delivered_at,
     )
 
 
@@ -490,23 +532,36 @@ def _calendar_notices(replay: _Replay, first: dt.date, last: dt.date, only: str 
     return out
 
 
-def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
-    out: list[Notice] = []
+def _earliest(
+    replay: _Replay, crossings: Sequence[Any], first: dt.date, last: dt.date, only: str | None, floor
+) -> dict:
+    """Each site's first crossing shown in the window (``floor(site)``: the level it crosses)."""
     earliest: dict[str, dt.date] = {}
     projection = replay.projection
-    for run_out in projection.run_outs:
+    for run_out in crossings:
         if run_out.date > last or (only is not None and run_out.site != only):
             continue
         if run_out.date < first:
-            # Replays start at the reading, so earlier run-outs come back on every later window:
-            # show one only while the site is still below its safety stock when the window opens.
+            # Replays start at the reading, so earlier crossings come back on every later window:
+            # show one only while the site is still below the level when the window opens.
             level = projection.level_before(run_out.site, day_start(first, projection.zone))
-            if level is None or level >= projection.tanks[run_out.site].safety_stock - TOLERANCE:
+            if level is None or level >= floor(run_out.site) - TOLERANCE:
                 continue
         shown = max(run_out.date, first)
         earliest[run_out.site] = min(earliest.get(run_out.site, shown), shown)
-    for site, date in sorted(earliest.items(), key=lambda item: (item[1], item[0])):
+    return earliest
+
+
+def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = None) -> list[Notice]:
+    out: list[Notice] = []
+    projection = replay.projection
+    below = _earliest(replay, projection.run_outs, first, last, only, lambda s: projection.tanks[s].safety_stock)
+    for site, date in sorted(below.items(), key=lambda item: (item[1], item[0])):
         out.append(_run_out_notice(site, replay.names[site], date))
+    empty = _earliest(replay, projection.empties, first, last, only, lambda s: TOLERANCE)
+    for site, date in sorted(empty.items(), key=lambda item: (item[1], item[0])):
+        out.append(_empty_notice(site, replay.names[site], date))
+    out.extend(n for code, n in sorted(replay.drifted.items()) if only is None or code == only)
     out.extend(_limit_notices(replay, first, last, only))
     out.extend(_calendar_notices(replay, first, last, only))
     if replay.summary.stale and only is None:

@@ -43,9 +43,9 @@ from service.planning.inputs import SITE_PARAMETERS
 MAX_ROWS = 5000
 LITRES_PER_UNIT = {"L": 1.0, "gal": 3.785411784, "m3": 1000.0}
 VOLUME_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock")
-NUMBER_FIELDS = (*SITE_PARAMETERS, "latitude", "longitude")
+NUMBER_FIELDS = (*SITE_PARAMETERS, "latitude", "longitude", "service_level", "lead_time_days")
 TEXT_FIELDS = ("code", "name", "truck")
-COLUMNS = (*TEXT_FIELDS, *SITE_PARAMETERS, "active", "latitude", "longitude")
+COLUMNS = (*TEXT_FIELDS, *SITE_PARAMETERS, "active", "latitude", "longitude", "service_level", "lead_time_days")
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
 FORMAT = (
@@ -58,12 +58,15 @@ FORMAT = (
     "`-3.25`, `2.5e3`); `active` is true/false; `unit` is `L`, `gal` or `m3` (volumes converted to the "
     f"service unit). At most {MAX_ROWS} rows."
 )
-EXAMPLE = ",".join(COLUMNS) + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3\r\n"
+EXAMPLE = (
+    ",".join(COLUMNS)
+    + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3,0.98,1.0\r\n"
+)
 #: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
 #: a formula (``= + - @``, tab, carriage return).
 _NEEDS_PREFIX = re.compile(r"'*[=+\-@\t\r]")
 #: A plain decimal number in ASCII (``[0-9]``, not ``\d``, which matches every script's digits).
-_PLAIN_NUMBER = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
+PLAIN_NUMBER = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
 
 
 class CsvRefused(ValueError):
@@ -96,8 +99,8 @@ def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], 
         if name == "unit" or value == "":
             continue
         if name in NUMBER_FIELDS:
-            if not _PLAIN_NUMBER.fullmatch(value):
-                comma = " with a decimal point, not a comma" if _PLAIN_NUMBER.fullmatch(value.replace(",", ".")) else ""
+            if not PLAIN_NUMBER.fullmatch(value):
+                comma = " with a decimal point, not a comma" if PLAIN_NUMBER.fullmatch(value.replace(",", ".")) else ""
                 errors.append(
                     (name, f"{value!r} is not a plain number: write digits 0-9{comma}, e.g. 1000, -3.25 or 2.5e3.")
                 )
@@ -266,6 +269,10 @@ def export_sites(session: Session) -> str:
         row: list[Any] = [_defuse(site.code), _defuse(site.name), _defuse(truck_code)]
         row += [repr(getattr(site, f)) for f in SITE_PARAMETERS]
         row += ["true" if site.active else "false"]
-        row += ["" if getattr(site, f) is None else repr(getattr(site, f)) for f in ("latitude", "longitude")]
+        row += [
+            "" if getattr(site, f) is None else repr(getattr(site, f))
+            for f in ("latitude", "longitude", "service_level")
+        ]
+        row += [repr(site.lead_time_days)]
         writer.writerow(row)
     return out.getvalue()

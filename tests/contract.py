@@ -69,6 +69,13 @@ ROUTE_ROLES = {
     ("GET", "/api/v1/trucks/<string:code>/trips"): "viewer",
     ("GET", "/api/v1/sites/<string:code>/readings"): "viewer",
     ("POST", "/api/v1/sites/<string:code>/readings"): "dispatcher",
+    # issue 15: deliveries, bulk uploads, consumption
+    ("GET", "/api/v1/sites/<string:code>/deliveries"): "viewer",
+    ("POST", "/api/v1/sites/<string:code>/deliveries"): "dispatcher",
+    ("POST", "/api/v1/deliveries"): "dispatcher",
+    ("POST", "/api/v1/readings"): "dispatcher",
+    ("GET", "/api/v1/sites/<string:code>/consumption"): "viewer",
+    ("POST", "/api/v1/sites/<string:code>/apply-estimate"): "admin",
     # The status page signs people in with its own cookie session (issue 5); bearer roles do not apply.
     ("GET", "/status"): SESSION,
     ("GET", "/status/sites/<code>"): SESSION,

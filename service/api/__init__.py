@@ -34,7 +34,7 @@ class Api(SmorestApi):
                 prepare_response(response, self.spec, self.DEFAULT_RESPONSE_CONTENT_TYPE)
             self.spec.components.response(status.name, response, lazy=True)
         response = {
-            "description": "Error (RFC 9457 problem details); `type` names its kind (README, \"Problem types\")",
+            "description": 'Error (RFC 9457 problem details); `type` names its kind (README, "Problem types")',
             "schema": self.ERROR_SCHEMA,
             # Any route may meet a database outage (503) or full storage (507), both with Retry-After.
             "headers": {"Retry-After": http_headers.RETRY_AFTER},
@@ -45,7 +45,16 @@ class Api(SmorestApi):
 
 def init_app(app: Flask) -> Api:
     """Create the Api and register every blueprint."""
-    from service.api import calculations, plans, readings, settings, sites, trucks  # noqa: PLC0415
+    from service.api import (  # noqa: PLC0415
+        calculations,
+        consumption,
+        deliveries,
+        plans,
+        readings,
+        settings,
+        sites,
+        trucks,
+    )
 
     app.config.update(
         API_TITLE="Ullage",
@@ -63,7 +72,7 @@ def init_app(app: Flask) -> Api:
     )
     app.url_map.converters["id"] = IdConverter  # plan ids in paths: 1 to fields.ID_MAX
     api = Api(app)
-    for module in (settings, trucks, sites, calculations, plans, readings):
+    for module in (settings, trucks, sites, calculations, plans, readings, deliveries, consumption):
         api.register_blueprint(module.blp, url_prefix=API_PREFIX + module.PREFIX)
     return api
 

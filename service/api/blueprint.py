@@ -98,11 +98,11 @@ class Blueprint(SmorestBlueprint):
         return super().arguments(schema() if isinstance(schema, type) else schema, *args, **kwargs)
 
 
-def accepts_body(media_type: str):  # type: ignore[no-untyped-def]
-    """Declare a raw body media type for a view that reads ``request.data`` itself."""
+def accepts_body(*media_types: str):  # type: ignore[no-untyped-def]
+    """Declare the raw body media type(s) of a view that reads ``request.data`` itself."""
 
     def mark(view):  # type: ignore[no-untyped-def]
-        view._ullage_body = media_type
+        view._ullage_body = media_types[0] if len(media_types) == 1 else media_types
         return view
 
     return mark
@@ -244,6 +244,7 @@ def guard_request() -> None:
             kind="validation",
             errors=[{"pointer": "#", "detail": "Missing request body."}],
         )
-    if expected and request.method in {"POST", "PUT", "PATCH"} and request.mimetype != expected:
+    accepted = expected if isinstance(expected, tuple) else (expected,)
+    if expected and request.method in {"POST", "PUT", "PATCH"} and request.mimetype not in accepted:
         if request.mimetype or request.content_length:
-            raise Problem(415, f"Send the body as {expected}.", kind="unsupported-media-type")
+            raise Problem(415, f"Send the body as {' or '.join(accepted)}.", kind="unsupported-media-type")

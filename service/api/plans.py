@@ -331,6 +331,8 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
                         "planned_quantity": s.planned_quantity,
                         "quantity": s.quantity,
                         "projected_level_before": s.projected_level_before,
+                        "delivered_quantity": s.delivered_quantity,
+                        "delivered_at": s.delivered_at.astimezone(dt.UTC).isoformat() if s.delivered_at else None,
                         "warnings": [notice_json(n) for n in s.notices],
                     }
                     for s in t.stops

@@ -117,7 +117,7 @@ class TruckByCode(MethodView):
         if repo.truck_is_referenced(session, truck):
             raise Problem(
                 409,
-                "Sites or recorded plans reference this truck; move its sites first, or PATCH it with active=false.",
+                "Sites, recorded plans or deliveries reference this truck; move its sites first, or PATCH it with active=false.",
                 kind="conflict",
             )
         repo.delete_truck(session, truck)

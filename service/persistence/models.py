@@ -18,6 +18,7 @@ from sqlalchemy import (
     MetaData,
     String,
     Text,
+    Time,
     TypeDecorator,
     UniqueConstraint,
     text,
@@ -39,6 +40,8 @@ ROLES = ("viewer", "dispatcher", "admin")
 CODE_LENGTH = 40
 NAME_LENGTH = 200
 HOLIDAY_REGION_LENGTH = 40
+NOTE_LENGTH = 500
+DEFAULT_SHIFT_START = dt.time(6, 0)
 
 
 def utcnow() -> dt.datetime:
@@ -93,6 +96,8 @@ class Truck(Base):
     trips_per_day: Mapped[int] = mapped_column(Integer, default=DEFAULT_TRIPS_PER_DAY, server_default=text("1"))
     closed_dates: Mapped[list[str]] = mapped_column(JSON, default=list, server_default=text("'[]'"))
     holiday_region: Mapped[str | None] = mapped_column(String(HOLIDAY_REGION_LENGTH))
+    #: Local time of day the truck's deliveries are made (projections deliver at this time).
+    shift_start: Mapped[dt.time] = mapped_column(Time, default=DEFAULT_SHIFT_START, server_default=text("'06:00:00'"))
     active: Mapped[bool] = mapped_column(default=True)
     version: Mapped[int] = mapped_column(default=1)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
@@ -110,6 +115,10 @@ class Site(Base):
         CheckConstraint(
             "safety_stock >= 0 AND safety_stock < safe_fill * tank_capacity", name="safety_stock_below_safe_fill"
         ),
+        CheckConstraint(
+            "service_level IS NULL OR (service_level > 0 AND service_level < 1)", name="service_level_fraction"
+        ),
+        CheckConstraint("lead_time_days >= 0", name="lead_time_nonnegative"),
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -125,6 +134,10 @@ class Site(Base):
     active: Mapped[bool] = mapped_column(default=True)
     latitude: Mapped[float | None] = mapped_column(Float)
     longitude: Mapped[float | None] = mapped_column(Float)
+    #: Cycle service level the suggested safety stock is sized for (None: not sized).
+    service_level: Mapped[float | None] = mapped_column(Float)
+    #: Days from deciding a delivery to making it (the L of z·σ·√(T + L)).
+    lead_time_days: Mapped[float] = mapped_column(Float, default=1.0, server_default=text("1.0"))
     version: Mapped[int] = mapped_column(default=1)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
     updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
@@ -215,6 +228,29 @@ class Reading(Base):
     created_by: Mapped[str] = mapped_column(String(80))
 
 
+class Delivery(Base):
+    """A delivery that was made (what happened, never recomputed)."""
+
+    __tablename__ = "deliveries"
+    __table_args__ = (
+        CheckConstraint("quantity > 0", name="quantity_positive"),
+        CheckConstraint("level_before IS NULL OR level_before >= 0", name="level_before_nonnegative"),
+        CheckConstraint("level_after IS NULL OR level_after >= 0", name="level_after_nonnegative"),
+        Index("ix_deliveries_site_delivered", "site_id", "delivered_at"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    site_id: Mapped[int] = mapped_column(ForeignKey("sites.id"))
+    truck_id: Mapped[int | None] = mapped_column(ForeignKey("trucks.id"), index=True)
+    quantity: Mapped[float] = mapped_column(Float)
+    delivered_at: Mapped[dt.datetime] = mapped_column(UTCDateTime)
+    level_before: Mapped[float | None] = mapped_column(Float)
+    level_after: Mapped[float | None] = mapped_column(Float)
+    note: Mapped[str | None] = mapped_column(String(NOTE_LENGTH))
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    created_by: Mapped[str] = mapped_column(String(80))
+
+
 class IdempotencyRecord(Base):
     """One ``Idempotency-Key`` of one token: the request fingerprint and, once done, the response."""
 
@@ -258,9 +294,10 @@ class RequestQuota(Base):
 
 class ChangeStamp(Base):
     """One row whose ``stamp`` is a fresh random value after every commit that changed what a
-    weekly-trips answer reads: any row of ``trucks``, ``sites``, ``readings`` or ``plans``.
+    weekly-trips answer reads: any row of ``trucks``, ``sites``, ``readings``, ``deliveries`` or
+    ``plans``.
 
-    Written by triggers (migration 0002), so no code path can forget it; read as the trips cache's
+    Written by triggers (migrations 0002 and 0006), so no code path can forget it; read as the trips cache's
     marker (:func:`service.persistence.plans.change_stamp`). A random stamp, not a counter, so that
     a value never comes back: not after a restore from backup, nor in a test database rebuilt under
     a running process. On PostgreSQL the triggers are deferred to commit, so a transaction takes the

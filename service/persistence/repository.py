@@ -8,10 +8,10 @@ from typing import Any
 from sqlalchemy import bindparam, delete, exists, func, select
 from sqlalchemy.orm import Session
 
-from service.persistence.models import Plan, PlanSite, Reading, Site, Token, Truck, utcnow
+from service.persistence.models import Delivery, Plan, PlanSite, Reading, Site, Token, Truck, utcnow
 from service.planning.inputs import SITE_PARAMETERS
 
-SITE_FIELDS = ("name", *SITE_PARAMETERS, "active", "latitude", "longitude")
+SITE_FIELDS = ("name", *SITE_PARAMETERS, "active", "latitude", "longitude", "service_level", "lead_time_days")
 TRUCK_FIELDS = (
     "name",
     "dispatch_cost",
@@ -21,6 +21,7 @@ TRUCK_FIELDS = (
     "trips_per_day",
     "closed_dates",
     "holiday_region",
+    "shift_start",
     "active",
 )
 
@@ -127,8 +128,9 @@ def site_is_planned(session: Session, site: Site) -> bool:
 
 
 def delete_site(session: Session, site: Site) -> None:
-    """Delete a site no plan references, with its readings (they describe only this tank)."""
+    """Delete a site no plan references, with its readings and deliveries (they describe only this tank)."""
     session.execute(delete(Reading).where(Reading.site_id == site.id))
+    session.execute(delete(Delivery).where(Delivery.site_id == site.id))
     session.delete(site)
     session.flush()
 
@@ -136,7 +138,8 @@ def delete_site(session: Session, site: Site) -> None:
 def truck_is_referenced(session: Session, truck: Truck) -> bool:
     has_sites = session.scalar(select(exists().where(Site.truck_id == truck.id)))
     has_plans = session.scalar(select(exists().where(Plan.truck_id == truck.id)))
-    return bool(has_sites or has_plans)
+    has_deliveries = session.scalar(select(exists().where(Delivery.truck_id == truck.id)))
+    return bool(has_sites or has_plans or has_deliveries)
 
 
 def active_sites(session: Session, truck: Truck) -> list[Site]:

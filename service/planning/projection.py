@@ -5,8 +5,9 @@ Pure (standard library only). The rules, per site with demand ``d``, safe-fill l
 site's *current* values (the plan only gives the dates, the cycle and the planned quantities):
 
 * From a reading ``L`` taken at time ``t_r`` the level falls at ``d`` per day and never below 0.
-  A delivery on day ``D`` is projected at 00:00 of ``D`` (service time zone), before that day's
-  delivery: ``level(D) = max(0, level_prev − d·(t_D − t_prev))``, where ``t_D − t_prev`` is the
+  A delivery on day ``D`` is projected at the truck's shift start of ``D`` (service time zone;
+  00:00 by default here), before that day's delivery:
+  ``level(D) = max(0, level_prev − d·(t_D − t_prev))``, where ``t_D − t_prev`` is the
   elapsed time (computed in UTC, so a daylight-saving change adds or removes no hour of demand).
   Deliveries on days before the reading's own date are history and are not replayed; on the
   reading's date the level is carried back to 00:00 (the reading is taken to precede that day's
@@ -14,7 +15,10 @@ site's *current* values (the plan only gives the dates, the cycle and the planne
 * The corrected quantity keeps the site at or above ``s`` until its next planned delivery
   ``g`` days later: ``need = d·g + s − level(D)``, clamped to ``[0, min(F − level(D), free)]``
   where ``free`` is the truck's capacity minus what earlier stops of the same trip take and minus
-  what the trip's stops without a reading keep. ``g`` is the days from ``D`` to the site's next
+  what the trip's stops without a reading keep; when the trip cannot carry every corrected stop's
+  quantity, the space goes first to what keeps each site at ``s`` until its next delivery (scaled
+  alike when even that does not fit), then to the noise covers (``Projection._shares``). A site
+  with a ``service_level`` adds ``z·σ·√g`` (``Tank.noise_cover``) to ``need``. ``g`` is the days from ``D`` to the site's next
   delivery in the listing (``PlannedTrip.next_days``: on a working calendar the gaps of a pattern
   differ, e.g. a Friday delivery lasts until Monday); where the listing does not say, the cycle ``T``.
 * A site without a reading (or a delivery before its reading's date) keeps its planned quantity,
@@ -25,6 +29,9 @@ site's *current* values (the plan only gives the dates, the cycle and the planne
   projected level counts as at its safety stock, 0 days; ties in the plan's stop order); the
   others are dropped from the trip (listed in ``CorrectedTrip.dropped``) and their tanks go on
   falling.
+* Deliveries are made at ``shift_start`` of their day (local time). Recorded deliveries are
+  history: a stop of a day with one shows what was delivered, and the recorded deliveries after
+  the reading are replayed in time order (a reading after a same-day delivery counts after it).
 * A stop carries ``run_out_risk`` when the site is projected below ``s`` before the delivery, or
   when the clamped quantity cannot carry it to the next delivery above ``s``; the warning names
   the projected date the level crosses ``s``.
@@ -54,6 +61,10 @@ class Tank:
     cycle_days: int
     reading_level: float | None = None
     reading_at: dt.datetime | None = None
+    #: Recorded deliveries ``(time, quantity)``: history, replayed in time order after the reading.
+    deliveries: tuple[tuple[dt.datetime, float], ...] = ()
+    #: ``z·σ`` per √day: a corrected quantity also covers ``z·σ·√g`` of consumption noise.
+    noise_cover: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -87,6 +98,11 @@ class CorrectedStop:
     run_out: RunOut | None
     wanted: float = 0.0
     room: float = 0.0
+    #: The tank is projected empty from this date on (before this delivery or before the next).
+    empty: RunOut | None = None
+    #: A delivery recorded on this date: what was delivered (history, never recomputed) and when.
+    delivered_quantity: float | None = None
+    delivered_at: dt.datetime | None = None
 
 
 @dataclass(frozen=True)
@@ -104,6 +120,8 @@ class _State:
     level: float
     at: dt.datetime
     events: list[tuple[dt.datetime, float]] = field(default_factory=list)
+    #: Recorded deliveries after the reading not yet replayed, in time order.
+    pending: list[tuple[dt.datetime, float]] = field(default_factory=list)
 
 
 def day_start(day: dt.date, zone: ZoneInfo) -> dt.datetime:
@@ -134,21 +152,77 @@ def _crossing(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> 
     return None
 
 
-class Projection:
-    """Replays the planned trips from each site's reading and corrects the quantities."""
+def _empty(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> RunOut | None:
+    """When the level, falling from ``state``, reaches zero before ``until``."""
+    if state.level <= TOLERANCE:
+        return RunOut(tank.code, state.at.astimezone(zone).date())
+    if tank.demand_per_day <= 0:
+        return None
+    at = state.at.astimezone(dt.UTC) + dt.timedelta(days=state.level / tank.demand_per_day)
+    return RunOut(tank.code, at.astimezone(zone).date()) if at < until else None
 
-    def __init__(self, tanks: Iterable[Tank], capacity: float, zone: ZoneInfo, max_stops: int | None = None) -> None:
+
+class Projection:
+    """Replays the planned trips and the recorded deliveries from each site's reading and corrects
+    the quantities. Deliveries are made at ``shift_start`` (local time of ``zone``) of their day."""
+
+    def __init__(
+        self,
+        tanks: Iterable[Tank],
+        capacity: float,
+        zone: ZoneInfo,
+        max_stops: int | None = None,
+        shift_start: dt.time = dt.time(0),
+    ) -> None:
         self.tanks = {t.code: t for t in tanks}
         self.capacity = capacity
         self.max_stops = max_stops
         self.zone = zone
+        self.shift_start = shift_start
         self.run_outs: list[RunOut] = []
+        self.empties: list[RunOut] = []
         self._states: dict[str, _State] = {}
+        self._delivered: dict[tuple[str, dt.date], tuple[float, dt.datetime]] = {}
         for tank in self.tanks.values():
+            for at, quantity in sorted(tank.deliveries):
+                key = (tank.code, at.astimezone(zone).date())
+                before = self._delivered.get(key, (0.0, at))[0]
+                self._delivered[key] = (before + quantity, at)
             if tank.reading_level is not None and tank.reading_at is not None:
                 self._states[tank.code] = _State(
-                    tank.reading_level, tank.reading_at, [(tank.reading_at, tank.reading_level)]
+                    tank.reading_level,
+                    tank.reading_at,
+                    [(tank.reading_at, tank.reading_level)],
+                    [(at, q) for at, q in sorted(tank.deliveries) if at > tank.reading_at],
                 )
+
+    def delivery_time(self, day: dt.date) -> dt.datetime:
+        """When a delivery of ``day`` is made: the shift start of that local day, in UTC."""
+        return dt.datetime.combine(day, self.shift_start, tzinfo=self.zone).astimezone(dt.UTC)
+
+    def _risk(self, state: _State, tank: Tank, until: dt.datetime) -> tuple[RunOut | None, RunOut | None]:
+        """Below the safety stock / empty before ``until``, noted for the notices."""
+        risk, empty = _crossing(state, tank, until, self.zone), _empty(state, tank, until, self.zone)
+        if risk is not None:
+            self.run_outs.append(risk)
+        if empty is not None:
+            self.empties.append(empty)
+        return risk, empty
+
+    def _advance(self, code: str, until: dt.datetime) -> None:
+        """Replay the site's recorded deliveries up to ``until`` (each adds its quantity to the level
+        projected at its time; what happened, never clamped)."""
+        state = self._states.get(code)
+        if state is None:
+            return
+        tank = self.tanks[code]
+        while state.pending and state.pending[0][0] <= until:
+            at, quantity = state.pending.pop(0)
+            self._risk(state, tank, at)
+            level = self._level_at(state, tank, at)
+            state.events.append((at, level))
+            state.events.append((at, level + quantity))
+            state.level, state.at = level + quantity, at
 
     def _level_at(self, state: _State, tank: Tank, when: dt.datetime) -> float:
         return max(0.0, state.level - tank.demand_per_day * _days(when, state.at))
@@ -162,28 +236,50 @@ class Projection:
         """Room below the safe-fill level when the level is at the safety stock (the plan's assumption)."""
         return max(0.0, tank.safe_fill_level - tank.safety_stock)
 
+    def _recorded(self, tank: Tank, planned: float, when: dt.datetime) -> CorrectedStop | None:
+        """The stop as delivered, when a delivery of the site is recorded on that day (history: the
+        quantity is what was delivered; the projected level is the one before the day's first
+        recorded delivery when that came after the reading, else unknown)."""
+        day = when.astimezone(self.zone).date()
+        done = self._delivered.get((tank.code, day))
+        if done is None:
+            return None
+        quantity, at = done
+        state = self._states.get(tank.code)
+        level = None
+        if state is not None:
+            firsts = [a for a, _q in state.pending if a.astimezone(self.zone).date() == day]
+            if firsts:
+                self._advance(tank.code, firsts[0] - dt.timedelta(microseconds=1))
+                level = self._level_at(state, tank, firsts[0])
+                self._advance(tank.code, at)
+        return CorrectedStop(tank.code, planned, quantity, level, None, quantity, 0.0, None, quantity, at)
+
     def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float, gap: int) -> CorrectedStop:
+        recorded = self._recorded(tank, planned, when)
+        if recorded is not None:
+            return recorded
+        self._advance(tank.code, when)
         if not self._projected(tank.code, when):
             room = self._unread_room(tank)
             quantity = max(0.0, min(planned, room, free))
             return CorrectedStop(tank.code, planned, quantity, None, None, planned, room)
         state = self._states[tank.code]
-        risk = _crossing(state, tank, when, self.zone)
+        risk, empty = self._risk(state, tank, when)
         level = self._level_at(state, tank, when)
-        need = tank.demand_per_day * gap + tank.safety_stock - level
+        need = tank.demand_per_day * gap + tank.safety_stock - level + tank.noise_cover * math.sqrt(gap)
         room = tank.safe_fill_level - level
         quantity = max(0.0, min(need, room, free))
         after = _State(level + quantity, when)
-        if risk is None:
-            # Until 00:00 of the next planned delivery's day (a calendar date, whatever the clocks do).
-            following = day_start(when.astimezone(self.zone).date() + gap * DAY, self.zone)
-            risk = _crossing(after, tank, following, self.zone)
-        if risk is not None:
-            self.run_outs.append(risk)
+        # Until the next planned delivery (its day's shift start; a calendar date, whatever the clocks do).
+        following = self.delivery_time(when.astimezone(self.zone).date() + gap * DAY)
+        later_risk, later_empty = self._risk(after, tank, following)
         state.events.append((when, level))
         state.events.append((when, after.level))
         state.level, state.at = after.level, when
-        return CorrectedStop(tank.code, planned, quantity, level, risk, max(0.0, need), room)
+        return CorrectedStop(
+            tank.code, planned, quantity, level, risk or later_risk, max(0.0, need), room, empty or later_empty
+        )
 
     def days_of_stock(self, code: str, when: dt.datetime) -> float:
         """Days until the site falls to its safety stock, from ``when`` (0 without a projected level)."""
@@ -203,11 +299,45 @@ class Projection:
         keep = set(ranked[: self.max_stops])
         return [s for i, s in enumerate(stops) if i in keep], tuple(s[0] for i, s in enumerate(stops) if i not in keep)
 
+    def _shares(
+        self, trip: PlannedTrip, kept: Sequence[tuple[str, float]], when: dt.datetime, budget: float
+    ) -> dict[str, float]:
+        """The truck space each stop corrected from a reading may take, when the trip cannot carry
+        every such stop's wanted quantity: first what keeps each site at its safety stock until its
+        next delivery (``base``, scaled down alike when even that does not fit), then the noise
+        covers, scaled alike. Recorded deliveries of the day take their quantity first."""
+        base: dict[str, float] = {}
+        want: dict[str, float] = {}
+        day = when.astimezone(self.zone).date()
+        for code, _planned in kept:
+            done = self._delivered.get((code, day))
+            if done is not None:
+                budget -= done[0]
+                continue
+            if not self._projected(code, when):
+                continue
+            tank = self.tanks[code]
+            self._advance(code, when)
+            gap = trip.next_days.get(code, tank.cycle_days)
+            level = self._level_at(self._states[code], tank, when)
+            room = max(0.0, tank.safe_fill_level - level)
+            need = tank.demand_per_day * gap + tank.safety_stock - level
+            base[code] = min(room, max(0.0, need))
+            want[code] = min(room, max(0.0, need + tank.noise_cover * math.sqrt(gap)))
+        budget = max(0.0, budget)
+        if sum(want.values()) <= budget + TOLERANCE:
+            return {}
+        total = sum(base.values())
+        if total >= budget:
+            return {code: b * budget / total for code, b in base.items()} if total > 0 else dict.fromkeys(base, 0.0)
+        extra = sum(want.values()) - total
+        return {code: base[code] + (want[code] - base[code]) * (budget - total) / extra for code in base}
+
     def correct(self, trips: Sequence[PlannedTrip]) -> list[CorrectedTrip]:
         """Corrected trips, in date order (the trips must be given in date order)."""
         out = []
         for trip in trips:
-            when = day_start(trip.date, self.zone)
+            when = self.delivery_time(trip.date)
             kept, dropped = self._within_max_stops(trip.stops, when)
             stops = []
             load = 0.0
@@ -219,11 +349,13 @@ class Projection:
                 if not self._projected(code, when)
             }
             reserved = sum(unread.values())
+            shares = self._shares(trip, kept, when, self.capacity - reserved)
             for code, planned in kept:
                 reserved -= unread.get(code, 0.0)
                 tank = self.tanks[code]
                 gap = trip.next_days.get(code, tank.cycle_days)
-                stop = self._stop(tank, planned, when, self.capacity - load - reserved, gap)
+                free = shares.get(code, self.capacity - load - reserved)
+                stop = self._stop(tank, planned, when, free, gap)
                 load += stop.quantity
                 stops.append(stop)
             out.append(CorrectedTrip(trip.date, load, tuple(stops), dropped))
@@ -232,9 +364,8 @@ class Projection:
     def finish(self, until: dt.datetime) -> None:
         """Note run-outs between each site's last delivery and ``until``."""
         for code, state in self._states.items():
-            risk = _crossing(state, self.tanks[code], until, self.zone)
-            if risk is not None:
-                self.run_outs.append(risk)
+            self._advance(code, until)
+            self._risk(state, self.tanks[code], until)
 
     def level_before(self, code: str, when: dt.datetime) -> float | None:
         """Projected level at ``when`` (before any delivery at that instant); ``None`` without a reading."""

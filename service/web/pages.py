@@ -11,13 +11,14 @@ from flask import render_template, request
 from markupsafe import Markup
 from sqlalchemy.exc import DBAPIError
 
-from service import bounded, schedule, working_calendar
+from service import bounded, consumption, schedule, working_calendar
 from service.api.fields import FIRST_DATE, LAST_DATE, WEEK_RANGE
 from service.auth import SESSION, allow
 from service.cache import LruCache
 from service.errors import Problem
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
+from service.persistence import tanks
 from service.persistence.models import Truck, utcnow
 from service.planning.projection import TOLERANCE
 from service.request_db import get_session, read_engine
@@ -37,6 +38,8 @@ WEEK_CACHE: LruCache[tuple[Markup, Markup]] = LruCache(8)
 #: Warning kinds: a word for the badge and an order (most urgent first).
 NOTICE_KINDS = {
     "run_out_risk": ("Run-out risk", 0),
+    "empty_risk": ("Empty risk", 0),
+    "consumption_changed": ("Consumption changed", 1),
     "limits_changed": ("Limits changed", 1),
     "calendar": ("Closed date", 1),
     "no_active_plan": ("No active plan", 2),
@@ -47,6 +50,7 @@ NOTICE_KINDS = {
 #: What to do, said once after a warning whose message does not already say it (no "re-plan" in it).
 ACTIONS = {
     "run_out_risk": "Check the tank's gauge; bring its delivery forward or re-plan.",
+    "empty_risk": "Check the tank's gauge; bring its delivery forward or re-plan.",
     "limits_changed": "Re-plan to use the current limits.",
     "no_active_plan": "Record a plan and activate it.",
     "no_recent_reading": "Record a reading.",
@@ -77,8 +81,19 @@ def overview() -> Any:
     head, trucks = week_html
     now = utcnow()
     readings = schedule.stocks(db, now, config)
+    active = [site for site, _truck in tanks.active_sites(db)]
+    demand = {site.code: site.demand_per_day for site in active}
+    rates = consumption.estimated_rates(db, active)
     return render_template(
-        "status_overview.html", week=week, head=head, trucks=trucks, readings=readings, now=now, today=key[1]
+        "status_overview.html",
+        week=week,
+        head=head,
+        trucks=trucks,
+        readings=readings,
+        demand=demand,
+        rates=rates,
+        now=now,
+        today=key[1],
     )
 
 
@@ -137,6 +152,7 @@ def site_page(code: str) -> Any:
         first=first,
         last=last,
         deliveries=deliveries,
+        rate=consumption.estimated_rates(db, [site])[site.code],
         has_level=any(v is not None for _, v in levels.days),
         warnings=_sorted_warnings(_group_limits(_dedupe(levels.notices))),
         week=formatting.iso_week_of(first),

@@ -53,6 +53,8 @@ SITE_NUMBERS = {
     "safety_stock": (False, False, False, False),
     "latitude": (False, False, True, False),
     "longitude": (False, False, True, False),
+    "service_level": (False, True, False, False),  # issue 15
+    "lead_time_days": (False, False, False, False),
 }
 TRUCK_NUMBERS = {
     "dispatch_cost": (True, False, False, False),
@@ -60,7 +62,7 @@ TRUCK_NUMBERS = {
     "max_stops": (False, True, False, True),
     "trips_per_day": (False, True, False, True),
 }
-NULLABLE = {"latitude", "longitude", "max_stops"}
+NULLABLE = {"latitude", "longitude", "max_stops", "service_level"}
 
 
 def _cases():

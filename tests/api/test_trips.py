@@ -11,12 +11,29 @@ from contract import UNCONSTRAINED_CALENDAR
 
 START = dt.date(2026, 12, 7)  # Monday of ISO week 2026-W50
 TRIP_FIELDS = {"date", "trip", "load", "stops"}
-STOP_FIELDS = {"site", "planned_quantity", "quantity", "projected_level_before", "warnings"}
+STOP_FIELDS = {
+    "site",
+    "planned_quantity",
+    "quantity",
+    "projected_level_before",
+    "warnings",
+    # issue 15: a recorded delivery on the stop's date
+    "delivered_quantity",
+    "delivered_at",
+}
 
 
 @pytest.fixture
 def network(client, auth):
-    truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
+    # Deliveries at 00:00 keep this file's arithmetic (issue 15's default shift_start is 06:00).
+    truck = {
+        "code": "T1",
+        "name": "Truck",
+        "dispatch_cost": 150.0,
+        "capacity": 18000.0,
+        "max_stops": 6,
+        "shift_start": "00:00",
+    }
     truck |= UNCONSTRAINED_CALENDAR  # these tests are about the listing, not the calendar
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     assert client.post("/api/v1/trucks", json=truck | {"code": "T2"}, headers=auth("admin")).status_code == 201

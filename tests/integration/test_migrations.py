@@ -14,7 +14,7 @@ from sqlalchemy.orm import Session
 
 from service.health import alembic_config, migration_head
 from service.persistence import plans as plan_store
-from service.persistence.models import Base, Truck
+from service.persistence.models import Base, Site, Truck
 
 
 def test_upgrade_from_empty_has_no_drift(database_url):
@@ -110,3 +110,57 @@ def test_the_migration_chain_and_the_demo_data_have_one_home():
     assert Path(cli.dir).resolve() == MIGRATIONS
     files = sorted((MIGRATIONS / "versions").glob("*.py"))
     assert len(files) == len(list(cli.walk_revisions())) and cli.get_heads() == [migration_head()]
+
+
+def test_0006_defaults_and_every_watched_table_still_moves_the_change_stamp(database_url):
+    """Issue 15: a truck stored before 0006 starts its shift at 06:00, a site has no service level and
+    a lead time of one day; sites, trucks and the new deliveries table each move the change stamp
+    (SQLite's triggers survive the added columns), and the new CHECKs hold."""
+    config = alembic_config(database_url)
+    command.downgrade(config, "0005")
+    engine = create_engine(database_url)
+    now = dt.datetime(2026, 12, 1, tzinfo=dt.UTC)
+    try:
+        with engine.begin() as conn:
+            conn.execute(
+                text(
+                    "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
+                    " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
+                ),
+                {"yes": True, "now": now},
+            )
+            conn.execute(
+                text(
+                    "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
+                    " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
+                    " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
+                ),
+                {"yes": True, "now": now},
+            )
+        command.upgrade(config, "head")
+        engine.dispose()
+        with Session(engine) as session:
+            old = session.scalars(select(Truck).where(Truck.code == "OLD-1")).one()
+            site = session.scalars(select(Site).where(Site.code == "OLD-S")).one()
+            assert old.shift_start == dt.time(6, 0)
+            assert site.service_level is None
+            assert site.lead_time_days == 1.0
+        for statement in (
+            "UPDATE sites SET service_level = 0.98 WHERE code = 'OLD-S'",
+            "UPDATE trucks SET shift_start = '07:30:00' WHERE code = 'OLD-1'",
+            "INSERT INTO deliveries (site_id, quantity, delivered_at, created_at, created_by)"
+            " SELECT id, 500, :now, :now, 'test' FROM sites WHERE code = 'OLD-S'",
+        ):
+            before = plan_store.change_stamp(engine)
+            with engine.begin() as conn:
+                conn.execute(text(statement), {"now": now})
+            assert plan_store.change_stamp(engine) != before, statement
+        for statement in (
+            "UPDATE sites SET service_level = 1 WHERE code = 'OLD-S'",  # ck_sites_service_level_fraction
+            "UPDATE sites SET lead_time_days = -1 WHERE code = 'OLD-S'",  # ck_sites_lead_time_nonnegative
+            "UPDATE deliveries SET quantity = 0",  # ck_deliveries_quantity_positive
+        ):
+            with pytest.raises(IntegrityError), engine.begin() as conn:
+                conn.execute(text(statement))
+    finally:
+        engine.dispose()

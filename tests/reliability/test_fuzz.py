@@ -75,11 +75,22 @@ POSITIVE_ALSO = {
     # The body is documented as text/csv (a string): its header row and columns cannot be stated in
     # JSON Schema, so an arbitrary string is schema-valid yet not a sites CSV.
     "POST /api/v1/sites/import": (422,),
+    # Issue 15. A delivery's levels and quantity against *this site's* tank, its time not in the
+    # future, its truck existing; an Idempotency-Key the fuzzer reuses with another body.
+    "POST /api/v1/sites/{code}/deliveries": (422,),
+    # Bulk rows name sites (and trucks) that must exist, with the checks above; a CSV body is a
+    # string, as for the sites import.
+    "POST /api/v1/deliveries": (422,),
+    "POST /api/v1/readings": (422,),
+    # If-Match as above; too little data for an estimate (no-estimate) or a result that breaks a
+    # site rule.
+    "POST /api/v1/sites/{code}/apply-estimate": (412, 422),
 }
 DEFAULT_POSITIVE = ["2xx", "3xx", "401", "403", "404", "409", "429"]
 #: ``missing_required_header`` expects 400/401/403/406/415/422; a missing If-Match is answered
 #: 428 Precondition Required, the status RFC 6585 §3 defines for exactly that.
 IF_MATCH_OPERATIONS = (
+    "POST /api/v1/sites/{code}/apply-estimate",
     "PATCH /api/v1/sites/{code}",
     "DELETE /api/v1/sites/{code}",
     "PATCH /api/v1/trucks/{code}",

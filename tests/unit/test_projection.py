@@ -85,12 +85,14 @@ def test_capped_by_truck_free_space():
     p = Projection([a, b], 3000.0, UTC)
     [trip] = p.correct([PlannedTrip(day(3), (("A", 2500.0), ("B", 2500.0)))])
     first, second = trip.stops
-    assert first.quantity == pytest.approx(2400.0)  # as above
-    # B: level 1000 − 900 = 100, need 3000 + 500 − 100 = 3400, room 8900, free 3000 − 2400 = 600
+    # A needs 2400 (as above); B: level 1000 − 900 = 100, need 3000 + 500 − 100 = 3400, room 8900.
+    # The truck carries 3000 of the 5800 needed: each site gets the same share, 3000/5800 of its need
+    # (issue 15: not first come, first served, which left the last stops of a full trip with nothing).
     assert second.projected_level_before == pytest.approx(100.0)
-    assert second.quantity == pytest.approx(600.0)
+    assert first.quantity == pytest.approx(2400.0 * 3000.0 / 5800.0)
+    assert second.quantity == pytest.approx(3400.0 * 3000.0 / 5800.0)
     assert trip.load == pytest.approx(3000.0)
-    assert second.run_out is not None  # 700 cannot last 10 days above 500
+    assert first.run_out is not None and second.run_out is not None  # neither lasts above 500
 
 
 def test_planned_quantity_without_a_reading():

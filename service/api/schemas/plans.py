@@ -86,7 +86,15 @@ class TripsQueryArgsSchema(StrictSchema):
     to = BoundedDate(metadata={"description": f"Last day, {DATE_RANGE}"})
 
 
-NOTICE_KINDS = ("run_out_risk", "limits_changed", "plan_stale", "no_recent_reading", "calendar")
+NOTICE_KINDS = (
+    "run_out_risk",
+    "empty_risk",
+    "consumption_changed",
+    "limits_changed",
+    "plan_stale",
+    "no_recent_reading",
+    "calendar",
+)
 
 
 class NoticeSchema(ma.Schema):
@@ -94,6 +102,9 @@ class NoticeSchema(ma.Schema):
         validate=ma.validate.OneOf(NOTICE_KINDS),
         metadata={
             "description": "run_out_risk: the tank is projected below its safety stock on `date`; "
+            "empty_risk: the tank is projected empty on `date`; consumption_changed: the readings and "
+            "deliveries show, at the stated false-alarm rate, that the stored demand_per_day is wrong (the "
+            "message gives the estimate and its interval; see GET /sites/{code}/consumption); "
             "limits_changed: a site or truck limit changed since the plan (tank_capacity, safe_fill, "
             "safety_stock, capacity, max_stops, active) and cut this stop's quantity, dropped a stop or "
             "took a site out; the message names the field and both values; plan_stale: the plan's "
@@ -110,7 +121,7 @@ class NoticeSchema(ma.Schema):
         allow_none=True,
         metadata={
             "description": "For run_out_risk: the first day the projected level falls below the site's "
-            "safety stock (the safety-stock crossing, not the day the tank runs empty); for limits_changed, "
+            "safety stock (the safety-stock crossing, not the day the tank runs empty); for empty_risk, the day it runs empty; for limits_changed, "
             "the delivery day concerned; otherwise null"
         },
     )
@@ -128,10 +139,20 @@ class DatedStopSchema(ma.Schema):
     projected_level_before = ma.fields.Float(
         allow_none=True,
         metadata={
-            "description": "The tank's projected level at the delivery time (00:00 of the delivery day in the "
-            "service time zone), before this delivery: the latest reading minus demand_per_day for the "
+            "description": "The tank's projected level at the delivery time (the truck's shift_start of the "
+            "delivery day in the service time zone), before this delivery: the latest reading minus demand_per_day for the "
             "elapsed time, plus earlier deliveries; null when the site has no usable reading"
         },
+    )
+    delivered_quantity = ma.fields.Float(
+        allow_none=True,
+        metadata={
+            "description": "What was delivered, when a delivery of the site is recorded on this date (history, "
+            "never recomputed; `quantity` is then the same); null otherwise"
+        },
+    )
+    delivered_at = ma.fields.DateTime(
+        allow_none=True, metadata={"description": "When the recorded delivery was made, in UTC; null otherwise"}
     )
     warnings = ma.fields.List(ma.fields.Nested(NoticeSchema), metadata={"description": "Notices about this stop"})
 

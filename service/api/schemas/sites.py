@@ -48,6 +48,20 @@ class SiteSchema(StrictSchema):
     active = JsonBool(load_default=True)
     latitude = JsonFloat(load_default=None, allow_none=True, validate=Range(min=-90, max=90))
     longitude = JsonFloat(load_default=None, allow_none=True, validate=Range(min=-180, max=180))
+    service_level = JsonFloat(
+        load_default=None,
+        allow_none=True,
+        validate=Range(min=0.5, max=0.9999),
+        metadata={
+            "description": "Cycle service level (probability of no stock-out below the safety stock in a "
+            "cycle) the consumption answer sizes suggested_safety_stock for, e.g. 0.98; null: not sized"
+        },
+    )
+    lead_time_days = JsonFloat(
+        load_default=1.0,
+        validate=Range(min=0, max=365),
+        metadata={"description": "Days from deciding a delivery to making it (L in z·σ·√(T + L)); default 1"},
+    )
     version = ma.fields.Integer(dump_only=True)
     created_at = ma.fields.DateTime(dump_only=True)
     updated_at = ma.fields.DateTime(dump_only=True)
