@@ -69,6 +69,9 @@ ROUTE_ROLES = {
     ("GET", "/api/v1/trucks/<string:code>/trips"): "viewer",
     ("GET", "/api/v1/sites/<string:code>/readings"): "viewer",
     ("POST", "/api/v1/sites/<string:code>/readings"): "dispatcher",
+    ("GET", "/api/v1/sites/<string:code>/consumption/weather"): "viewer",
+    ("GET", "/api/v1/weather/<string:region>"): "viewer",
+    ("POST", "/api/v1/weather/<string:region>"): "admin",
     # The status page signs people in with its own cookie session (issue 5); bearer roles do not apply.
     ("GET", "/status"): SESSION,
     ("GET", "/status/sites/<code>"): SESSION,

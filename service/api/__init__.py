@@ -45,7 +45,8 @@ class Api(SmorestApi):
 
 def init_app(app: Flask) -> Api:
     """Create the Api and register every blueprint."""
-    from service.api import calculations, plans, readings, settings, sites, trucks  # noqa: PLC0415
+    from service.api import calculations, plans, readings, settings, site_weather, sites, trucks, weather  # noqa: PLC0415
+    from service.api.schemas.weather import WeatherDayInSchema  # noqa: PLC0415
 
     app.config.update(
         API_TITLE="Ullage",
@@ -63,8 +64,9 @@ def init_app(app: Flask) -> Api:
     )
     app.url_map.converters["id"] = IdConverter  # plan ids in paths: 1 to fields.ID_MAX
     api = Api(app)
-    for module in (settings, trucks, sites, calculations, plans, readings):
+    for module in (settings, trucks, sites, calculations, plans, readings, weather, site_weather):
         api.register_blueprint(module.blp, url_prefix=API_PREFIX + module.PREFIX)
+    api.spec.components.schema("WeatherDayIn", schema=WeatherDayInSchema)  # the raw body of POST /weather/{region}
     return api
 
 

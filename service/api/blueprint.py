@@ -122,11 +122,11 @@ class Blueprint(SmorestBlueprint):
         return super().arguments(schema() if isinstance(schema, type) else schema, *args, **kwargs)
 
 
-def accepts_body(media_type: str):  # type: ignore[no-untyped-def]
-    """Declare a raw body media type for a view that reads ``request.data`` itself."""
+def accepts_body(*media_types: str):  # type: ignore[no-untyped-def]
+    """Declare the raw body media types of a view that reads ``request.data`` itself."""
 
     def mark(view):  # type: ignore[no-untyped-def]
-        view._ullage_body = media_type
+        view._ullage_body = media_types
         return view
 
     return mark
@@ -137,7 +137,7 @@ def _locations(handler: Any) -> set[str]:
     return {p.get("in") for p in params if isinstance(p, dict)}
 
 
-def _expectations(endpoint: str, method: str) -> tuple[set[str], str | None, frozenset[str]] | None:
+def _expectations(endpoint: str, method: str) -> tuple[set[str], tuple[str, ...] | None, frozenset[str]] | None:
     """(the handler's argument locations, its body media type, its list-valued query parameters),
     remembered per app; ``None`` when there is no handler."""
     known: dict[tuple[str, str], Any] = current_app.extensions.setdefault("ullage.route_guards", {})
@@ -150,7 +150,7 @@ def _expectations(endpoint: str, method: str) -> tuple[set[str], str | None, fro
             locations = _locations(handler)
             known[key] = (
                 locations,
-                getattr(handler, "_ullage_body", None) or (JSON if "json" in locations else None),
+                getattr(handler, "_ullage_body", None) or ((JSON,) if "json" in locations else None),
                 _list_valued_query(handler),
             )
     return known[key]
@@ -261,13 +261,13 @@ def guard_request() -> None:
             errors=[{"pointer": f"#/query/{n}", "detail": "Unknown field."} for n in sorted(request.args)],
         )
     refuse_repeated_query_parameters(list_valued)
-    if expected == JSON and request.method == "PATCH" and not request.content_length and not request.data:
+    if expected == (JSON,) and request.method == "PATCH" and not request.content_length and not request.data:
         raise Problem(
             422,
             "Send the changes as a JSON object.",
             kind="validation",
             errors=[{"pointer": "#", "detail": "Missing request body."}],
         )
-    if expected and request.method in {"POST", "PUT", "PATCH"} and request.mimetype != expected:
+    if expected and request.method in {"POST", "PUT", "PATCH"} and request.mimetype not in expected:
         if request.mimetype or request.content_length:
-            raise Problem(415, f"Send the body as {expected}.", kind="unsupported-media-type")
+            raise Problem(415, f"Send the body as {' or '.join(expected)}.", kind="unsupported-media-type")

@@ -51,9 +51,10 @@ NUMBER_FIELDS = (
     "safety_stock",
     "latitude",
     "longitude",
+    "base_temperature",
 )
 TEXT_FIELDS = ("code", "name", "truck")
-COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude")
+COLUMNS = (*TEXT_FIELDS, *NUMBER_FIELDS[:6], "active", "latitude", "longitude", "weather_region", "base_temperature")
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
 FORMAT = (
@@ -66,7 +67,7 @@ FORMAT = (
     "`-3.25`, `2.5e3`); `active` is true/false; `unit` is `L`, `gal` or `m3` (volumes converted to the "
     f"service unit). At most {MAX_ROWS} rows."
 )
-EXAMPLE = ",".join(COLUMNS) + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3\r\n"
+EXAMPLE = ",".join(COLUMNS) + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3,,15.5\r\n"
 #: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
 #: a formula (``= + - @``, tab, carriage return).
 _NEEDS_PREFIX = re.compile(r"'*[=+\-@\t\r]")
@@ -270,5 +271,6 @@ def export_sites(session: Session) -> str:
         row += [repr(getattr(site, f)) for f in NUMBER_FIELDS[:6]]
         row += ["true" if site.active else "false"]
         row += ["" if getattr(site, f) is None else repr(getattr(site, f)) for f in ("latitude", "longitude")]
+        row += ["" if site.weather_region is None else _defuse(site.weather_region), repr(site.base_temperature)]
         writer.writerow(row)
     return out.getvalue()

@@ -21,6 +21,8 @@ SITE_FIELDS = (
     "active",
     "latitude",
     "longitude",
+    "weather_region",
+    "base_temperature",
 )
 TRUCK_FIELDS = (
     "name",
