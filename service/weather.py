@@ -42,11 +42,15 @@ def consumption_intervals(
     The one place the weather fit gets its intervals from: readings today; recorded deliveries
     join here when they are stored (issue 15, deliveries).
     """
-    readings = [LevelReading(r.measured_at, r.level) for r in weather_store.site_readings(session, site.id, since, until)]
+    readings = [
+        LevelReading(r.measured_at, r.level) for r in weather_store.site_readings(session, site.id, since, until)
+    ]
     return readings, []
 
 
-def degree_days(rows: Iterable[WeatherDay], first: dt.date, last: dt.date, base: float, zone: ZoneInfo) -> DailyDegreeDays:
+def degree_days(
+    rows: Iterable[WeatherDay], first: dt.date, last: dt.date, base: float, zone: ZoneInfo
+) -> DailyDegreeDays:
     """Degree days ``max(0, base − mean)`` of each day from ``first`` to ``last`` (NaN where no row)."""
     by_day = {w.day: w.mean_temperature for w in rows}
     means = [by_day.get(first + i * DAY, math.nan) for i in range((last - first).days + 1)]
@@ -91,9 +95,12 @@ def fit(session: Session, site: Site, days: int, zone: ZoneInfo, now: dt.datetim
     """
     end = weather_store.latest_reading_time(session, site.id) or now
     start = end - dt.timedelta(days=days)
-    first_day, last_day = start.astimezone(zone).date(), end.astimezone(zone).date()
+    # The last day the window reaches into (a window ending at 00:00 needs no weather of that day).
+    first_day, last_day = start.astimezone(zone).date(), (end - dt.timedelta(microseconds=1)).astimezone(zone).date()
     observed = [
-        w for w in weather_store.days_between(session, site.weather_region or "", first_day, last_day) if w.source == "observed"
+        w
+        for w in weather_store.days_between(session, site.weather_region or "", first_day, last_day)
+        if w.source == "observed"
     ]
     missing = (last_day - first_day).days + 1 - len(observed)
     run = latest_run([w.day for w in observed])

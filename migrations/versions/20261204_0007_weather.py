@@ -41,7 +41,9 @@ def upgrade() -> None:
         )
     else:
         op.add_column("sites", sa.Column("weather_region", sa.String(length=40), nullable=True))
-        op.add_column("sites", sa.Column("base_temperature", sa.Float(), server_default=sa.text("15.5"), nullable=False))
+        op.add_column(
+            "sites", sa.Column("base_temperature", sa.Float(), server_default=sa.text("15.5"), nullable=False)
+        )
         op.create_check_constraint(op.f(CHECK_NAME), "sites", CHECK)
     op.create_table(
         "weather_days",

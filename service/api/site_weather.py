@@ -47,8 +47,8 @@ def _answer(site, days: int, result: weather.WeatherFit) -> dict:
         "flat_rate_per_day": None if estimate is None else estimate.rate_per_day,
         "flat_sigma_per_sqrt_day": None if estimate is None else estimate.sigma_per_sqrt_day,
         "variance_explained": None if estimate is None else weather.variance_explained(estimate),
-        "intervals": [] if estimate is None else [i.to_dict() for i in estimate.intervals],
-        "rejected": [] if estimate is None else [r.to_dict() for r in estimate.rejected],
+        "intervals": [] if estimate is None else estimate.intervals,
+        "rejected": [] if estimate is None else estimate.rejected,
         "message": "" if fit is not None else _why_not(result),
     }
     out |= {name: None if fit is None else getattr(fit, name) for name in FIT_FIELDS}

@@ -41,7 +41,9 @@ def _json_rows(body: bytes) -> list[tuple[str, Any]]:
         detail = "The request body is not valid JSON."
         raise Problem(400, detail, kind="invalid-json", errors=[{"pointer": "#", "detail": detail}]) from exc
     if not isinstance(data, list):
-        raise Problem(422, "Send a JSON array of days.", kind="validation", errors=[{"pointer": "#", "detail": "Not an array."}])
+        raise Problem(
+            422, "Send a JSON array of days.", kind="validation", errors=[{"pointer": "#", "detail": "Not an array."}]
+        )
     return [(f"#/{i}", row) for i, row in enumerate(data)]
 
 
@@ -60,7 +62,12 @@ def _csv_rows(body: bytes) -> list[tuple[str, Any]]:
             errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
             if "day" not in header:
                 errors.append({"pointer": "#/header/day", "detail": "Missing column."})
-            raise Problem(422, f"The CSV header is not valid: name the columns {', '.join(COLUMNS)}.", kind="validation", errors=errors)
+            raise Problem(
+                422,
+                f"The CSV header is not valid: name the columns {', '.join(COLUMNS)}.",
+                kind="validation",
+                errors=errors,
+            )
         rows = []
         for number, cells in enumerate(reader, start=2):
             if not cells:
@@ -71,7 +78,9 @@ def _csv_rows(body: bytes) -> list[tuple[str, Any]]:
             rows.append((f"#/rows/{number}", {h: _cell(c) for h, c in zip(header, cells, strict=False) if c.strip()}))
         return rows
     except (UnicodeDecodeError, csv.Error) as exc:
-        raise Problem(422, f"The CSV cannot be read: {exc}.", kind="validation", errors=[{"pointer": "#", "detail": str(exc)}]) from exc
+        raise Problem(
+            422, f"The CSV cannot be read: {exc}.", kind="validation", errors=[{"pointer": "#", "detail": str(exc)}]
+        ) from exc
 
 
 def parse(body: bytes, media_type: str, today: dt.date) -> list[tuple[dt.date, float, str]]:
@@ -86,7 +95,12 @@ def parse(body: bytes, media_type: str, today: dt.date) -> list[tuple[dt.date, f
     seen: set[dt.date] = set()
     for pointer, raw in rows:
         if not isinstance(raw, dict):
-            errors.append({"pointer": pointer, "detail": "Not a day: give an object (JSON) or a row no longer than the header (CSV)."})
+            errors.append(
+                {
+                    "pointer": pointer,
+                    "detail": "Not a day: give an object (JSON) or a row no longer than the header (CSV).",
+                }
+            )
             continue
         try:
             data = _SCHEMA.load(raw)
@@ -110,5 +124,7 @@ def parse(body: bytes, media_type: str, today: dt.date) -> list[tuple[dt.date, f
             seen.add(day)
             out.append((day, mean, source))
     if errors:
-        raise Problem(422, f"Nothing was stored: {len(errors)} error(s) in the days sent.", kind="validation", errors=errors)
+        raise Problem(
+            422, f"Nothing was stored: {len(errors)} error(s) in the days sent.", kind="validation", errors=errors
+        )
     return out

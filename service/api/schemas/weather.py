@@ -114,7 +114,9 @@ class WeatherFitSchema(ma.Schema):
     window_end = ma.fields.DateTime(metadata={"description": "Requested window: the latest reading"})
     weather_first_day = ma.fields.Date(allow_none=True, metadata={"description": "First day of the weather used"})
     weather_last_day = ma.fields.Date(allow_none=True, metadata={"description": "Last day of the weather used"})
-    missing_weather_days = ma.fields.Integer(metadata={"description": "Days of the window without an observed temperature"})
+    missing_weather_days = ma.fields.Integer(
+        metadata={"description": "Days of the window without an observed temperature"}
+    )
     n_intervals = ma.fields.Integer()
     confidence = ma.fields.Float()
     base_load_per_day = _number("b: quantity used per day whatever the weather")
