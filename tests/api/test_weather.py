@@ -4,6 +4,7 @@ GET /api/v1/sites/{code}/consumption/weather (the degree-day fit through the API
 from __future__ import annotations
 
 import datetime as dt
+import json
 import math
 
 import numpy as np
@@ -122,6 +123,22 @@ def test_one_bad_row_stores_nothing(client, auth, db_session, body, pointer):
     problem = response.get_json()
     assert problem["type"].endswith("/validation")
     assert pointer in [e["pointer"] for e in problem["errors"]]
+    assert stored(db_session) == 0
+
+
+@pytest.mark.parametrize("raw", ["NaN", "Infinity", "1e400", '"5"', "true", "null", "[]", "-90.5"])
+@pytest.mark.parametrize("field", ["mean_temperature", "min_temperature"])
+def test_bad_temperature_numbers_are_422(client, auth, db_session, field, raw):
+    row = (
+        {"day": "2026-01-05", "min_temperature": 1.0, "max_temperature": 5.0}
+        if field == "min_temperature"
+        else {"day": "2026-01-05", "mean_temperature": 1.0}
+    )
+    body = json.dumps([row | {field: "__VALUE__"}]).replace('"__VALUE__"', raw)
+    response = client.post(URL, data=body, headers=auth("admin"), content_type="application/json")
+    assert response.status_code == 422, response.get_json()
+    assert f"#/0/{field}" in [e["pointer"] for e in response.get_json()["errors"]]
+    assert "NaN" not in response.get_data(as_text=True)
     assert stored(db_session) == 0
 
 
