@@ -138,8 +138,9 @@ def expected_daily_demand(
 ) -> dict[dt.date, float]:
     """Expected consumption of each of ``days``: ``max(0, b + v · E[DD(day)])`` from the site's fit.
 
-    ``E[DD(day)]`` is a posted forecast for that day, else the mean of the observed days of the same
-    calendar day over the last :data:`HISTORY_YEARS` years (``expected_degree_days``). Empty when the
+    ``E[DD(day)]`` is the day's own posted value (observed, or a forecast), else the mean of the
+    observed days of the same calendar day over the last :data:`HISTORY_YEARS` years
+    (``expected_degree_days``). Empty when the
     site has no usable fit (no region, too few intervals, ``v ≤ 0``): the projection then keeps
     ``demand_per_day``. A day without history or forecast is left out (the projection's flat rate).
     """
@@ -152,19 +153,18 @@ def expected_daily_demand(
     first = min(days) - dt.timedelta(days=366 * HISTORY_YEARS)
     rows = weather_store.days_between(session, site.weather_region, first, max(days))
     observed = [w for w in rows if w.source == "observed"]
-    forecast = {
-        w.day: float(heating_degree_days(w.mean_temperature, site.base_temperature))
-        for w in rows
-        if w.source == "forecast"
+    wanted = set(days)
+    known = {  # a day's own observation or forecast, before any mean of past years
+        w.day: float(heating_degree_days(w.mean_temperature, site.base_temperature)) for w in rows if w.day in wanted
     }
-    if not observed and not forecast:
+    if not observed and not known:
         return {}
     history = (
         degree_days(observed, observed[0].day, observed[-1].day, site.base_temperature, zone)
         if observed
         else DailyDegreeDays(min(days), (math.nan,), zone)
     )
-    expected = expected_degree_days(history, days, forecast)
+    expected = expected_degree_days(history, days, known)
     return {
         day: max(0.0, f.base_load_per_day + f.volume_per_degree_day * float(e))
         for day, e in zip(days, expected, strict=True)
