@@ -9,6 +9,7 @@ import math
 
 import numpy as np
 import pytest
+from contract import UNCONSTRAINED_CALENDAR
 from sqlalchemy import func, select
 from vega_datasets import data
 
@@ -332,3 +333,46 @@ def test_seattle_2012_posted_as_csv_gives_the_noaa_degree_days(client, auth):
         url = link[1 : link.index(">")] if link else None
     assert len(means) == 366
     assert sum(max(0.0, 65.0 - (m * 9 / 5 + 32)) for m in means) == pytest.approx(4808.8, abs=0.05)
+
+
+def test_trips_of_a_weather_site_project_the_expected_demand_of_each_day(client, auth):
+    # A heating site fitted to b = 20 per day and v = 8 per degree day (noise-free readings up to
+    # 00:00 today) with forecasts for the next 25 days: the level projected before each delivery is
+    # the latest reading minus Σ (20 + 8 · forecast degree days) of the days in between, not the
+    # flat demand_per_day (1000). A re-posted forecast changes the (cached) answer at once.
+    truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0} | UNCONSTRAINED_CALENDAR
+    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
+    add_site(client, auth, "H1", weather_region="SIM", demand_per_day=1000.0)
+    simulate(client, auth, "H1", "SIM", 20.0, 8.0)
+    latest = client.get("/api/v1/sites/H1/readings?limit=1", headers=auth("viewer")).get_json()["items"][0]
+    forecast = [4.0 + (k % 5) for k in range(25)]
+    post_weather(client, auth, "SIM", TODAY, forecast)
+    response = client.post(
+        "/api/v1/trucks/T1/plans", json={"start_date": TODAY.isoformat()}, headers=auth("dispatcher")
+    )
+    assert response.status_code == 201, response.get_json()
+    assert (
+        client.post(f"/api/v1/plans/{response.get_json()['id']}/activate", headers=auth("dispatcher")).status_code
+        == 200
+    )
+    window = f"from={TODAY.isoformat()}&to={(TODAY + 20 * DAY).isoformat()}"
+
+    def stops():
+        """(day, quantity, projected level before) of the first two deliveries."""
+        body = client.get(f"/api/v1/trucks/T1/trips?{window}", headers=auth("viewer")).get_json()
+        return [
+            (
+                (dt.date.fromisoformat(t["date"]) - TODAY).days,
+                t["stops"][0]["quantity"],
+                t["stops"][0]["projected_level_before"],
+            )
+            for t in body["trips"][:2]
+        ]
+
+    (j0, q0, level0), (j1, _q1, level1) = stops()
+    assert j0 == 0 and level0 == pytest.approx(latest["level"])  # the reading at 00:00 today
+    assert level1 == pytest.approx(latest["level"] + q0 - sum(20.0 + 8.0 * f for f in forecast[:j1]), rel=1e-9)
+    assert abs(level1 - (latest["level"] + q0 - 1000.0 * j1)) > 100  # not the flat rate
+    post_weather(client, auth, "SIM", TODAY, [forecast[0] + 10.0])  # a colder first day: 80 more used
+    (_, q0_again, _), (_, _, level1_again) = stops()
+    assert level1_again - q0_again == pytest.approx(level1 - q0 - 80.0, rel=1e-9)
