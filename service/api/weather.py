@@ -8,6 +8,7 @@ from zoneinfo import ZoneInfo
 
 from flask import current_app, request
 from flask.views import MethodView
+from marshmallow import ValidationError
 
 from service.api import http_headers as hh
 from service.api import weather_rows
@@ -67,7 +68,7 @@ class RegionWeather(MethodView):
         """
         try:
             code_field_validate(region)
-        except Exception as exc:  # marshmallow's ValidationError: a region is named like a code
+        except ValidationError as exc:  # a region is named like a code
             raise Problem(
                 422,
                 "A weather region is 1–40 of A–Z, a–z, 0–9, '.', '_' or '-'.",

@@ -19,7 +19,7 @@ from typing import Any
 from marshmallow import ValidationError
 
 from service.api.schemas.weather import WeatherDayInSchema
-from service.errors import Problem
+from service.errors import Problem, flatten_messages
 
 MAX_ROWS = 5000
 COLUMNS = ("day", "mean_temperature", "min_temperature", "max_temperature", "source")
@@ -34,7 +34,7 @@ _PLAIN_NUMBER = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
 _SCHEMA = WeatherDayInSchema()
 
 
-def _json_rows(body: bytes) -> list[tuple[str, Any]]:
+def _json_rows(body: bytes) -> list[tuple[tuple[Any, ...], Any]]:
     try:
         data = json.loads(body)
     except (ValueError, RecursionError) as exc:
@@ -44,7 +44,7 @@ def _json_rows(body: bytes) -> list[tuple[str, Any]]:
         raise Problem(
             422, "Send a JSON array of days.", kind="validation", errors=[{"pointer": "#", "detail": "Not an array."}]
         )
-    return [(f"#/{i}", row) for i, row in enumerate(data)]
+    return [((i,), row) for i, row in enumerate(data)]
 
 
 def _cell(value: str) -> Any:
@@ -52,16 +52,15 @@ def _cell(value: str) -> Any:
     return float(value) if _PLAIN_NUMBER.fullmatch(value) else value
 
 
-def _csv_rows(body: bytes) -> list[tuple[str, Any]]:
+def _csv_rows(body: bytes) -> list[tuple[tuple[Any, ...], Any]]:
     try:
         text = body.decode("utf-8-sig")
         reader = csv.reader(io.StringIO(text))
         header = [h.strip() for h in next(reader, [])]
         unknown = [h for h in header if h not in COLUMNS]
         if unknown or "day" not in header:
-            errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
-            if "day" not in header:
-                errors.append({"pointer": "#/header/day", "detail": "Missing column."})
+            named = {h: ["Unknown column."] for h in unknown} | ({} if "day" in header else {"day": ["Missing column."]})
+            errors = flatten_messages(named, ("header",))
             raise Problem(
                 422,
                 f"The CSV header is not valid: name the columns {', '.join(COLUMNS)}.",
@@ -73,9 +72,9 @@ def _csv_rows(body: bytes) -> list[tuple[str, Any]]:
             if not cells:
                 continue
             if len(cells) > len(header):
-                rows.append((f"#/rows/{number}", None))
+                rows.append((("rows", number), None))
                 continue
-            rows.append((f"#/rows/{number}", {h: _cell(c) for h, c in zip(header, cells, strict=False) if c.strip()}))
+            rows.append((("rows", number), {h: _cell(c) for h, c in zip(header, cells, strict=False) if c.strip()}))
         return rows
     except (UnicodeDecodeError, csv.Error) as exc:
         raise Problem(
@@ -93,23 +92,15 @@ def parse(body: bytes, media_type: str, today: dt.date) -> list[tuple[dt.date, f
     out: list[tuple[dt.date, float, str]] = []
     errors: list[dict[str, str]] = []
     seen: set[dt.date] = set()
-    for pointer, raw in rows:
+    for path, raw in rows:
         if not isinstance(raw, dict):
-            errors.append(
-                {
-                    "pointer": pointer,
-                    "detail": "Not a day: give an object (JSON) or a row no longer than the header (CSV).",
-                }
-            )
+            detail = "Not a day: give an object (JSON) or a row no longer than the header (CSV)."
+            errors += flatten_messages([detail], path)
             continue
         try:
             data = _SCHEMA.load(raw)
         except ValidationError as exc:
-            messages = exc.normalized_messages()
-            errors += [
-                {"pointer": f"{pointer}/{field}", "detail": " ".join(m if isinstance(m, list) else [str(m)])}
-                for field, m in messages.items()
-            ]
+            errors += flatten_messages(exc.normalized_messages(), path)
             continue
         day = data["day"]
         mean = data.get("mean_temperature")
@@ -117,9 +108,9 @@ def parse(body: bytes, media_type: str, today: dt.date) -> list[tuple[dt.date, f
             mean = (data["min_temperature"] + data["max_temperature"]) / 2  # the degree-day convention
         source = data.get("source") or ("forecast" if day > today else "observed")
         if day in seen:
-            errors.append({"pointer": f"{pointer}/day", "detail": f"{day.isoformat()} appears twice."})
+            errors += flatten_messages({"day": [f"{day.isoformat()} appears twice."]}, path)
         elif source == "observed" and day > today:
-            errors.append({"pointer": f"{pointer}/source", "detail": "An observed day cannot be after today."})
+            errors += flatten_messages({"source": ["An observed day cannot be after today."]}, path)
         else:
             seen.add(day)
             out.append((day, mean, source))
