@@ -26,6 +26,7 @@ Trips are numbered within their date (``trip``, from 1).
 from __future__ import annotations
 
 import bisect
+import dataclasses
 import datetime as dt
 import math
 import re
@@ -36,7 +37,7 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
-from service import consumption, working_calendar
+from service import consumption, weather, working_calendar
 from service.config import Settings
 from service.persistence import deliveries as delivery_store
 from service.persistence import plans as plan_store
@@ -44,6 +45,7 @@ from service.persistence import repository as repo
 from service.persistence import tanks
 from service.persistence.models import Plan, Site, Truck, utcnow
 from service.planning import trips_between
+from service.planning.consumption import DEFAULT_WINDOW_DAYS
 from service.planning.projection import (
     TOLERANCE,
     CorrectedStop,
@@ -316,6 +318,26 @@ def _next_days(days: dict[str, list[int]], day: int, codes: Sequence[str]) -> di
     return out
 
 
+def with_weather_demand(
+    session: Session, tank: Tank, site: Site, first: dt.date, last: dt.date, settings: Settings
+) -> Tank:
+    """``tank`` with the expected demand of each day for a site with a ``weather_region``.
+
+    Days from the reading's (else ``first``) to ``last`` plus the longest look-ahead of a gap:
+    ``b + v · DD`` with the site's degree-day fit (``service.weather``) and the day's observed
+    degree days, a posted forecast, else the mean of past years; other days and sites without a
+    usable fit keep ``demand_per_day``.
+    """
+    if site.weather_region is None:
+        return tank
+    zone = ZoneInfo(settings.timezone)
+    start = min(first, tank.reading_at.astimezone(zone).date()) if tank.reading_at else first
+    end = last + dt.timedelta(days=tank.cycle_days + NEXT_GAP_MARGIN_DAYS)
+    days = [start + dt.timedelta(days=k) for k in range((end - start).days + 1)]
+    daily = weather.expected_daily_demand(session, site, days, zone, utcnow(), DEFAULT_WINDOW_DAYS)
+    return dataclasses.replace(tank, daily_demand=daily) if daily else tank
+
+
 def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt.date, settings: Settings) -> _Replay:
     zone = ZoneInfo(settings.timezone)
     result = plan_store.result_of(plan)
@@ -334,19 +356,18 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
         if reading is not None and reading.measured_at < horizon:
             reading = None
         recent[code] = reading is not None and reading.measured_at >= stale_before
-        tanks.append(
-            Tank(
-                code,
-                site.demand_per_day,
-                site.safe_fill * site.tank_capacity,
-                site.safety_stock,
-                cycles[code],
-                reading.level if reading else None,
-                reading.measured_at if reading else None,
-                tuple((d.delivered_at, d.quantity) for d in recorded_deliveries[site.id]),
-                consumption.noise_cover(site, learned[site.id][0]),
-            )
+        tank = Tank(
+            code,
+            site.demand_per_day,
+            site.safe_fill * site.tank_capacity,
+            site.safety_stock,
+            cycles[code],
+            reading.level if reading else None,
+            reading.measured_at if reading else None,
+            tuple((d.delivered_at, d.quantity) for d in recorded_deliveries[site.id]),
+            consumption.noise_cover(site, learned[site.id][0]),
         )
+        tanks.append(with_weather_demand(session, tank, site, first, last, settings))
     starts = [t.reading_at.astimezone(zone).date() for t in tanks if t.reading_at is not None]
     sim_first = max(plan.start_date, min([first, *starts]))
     sim_last = max(last, sim_first)

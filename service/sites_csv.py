@@ -43,9 +43,19 @@ from service.planning.inputs import SITE_PARAMETERS
 MAX_ROWS = 5000
 LITRES_PER_UNIT = {"L": 1.0, "gal": 3.785411784, "m3": 1000.0}
 VOLUME_FIELDS = ("demand_per_day", "tank_capacity", "safety_stock")
-NUMBER_FIELDS = (*SITE_PARAMETERS, "latitude", "longitude", "service_level", "lead_time_days")
+NUMBER_FIELDS = (*SITE_PARAMETERS, "latitude", "longitude", "service_level", "lead_time_days", "base_temperature")
 TEXT_FIELDS = ("code", "name", "truck")
-COLUMNS = (*TEXT_FIELDS, *SITE_PARAMETERS, "active", "latitude", "longitude", "service_level", "lead_time_days")
+COLUMNS = (
+    *TEXT_FIELDS,
+    *SITE_PARAMETERS,
+    "active",
+    "latitude",
+    "longitude",
+    "service_level",
+    "lead_time_days",
+    "weather_region",
+    "base_temperature",
+)
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
 FORMAT = (
@@ -60,7 +70,7 @@ FORMAT = (
 )
 EXAMPLE = (
     ",".join(COLUMNS)
-    + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3,0.98,1.0\r\n"
+    + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3,0.98,1.0,,15.5\r\n"
 )
 #: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
 #: a formula (``= + - @``, tab, carriage return).
@@ -274,5 +284,6 @@ def export_sites(session: Session) -> str:
             for f in ("latitude", "longitude", "service_level")
         ]
         row += [repr(site.lead_time_days)]
+        row += ["" if site.weather_region is None else _defuse(site.weather_region), repr(site.base_temperature)]
         writer.writerow(row)
     return out.getvalue()

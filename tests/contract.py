@@ -76,6 +76,9 @@ ROUTE_ROLES = {
     ("POST", "/api/v1/readings"): "dispatcher",
     ("GET", "/api/v1/sites/<string:code>/consumption"): "viewer",
     ("POST", "/api/v1/sites/<string:code>/apply-estimate"): "admin",
+    ("GET", "/api/v1/sites/<string:code>/consumption/weather"): "viewer",
+    ("GET", "/api/v1/weather/<string:region>"): "viewer",
+    ("POST", "/api/v1/weather/<string:region>"): "admin",
     # The status page signs people in with its own cookie session (issue 5); bearer roles do not apply.
     ("GET", "/status"): SESSION,
     ("GET", "/status/sites/<code>"): SESSION,

@@ -52,9 +52,12 @@ def init_app(app: Flask) -> Api:
         plans,
         readings,
         settings,
+        site_weather,
         sites,
         trucks,
+        weather,
     )
+    from service.api.schemas.weather import WeatherDayInSchema  # noqa: PLC0415
 
     app.config.update(
         API_TITLE="Ullage",
@@ -72,8 +75,9 @@ def init_app(app: Flask) -> Api:
     )
     app.url_map.converters["id"] = IdConverter  # plan ids in paths: 1 to fields.ID_MAX
     api = Api(app)
-    for module in (settings, trucks, sites, calculations, plans, readings, deliveries, consumption):
+    for module in (settings, trucks, sites, calculations, plans, readings, deliveries, consumption, weather, site_weather):
         api.register_blueprint(module.blp, url_prefix=API_PREFIX + module.PREFIX)
+    api.spec.components.schema("WeatherDayIn", schema=WeatherDayInSchema)  # the raw body of POST /weather/{region}
     return api
 
 

@@ -113,7 +113,7 @@ def _locations(handler: Any) -> set[str]:
     return {p.get("in") for p in params if isinstance(p, dict)}
 
 
-def _expectations(endpoint: str, method: str) -> tuple[set[str], str | None, frozenset[str]] | None:
+def _expectations(endpoint: str, method: str) -> tuple[set[str], tuple[str, ...] | None, frozenset[str]] | None:
     """(the handler's argument locations, its body media type, its list-valued query parameters),
     remembered per app; ``None`` when there is no handler."""
     known: dict[tuple[str, str], Any] = current_app.extensions.setdefault("ullage.route_guards", {})
@@ -126,7 +126,7 @@ def _expectations(endpoint: str, method: str) -> tuple[set[str], str | None, fro
             locations = _locations(handler)
             known[key] = (
                 locations,
-                getattr(handler, "_ullage_body", None) or (JSON if "json" in locations else None),
+                getattr(handler, "_ullage_body", None) or ((JSON,) if "json" in locations else None),
                 _list_valued_query(handler),
             )
     return known[key]
@@ -237,7 +237,7 @@ def guard_request() -> None:
             errors=[{"pointer": f"#/query/{n}", "detail": "Unknown field."} for n in sorted(request.args)],
         )
     refuse_repeated_query_parameters(list_valued)
-    if expected == JSON and request.method == "PATCH" and not request.content_length and not request.data:
+    if expected == (JSON,) and request.method == "PATCH" and not request.content_length and not request.data:
         raise Problem(
             422,
             "Send the changes as a JSON object.",

@@ -42,6 +42,9 @@ NAME_LENGTH = 200
 HOLIDAY_REGION_LENGTH = 40
 NOTE_LENGTH = 500
 DEFAULT_SHIFT_START = dt.time(6, 0)
+WEATHER_REGION_LENGTH = 40
+#: Default base temperature of heating degree days (°C; UK practice, docs/planning.md §11.6).
+DEFAULT_BASE_TEMPERATURE = 15.5
 
 
 def utcnow() -> dt.datetime:
@@ -119,6 +122,7 @@ class Site(Base):
             "service_level IS NULL OR (service_level > 0 AND service_level < 1)", name="service_level_fraction"
         ),
         CheckConstraint("lead_time_days >= 0", name="lead_time_nonnegative"),
+        CheckConstraint("base_temperature >= -50 AND base_temperature <= 50", name="base_temperature_range"),
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -138,9 +142,39 @@ class Site(Base):
     service_level: Mapped[float | None] = mapped_column(Float)
     #: Days from deciding a delivery to making it (the L of z·σ·√(T + L)).
     lead_time_days: Mapped[float] = mapped_column(Float, default=1.0, server_default=text("1.0"))
+    # Weather-driven demand (heating oil, propane): the region whose posted daily temperatures
+    # (weather_days) give the site's heating degree days, and their base temperature (°C).
+    weather_region: Mapped[str | None] = mapped_column(String(WEATHER_REGION_LENGTH))
+    base_temperature: Mapped[float] = mapped_column(
+        Float, default=DEFAULT_BASE_TEMPERATURE, server_default=text(str(DEFAULT_BASE_TEMPERATURE))
+    )
     version: Mapped[int] = mapped_column(default=1)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
     updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class WeatherDay(Base):
+    """The daily mean temperature (°C) of one weather region on one calendar day.
+
+    Posted by an admin (``POST /api/v1/weather/{region}``; the service never fetches weather):
+    ``observed`` days are history, ``forecast`` days give the expected degree days of the days to
+    come. Watched by the change-stamp triggers (projections of weather sites read it).
+    """
+
+    __tablename__ = "weather_days"
+    __table_args__ = (
+        UniqueConstraint("region", "day", name="uq_weather_days_region_day"),
+        CheckConstraint("source IN ('observed', 'forecast')", name="source_known"),
+        CheckConstraint("mean_temperature >= -90 AND mean_temperature <= 60", name="mean_temperature_range"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    region: Mapped[str] = mapped_column(String(WEATHER_REGION_LENGTH))
+    day: Mapped[dt.date] = mapped_column(Date)
+    mean_temperature: Mapped[float] = mapped_column(Float)
+    source: Mapped[str] = mapped_column(String(8))
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    created_by: Mapped[str] = mapped_column(String(80))
 
 
 class Token(Base):
@@ -294,8 +328,8 @@ class RequestQuota(Base):
 
 class ChangeStamp(Base):
     """One row whose ``stamp`` is a fresh random value after every commit that changed what a
-    weekly-trips answer reads: any row of ``trucks``, ``sites``, ``readings``, ``deliveries`` or
-    ``plans``.
+    weekly-trips answer reads: any row of ``trucks``, ``sites``, ``readings``, ``deliveries``,
+    ``plans`` or ``weather_days``.
 
     Written by triggers (migrations 0002 and 0006), so no code path can forget it; read as the trips cache's
     marker (:func:`service.persistence.plans.change_stamp`). A random stamp, not a counter, so that

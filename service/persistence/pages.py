@@ -6,6 +6,7 @@ second query. ``after`` arrives with the key's type (a code, or an id already wi
 
 from __future__ import annotations
 
+import datetime as dt
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -13,7 +14,7 @@ from typing import Any
 from sqlalchemy import Select, select
 from sqlalchemy.orm import Session
 
-from service.persistence.models import Plan, Reading, Site, Truck
+from service.persistence.models import Plan, Reading, Site, Truck, WeatherDay
 
 
 @dataclass(frozen=True)
@@ -56,3 +57,15 @@ def plans_page(session: Session, truck_id: int, limit: int, after: int | None) -
 def readings_page(session: Session, site_id: int, limit: int, after: int | None) -> Page:
     """A site's readings, newest recorded (highest id) first."""
     return _page(session, select(Reading).where(Reading.site_id == site_id), Reading.id, limit, after, True)
+
+
+def weather_days_page(
+    session: Session, region: str, limit: int, after: dt.date | None, first: dt.date | None, last: dt.date | None
+) -> Page:
+    """A region's posted days, oldest first, within ``first`` … ``last`` when given."""
+    statement = select(WeatherDay).where(WeatherDay.region == region)
+    if first is not None:
+        statement = statement.where(WeatherDay.day >= first)
+    if last is not None:
+        statement = statement.where(WeatherDay.day <= last)
+    return _page(session, statement, WeatherDay.day, limit, after, False)

@@ -11,7 +11,17 @@ from sqlalchemy.orm import Session
 from service.persistence.models import Delivery, Plan, PlanSite, Reading, Site, Token, Truck, utcnow
 from service.planning.inputs import SITE_PARAMETERS
 
-SITE_FIELDS = ("name", *SITE_PARAMETERS, "active", "latitude", "longitude", "service_level", "lead_time_days")
+SITE_FIELDS = (
+    "name",
+    *SITE_PARAMETERS,
+    "active",
+    "latitude",
+    "longitude",
+    "service_level",
+    "lead_time_days",
+    "weather_region",
+    "base_temperature",
+)
 TRUCK_FIELDS = (
     "name",
     "dispatch_cost",

@@ -4,7 +4,9 @@ Pure (standard library only). The rules, per site with demand ``d``, safe-fill l
 ``F = safe_fill × tank_capacity``, safety stock ``s`` and cycle ``T`` days, all of them the
 site's *current* values (the plan only gives the dates, the cycle and the planned quantities):
 
-* From a reading ``L`` taken at time ``t_r`` the level falls at ``d`` per day and never below 0.
+* From a reading ``L`` taken at time ``t_r`` the level falls at ``d`` per day and never below 0
+  (a weather site's ``Tank.daily_demand`` gives the expected demand of each local day instead:
+  :func:`used_between`).
   A delivery on day ``D`` is projected at the truck's shift start of ``D`` (service time zone;
   00:00 by default here), before that day's delivery:
   ``level(D) = max(0, level_prev − d·(t_D − t_prev))``, where ``t_D − t_prev`` is the
@@ -65,6 +67,8 @@ class Tank:
     deliveries: tuple[tuple[dt.datetime, float], ...] = ()
     #: ``z·σ`` per √day: a corrected quantity also covers ``z·σ·√g`` of consumption noise.
     noise_cover: float = 0.0
+    #: Expected demand of local days (weather sites: ``b + v · E[DD]``); other days use ``demand_per_day``.
+    daily_demand: Mapping[dt.date, float] = field(default_factory=dict, hash=False, compare=False)
 
 
 @dataclass(frozen=True)
@@ -139,15 +143,53 @@ def _days(later: dt.datetime, earlier: dt.datetime) -> float:
     return (later.astimezone(dt.UTC) - earlier.astimezone(dt.UTC)).total_seconds() / 86400.0
 
 
+def used_between(tank: Tank, earlier: dt.datetime, later: dt.datetime, zone: ZoneInfo) -> float:
+    """Expected use from ``earlier`` to ``later`` (negative when ``later`` is earlier).
+
+    ``demand_per_day`` per elapsed day; for a tank with ``daily_demand`` (a weather site) each local
+    day's expected demand accrues evenly over that day's elapsed hours (as its degree days do).
+    """
+    if not tank.daily_demand:
+        return tank.demand_per_day * _days(later, earlier)
+    if later < earlier:
+        return -used_between(tank, later, earlier, zone)
+    total, day = 0.0, earlier.astimezone(zone).date()
+    while (start := day_start(day, zone)) < later:
+        end = day_start(day + DAY, zone)
+        overlap = _days(min(end, later), max(start, earlier))
+        if overlap > 0:
+            total += tank.daily_demand.get(day, tank.demand_per_day) * overlap / _days(end, start)
+        day += DAY
+    return total
+
+
+def _used_up(tank: Tank, start: dt.datetime, amount: float, until: dt.datetime, zone: ZoneInfo) -> dt.datetime | None:
+    """The instant ``amount`` has been used from ``start``, if before ``until`` (else ``None``)."""
+    if not tank.daily_demand:
+        if tank.demand_per_day <= 0:
+            return None
+        at = start.astimezone(dt.UTC) + dt.timedelta(days=amount / tank.demand_per_day)
+        return at if at < until else None
+    left, day = amount, start.astimezone(zone).date()
+    while (begin := max(day_start(day, zone), start)) < until:
+        end = day_start(day + DAY, zone)
+        rate = tank.daily_demand.get(day, tank.demand_per_day) / _days(end, day_start(day, zone))  # per elapsed day
+        part = rate * _days(end, begin)
+        if rate > 0 and part >= left:
+            at = begin + dt.timedelta(days=left / rate)
+            return at if at < until else None
+        left -= part
+        day += DAY
+    return None
+
+
 def _crossing(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> RunOut | None:
     """When the level, falling from ``state``, drops below the safety stock before ``until``."""
     margin = state.level - tank.safety_stock
     if margin < -TOLERANCE:
         return RunOut(tank.code, state.at.astimezone(zone).date())
-    if tank.demand_per_day <= 0:
-        return None
-    at = state.at.astimezone(dt.UTC) + dt.timedelta(days=margin / tank.demand_per_day)
-    if at < until and state.level - tank.demand_per_day * _days(until, state.at) < tank.safety_stock - TOLERANCE:
+    at = _used_up(tank, state.at, margin, until, zone)
+    if at is not None and state.level - used_between(tank, state.at, until, zone) < tank.safety_stock - TOLERANCE:
         return RunOut(tank.code, at.astimezone(zone).date())
     return None
 
@@ -156,10 +198,8 @@ def _empty(state: _State, tank: Tank, until: dt.datetime, zone: ZoneInfo) -> Run
     """When the level, falling from ``state``, reaches zero before ``until``."""
     if state.level <= TOLERANCE:
         return RunOut(tank.code, state.at.astimezone(zone).date())
-    if tank.demand_per_day <= 0:
-        return None
-    at = state.at.astimezone(dt.UTC) + dt.timedelta(days=state.level / tank.demand_per_day)
-    return RunOut(tank.code, at.astimezone(zone).date()) if at < until else None
+    at = _used_up(tank, state.at, state.level, until, zone)
+    return RunOut(tank.code, at.astimezone(zone).date()) if at is not None else None
 
 
 class Projection:
@@ -224,8 +264,16 @@ class Projection:
             state.events.append((at, level + quantity))
             state.level, state.at = level + quantity, at
 
+    def _next_delivery(self, when: dt.datetime, gap: int) -> dt.datetime:
+        """The next planned delivery's time: its day's shift start (a calendar date, whatever the clocks do)."""
+        return self.delivery_time(when.astimezone(self.zone).date() + gap * DAY)
+
+    def _use_until(self, tank: Tank, when: dt.datetime, following: dt.datetime, gap: int) -> float:
+        """Expected use until the next delivery: ``d × gap`` days, or a weather site's expected days."""
+        return used_between(tank, when, following, self.zone) if tank.daily_demand else tank.demand_per_day * gap
+
     def _level_at(self, state: _State, tank: Tank, when: dt.datetime) -> float:
-        return max(0.0, state.level - tank.demand_per_day * _days(when, state.at))
+        return max(0.0, state.level - used_between(tank, state.at, when, self.zone))
 
     def _projected(self, code: str, when: dt.datetime) -> bool:
         """Whether the delivery at ``when`` is corrected from a reading (not history, not unread)."""
@@ -267,12 +315,13 @@ class Projection:
         state = self._states[tank.code]
         risk, empty = self._risk(state, tank, when)
         level = self._level_at(state, tank, when)
-        need = tank.demand_per_day * gap + tank.safety_stock - level + tank.noise_cover * math.sqrt(gap)
+        following = self._next_delivery(when, gap)
+        need = (
+            self._use_until(tank, when, following, gap) + tank.safety_stock - level + tank.noise_cover * math.sqrt(gap)
+        )
         room = tank.safe_fill_level - level
         quantity = max(0.0, min(need, room, free))
         after = _State(level + quantity, when)
-        # Until the next planned delivery (its day's shift start; a calendar date, whatever the clocks do).
-        following = self.delivery_time(when.astimezone(self.zone).date() + gap * DAY)
         later_risk, later_empty = self._risk(after, tank, following)
         state.events.append((when, level))
         state.events.append((when, after.level))
@@ -287,6 +336,9 @@ class Projection:
             return 0.0
         tank = self.tanks[code]
         margin = self._level_at(self._states[code], tank, when) - tank.safety_stock
+        if tank.daily_demand and margin >= 0:
+            at = _used_up(tank, when, margin, when + 3660 * DAY, self.zone)
+            return math.inf if at is None else _days(at, when)
         if tank.demand_per_day <= 0:
             return math.inf if margin >= 0 else -math.inf
         return margin / tank.demand_per_day
@@ -321,7 +373,8 @@ class Projection:
             gap = trip.next_days.get(code, tank.cycle_days)
             level = self._level_at(self._states[code], tank, when)
             room = max(0.0, tank.safe_fill_level - level)
-            need = tank.demand_per_day * gap + tank.safety_stock - level
+            use = self._use_until(tank, when, self._next_delivery(when, gap), gap)
+            need = use + tank.safety_stock - level
             base[code] = min(room, max(0.0, need))
             want[code] = min(room, max(0.0, need + tank.noise_cover * math.sqrt(gap)))
         budget = max(0.0, budget)
@@ -378,4 +431,4 @@ class Projection:
             if at >= when:
                 break
             last_at, last_level = at, level
-        return max(0.0, last_level - tank.demand_per_day * _days(when, last_at))
+        return max(0.0, last_level - used_between(tank, last_at, when, self.zone))

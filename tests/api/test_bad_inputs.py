@@ -55,6 +55,7 @@ SITE_NUMBERS = {
     "longitude": (False, False, True, False),
     "service_level": (False, True, False, False),  # issue 15
     "lead_time_days": (False, False, False, False),
+    "base_temperature": (False, False, True, False),
 }
 TRUCK_NUMBERS = {
     "dispatch_cost": (True, False, False, False),
@@ -82,7 +83,7 @@ def _cases():
                 yield pytest.param(path, field, "1001", id=f"{path.rsplit('/', 1)[1]}-{field}-above-max")
             if field == "safe_fill":
                 yield pytest.param(path, field, "1.5", id="sites-safe_fill-above-1")
-            if field in ("latitude", "longitude"):
+            if field in ("latitude", "longitude", "base_temperature"):
                 yield pytest.param(path, field, "181", id=f"sites-{field}-out-of-range")
         if path.endswith("sites"):
             for field in ("demand_per_day", "tank_capacity", "holding_cost", "stop_cost"):

@@ -1,6 +1,6 @@
 """The change stamp (migration 0002) behind the trips cache, on both databases.
 
-What is checked: every committed insert, update or delete of a truck, site, reading or plan gives a
+What is checked: every committed insert, update or delete of a truck, site, reading, plan or weather day gives a
 new stamp, whatever code path (or plain SQL) made it; other tables, reads and rolled-back work leave
 it alone; on PostgreSQL the stamp is written at commit, once per transaction, so two writers that
 lock sites in opposite orders cannot deadlock on it.
@@ -17,6 +17,7 @@ from sqlalchemy.orm import Session
 
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
+from service.persistence import weather as weather_store
 from service.persistence.models import Site, Truck
 
 UTC = dt.UTC
@@ -82,6 +83,13 @@ def test_every_committed_change_of_a_watched_table_gives_a_new_stamp(read_engine
             inputs={"truck": {}, "sites": []},
             result={},
         ),
+        "weather insert": lambda: weather_store.post_days(
+            db_session, "ST-R", [(dt.date(2026, 12, 1), 3.0, "observed")], "test"
+        ),
+        "weather replace": lambda: weather_store.post_days(
+            db_session, "ST-R", [(dt.date(2026, 12, 1), 4.0, "observed")], "test"
+        ),
+        "weather delete": lambda: db_session.execute(text("DELETE FROM weather_days")),
         "plan update": lambda: db_session.execute(text("UPDATE plans SET status = 'active'")),
         "plan delete": lambda: (
             db_session.execute(text("DELETE FROM plan_sites")),

@@ -164,3 +164,63 @@ def test_0006_defaults_and_every_watched_table_still_moves_the_change_stamp(data
                 conn.execute(text(statement))
     finally:
         engine.dispose()
+
+def test_0007_gives_existing_sites_no_weather_region_and_keeps_the_change_stamp(database_url):
+    """Issue 15: a site stored before weather has no region and base 15.5 °C; sites (columns added
+    in place, not rebuilt) and the new weather_days table both move the change stamp."""
+    config = alembic_config(database_url)
+    command.downgrade(config, "0006")
+    engine = create_engine(database_url)
+    now = dt.datetime(2026, 12, 1, tzinfo=dt.UTC)
+    try:
+        with engine.begin() as conn:
+            conn.execute(
+                text(
+                    "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
+                    " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
+                ),
+                {"yes": True, "now": now},
+            )
+            conn.execute(
+                text(
+                    "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
+                    " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
+                    " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
+                ),
+                {"yes": True, "now": now},
+            )
+        command.upgrade(config, "head")
+        engine.dispose()
+        with engine.connect() as conn:
+            row = conn.execute(text("SELECT weather_region, base_temperature, version FROM sites")).one()
+        assert tuple(row) == (None, 15.5, 1)
+        before = plan_store.change_stamp(engine)
+        with engine.begin() as conn:
+            conn.execute(text("UPDATE sites SET weather_region = 'NW' WHERE code = 'OLD-S'"))
+        after_site = plan_store.change_stamp(engine)
+        assert after_site != before
+        with engine.begin() as conn:
+            conn.execute(
+                text(
+                    "INSERT INTO weather_days (region, day, mean_temperature, source, created_at, created_by)"
+                    " VALUES ('NW', :day, 4.5, 'observed', :now, 'test')"
+                ),
+                {"day": dt.date(2026, 11, 30), "now": now},
+            )
+        after_weather = plan_store.change_stamp(engine)
+        assert after_weather != after_site
+        with engine.begin() as conn:
+            conn.execute(text("UPDATE weather_days SET mean_temperature = 2.0"))
+        assert plan_store.change_stamp(engine) != after_weather
+        with pytest.raises(IntegrityError), engine.begin() as conn:  # ck_sites_base_temperature_range
+            conn.execute(text("UPDATE sites SET base_temperature = 80 WHERE code = 'OLD-S'"))
+        with pytest.raises(IntegrityError), engine.begin() as conn:  # uq_weather_days_region_day
+            conn.execute(
+                text(
+                    "INSERT INTO weather_days (region, day, mean_temperature, source, created_at, created_by)"
+                    " VALUES ('NW', :day, 1.0, 'forecast', :now, 'test')"
+                ),
+                {"day": dt.date(2026, 11, 30), "now": now},
+            )
+    finally:
+        engine.dispose()

@@ -85,6 +85,12 @@ POSITIVE_ALSO = {
     # If-Match as above; too little data for an estimate (no-estimate) or a result that breaks a
     # site rule.
     "POST /api/v1/sites/{code}/apply-estimate": (412, 422),
+    # Weather days: `mean_temperature`, or `min_temperature` and `max_temperature` (one of the two
+    # ways, min ≤ max), each day once, no observed day after today, a region named like a code;
+    # as CSV, any string is schema-valid. Relations between fields and rows, not field bounds.
+    "POST /api/v1/weather/{region}": (422,),
+    # `from` ≤ `to`.
+    "GET /api/v1/weather/{region}": (422,),
 }
 DEFAULT_POSITIVE = ["2xx", "3xx", "401", "403", "404", "409", "429"]
 #: ``missing_required_header`` expects 400/401/403/406/415/422; a missing If-Match is answered

@@ -264,3 +264,36 @@ def test_over_max_stops_the_sites_with_fewest_days_of_stock_keep_their_stops():
     assert trip.dropped == ("A", "D")
     # A's tank was not refilled: it keeps falling from its reading.
     assert p.level_before("A", at(4)) == pytest.approx(5000.0 - 4 * 300.0)
+
+
+def weather_tank(daily, **kw):
+    """A weather site: the expected demand of each listed day (others: d = 300)."""
+    return Tank("W", 300.0, 9000.0, 500.0, 10, kw.get("level", 5000.0), at(kw.get("start", 0.0)), daily)
+
+
+def test_weather_tank_uses_each_days_expected_demand():
+    # Hand computation: from 12:00 of day 0 the level falls by half of day 0 (100/2), then 400 on
+    # day 1 and 700 on day 2; at 00:00 of day 3 it is 5000 − 50 − 400 − 700 = 3850.
+    daily = {day(0): 100.0, day(1): 400.0, day(2): 700.0} | {day(k): 1000.0 for k in range(3, 8)}
+    p = Projection([weather_tank(daily, start=0.5)], 18000.0, UTC)
+    assert p.level_before("W", at(3)) == pytest.approx(3850.0)
+    assert p.level_before("W", at(1.25)) == pytest.approx(5000.0 - 50.0 - 100.0)  # a quarter of day 1
+    # A delivery on day 3 with the next one 5 days later: need = 5 · 1000 + s − level = 1650.
+    [trip] = p.correct([PlannedTrip(day(3), (("W", 1.0),), {"W": 5})])
+    assert trip.stops[0].quantity == pytest.approx(5000.0 + 500.0 - 3850.0)
+    assert trip.stops[0].run_out is None
+    # After the delivery 5500, 5000 above s: days 3 to 7 use exactly that, so 5 days of stock.
+    assert p.days_of_stock("W", at(3)) == pytest.approx(5.0)
+    assert p.days_of_stock("W", at(3.5)) == pytest.approx(4.5)
+
+
+def test_weather_tank_run_out_date_follows_the_cold_days():
+    # 5000 − 500 = 4500 above s; days of 1000, 1000, 3000 cross it during day 2 (at 2500 of 3000),
+    # where a flat 300 per day would last 15 days.
+    daily = {day(0): 1000.0, day(1): 1000.0, day(2): 3000.0}
+    p = Projection([weather_tank(daily)], 18000.0, UTC)
+    p.finish(at(5))
+    assert [r.date for r in p.run_outs] == [day(2)]
+    flat = Projection([weather_tank({})], 18000.0, UTC)
+    flat.finish(at(5))
+    assert flat.run_outs == []

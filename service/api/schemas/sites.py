@@ -62,6 +62,17 @@ class SiteSchema(StrictSchema):
         validate=Range(min=0, max=365),
         metadata={"description": "Days from deciding a delivery to making it (L in z·σ·√(T + L)); default 1"},
     )
+    weather_region = ma.fields.String(
+        load_default=None,
+        allow_none=True,
+        validate=code_field_validate,
+        metadata={"description": "Weather region whose posted temperatures drive the site's demand (heating)"},
+    )
+    base_temperature = JsonFloat(
+        load_default=15.5,
+        validate=Range(min=-50, max=50),
+        metadata={"description": "Base of the site's heating degree days, °C (15.5 UK; 18 NL, CA; 18.3 = 65 °F US)"},
+    )
     version = ma.fields.Integer(dump_only=True)
     created_at = ma.fields.DateTime(dump_only=True)
     updated_at = ma.fields.DateTime(dump_only=True)

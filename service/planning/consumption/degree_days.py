@@ -154,14 +154,16 @@ def expected_degree_days(
     """Expected degree days of future ``days``: a forecast when given, else the past mean.
 
     The past mean of a day is the mean of the history's values on the same calendar day
-    (month and day) over all years present; 29 February falls back to 28 February when the
-    history has none. ``NaN`` for a calendar day the history never covers.
+    (month and day) over all years present (``NaN`` values of the history, days without data,
+    are left out); 29 February falls back to 28 February when the history has none. ``NaN`` for
+    a calendar day the history never covers.
     """
     values = np.asarray(history.degree_days, dtype=float)
     first = history.first_day.toordinal()
     keys = np.array([_calendar_key(dt.date.fromordinal(first + i)) for i in range(len(values))], dtype=int)
-    sums = np.bincount(keys, weights=values, minlength=1232)
-    counts = np.bincount(keys, minlength=1232)
+    known = np.isfinite(values)  # a day missing from the history (NaN) does not count
+    sums = np.bincount(keys[known], weights=values[known], minlength=1232)
+    counts = np.bincount(keys[known], minlength=1232)
     with np.errstate(invalid="ignore", divide="ignore"):
         means = sums / counts
     means[229] = means[229] if counts[229] else means[228]

@@ -148,3 +148,14 @@ def test_heating_site_screened_with_the_degree_day_model_keeps_cold_weeks(seattl
     readings[7] = LevelReading(readings[7].time, readings[7].level - 1500)  # a gauge outlier
     e = estimate_consumption(readings, deliveries, capacity=10_000, weather=weather)
     assert [(r.index, r.reason) for r in e.rejected] == [(7, "implausible_consumption")]
+
+
+def test_expected_degree_days_leave_out_days_missing_from_the_history():
+    # 10 January has 4.0 in 2024, nothing in 2025 (NaN) and 6.0 in 2026: the mean of the two known.
+    first = dt.date(2024, 1, 1)
+    values = [math.nan] * (dt.date(2026, 12, 31) - first).days
+    values[(dt.date(2024, 1, 10) - first).days] = 4.0
+    values[(dt.date(2026, 1, 10) - first).days] = 6.0
+    got = expected_degree_days(DailyDegreeDays(first, tuple(values)), [dt.date(2027, 1, 10), dt.date(2027, 1, 11)])
+    assert got[0] == pytest.approx(5.0)
+    assert math.isnan(got[1])  # never known: no expectation
