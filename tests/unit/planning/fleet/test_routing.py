@@ -8,6 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from service.planning.fleet.routing import held_karp, shortest_tour
+
 from .tsplib import BURMA14, OPTIMUM, ULYSSES16, geo_matrix
 
 CASES = [("burma14", BURMA14), ("ulysses16", ULYSSES16)]
