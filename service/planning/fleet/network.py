@@ -45,7 +45,9 @@ from service.planning.results import SitePlan, Status, Stop, Trip
 from service.planning.workweek import WorkWeek
 
 #: Longest single call of the one-truck planner (s), so progress is reported at least every 2 s.
-STEP_SECONDS = 1.5
+STEP_SECONDS = 1.2
+#: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
+ROUTED_DAYS = 63
 #: Stem scales of the routing-aware trip cost tried per truck (candidates after the first only in time).
 STEM_SCALES = (1.0, 0.5)
 
@@ -70,6 +72,8 @@ class _Clock:
         self.deadline = None if budget is None else self.began + budget
         self.progress = progress
         self.cut = False
+        self.fraction = 0.0
+        self.last = self.began
 
     def left(self) -> float:
         return math.inf if self.deadline is None else self.deadline - time.monotonic()
@@ -80,8 +84,15 @@ class _Clock:
         return self.cut
 
     def report(self, fraction: float) -> None:
+        self.fraction = min(1.0, max(0.0, float(fraction)))
+        self.last = time.monotonic()
         if self.progress is not None:
-            self.progress(min(1.0, max(0.0, float(fraction))))
+            self.progress(self.fraction)
+
+    def tick(self) -> None:
+        """Repeat the last fraction when a second has passed since the last report."""
+        if time.monotonic() - self.last >= 1.0:
+            self.report(self.fraction)
 
 
 def _check(sites, trucks, depots, products) -> None:
@@ -170,45 +181,58 @@ def _costed(
     stop_cost: np.ndarray,
     products: list[str],
     start: dt.date,
+    tick: Callable[[], None],
 ) -> TruckPlan:
     truck = tk.truck
     local = {codes[i]: j + 1 for j, i in enumerate(tk.sites)}
     k_of = {codes[i]: float(stop_cost[i]) for i in tk.sites}
     cache: dict = {}
+    routed_of: dict = {}
     routed: list[RoutedTrip] = []
-    split = 0
+    split = count = 0
+    length_sum = load = stops_sum = 0.0
     by_day: dict[int, int] = {}
-    for trip in trips:
-        pieces = _route_trip(tk, local, products, [(s.code, s.quantity) for s in trip.stops], cache)
+    for n_trip, trip in enumerate(trips):
+        if n_trip % 256 == 0:
+            tick()
+        key = tuple((s.code, s.quantity) for s in trip.stops)
+        if key not in routed_of:
+            routed_of[key] = [
+                (tuple(codes[tk.sites[node - 1]] for node in order), length, legs, loads)
+                for order, length, legs, loads in _route_trip(tk, local, products, list(key), cache)
+            ]
+        pieces = routed_of[key]
         split += len(pieces) - 1
-        for order, length, legs, loads in pieces:
-            names = [codes[tk.sites[node - 1]] for node in order]
-            stops = tuple(
-                RouteStop(name, float(sum(q for _, q in load)), tuple((c + 1, q) for c, q in load), float(leg))
-                for name, load, leg in zip(names, loads, legs[:-1], strict=True)
-            )
+        for names, length, legs, loads in pieces:
             by_day[trip.day] = by_day.get(trip.day, 0) + 1
+            count += 1
+            length_sum += length
+            stops_sum += sum(k_of[name] for name in names)
+            load += sum(q for piece in loads for _, q in piece)
+            if trip.day >= ROUTED_DAYS:
+                continue
+            stops = tuple(
+                RouteStop(name, float(sum(q for _, q in piece)), tuple((c + 1, q) for c, q in piece), float(leg))
+                for name, piece, leg in zip(names, loads, legs[:-1], strict=True)
+            )
             cost = truck.dispatch_cost + truck.cost_per_km * length + sum(k_of[name] for name in names)
             routed.append(
                 RoutedTrip(
-                    trip.day, trip.date, by_day[trip.day], sum(s.quantity for s in stops), stops,
+                    trip.day, trip.date, by_day[trip.day], sum(x.quantity for x in stops), stops,
                     float(legs[-1]), float(length), float(cost),
                 )
             )
     if split:
         warnings.append(f"{split} trip(s) split to fit the compartments (one product per compartment)")
     scale = 1.0 / max(listed_days, 1)
-    dispatch = truck.dispatch_cost * len(routed) * scale
-    distance = truck.cost_per_km * sum(t.distance_km for t in routed) * scale
-    stops_cost = sum(k_of[s.code] for t in routed for s in t.stops) * scale
+    dispatch = truck.dispatch_cost * count * scale
+    distance = truck.cost_per_km * length_sum * scale
+    stops_cost = stops_sum * scale
     open_days = _open_days(tk.calendar, start, listed_days)
-    load = sum(t.load for t in routed)
     utilisation = {
-        "trips_per_open_day": len(routed) / open_days if open_days else 0.0,
-        "trip_share": (
-            len(routed) / (open_days * tk.calendar.trips_per_day) if open_days and tk.calendar.trips_per_day else None
-        ),
-        "load_share": load / (len(routed) * truck.capacity) if routed else 0.0,
+        "trips_per_open_day": count / open_days if open_days else 0.0,
+        "trip_share": count / (open_days * tk.calendar.trips_per_day) if open_days and tk.calendar.trips_per_day else None,
+        "load_share": load / (count * truck.capacity) if count else 0.0,
     }
     limit = tk.calendar.trips_per_day
     if limit is not None and any(v > limit for v in by_day.values()):
@@ -224,7 +248,7 @@ def _costed(
         cost_per_day=dispatch + distance + stops_cost + holding,
         cost_breakdown={"dispatch": dispatch, "distance": distance, "stops": stops_cost, "holding": holding},
         utilisation=utilisation,
-        trips_truncated=listed_days < repeat,
+        trips_truncated=min(listed_days, ROUTED_DAYS) < repeat,
         warnings=tuple(warnings),
     )
 
@@ -268,7 +292,7 @@ def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost,
     )
     return _costed(
         tk, "joint", result.status, sites, trips, result.repeat_days, listed, holding,
-        list(result.warnings), codes, stop_cost, products, start,
+        list(result.warnings), codes, stop_cost, products, start, clock.tick,
     )  # fmt: skip
 
 
@@ -283,9 +307,13 @@ def _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
     if choice_count(longest) > MAX_CHOICES:
         return None
     holding = np.array([fleet_sites[i].site.holding_cost for i in idx], dtype=float)
+    def out() -> bool:
+        clock.tick()
+        return clock.out()
+
     plan = cyclic_search(
         tk.d, demand, holding, stop_cost[idx], longest, tk.truck.capacity, tk.truck.dispatch_cost,
-        tk.truck.cost_per_km, tk.truck.max_stops, clock.out,
+        tk.truck.cost_per_km, tk.truck.max_stops, out,
     )  # fmt: skip
     if plan is None or (cal.trips_per_day is not None and cal.trips_per_day < 1):
         return None
@@ -305,7 +333,7 @@ def _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
             trips.append(Trip(day, start + dt.timedelta(days=day), 1, sum(s.quantity for s in stops), stops))
     return _costed(
         tk, "cyclic", Status.OPTIMAL, site_plans, trips, plan.repeat_days, plan.repeat_days, plan.holding_per_day,
-        [], codes, stop_cost, products, start,
+        [], codes, stop_cost, products, start, clock.tick,
     )  # fmt: skip
 
 
@@ -317,7 +345,9 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
         for n_scale, scale in enumerate(STEM_SCALES):
             if n_scale and clock.out():
                 break
+            clock.report(clock.fraction)
             plan = _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved)
+            clock.tick()
             if plan == "retry":
                 keep = np.array([codes[i] not in unserved for i in tk.sites])
                 tk = _subset(tk, keep)
