@@ -48,8 +48,9 @@ from service.planning.workweek import WorkWeek
 STEP_SECONDS = 1.2
 #: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
 ROUTED_DAYS = 63
-#: Stem scales of the routing-aware trip cost tried per truck (candidates after the first only in time).
-STEM_SCALES = (1.0, 0.5)
+#: Stem scales of the routing-aware trip cost tried per truck, ``None`` for direct shipping (candidates
+#: after the first only while the time budget lasts).
+STEM_SCALES = (1.0, None, 0.5)
 
 
 @dataclass
@@ -254,23 +255,32 @@ def _costed(
 
 
 def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved):
+    """The one-truck planner with routing-aware costs: trip cost ``K + c · 2 r̄ · scale`` and stop costs
+    ``k_i + c ν_i``; with ``scale`` ``None`` direct shipping: one stop per trip, each stop costing its
+    own trip ``k_i + K + c (r_i0 + r_0i)`` (exact for a one-stop route)."""
     truck, cal = tk.truck, tk.calendar
-    r = tk.d[0, 1:]
-    stem = 2.0 * float(r.mean()) * scale
+    if scale is None:
+        extra = truck.dispatch_cost + truck.cost_per_km * (tk.d[0, 1:] + tk.d[1:, 0])
+        dispatch, max_stops = 0.0, 1
+    else:
+        extra = truck.cost_per_km * nu
+        dispatch = truck.dispatch_cost + truck.cost_per_km * 2.0 * float(tk.d[0, 1:].mean()) * scale
+        max_stops = truck.max_stops
     inputs = [
-        replace(fleet_sites[i].site, stop_cost=float(stop_cost[i]) + truck.cost_per_km * float(nu[j]))
-        for j, i in enumerate(tk.sites)
+        replace(fleet_sites[i].site, stop_cost=float(stop_cost[i]) + float(extra[j])) for j, i in enumerate(tk.sites)
     ]
     one = TruckInput(
-        truck.dispatch_cost + truck.cost_per_km * stem,
+        dispatch,
         truck.capacity,
-        truck.max_stops,
+        max_stops,
         tuple(cal.working_days),
         cal.trips_per_day,
         tuple(cal.closed_dates),
     )
     budget = max(0.05, min(STEP_SECONDS, clock.left()))
     result = plan_joint(inputs, one, start_date=start, deadline_seconds=budget)
+    if not result.success and scale is None:
+        return "skip"
     if not result.success:
         removed = set((result.needed or {}).get("remove_sites") or [])
         if not removed or len(removed) == len(tk.sites):
@@ -287,11 +297,11 @@ def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost,
     trips = [t for t in result.trips if t.day < listed]
     holding = result.cost_breakdown["holding"]
     sites = tuple(
-        replace(s, cost_per_day=s.cost_per_day - truck.cost_per_km * float(nu[j]) / s.cycle_days)
+        replace(s, cost_per_day=s.cost_per_day - float(extra[j]) / s.cycle_days)
         for j, s in enumerate(result.sites)
     )
     return _costed(
-        tk, "joint", result.status, sites, trips, result.repeat_days, listed, holding,
+        tk, "joint" if scale is not None else "direct", result.status, sites, trips, result.repeat_days, listed, holding,
         list(result.warnings), codes, stop_cost, products, start, clock.tick,
     )  # fmt: skip
 
@@ -355,6 +365,8 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
                 break
             if plan is None:
                 return None
+            if plan == "skip":
+                continue
             if best is None or plan.cost_per_day < best.cost_per_day:
                 best = plan
         else:

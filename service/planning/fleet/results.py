@@ -39,7 +39,8 @@ class RoutedTrip(_ToDict):
 class TruckPlan(_ToDict):
     """The plan of one truck.
 
-    ``source``: ``"joint"`` (the drivable one-truck planner, trips routed) or ``"cyclic"`` (the
+    ``source``: ``"joint"`` (the drivable one-truck planner, trips routed), ``"direct"`` (the same planner with
+    one stop per trip) or ``"cyclic"`` (the
     exhaustive cyclic search of :mod:`cyclic`). ``cost_per_day`` = ``(Σ trip costs) / repeat_days`` +
     holding, split in ``cost_breakdown`` ``{"dispatch", "distance", "stops", "holding"}``.
     ``utilisation``: ``{"trips_per_open_day", "trip_share"`` (trips over open days × trips_per_day;
