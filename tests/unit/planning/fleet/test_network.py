@@ -113,3 +113,26 @@ def test_progress_is_reported_from_zero_to_one():
     plan_network(*fleet(20, 2, 1), start_date=START, progress=marks.append)
     assert marks[0] == 0.0 and marks[-1] == 1.0
     assert marks == sorted(marks)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_bound_is_below_the_exhaustive_cyclic_optimum(seed):
+    # Reference: brute force over every cycle/offset choice with exactly routed trips (cyclic.py) is a
+    # set of valid plans, so the network bound (bound.py) may not exceed its best.
+    from service.planning.fleet.cyclic import cyclic_search
+
+    rng = np.random.default_rng(seed)
+    sites, trucks, depots, products, _ = fleet(4, 1, 1, seed=seed)
+    truck = FleetTruck("T", depots[0].code, float(rng.uniform(0, 80)), 1.5, (33.0,), ("diesel", "heating_oil",
+                       "lubricant", "water_chem"), None)  # fmt: skip
+    result = plan_network(sites, [truck], depots, products, start_date=START)
+    nodes = [depots[0].location] + [s.location for s in sites]
+    d = CircuityDistance().matrix(nodes, nodes)
+    demand = np.array([s.site.demand_per_day for s in sites])
+    longest = np.floor(np.minimum([s.site.tank_capacity * s.site.safe_fill for s in sites], 33.0) / demand)
+    best = cyclic_search(
+        d, demand, np.array([s.site.holding_cost for s in sites]), np.array([s.site.stop_cost for s in sites]),
+        np.minimum(longest, 4), 33.0, truck.dispatch_cost, truck.cost_per_km,
+    )  # fmt: skip
+    assert result.lower_bound_per_day <= best.cost_per_day + 1e-9
+    assert result.lower_bound_per_day <= result.cost_per_day
