@@ -46,6 +46,10 @@ from service.planning.workweek import WorkWeek
 
 #: Longest single call of the one-truck planner (s), so progress is reported at least every 2 s.
 STEP_SECONDS = 1.2
+#: Trucks with more sites than this are planned with power-of-two cycles only: their repeat period stays
+#: short (``B 2^p`` days), so listing, routing and costing every trip of it stays fast; the power-of-two
+#: class is within 2 % of the integer one's relaxation (Roundy 1985, ``docs/planning.md`` §5).
+BEST_METHOD_SITES = 40
 #: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
 ROUTED_DAYS = 63
 #: Stem scales of the routing-aware trip cost tried per truck, ``None`` for direct shipping (candidates
@@ -278,7 +282,8 @@ def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost,
         tuple(cal.closed_dates),
     )
     budget = max(0.05, min(STEP_SECONDS, clock.left()))
-    result = plan_joint(inputs, one, start_date=start, deadline_seconds=budget)
+    method = "best" if len(tk.sites) <= BEST_METHOD_SITES else "power_of_two"
+    result = plan_joint(inputs, one, method=method, start_date=start, deadline_seconds=budget)
     if not result.success and scale is None:
         return "skip"
     if not result.success:
