@@ -15,6 +15,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 from scipy.spatial import cKDTree
 
@@ -80,6 +82,7 @@ def relocate(
     capacity: np.ndarray,
     limit: np.ndarray,
     circuity: float,
+    tick: Callable[[], None] = lambda: None,
 ) -> np.ndarray:
     """Step 3 of the module docstring; ``limit`` is each truck's throughput per day (``inf``: none)."""
     assigned = assigned.copy()
@@ -93,7 +96,9 @@ def relocate(
             if len(on):
                 trees[t] = (cKDTree(xyz[on]), on)
         moved = 0
-        for i in np.flatnonzero(assigned >= 0):
+        for count, i in enumerate(np.flatnonzero(assigned >= 0)):
+            if count % 256 == 0:
+                tick()
             options = np.flatnonzero(eligible[i])
             options = options[np.argsort(r[i, options])][:CANDIDATES]
             if assigned[i] not in options:

@@ -29,11 +29,12 @@ is also in ``docs/fleet.md``.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
+from scipy.spatial import cKDTree
 
-from service.planning.fleet.distance import DistanceSource, Point
+from service.planning.fleet.distance import CircuityDistance, DistanceSource, Point, great_circle_km
 
 #: Values of θ tried.
 THETAS = np.linspace(0.0, 1.0, 21)
@@ -41,11 +42,25 @@ THETAS = np.linspace(0.0, 1.0, 21)
 BLOCK = 512
 
 
-def nearest_other(sites: Sequence[Point], depots: Sequence[Point], source: DistanceSource) -> np.ndarray:
-    """``ν_i``: distance from each site to the nearest other site or depot (both directions)."""
+def nearest_other(
+    sites: Sequence[Point], depots: Sequence[Point], source: DistanceSource, tick: Callable[[], None] = lambda: None
+) -> np.ndarray:
+    """``ν_i``: distance from each site to the nearest other site or depot (both directions).
+
+    For :class:`CircuityDistance` (a constant times the great circle, which grows with the straight
+    chord through the Earth) the nearest place by chord is found with a k-d tree; any other source is
+    searched in blocks of its matrix. ``tick`` is called between blocks.
+    """
     places = list(sites) + list(depots)
+    if isinstance(source, CircuityDistance) and len(places) > 1:
+        xyz = _unit(places)
+        _, idx = cKDTree(xyz).query(xyz[: len(sites)], k=2)
+        mine = np.arange(len(sites))
+        other = [places[j] for j in np.where(idx[:, 0] == mine, idx[:, 1], idx[:, 0])]
+        return source.factor * np.array([great_circle_km([a], [b])[0, 0] for a, b in zip(sites, other, strict=True)])
     out = np.empty(len(sites))
     for lo in range(0, len(sites), BLOCK):
+        tick()
         rows = list(range(lo, min(lo + BLOCK, len(sites))))
         there = source.matrix([sites[i] for i in rows], places)
         back = source.matrix(places, [sites[i] for i in rows]).T
@@ -53,6 +68,12 @@ def nearest_other(sites: Sequence[Point], depots: Sequence[Point], source: Dista
         both[np.arange(len(rows)), rows] = np.inf
         out[rows] = both.min(axis=1)
     return out
+
+
+def _unit(points: Sequence[Point]) -> np.ndarray:
+    la = np.radians([p.latitude for p in points])
+    lo = np.radians([p.longitude for p in points])
+    return np.column_stack([np.cos(la) * np.cos(lo), np.cos(la) * np.sin(lo), np.sin(la)])
 
 
 def network_bound(

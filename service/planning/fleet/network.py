@@ -478,11 +478,13 @@ def plan_network(
     factor = getattr(source, "factor", 1.0)
     dispatch = np.array([t.dispatch_cost for t in trucks], dtype=float)
     per_km = np.array([t.cost_per_km for t in trucks], dtype=float)
-    assigned = relocate(assigned, lat, lon, eligible, r, demand, usable, dispatch, per_km, capacity, limit, factor)
+    assigned = relocate(
+        assigned, lat, lon, eligible, r, demand, usable, dispatch, per_km, capacity, limit, factor, clock.tick
+    )
     clock.report(0.08)
     # The bound over the plannable sites (bound.py).
     served = np.flatnonzero(plannable)
-    nu = nearest_other([site_points[i] for i in served], depot_points, source) if len(served) else np.zeros(0)
+    nu = nearest_other([site_points[i] for i in served], depot_points, source, clock.tick) if len(served) else np.zeros(0)
     E = eligible[served]
     stem = np.where(E, (dispatch + 2 * per_km * r[served]) / capacity, np.inf).min(axis=1)
     stops_limit = np.array([t.max_stops or np.inf for t in trucks], dtype=float)
