@@ -48,7 +48,7 @@ from service.planning.workweek import WorkWeek
 STEP_SECONDS = 1.2
 #: Trucks with more sites than this are planned with power-of-two cycles only: their repeat period stays
 #: short (``B 2^p`` days), so listing, routing and costing every trip of it stays fast; the power-of-two
-#: class is within 2 % of the integer one's relaxation (Roundy 1985, ``docs/planning.md`` §5).
+#: class stays close to the relaxation (Roundy 1985, ``docs/planning.md`` §5).
 BEST_METHOD_SITES = 40
 #: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
 ROUTED_DAYS = 63
