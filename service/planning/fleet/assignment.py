@@ -11,6 +11,8 @@
    ``d_i (K_t + 2 c_t r_it) / W_t + 2 c_t ν_it d_i / min(q_i, W_t)`` (its radial full-load share plus a
    detour to the nearest site already on ``t``, ``ν_it``, at each delivery of the largest size ``q_i``)
    when that is lower and ``t`` has throughput to spare; two passes.
+4. **Throughput.** A truck still over its throughput hands its farthest sites to the nearest eligible
+   truck with room, or leaves them unserved.
 """
 
 from __future__ import annotations
@@ -128,4 +130,26 @@ def relocate(
                     moved += 1
         if not moved:
             break
+    return assigned
+
+
+def within_throughput(
+    assigned: np.ndarray, eligible: np.ndarray, r: np.ndarray, demand: np.ndarray, limit: np.ndarray
+) -> np.ndarray:
+    """Keep each truck's demand per day within ``limit``: the farthest sites of a truck over it move to
+    the nearest eligible truck with room, else are left unassigned (``-1``)."""
+    assigned = assigned.copy()
+    m = eligible.shape[1]
+    load = np.bincount(assigned[assigned >= 0], weights=demand[assigned >= 0], minlength=m)
+    for t in np.flatnonzero(load > limit):
+        mine = np.flatnonzero(assigned == t)
+        for i in mine[np.argsort(-r[mine, t], kind="stable")]:
+            if load[t] <= limit[t]:
+                break
+            options = [u for u in np.flatnonzero(eligible[i]) if u != t and load[u] + demand[i] <= limit[u]]
+            target = min(options, key=lambda u: r[i, u]) if options else -1
+            assigned[i] = target
+            load[t] -= demand[i]
+            if target >= 0:
+                load[target] += demand[i]
     return assigned

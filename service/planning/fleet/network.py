@@ -31,7 +31,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from service.planning.errors import PlanningInputError
-from service.planning.fleet.assignment import relocate, sweep
+from service.planning.fleet.assignment import relocate, sweep, within_throughput
 from service.planning.fleet.bound import nearest_other, network_bound
 from service.planning.fleet.compartments import load_trip
 from service.planning.fleet.cyclic import MAX_CHOICES, choice_count, cyclic_search
@@ -50,6 +50,12 @@ STEP_SECONDS = 1.2
 #: short (``B 2^p`` days), so listing, routing and costing every trip of it stays fast; the power-of-two
 #: class stays close to the relaxation (Roundy 1985, ``docs/planning.md`` §5).
 BEST_METHOD_SITES = 40
+#: Share of a truck's throughput (capacity × trips per day × working days) the assignment fills at most:
+#: trips are rarely full (compartments, stop limits, whole-day patterns).
+LIMIT_SHARE = 0.8
+#: Share of a truck's sites (the farthest first) set aside per retry when its plan needs more trips per
+#: day than its calendar allows.
+SHED_SHARE = 0.1
 #: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
 ROUTED_DAYS = 63
 #: Stem scales of the routing-aware trip cost tried per truck, ``None`` for direct shipping (candidates
@@ -288,6 +294,11 @@ def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost,
         return "skip"
     if not result.success:
         removed = set((result.needed or {}).get("remove_sites") or [])
+        if not removed and (result.needed or {}).get("trips_per_day") and len(tk.sites) > 1:
+            far = np.argsort(-(tk.d[0, 1:] + tk.d[1:, 0]), kind="stable")[: max(1, int(SHED_SHARE * len(tk.sites)))]
+            for j in far:
+                unserved.setdefault(codes[tk.sites[j]], f"truck `{truck.code}`: {result.message}")
+            return "retry"
         if not removed or len(removed) == len(tk.sites):
             for i in tk.sites:
                 unserved.setdefault(codes[i], f"truck `{truck.code}`: {result.message}")
@@ -355,8 +366,9 @@ def _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
 def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unserved):
     """The cheapest candidate plan of one truck (module docstring, steps 3–4), or ``None``."""
     best: TruckPlan | None = None
-    while len(tk.sites):
-        nu = _neighbour(tk.d)
+    retry = True
+    while retry and len(tk.sites):
+        retry, nu = False, _neighbour(tk.d)
         for n_scale, scale in enumerate(STEM_SCALES):
             if n_scale and clock.out():
                 break
@@ -364,9 +376,8 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
             plan = _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved)
             clock.tick()
             if plan == "retry":
-                keep = np.array([codes[i] not in unserved for i in tk.sites])
-                tk = _subset(tk, keep)
-                best = None
+                tk = _subset(tk, np.array([codes[i] not in unserved for i in tk.sites]))
+                best, retry = None, True
                 break
             if plan is None:
                 return None
@@ -374,8 +385,6 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
                 continue
             if best is None or plan.cost_per_day < best.cost_per_day:
                 best = plan
-        else:
-            break
     if best is None:
         return None
     cyclic = _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
@@ -481,6 +490,9 @@ def plan_network(
     assigned = relocate(
         assigned, lat, lon, eligible, r, demand, usable, dispatch, per_km, capacity, limit, factor, clock.tick
     )
+    assigned = within_throughput(assigned, eligible, r, demand, LIMIT_SHARE * limit)
+    for i in np.flatnonzero((assigned < 0) & plannable):
+        unserved[codes[i]] = "the trucks that may serve it have no throughput left (capacity × trips per day)"
     clock.report(0.08)
     # The bound over the plannable sites (bound.py).
     served = np.flatnonzero(plannable)

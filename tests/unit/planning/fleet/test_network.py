@@ -8,7 +8,16 @@ import pytest
 
 from service.planning import SiteInput
 from service.planning.errors import PlanningInputError
-from service.planning.fleet import CircuityDistance, Depot, FleetSite, FleetTruck, Point, Product, plan_network
+from service.planning.fleet import (
+    Calendar,
+    CircuityDistance,
+    Depot,
+    FleetSite,
+    FleetTruck,
+    Point,
+    Product,
+    plan_network,
+)
 from service.planning.fleet.compartments import TOLERANCE
 
 from . import abs1n5
@@ -136,3 +145,23 @@ def test_bound_is_below_the_exhaustive_cyclic_optimum(seed):
     )  # fmt: skip
     assert result.lower_bound_per_day <= best.cost_per_day + 1e-9
     assert result.lower_bound_per_day <= result.cost_per_day
+
+
+def test_trips_keep_the_truck_calendar():
+    # Mon–Fri, at most 3 trips a date, one closed date: trips only on open dates (the calendar rules of
+    # docs/planning.md, "Drivable plans"); an overloaded truck sheds sites with a reason instead of failing.
+    closed = dt.date(2026, 1, 7)
+    sites, trucks, depots, products, _ = fleet(24, 2, 1, seed=4)
+    calendars = {t.code: Calendar((1, 2, 3, 4, 5), 3, (closed,)) for t in trucks}
+    result = plan_network(sites, trucks, depots, products, calendars, start_date=START)
+    assert result.success
+    for plan in result.trucks:
+        split = any("split" in w for w in plan.warnings)
+        per_date: dict = {}
+        for trip in plan.trips:
+            assert trip.date.isoweekday() <= 5 and trip.date != closed
+            per_date[trip.date] = per_date.get(trip.date, 0) + 1
+        assert split or max(per_date.values()) <= 3
+        assert plan.utilisation["trip_share"] is not None
+    for u in result.unserved:
+        assert u.reason
