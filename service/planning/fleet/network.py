@@ -194,6 +194,8 @@ def _costed(
     start: dt.date,
     tick: Callable[[], None],
 ) -> TruckPlan:
+    """Route, load and cost every listed trip of a candidate (each distinct trip once) into a
+    :class:`TruckPlan`: per day = (dispatch · trips + c · Σ lengths + Σ stop costs) / listed days + holding."""
     truck = tk.truck
     local = {codes[i]: j + 1 for j, i in enumerate(tk.sites)}
     k_of = {codes[i]: float(stop_cost[i]) for i in tk.sites}
