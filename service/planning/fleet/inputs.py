@@ -20,7 +20,9 @@ class Depot:
 
 @dataclass(frozen=True)
 class Product:
-    """A liquid the service plans for, with its default safe fill (share of the tank that may be filled)."""
+    """A liquid the service plans for, with its default safe fill (share of the tank that may be filled;
+    e.g. LPG 0.80–0.85, liquid fuels 0.90–0.95). The core plans with each site's own ``safe_fill``; the
+    service fills it from the product's default when the site has none."""
 
     code: str
     safe_fill: float = 0.9

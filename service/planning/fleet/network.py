@@ -311,7 +311,7 @@ def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost,
         return "retry"
     if result.status == Status.TIME_LIMIT:
         clock.cut = clock.cut or clock.left() <= 0
-    listed = result.repeat_days if not result.trips_truncated else (max(t.day for t in result.trips) + 1)
+    listed = result.repeat_days if not result.trips_truncated else (max((t.day for t in result.trips), default=0) + 1)
     trips = [t for t in result.trips if t.day < listed]
     holding = result.cost_breakdown["holding"]
     sites = tuple(
