@@ -1,0 +1,77 @@
+"""Speed and memory of the network plan (prints figures; not a test).
+
+Run: ``.venv/bin/python benchmarks/fleet.py [small|large|all]``. Networks come from
+``tests/unit/planning/fleet/networks.py`` (an invented region, 2–4 compartment trucks, four products):
+``small`` is 300 sites / 4 trucks / 2 depots, ``large`` 10 000 sites / 60 trucks / 6 depots. Each size
+runs in its own child process, so its peak resident memory (``resource.getrusage``, ``ru_maxrss``) is
+its own. Printed: wall time, peak memory, the longest interval between two progress reports, the
+network cost per day, the lower bound and the gap, unserved sites and routed trips.
+
+Issue 16's targets: small ≤ 10 s, large ≤ 300 s on the 2-core machine, progress at least every 2 s.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import importlib.util
+import pathlib
+import resource
+import subprocess
+import sys
+import time
+import types
+
+ROOT = pathlib.Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+try:  # service/__init__.py imports the web app; the pure core does not need it
+    import service  # noqa: F401
+except ImportError:
+    for name in [m for m in sys.modules if m == "service" or m.startswith("service.")]:
+        del sys.modules[name]
+    parent = types.ModuleType("service")
+    parent.__path__ = [str(ROOT / "service")]
+    parent.__spec__ = importlib.util.spec_from_loader("service", loader=None, is_package=True)
+    sys.modules["service"] = parent
+
+SIZES = {"small": (300, 4, 2), "large": (10_000, 60, 6)}
+#: Time budget handed to plan_network per size (s): the target less a margin.
+BUDGET = {"small": 9.0, "large": 280.0}
+
+
+def run(size: str) -> None:
+    from service.planning.fleet import plan_network
+    from tests.unit.planning.fleet.networks import fleet
+
+    n, m, g = SIZES[size]
+    args = fleet(n, m, g, seed=1)
+    marks: list[float] = []
+    began = time.perf_counter()
+    result = plan_network(
+        *args, start_date=dt.date(2026, 1, 5), time_budget_seconds=BUDGET[size],
+        progress=lambda f: marks.append(time.perf_counter()),
+    )  # fmt: skip
+    elapsed = time.perf_counter() - began
+    gaps = [b - a for a, b in zip([began, *marks], [*marks, time.perf_counter()], strict=True)]
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    trips = sum(len(p.trips) for p in result.trucks)
+    print(
+        f"| {n} / {m} / {g} | {elapsed:.1f} s | {peak_mb:.0f} MB | {max(gaps):.2f} s | {result.status.name.lower()} "
+        f"| {result.cost_per_day:,.0f} | {result.lower_bound_per_day:,.0f} | {result.gap:.1%} "
+        f"| {len(result.unserved)} | {trips} |",
+        flush=True,
+    )
+
+
+def main(which: str = "all") -> None:
+    print("| sites / trucks / depots | time | peak memory | longest progress interval | status | cost per day "
+          "| bound | gap | unserved | trips listed |")  # fmt: skip
+    print("|---|---|---|---|---|---|---|---|---|---|")
+    for size in SIZES if which == "all" else [which]:
+        subprocess.run([sys.executable, __file__, "--child", size], check=True)
+
+
+if __name__ == "__main__":
+    if len(sys.argv) > 2 and sys.argv[1] == "--child":
+        run(sys.argv[2])
+    else:
+        main(sys.argv[1] if len(sys.argv) > 1 else "all")

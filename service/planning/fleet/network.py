@@ -1,0 +1,562 @@
+"""The network plan: assign sites to trucks, plan each truck, route and load every trip.
+
+``plan_network`` (see ``docs/fleet.md``):
+
+1. validates the inputs (every site and depot needs coordinates; products and depots must be known),
+   and sets aside the sites no truck may serve (no truck carries the product from an allowed depot, or
+   the tank holds less than a day), with the reason;
+2. assigns the rest to trucks (:mod:`assignment`: sweep around the depots, relocation moves), within the
+   trucks' throughput;
+3. plans each truck: the drivable one-truck planner (:func:`service.planning.plan_joint`) on the truck's
+   sites with routing-aware costs — the trip cost ``K + c · 2 r̄`` (``r̄`` the mean depot distance of the
+   truck's sites, and half of it as a second candidate) and each stop's cost ``k_i + c ν_i`` (``ν_i`` the
+   distance to its nearest neighbour on the truck) — and, on a truck working every day with at most
+   :data:`cyclic.MAX_CHOICES` cycle/offset choices, the exhaustive cyclic search with true tour lengths;
+4. routes every trip of each candidate (:func:`routing.shortest_tour`), loads it into the compartments
+   (:func:`compartments.load_trip`; a trip that does not load is split into trips that do, in driving
+   order) and costs it as ``K + c × route length + Σ stop costs``; the cheapest candidate per truck wins;
+5. reports the network's cost per day, the lower bound of :mod:`bound`, utilisation and warnings.
+
+The trucks' plans do not interact once the assignment is fixed, so the network cost is their sum.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from service.planning.errors import PlanningInputError
+from service.planning.fleet.assignment import relocate, sweep, within_throughput
+from service.planning.fleet.bound import nearest_other, network_bound
+from service.planning.fleet.compartments import load_trip
+from service.planning.fleet.cyclic import MAX_CHOICES, choice_count, cyclic_search
+from service.planning.fleet.distance import CircuityDistance, DistanceSource, check_points
+from service.planning.fleet.inputs import Calendar, Depot, FleetSite, FleetTruck, Product
+from service.planning.fleet.results import NetworkResult, RoutedTrip, RouteStop, TruckPlan, UnservedSite
+from service.planning.fleet.routing import shortest_tour
+from service.planning.inputs import ALL_WEEKDAYS, WHOLE_DAY_TOLERANCE, TruckInput
+from service.planning.joint import plan_joint
+from service.planning.results import SitePlan, Status, Stop, Trip
+from service.planning.workweek import WorkWeek
+
+#: Longest single call of the one-truck planner (s), so progress is reported at least every 2 s.
+STEP_SECONDS = 1.2
+#: Trucks with more sites than this are planned with power-of-two cycles only: their repeat period stays
+#: short (``B 2^p`` days), so listing, routing and costing every trip of it stays fast; the power-of-two
+#: class stays close to the relaxation (Roundy 1985, ``docs/planning.md`` §5).
+BEST_METHOD_SITES = 40
+#: Share of a truck's throughput (capacity × trips per day × working days) the assignment fills at most:
+#: trips are rarely full (compartments, stop limits, whole-day patterns).
+LIMIT_SHARE = 0.8
+#: Share of a truck's sites (the farthest first) set aside per retry when its plan needs more trips per
+#: day than its calendar allows.
+SHED_SHARE = 0.1
+#: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
+ROUTED_DAYS = 63
+#: Stem scales of the routing-aware trip cost tried per truck, ``None`` for direct shipping (candidates
+#: after the first only while the time budget lasts).
+STEM_SCALES = (1.0, None, 0.5)
+
+
+@dataclass
+class _Truck:
+    """One truck's data during planning: index, sites (network indices), distance matrix over its depot
+    (node 0) and its sites (nodes 1…)."""
+
+    index: int
+    truck: FleetTruck
+    calendar: Calendar
+    sites: np.ndarray
+    d: np.ndarray
+
+
+class _Clock:
+    """Budget, progress reports (fraction 0–1) and the cut flag."""
+
+    def __init__(self, budget: float | None, progress: Callable[[float], None] | None):
+        self.began = time.monotonic()
+        self.deadline = None if budget is None else self.began + budget
+        self.progress = progress
+        self.cut = False
+        self.fraction = 0.0
+        self.last = self.began
+
+    def left(self) -> float:
+        return math.inf if self.deadline is None else self.deadline - time.monotonic()
+
+    def out(self) -> bool:
+        if self.left() <= 0:
+            self.cut = True
+        return self.cut
+
+    def report(self, fraction: float) -> None:
+        self.fraction = min(1.0, max(0.0, float(fraction)))
+        self.last = time.monotonic()
+        if self.progress is not None:
+            self.progress(self.fraction)
+
+    def tick(self) -> None:
+        """Repeat the last fraction when a second has passed since the last report."""
+        if time.monotonic() - self.last >= 1.0:
+            self.report(self.fraction)
+
+
+def _check(sites, trucks, depots, products) -> None:
+    for kind, items in (("depot", depots), ("truck", trucks), ("site", sites), ("product", products)):
+        seen = set()
+        for item in items:
+            if not isinstance(item.code, str) or not item.code or item.code in seen:
+                raise PlanningInputError(f"{kind} code {item.code!r} is empty or repeated", field="code", code=item.code)
+            seen.add(item.code)
+    if not trucks:
+        raise PlanningInputError("trucks: at least one truck is required", field="trucks")
+    check_points([s.location for s in sites], [s.code for s in sites], "sites")
+    check_points([d.location for d in depots], [d.code for d in depots], "depots")
+    known_depots, known_products = {d.code for d in depots}, {p.code for p in products}
+    for t in trucks:
+        if t.depot not in known_depots:
+            raise PlanningInputError(f"truck `{t.code}`: unknown depot `{t.depot}`", field="depot", code=t.code)
+        if not t.compartments or any(not (isinstance(c, int | float) and c > 0) for c in t.compartments):
+            raise PlanningInputError(f"truck `{t.code}`: compartments must be capacities > 0", field="compartments")
+        if not (t.cost_per_km >= 0 and t.dispatch_cost >= 0):
+            raise PlanningInputError(f"truck `{t.code}`: costs must be >= 0", field="cost_per_km", code=t.code)
+        for p in t.products:
+            if p not in known_products:
+                raise PlanningInputError(f"truck `{t.code}`: unknown product `{p}`", field="products", code=t.code)
+    for s in sites:
+        if s.product not in known_products:
+            raise PlanningInputError(f"site `{s.code}`: unknown product `{s.product}`", field="product", code=s.code)
+        if s.depot is not None and s.depot not in known_depots:
+            raise PlanningInputError(f"site `{s.code}`: unknown depot `{s.depot}`", field="depot", code=s.code)
+
+
+def _usable(site: FleetSite) -> float:
+    s = site.site
+    return float(s.tank_capacity) * float(s.safe_fill) - float(s.safety_stock)
+
+
+def _open_days(calendar: Calendar, start: dt.date, days: int) -> int:
+    week = WorkWeek(start, tuple(sorted(calendar.working_days)))
+    open_ = week.is_working(np.arange(days))
+    closed = [(c - start).days for c in calendar.closed_dates if 0 <= (c - start).days < days]
+    open_[closed] = False
+    return int(open_.sum())
+
+
+def _route_trip(
+    tk: _Truck, local: dict[str, int], products: list[str], stops: list[tuple[str, float]], cache: dict
+) -> list[tuple[list[int], float, tuple, tuple]]:
+    """Route ``stops`` (codes and quantities) and load them; a trip that does not load is split in
+    driving order. Returns ``(nodes in order, length, legs, loading pieces)`` per resulting trip."""
+    nodes = [local[code] for code, _ in stops]
+    quantity = dict(stops)
+    key = frozenset(nodes)
+    if key not in cache:
+        sub = [0, *nodes]
+        tour = shortest_tour(tk.d[np.ix_(sub, sub)])
+        cache[key] = ([sub[j] for j in tour.order[1:-1]], tour.length, tour.legs)
+    order, length, legs = cache[key]
+    codes = {node: code for code, node in local.items()}
+    items = [(products[node - 1], quantity[codes[node]]) for node in order]
+    loading = load_trip(items, tk.truck.compartments)
+    if loading is not None:
+        return [(order, length, legs, loading.stops)]
+    out, part = [], []
+    for node in order:
+        trial = [*part, node]
+        if part and load_trip([(products[n - 1], quantity[codes[n]]) for n in trial], tk.truck.compartments) is None:
+            out.extend(_route_trip(tk, local, products, [(codes[n], quantity[codes[n]]) for n in part], cache))
+            part = [node]
+        else:
+            part = trial
+    out.extend(_route_trip(tk, local, products, [(codes[n], quantity[codes[n]]) for n in part], cache))
+    return out
+
+
+def _costed(
+    tk: _Truck,
+    source: str,
+    status: Status,
+    site_plans: tuple[SitePlan, ...],
+    trips: Sequence[Trip],
+    repeat: int,
+    listed_days: int,
+    holding: float,
+    warnings: list[str],
+    codes: list[str],
+    stop_cost: np.ndarray,
+    products: list[str],
+    start: dt.date,
+    tick: Callable[[], None],
+) -> TruckPlan:
+    """Route, load and cost every listed trip of a candidate (each distinct trip once) into a
+    :class:`TruckPlan`: per day = (dispatch · trips + c · Σ lengths + Σ stop costs) / listed days + holding."""
+    truck = tk.truck
+    local = {codes[i]: j + 1 for j, i in enumerate(tk.sites)}
+    k_of = {codes[i]: float(stop_cost[i]) for i in tk.sites}
+    cache: dict = {}
+    routed_of: dict = {}
+    routed: list[RoutedTrip] = []
+    split = count = 0
+    length_sum = load = stops_sum = 0.0
+    by_day: dict[int, int] = {}
+    for n_trip, trip in enumerate(trips):
+        if n_trip % 256 == 0:
+            tick()
+        key = tuple((s.code, s.quantity) for s in trip.stops)
+        if key not in routed_of:
+            routed_of[key] = [
+                (tuple(codes[tk.sites[node - 1]] for node in order), length, legs, loads)
+                for order, length, legs, loads in _route_trip(tk, local, products, list(key), cache)
+            ]
+        pieces = routed_of[key]
+        split += len(pieces) - 1
+        for names, length, legs, loads in pieces:
+            by_day[trip.day] = by_day.get(trip.day, 0) + 1
+            count += 1
+            length_sum += length
+            stops_sum += sum(k_of[name] for name in names)
+            load += sum(q for piece in loads for _, q in piece)
+            if trip.day >= ROUTED_DAYS:
+                continue
+            stops = tuple(
+                RouteStop(name, float(sum(q for _, q in piece)), tuple((c + 1, q) for c, q in piece), float(leg))
+                for name, piece, leg in zip(names, loads, legs[:-1], strict=True)
+            )
+            cost = truck.dispatch_cost + truck.cost_per_km * length + sum(k_of[name] for name in names)
+            routed.append(
+                RoutedTrip(
+                    trip.day, trip.date, by_day[trip.day], sum(x.quantity for x in stops), stops,
+                    float(legs[-1]), float(length), float(cost),
+                )
+            )
+    if split:
+        warnings.append(f"{split} trip(s) split to fit the compartments (one product per compartment)")
+    scale = 1.0 / max(listed_days, 1)
+    dispatch = truck.dispatch_cost * count * scale
+    distance = truck.cost_per_km * length_sum * scale
+    stops_cost = stops_sum * scale
+    open_days = _open_days(tk.calendar, start, listed_days)
+    utilisation = {
+        "trips_per_open_day": count / open_days if open_days else 0.0,
+        "trip_share": count / (open_days * tk.calendar.trips_per_day) if open_days and tk.calendar.trips_per_day else None,
+        "load_share": load / (count * truck.capacity) if count else 0.0,
+    }
+    limit = tk.calendar.trips_per_day
+    if limit is not None and any(v > limit for v in by_day.values()):
+        warnings.append(f"splitting for the compartments needs more than {limit} trip(s) on some dates")
+    return TruckPlan(
+        truck=truck.code,
+        depot=truck.depot,
+        source=source,
+        status=status,
+        sites=site_plans,
+        trips=tuple(routed),
+        repeat_days=repeat,
+        cost_per_day=dispatch + distance + stops_cost + holding,
+        cost_breakdown={"dispatch": dispatch, "distance": distance, "stops": stops_cost, "holding": holding},
+        utilisation=utilisation,
+        trips_truncated=min(listed_days, ROUTED_DAYS) < repeat,
+        warnings=tuple(warnings),
+    )
+
+
+def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved):
+    """The one-truck planner with routing-aware costs: trip cost ``K + c · 2 r̄ · scale`` and stop costs
+    ``k_i + c ν_i``; with ``scale`` ``None`` direct shipping: one stop per trip, each stop costing its
+    own trip ``k_i + K + c (r_i0 + r_0i)`` (exact for a one-stop route)."""
+    truck, cal = tk.truck, tk.calendar
+    if scale is None:
+        extra = truck.dispatch_cost + truck.cost_per_km * (tk.d[0, 1:] + tk.d[1:, 0])
+        dispatch, max_stops = 0.0, 1
+    else:
+        extra = truck.cost_per_km * nu
+        dispatch = truck.dispatch_cost + truck.cost_per_km * 2.0 * float(tk.d[0, 1:].mean()) * scale
+        max_stops = truck.max_stops
+    inputs = [
+        replace(fleet_sites[i].site, stop_cost=float(stop_cost[i]) + float(extra[j])) for j, i in enumerate(tk.sites)
+    ]
+    one = TruckInput(
+        dispatch,
+        truck.capacity,
+        max_stops,
+        tuple(cal.working_days),
+        cal.trips_per_day,
+        tuple(cal.closed_dates),
+    )
+    budget = max(0.05, min(STEP_SECONDS, clock.left()))
+    method = "best" if len(tk.sites) <= BEST_METHOD_SITES else "power_of_two"
+    result = plan_joint(inputs, one, method=method, start_date=start, deadline_seconds=budget)
+    if not result.success and scale is None:
+        return "skip"
+    if not result.success:
+        removed = set((result.needed or {}).get("remove_sites") or [])
+        if not removed and (result.needed or {}).get("trips_per_day") and len(tk.sites) > 1:
+            far = np.argsort(-(tk.d[0, 1:] + tk.d[1:, 0]), kind="stable")[: max(1, int(SHED_SHARE * len(tk.sites)))]
+            for j in far:
+                unserved.setdefault(codes[tk.sites[j]], f"truck `{truck.code}`: {result.message}")
+            return "retry"
+        if not removed or len(removed) == len(tk.sites):
+            for i in tk.sites:
+                unserved.setdefault(codes[i], f"truck `{truck.code}`: {result.message}")
+            return None
+        for i in tk.sites:
+            if codes[i] in removed:
+                unserved.setdefault(codes[i], f"truck `{truck.code}`: {result.message}")
+        return "retry"
+    if result.status == Status.TIME_LIMIT:
+        clock.cut = clock.cut or clock.left() <= 0
+    listed = result.repeat_days if not result.trips_truncated else (max((t.day for t in result.trips), default=0) + 1)
+    trips = [t for t in result.trips if t.day < listed]
+    holding = result.cost_breakdown["holding"]
+    sites = tuple(
+        replace(s, cost_per_day=s.cost_per_day - float(extra[j]) / s.cycle_days)
+        for j, s in enumerate(result.sites)
+    )
+    return _costed(
+        tk, "joint" if scale is not None else "direct", result.status, sites, trips, result.repeat_days, listed, holding,
+        list(result.warnings), codes, stop_cost, products, start, clock.tick,
+    )  # fmt: skip
+
+
+def _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products):
+    cal = tk.calendar
+    if tuple(sorted(cal.working_days)) != ALL_WEEKDAYS or cal.closed_dates:
+        return None
+    idx = tk.sites
+    demand = np.array([fleet_sites[i].site.demand_per_day for i in idx], dtype=float)
+    usable = np.minimum(np.array([_usable(fleet_sites[i]) for i in idx]), tk.truck.capacity)
+    longest = np.floor(usable / demand * (1 + WHOLE_DAY_TOLERANCE)).astype(np.int64)
+    if choice_count(longest) > MAX_CHOICES:
+        return None
+    holding = np.array([fleet_sites[i].site.holding_cost for i in idx], dtype=float)
+    def out() -> bool:
+        clock.tick()
+        return clock.out()
+
+    plan = cyclic_search(
+        tk.d, demand, holding, stop_cost[idx], longest, tk.truck.capacity, tk.truck.dispatch_cost,
+        tk.truck.cost_per_km, tk.truck.max_stops, out,
+    )  # fmt: skip
+    if plan is None or (cal.trips_per_day is not None and cal.trips_per_day < 1):
+        return None
+    H = holding * demand / 2
+    site_plans = tuple(
+        SitePlan(codes[i], float(T), o, float(demand[j] * T), float(stop_cost[i] / T + H[j] * T), None, T, (o,), T)
+        for j, (i, T, o) in enumerate(zip(idx, plan.cycles, plan.offsets, strict=True))
+    )
+    trips = []
+    for day in range(plan.repeat_days):
+        stops = tuple(
+            Stop(codes[i], float(demand[j] * T))
+            for j, (i, T, o) in enumerate(zip(idx, plan.cycles, plan.offsets, strict=True))
+            if day % T == o
+        )
+        if stops:
+            trips.append(Trip(day, start + dt.timedelta(days=day), 1, sum(s.quantity for s in stops), stops))
+    return _costed(
+        tk, "cyclic", Status.OPTIMAL, site_plans, trips, plan.repeat_days, plan.repeat_days, plan.holding_per_day,
+        [], codes, stop_cost, products, start, clock.tick,
+    )  # fmt: skip
+
+
+def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unserved):
+    """The cheapest candidate plan of one truck (module docstring, steps 3–4), or ``None``."""
+    best: TruckPlan | None = None
+    retry = True
+    while retry and len(tk.sites):
+        retry, nu = False, _neighbour(tk.d)
+        for n_scale, scale in enumerate(STEM_SCALES):
+            if n_scale and clock.out():
+                break
+            clock.report(clock.fraction)
+            plan = _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved)
+            clock.tick()
+            if plan == "retry":
+                tk = _subset(tk, np.array([codes[i] not in unserved for i in tk.sites]))
+                best, retry = None, True
+                break
+            if plan is None:
+                return None
+            if plan == "skip":
+                continue
+            if best is None or plan.cost_per_day < best.cost_per_day:
+                best = plan
+    if best is None:
+        return None
+    cyclic = _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
+    if cyclic is not None and cyclic.cost_per_day < best.cost_per_day - 1e-9:
+        best = cyclic
+    return best
+
+
+def _subset(tk: _Truck, keep: np.ndarray) -> _Truck:
+    nodes = np.concatenate([[0], np.flatnonzero(keep) + 1])
+    return _Truck(tk.index, tk.truck, tk.calendar, tk.sites[keep], tk.d[np.ix_(nodes, nodes)])
+
+
+def _neighbour(d: np.ndarray) -> np.ndarray:
+    """Distance from each site (node 1…) to its nearest other node of the truck, depot included."""
+    both = np.minimum(d, d.T)
+    np.fill_diagonal(both, np.inf)
+    return both[1:].min(axis=1) if both.shape[0] > 1 else np.zeros(0)
+
+
+def plan_network(
+    sites: Sequence[FleetSite],
+    trucks: Sequence[FleetTruck],
+    depots: Sequence[Depot],
+    products: Sequence[Product],
+    calendars: dict[str, Calendar] | None = None,
+    *,
+    distance: DistanceSource | None = None,
+    start_date: dt.date | None = None,
+    time_budget_seconds: float | None = None,
+    progress: Callable[[float], None] | None = None,
+) -> NetworkResult:
+    """Plan a whole fleet (module docstring).
+
+    Parameters
+    ----------
+    sites, trucks, depots, products : sequences of the :mod:`fleet.inputs` records
+    calendars : dict or None
+        Working calendar per truck code (missing: every day, no trip limit).
+    distance : DistanceSource or None
+        Road distances (default :class:`CircuityDistance` with factor 1.3).
+    start_date : datetime.date or None
+        Day 0 (``None``: today).
+    time_budget_seconds : float or None
+        When it runs out, each truck not yet planned gets one quick candidate and the status is
+        ``time_limit``.
+    progress : callable or None
+        Called with the fraction done (0–1), at least every 2 s of planning (each call of the one-truck
+        planner is cut at ``STEP_SECONDS``).
+
+    Raises
+    ------
+    PlanningInputError
+        Repeated or unknown codes, sites or depots without valid coordinates (all named), bad trucks, and
+        the one-truck planner's site checks.
+    """
+    clock = _Clock(time_budget_seconds, progress)
+    clock.report(0.0)
+    calendars = dict(calendars or {})
+    _check(sites, trucks, depots, products)
+    source = distance if distance is not None else CircuityDistance()
+    start = dt.date.today() if start_date is None else start_date
+    sites, trucks = list(sites), list(trucks)
+    codes = [s.code for s in sites]
+    n, m = len(sites), len(trucks)
+    depot_index = {d.code: g for g, d in enumerate(depots)}
+    truck_depot = np.array([depot_index[t.depot] for t in trucks])
+    capacity = np.array([t.capacity for t in trucks])
+    eligible = np.array(
+        [[s.product in t.products and (s.depot is None or s.depot == t.depot) for t in trucks] for s in sites],
+        dtype=bool,
+    ).reshape(n, m)
+    demand = np.array([float(s.site.demand_per_day) for s in sites])
+    usable = np.array([_usable(s) for s in sites])
+    best_capacity = np.array([capacity[eligible[i]].max() if eligible[i].any() else 0.0 for i in range(n)])
+    unserved: dict[str, str] = {}
+    for i, s in enumerate(sites):
+        if not eligible[i].any():
+            where = f" from depot `{s.depot}`" if s.depot else ""
+            unserved[s.code] = f"no truck carries product `{s.product}`{where}"
+        elif not demand[i] > 0 or min(usable[i], best_capacity[i]) / demand[i] * (1 + WHOLE_DAY_TOLERANCE) < 1:
+            unserved[s.code] = "usable stock holds less than one day of demand"
+    plannable = np.array([c not in unserved for c in codes])
+    eligible &= plannable[:, None]
+    depot_points = [d.location for d in depots]
+    site_points = [s.location for s in sites]
+    r_depot = source.matrix(depot_points, site_points).T if n else np.zeros((0, len(depots)))
+    r = r_depot[:, truck_depot]
+    clock.report(0.02)
+    cals = [calendars.get(t.code, Calendar()) for t in trucks]
+    days_share = np.array([len(set(c.working_days)) / 7.0 for c in cals])
+    per_day = np.array([c.trips_per_day or 1 for c in cals], dtype=float)
+    throughput = capacity * days_share * per_day
+    limit = np.where([c.trips_per_day is None for c in cals], np.inf, throughput)
+    lat = np.array([p.latitude for p in site_points], dtype=float)
+    lon = np.array([p.longitude for p in site_points], dtype=float)
+    dlat = np.array([p.latitude for p in depot_points], dtype=float)
+    dlon = np.array([p.longitude for p in depot_points], dtype=float)
+    assigned = sweep(lat, lon, eligible, r, truck_depot, dlat, dlon, demand, throughput)
+    factor = getattr(source, "factor", 1.0)
+    dispatch = np.array([t.dispatch_cost for t in trucks], dtype=float)
+    per_km = np.array([t.cost_per_km for t in trucks], dtype=float)
+    assigned = relocate(
+        assigned, lat, lon, eligible, r, demand, usable, dispatch, per_km, capacity, limit, factor, clock.tick
+    )
+    assigned = within_throughput(assigned, eligible, r, demand, LIMIT_SHARE * limit)
+    for i in np.flatnonzero((assigned < 0) & plannable):
+        unserved[codes[i]] = "the trucks that may serve it have no throughput left (capacity × trips per day)"
+    clock.report(0.08)
+    # The bound over the plannable sites (bound.py).
+    served = np.flatnonzero(plannable)
+    nu = nearest_other([site_points[i] for i in served], depot_points, source, clock.tick) if len(served) else np.zeros(0)
+    E = eligible[served]
+    stem = np.where(E, (dispatch + 2 * per_km * r[served]) / capacity, np.inf).min(axis=1)
+    stops_limit = np.array([t.max_stops or np.inf for t in trucks], dtype=float)
+    visit = np.where(E, dispatch / stops_limit + per_km * nu[:, None], np.inf).min(axis=1)
+    H = np.array([sites[i].site.holding_cost * demand[i] / 2 for i in served])
+    stop_cost = np.array([float(s.site.stop_cost) for s in sites])
+    cap_days = np.maximum(np.minimum(usable[served], best_capacity[served]) / demand[served], 1.0)
+    parts = (demand[served], H, stop_cost[served], cap_days, stem, visit)
+    clock.report(0.12)
+    products_of = [s.product for s in sites]
+    plans: list[TruckPlan] = []
+    total_sites = max(1, int((assigned >= 0).sum()))
+    done = 0
+    for t in range(m):
+        idx = np.flatnonzero(assigned == t)
+        if not len(idx):
+            continue
+        nodes = [depot_points[truck_depot[t]]] + [site_points[i] for i in idx]
+        tk = _Truck(t, trucks[t], cals[t], idx, source.matrix(nodes, nodes))
+        prods = [products_of[i] for i in idx]
+        plan = _plan_truck(tk, sites, start, clock, codes, stop_cost, prods, unserved)
+        if plan is not None:
+            plans.append(plan)
+        done += len(idx)
+        clock.report(0.12 + 0.88 * done / total_sites)
+    assignment = {s.code: p.truck for p in plans for s in p.sites}
+    kept = np.array([codes[i] in assignment for i in served], dtype=bool)
+    lower = network_bound(*(x[kept] for x in parts))[0] if kept.any() else 0.0
+    return _network_result(plans, assignment, unserved, lower, clock, [codes[i] for i in served])
+
+
+def _network_result(plans, assignment, unserved, lower, clock, candidates) -> NetworkResult:
+    for code in candidates:
+        if code not in assignment and code not in unserved:
+            unserved[code] = "not planned"
+    cost = float(sum(p.cost_per_day for p in plans))
+    breakdown = {k: float(sum(p.cost_breakdown[k] for p in plans)) for k in ("dispatch", "distance", "stops", "holding")}
+    warnings: list[str] = []
+    if clock.cut:
+        status, message = Status.TIME_LIMIT, "best network plan found within the time budget"
+    elif plans and lower > 0 and cost <= lower * (1 + 1e-9):
+        status, message = Status.OPTIMAL, "network plan equal to its lower bound"
+    else:
+        status, message = Status.FEASIBLE, "network plan (optimality not proven)"
+    if not plans:
+        status, message = Status.INFEASIBLE, "no site could be served"
+    clock.report(1.0)
+    return NetworkResult(
+        status=status,
+        success=bool(plans),
+        message=message,
+        assignment=assignment,
+        trucks=tuple(plans),
+        cost_per_day=cost,
+        cost_breakdown=breakdown,
+        lower_bound_per_day=lower,
+        gap=cost / lower - 1.0 if lower > 0 else 0.0,
+        unserved=tuple(UnservedSite(c, why) for c, why in sorted(unserved.items())),
+        elapsed_seconds=time.monotonic() - clock.began,
+        warnings=tuple(warnings),
+    )
