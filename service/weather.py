@@ -17,6 +17,7 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
+from service.persistence import deliveries as deliveries_store
 from service.persistence import weather as weather_store
 from service.persistence.models import Site, WeatherDay
 from service.planning.consumption import (
@@ -39,13 +40,19 @@ def consumption_intervals(
 ) -> tuple[list[LevelReading], list[DeliveryRecord]]:
     """The gauge levels and recorded deliveries of ``site`` in ``[since, until]``, for the core.
 
-    The one place the weather fit gets its intervals from: readings today; recorded deliveries
-    join here when they are stored (issue 15, deliveries).
+    The one place the weather fit gets its intervals from: an interval's consumption is level
+    before − level after + what was delivered in between (docs/planning.md §11).
     """
     readings = [
         LevelReading(r.measured_at, r.level) for r in weather_store.site_readings(session, site.id, since, until)
     ]
-    return readings, []
+    _, recorded = deliveries_store.history(session, [site.id], since)
+    deliveries = [
+        DeliveryRecord(d.delivered_at, d.quantity, d.level_before, d.level_after)
+        for d in recorded[site.id]
+        if d.delivered_at <= until
+    ]
+    return readings, deliveries
 
 
 def degree_days(

@@ -219,8 +219,10 @@ def post_readings(client, auth, code, times, levels):
         assert response.status_code == 201, response.get_json()
 
 
-def simulate(client, auth, code, region, base_load, per_degree_day, noise=0.0, weeks=12, seed=1):
-    """Weekly readings at 00:00 UTC ending today, consumption b·7 + v·(the week's degree days) + noise.
+def simulate(client, auth, code, region, base_load, per_degree_day, noise=0.0, weeks=12, seed=1, delivery=None):
+    """Weekly readings at 00:00 UTC ending today, consumption b·7 + v·(the week's degree days) + noise;
+    ``delivery = (week, quantity)`` records a delivery in the middle of that week (the levels after
+    it are higher by ``quantity``).
 
     The expected consumption is summed here over whole days from the posted values (a second route
     to the interval degree days, which the service interpolates over elapsed time)."""
@@ -233,6 +235,16 @@ def simulate(client, auth, code, region, base_load, per_degree_day, noise=0.0, w
     weekly = [dd[10 + 7 * w : 17 + 7 * w].sum() for w in range(weeks)]
     use = [base_load * 7 + per_degree_day * d + noise * rng.standard_normal() * math.sqrt(7) for d in weekly]
     levels = [90000.0 - sum(use[:k]) for k in range(weeks + 1)]
+    if delivery is not None:
+        week, quantity = delivery
+        levels = [level + (quantity if k > week else 0.0) for k, level in enumerate(levels)]
+        when = times[week] + dt.timedelta(days=3.5)
+        response = client.post(
+            f"/api/v1/sites/{code}/deliveries",
+            json={"quantity": quantity, "delivered_at": when.isoformat()},
+            headers=auth("dispatcher"),
+        )
+        assert response.status_code == 201, response.get_json()
     post_readings(client, auth, code, times, levels)
     return weekly
 
@@ -253,6 +265,17 @@ def test_posting_then_fitting_recovers_base_load_and_volume_per_degree_day(clien
     assert body["variance_explained"] == pytest.approx(1.0)
     # The flat rate over the same intervals is Σc / ΣΔ.
     assert body["flat_rate_per_day"] == pytest.approx(20.0 + 8.0 * sum(weekly) / 84, rel=1e-9)
+
+
+def test_a_recorded_delivery_between_readings_counts_in_the_fit(client, auth, truck):
+    # Consumption of an interval = level before − level after + delivered in between: a delivery of
+    # 5 000 in week 6 raises every later reading, and the noise-free fit still recovers b and v.
+    add_site(client, auth, "H4", weather_region="SIM4")
+    simulate(client, auth, "H4", "SIM4", 20.0, 8.0, delivery=(6, 5000.0))
+    body = client.get("/api/v1/sites/H4/consumption/weather?days=94", headers=auth("viewer")).get_json()
+    assert body["n_intervals"] == 12 and body["message"] == ""
+    assert body["base_load_per_day"] == pytest.approx(20.0, rel=1e-9)
+    assert body["volume_per_degree_day"] == pytest.approx(8.0, rel=1e-9)
 
 
 def test_noisy_fit_holds_the_truth_in_its_intervals(client, auth, truck):
@@ -340,8 +363,9 @@ def test_trips_of_a_weather_site_project_the_expected_demand_of_each_day(client,
     # 00:00 today) with forecasts for the next 25 days: the level projected before each delivery is
     # the latest reading minus Σ (20 + 8 · forecast degree days) of the days in between, not the
     # flat demand_per_day (1000). A re-posted forecast changes the (cached) answer at once.
-    truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0} | UNCONSTRAINED_CALENDAR
-    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
+    # Deliveries at 00:00 (shift_start), so the first one comes right at the reading.
+    truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "shift_start": "00:00"}
+    assert client.post("/api/v1/trucks", json=truck | UNCONSTRAINED_CALENDAR, headers=auth("admin")).status_code == 201
     add_site(client, auth, "H1", weather_region="SIM", demand_per_day=1000.0)
     simulate(client, auth, "H1", "SIM", 20.0, 8.0)
     latest = client.get("/api/v1/sites/H1/readings?limit=1", headers=auth("viewer")).get_json()["items"][0]
