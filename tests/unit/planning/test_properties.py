@@ -114,7 +114,9 @@ def test_scaling_costs_scales_cost_and_bound_and_keeps_the_policy(problem, expon
     a = plan_joint(sites, truck, method=method, start_date=dt.date(2026, 3, 2))
     b = plan_joint(scaled_sites, scaled_truck, method=method, start_date=dt.date(2026, 3, 2))
     assert b.cost_per_day == pytest.approx(c * a.cost_per_day, rel=1e-12)
-    # the drivable bound maximises its weights numerically (Brent / SLSQP): scaled to 1e-9, not to the last digit
-    assert b.lower_bound_per_day == pytest.approx(c * a.lower_bound_per_day, rel=1e-9)
+    # the drivable bound maximises its weights numerically (Brent / SLSQP) over a kinked concave
+    # function: scaled data may stop at another point of the same plateau (5e-7 relative seen), so
+    # the scaled bound agrees to 1e-6, not to the last digit
+    assert b.lower_bound_per_day == pytest.approx(c * a.lower_bound_per_day, rel=1e-6)
     assert [(s.period_days, s.delivery_days) for s in b.sites] == [(s.period_days, s.delivery_days) for s in a.sites]
     assert (b.method, b.base_days, b.dispatch_interval_days) == (a.method, a.base_days, a.dispatch_interval_days)
