@@ -268,7 +268,7 @@ def test_over_max_stops_the_sites_with_fewest_days_of_stock_keep_their_stops():
 
 def weather_tank(daily, **kw):
     """A weather site: the expected demand of each listed day (others: d = 300)."""
-    return Tank("W", 300.0, 9000.0, 500.0, 10, kw.get("level", 5000.0), at(kw.get("start", 0.0)), daily)
+    return Tank("W", 300.0, 9000.0, 500.0, 10, kw.get("level", 5000.0), at(kw.get("start", 0.0)), daily_demand=daily)
 
 
 def test_weather_tank_uses_each_days_expected_demand():
