@@ -12,7 +12,10 @@ from sqlalchemy.orm import Session
 
 from service.persistence.models import RequestQuota
 
-INSERTS: dict[str, Callable[..., postgresql.Insert | sqlite.Insert]] = {"sqlite": sqlite_insert, "postgresql": postgresql_insert}
+INSERTS: dict[str, Callable[..., postgresql.Insert | sqlite.Insert]] = {
+    "sqlite": sqlite_insert,
+    "postgresql": postgresql_insert,
+}
 
 
 def hit(session: Session, token_id: int, bucket: str, window_start: int) -> int:
