@@ -33,6 +33,7 @@ run: $(VENV)/.installed
 test: $(VENV)/.installed system-deps
 	$(VENV)/bin/lint-imports
 	$(VENV)/bin/ruff check service tests benchmarks
+	$(VENV)/bin/mypy
 	$(VENV)/bin/python -m pytest --cov --cov-report=term:skip-covered
 
 system-deps:

@@ -117,7 +117,7 @@ def caller_from_token(token: str) -> Caller | None:
         return hit[0]
     row = tokens.by_hash(read_engine(), digest)
     caller = None if row is None or row.revoked_at is not None else Caller(row.id, row.name, row.role)
-    if caller is not None:
+    if row is not None and caller is not None:
         if row.last_used_at is None or utcnow() - row.last_used_at > LAST_USED_RESOLUTION:
             g.touch_token = row.id
         ttl = current_app.config["ULLAGE_SETTINGS"].token_cache_seconds

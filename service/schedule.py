@@ -426,7 +426,8 @@ def _limit_notices_of(replay: _Replay, stop: CorrectedStop, date: dt.date) -> li
     The room below the safe fill first (from ``min(wanted, recorded room)`` to ``min(wanted, room)``),
     then the truck's free space (from there to the quantity) when the truck's capacity shrank.
     """
-    unit, out = replay.unit, []
+    unit = replay.unit
+    out: list[Notice] = []
     if not replay.capacity_shrank and stop.site not in replay.room_changed:
         return out
     snap, site = replay.recorded[stop.site], replay.drift.sites[stop.site]
@@ -609,7 +610,8 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
     if plan is None:
         raise NoActivePlan(truck.code)
     replay = _replay(session, plan, truck, first, last, settings)
-    trips, index = [], {}
+    trips: list[DayTrip] = []
+    index: dict[dt.date, int] = {}
     for t in replay.trips:
         if first <= t.date <= last:
             index[t.date] = index.get(t.date, 0) + 1
@@ -650,7 +652,8 @@ def truck_levels(
     dates = [first + dt.timedelta(days=k) for k in range(days)]
     plan = plan_store.active_plan(session, truck)
     recorded = {s["code"]: s for s in plan.inputs["sites"]} if plan is not None else {}
-    replay = _replay(session, plan, truck, first, last, settings) if any(s.code in recorded for s in sites) else None
+    listed = any(s.code in recorded for s in sites)  # none without a plan
+    replay = _replay(session, plan, truck, first, last, settings) if plan is not None and listed else None
     out = {}
     for site in sites:
         if replay is None or site.code not in recorded:
@@ -665,7 +668,7 @@ def truck_levels(
                 Notice(
                     "limits_changed",
                     f"{site.name} ({site.code}): {_removed_reason(replay, site.code)}; the active plan "
-                    f"{plan.id} still lists it, but it gets no stop.",
+                    f"{replay.plan.id} still lists it, but it gets no stop.",
                     site.code,
                 ),
             )

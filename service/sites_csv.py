@@ -101,7 +101,7 @@ def _unit_factor(unit: str, service_unit: str) -> float:
     return LITRES_PER_UNIT[unit] / LITRES_PER_UNIT[service_unit]
 
 
-def _parse_row(raw: dict[str, str], service_unit: str) -> tuple[dict[str, Any], list[tuple[str, str]]]:
+def _parse_row(raw: dict[str, str | None], service_unit: str) -> tuple[dict[str, Any], list[tuple[str, str]]]:
     data: dict[str, Any] = {}
     errors: list[tuple[str, str]] = []
     for name, cell in raw.items():
@@ -188,7 +188,7 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
     unknown = [h for h in header if h not in (*COLUMNS, "unit")]
     missing = [h for h in REQUIRED if h not in header]
     if unknown or missing:
-        errors = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
+        errors: list[dict[str, str]] = [{"pointer": f"#/header/{h}", "detail": "Unknown column."} for h in unknown]
         errors += [{"pointer": f"#/header/{h}", "detail": "Missing column."} for h in missing]
         raise CsvRefused(
             "The CSV header is not valid: separate the cells with commas (or semicolons) and name the "
@@ -199,7 +199,7 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
     trucks = repo.trucks_by_code(session)
     rows: list[dict[str, Any]] = []
     numbers: list[int] = []
-    errors: list[dict[str, str]] = []
+    errors = []
     seen: set[str] = set()
     for number, raw in records:
         if raw is None:

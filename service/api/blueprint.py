@@ -110,7 +110,7 @@ def accepts_body(*media_types: str):  # type: ignore[no-untyped-def]
 
 def _locations(handler: Any) -> set[str]:
     params = getattr(handler, "_apidoc", {}).get("arguments", {}).get("parameters", [])
-    return {p.get("in") for p in params if isinstance(p, dict)}
+    return {p["in"] for p in params if isinstance(p, dict) and "in" in p}
 
 
 def _expectations(endpoint: str, method: str) -> tuple[set[str], tuple[str, ...] | None, frozenset[str]] | None:
@@ -203,7 +203,8 @@ def guard_text() -> None:
     errors = [
         {"pointer": f"#/query/{name}", "detail": cannot_store(character)}
         for name, values in request.args.lists()
-        for character in {unstorable(text) for text in (name, *values)} - {None}
+        for character in {unstorable(text) for text in (name, *values)}
+        if character is not None
     ]
     if errors:
         first = errors[0]
@@ -244,7 +245,7 @@ def guard_request() -> None:
             kind="validation",
             errors=[{"pointer": "#", "detail": "Missing request body."}],
         )
-    accepted = expected if isinstance(expected, tuple) else (expected,)
+    accepted = expected or ()
     if expected and request.method in {"POST", "PUT", "PATCH"} and request.mimetype not in accepted:
         if request.mimetype or request.content_length:
             raise Problem(415, f"Send the body as {' or '.join(accepted)}.", kind="unsupported-media-type")

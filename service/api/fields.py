@@ -28,6 +28,7 @@ from werkzeug.routing import IntegerConverter
 #: Ids are ``integer`` columns: 4 bytes on PostgreSQL, so none is above 2^31 − 1, and PostgreSQL
 #: refuses a larger parameter ("integer out of range") instead of finding nothing.
 ID_MAX = 2**31 - 1
+_ID_RANGE = f"Must be an id between 1 and {ID_MAX}."
 
 #: What no text column can hold: U+0000 (PostgreSQL's text types refuse NUL) and the surrogate
 #: code points U+D800–U+DFFF (not characters: UTF-8, which both databases store, cannot encode one
@@ -128,9 +129,10 @@ class JsonInt(ma.fields.Integer):
             if not math.isfinite(value) or not value.is_integer():
                 raise self.make_error("invalid")
             value = int(value)
-        if abs(value) > 2**53:
+        # |value| > 2^53, and int(value), spelled with what typeshed's numbers.Real declares (<, <=, trunc)
+        if value < -(2**53) or not value <= 2**53:
             raise self.make_error("invalid")
-        return int(value)
+        return int(math.trunc(value))
 
 
 class JsonBool(ma.fields.Boolean):
@@ -149,13 +151,11 @@ class IdKey(ma.fields.Integer):
 
     default_error_messages = {
         "invalid": "Not an id (send digits only, e.g. the id from the Link header).",
-        "range": f"Must be an id between 1 and {ID_MAX}.",
+        "range": _ID_RANGE,
     }
 
     def __init__(self, **kwargs: Any) -> None:
-        super().__init__(
-            validate=ma.validate.Range(min=1, max=ID_MAX, error=self.default_error_messages["range"]), **kwargs
-        )
+        super().__init__(validate=ma.validate.Range(min=1, max=ID_MAX, error=_ID_RANGE), **kwargs)
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> int:
         # int() alone would also take " 12", "1_2" and non-ASCII digits.

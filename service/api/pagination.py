@@ -21,15 +21,16 @@ class PageArgsSchema(StrictSchema):
     limit = ma.fields.Integer(
         load_default=DEFAULT_LIMIT, validate=Range(min=1, max=MAX_LIMIT), strict=False
     )
-    after = ma.fields.String(validate=ma.validate.Length(min=1, max=80))
+    after: ma.fields.Field = ma.fields.String(validate=ma.validate.Length(min=1, max=80))  # subclasses retype it
 
 
 def link_headers(result: Page) -> dict[str, str]:
     """The response headers of a page: ``Link: <…>; rel="next"`` while more remain (RFC 8288)."""
     if result.next_after is None:
         return {}
-    query = {k: v for k, v in request.args.items() if k != "after"}
+    query: dict[str, Any] = {k: v for k, v in request.args.items() if k != "after"}
     query["after"] = str(result.next_after)
+    assert request.endpoint is not None  # a routed request
     link = url_for(request.endpoint, **(request.view_args or {}), **query)
     return {"Link": f'<{link}>; rel="next"'}
 

@@ -38,7 +38,7 @@ blp = Blueprint("plans", __name__, description="Recorded plans and the trips dis
 
 #: Per-process cache of trips answers, keyed by the window, the day and the store's change marker
 #: (service.persistence.plans.change_stamp): repeated weekly calls skip the replay.
-TRIPS_CACHE = LruCache(256)
+TRIPS_CACHE: LruCache[tuple[bytes, str]] = LruCache(256)
 HEAVY = ("trips", "inputs")
 #: Error alternatives are documented as RFC 9457 problem documents, like every other error.
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}

@@ -56,7 +56,7 @@ def _answer(site, days: int, result: weather.WeatherFit) -> dict:
 
 
 def _why_not(result: weather.WeatherFit) -> str:
-    if result.weather_first_day is None:
+    if result.weather_first_day is None or result.weather_last_day is None:  # both or neither
         return "No observed temperature in the window; post the region's days with POST /api/v1/weather/{region}."
     n = 0 if result.estimate is None else result.estimate.n_intervals
     if n < 2:

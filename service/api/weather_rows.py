@@ -67,7 +67,7 @@ def _csv_rows(body: bytes) -> list[tuple[tuple[Any, ...], Any]]:
                 kind="validation",
                 errors=errors,
             )
-        rows = []
+        rows: list[tuple[tuple[Any, ...], Any]] = []
         for number, cells in enumerate(reader, start=2):
             if not cells:
                 continue

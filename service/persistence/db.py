@@ -92,6 +92,7 @@ def sqlite_write_lock_held(engine: Engine) -> bool:
     """
     connection = engine.raw_connection()
     driver = connection.driver_connection
+    assert driver is not None  # a checked-out pool connection wraps a live DBAPI connection
     try:
         driver.execute("PRAGMA busy_timeout=0")
         try:

@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 import datetime as dt
+from typing import cast
 
-from sqlalchemy import delete, select, update
+from sqlalchemy import CursorResult, delete, select, update
 from sqlalchemy.orm import Session
 
 from service.persistence.models import IdempotencyRecord
@@ -62,16 +63,20 @@ def _in_progress(record_id: int, claim: str):  # type: ignore[no-untyped-def]
 
 def renew(session: Session, record_id: int, claim: str, now: dt.datetime) -> bool:
     """Move the lease of an in-progress claim to ``now``; ``False`` once it is done or taken over."""
-    renewed = session.execute(update(IdempotencyRecord).where(*_in_progress(record_id, claim)).values(claimed_at=now))
+    statement = update(IdempotencyRecord).where(*_in_progress(record_id, claim)).values(claimed_at=now)
+    renewed = cast(CursorResult, session.execute(statement))  # SQLAlchemy types DML results as plain Result
     return renewed.rowcount == 1
 
 
 def mark_done(session: Session, record_id: int, claim: str, status: int, body: str, location: str | None) -> bool:
     """Record the answer of an in-progress claim; ``False`` if another attempt took it over."""
-    done = session.execute(
-        update(IdempotencyRecord)
-        .where(*_in_progress(record_id, claim))
-        .values(state="done", response_status=status, response_body=body, response_location=location)
+    done = cast(  # SQLAlchemy types DML results as plain Result; an UPDATE gives a CursorResult
+        CursorResult,
+        session.execute(
+            update(IdempotencyRecord)
+            .where(*_in_progress(record_id, claim))
+            .values(state="done", response_status=status, response_body=body, response_location=location)
+        ),
     )
     return done.rowcount == 1
 

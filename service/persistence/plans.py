@@ -6,7 +6,7 @@ import datetime as dt
 import hashlib
 import json
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from typing import Any
 
 from sqlalchemy import Engine, and_, func, or_, select, update
@@ -267,7 +267,8 @@ def stored_result(plan: Plan) -> dict[str, Any]:
         {**s, "period_days": s["cycle_days"], "delivery_days": [s["offset_days"]], "longest_gap_days": s["cycle_days"]}
         for s in result["sites"]
     ]
-    trips, index = [], {}
+    trips: list[dict[str, Any]] = []
+    index: dict[int, int] = {}
     for trip in result["trips"]:
         index[trip["day"]] = index.get(trip["day"], 0) + 1
         date = plan.start_date + dt.timedelta(days=trip["day"])
@@ -280,8 +281,8 @@ def stored_result(plan: Plan) -> dict[str, Any]:
 
 def _record(cls: type, data: dict[str, Any], **converted: Any) -> Any:
     """``cls`` from the stored fields it has (JSON lists as tuples), with ``converted`` values."""
-    fields = cls.__dataclass_fields__
-    plain = {k: tuple(v) if isinstance(v, list) else v for k, v in data.items() if k in fields}
+    names = {f.name for f in fields(cls)}
+    plain = {k: tuple(v) if isinstance(v, list) else v for k, v in data.items() if k in names}
     return cls(**(plain | converted))
 
 

@@ -2,14 +2,20 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from sqlalchemy import case
+from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.dialects.postgresql import insert as postgresql_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session
 
 from service.persistence.models import RequestQuota
 
-INSERTS = {"sqlite": sqlite_insert, "postgresql": postgresql_insert}
+INSERTS: dict[str, Callable[..., postgresql.Insert | sqlite.Insert]] = {
+    "sqlite": sqlite_insert,
+    "postgresql": postgresql_insert,
+}
 
 
 def hit(session: Session, token_id: int, bucket: str, window_start: int) -> int:
@@ -21,7 +27,7 @@ def hit(session: Session, token_id: int, bucket: str, window_start: int) -> int:
     """
     insert = INSERTS[session.get_bind().dialect.name]
     statement = insert(RequestQuota).values(token_id=token_id, bucket=bucket, window_start=window_start, hits=1)
-    statement = statement.on_conflict_do_update(
+    upsert = statement.on_conflict_do_update(
         index_elements=[RequestQuota.token_id, RequestQuota.bucket],
         set_={
             "hits": case(
@@ -30,4 +36,4 @@ def hit(session: Session, token_id: int, bucket: str, window_start: int) -> int:
             "window_start": statement.excluded.window_start,
         },
     ).returning(RequestQuota.hits)
-    return session.execute(statement).scalar_one()
+    return session.execute(upsert).scalar_one()

@@ -181,7 +181,7 @@ def _deliveries(patterns: Patterns, demand, first: int, last: int, limits: Limit
     closed = {(c - start).days for c in limits.closed_dates}
     closed = {t for t in closed if lo <= t <= hi}
     day, site, gap = patterns.deliveries(lo, hi)
-    warnings: list[str] = []
+    warnings: list[tuple[int, list[int]]] = []
     on_closed = np.isin(day, np.fromiter(closed, dtype=np.int64, count=len(closed))) if closed else None
     if on_closed is None or not on_closed.any():
         quantity = demand[site] * gap

@@ -295,9 +295,10 @@ class _CalendarInner(_Inner):
         self.top = len(weekdays) / 7
         groups = np.minimum(self.caps, CYCLE_DAYS).astype(np.int64)
         lines_for = whole_day_gap_lines if len(weekdays) == 7 else functools.partial(weekday_gap_lines, weekdays)
-        self.lines = {int(g): lines_for(int(g)) for g in np.unique(groups)}
+        by_group = {int(g): lines_for(int(g)) for g in np.unique(groups)}
         self.group = groups
-        self.feasible = all(v is not None for v in self.lines.values())
+        self.feasible = all(v is not None for v in by_group.values())
+        self.lines = {g: v for g, v in by_group.items() if v is not None}
         if not self.feasible:
             return
         lowest = np.array([self.lines[int(g)].lowest for g in groups])
@@ -421,7 +422,7 @@ def drivable_lower_bound(
     limited = limited and gap_patterns
     inner = _CalendarInner(problem, weekdays, room) if limited else _Inner(problem, room)
     too_many_stops = room is not None and float(np.sum(inner.low)) > room * (1 + 1e-12)
-    too_much_load = bool(trips_per_day) and inner.load_rate > trips_per_day * len(weekdays) / 7 * (1 + 1e-12)
+    too_much_load = bool(trips_per_day and inner.load_rate > trips_per_day * len(weekdays) / 7 * (1 + 1e-12))
     if not inner.feasible or too_many_stops or too_much_load:
         return BoundResult(
             value=math.inf, weights=(1.0, 0.0, 0.0), parts={"dispatch": math.inf, "stops": 0.0, "holding": 0.0}
@@ -439,7 +440,7 @@ def drivable_lower_bound(
             w[1:3] /= w[1:3].sum()
         w[0] = max(0.0, 1.0 - w[1:3].sum())
         w[3] *= mu_max
-        return tuple(float(v) for v in w)
+        return float(w[0]), float(w[1]), float(w[2]), float(w[3])
 
     def evaluate(x):
         key = weights_of(x)

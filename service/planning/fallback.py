@@ -37,7 +37,7 @@ EVEN_SLACK = 1.0
 def _options(week: WorkWeek):
     """``(period, offsets, gaps)`` of every pattern of the module docstring (calendar offsets from day 0)."""
     e = week.offsets.tolist()
-    out = []
+    out: list[tuple[int, np.ndarray, np.ndarray]] = []
     for size in range(1, len(e) + 1):
         sets = []
         for subset in itertools.combinations(e, size):

@@ -352,13 +352,16 @@ class _Search:
 
     def _exact(self, c: _Candidate) -> _Candidate:
         if not c.evaluation.exact:
-            c.evaluation = evaluate(self.problem, c.patterns, self.limited)
+            exact = evaluate(self.problem, c.patterns, self.limited)
+            assert exact is not None  # the same patterns were evaluated (exact=False) before
+            c.evaluation = exact
         return c
 
     def _improve(self) -> None:
         """The phase search of :func:`rebalance` on the chosen plan (fewer trips), then weekday patterns
         (:func:`improve_weekly`); each kept when its exact cost is lower."""
         b = self.best
+        assert b is not None  # called once a drivable plan is chosen
         patterns = None if b.policy is None else _patterns(self.problem, self.week, b.policy, self.deadline, True)
         key = b"" if patterns is None else patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
         if patterns is not None and key not in self.seen:
@@ -369,6 +372,7 @@ class _Search:
         if self.out_of_time():
             return
         b = self.best
+        assert b is not None
         weekly = improve_weekly(self.problem, self.week, b.patterns, self.deadline)
         if weekly is not None:
             ev = evaluate(self.problem, weekly, self.limited)
@@ -441,6 +445,7 @@ def _least_trips_needed(problem: Problem, week: WorkWeek, method: str, base_days
     """The least ``trips_per_day`` above the given one for which the search finds a drivable plan: each
     smaller value than ``found`` (what the best candidate needed) whose drivable bound is finite is
     searched, in increasing order, while time remains."""
+    assert problem.trips_per_day is not None  # without a trip limit every plan is drivable
     for tau in range(problem.trips_per_day + 1, found):
         if deadline is not None and time.monotonic() > deadline:
             break
@@ -516,6 +521,7 @@ def plan_joint(
             left = None if deadline_seconds is None else max(began + deadline_seconds - time.monotonic(), 1e-3)
             others = plan_joint(rest, truck, method=method, base_days=base_days, start_date=start, deadline_seconds=left)
             if not others.success:
+                assert others.needed is not None  # an unsuccessful result names what it needs
                 trips_needed = others.needed["trips_per_day"]
                 text += f"; without them, {others.message}"
         return _infeasible(

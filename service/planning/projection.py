@@ -60,7 +60,7 @@ class Tank:
     demand_per_day: float
     safe_fill_level: float
     safety_stock: float
-    cycle_days: int
+    cycle_days: float
     reading_level: float | None = None
     reading_at: dt.datetime | None = None
     #: Recorded deliveries ``(time, quantity)``: history, replayed in time order after the reading.
@@ -264,11 +264,11 @@ class Projection:
             state.events.append((at, level + quantity))
             state.level, state.at = level + quantity, at
 
-    def _next_delivery(self, when: dt.datetime, gap: int) -> dt.datetime:
+    def _next_delivery(self, when: dt.datetime, gap: float) -> dt.datetime:
         """The next planned delivery's time: its day's shift start (a calendar date, whatever the clocks do)."""
         return self.delivery_time(when.astimezone(self.zone).date() + gap * DAY)
 
-    def _use_until(self, tank: Tank, when: dt.datetime, following: dt.datetime, gap: int) -> float:
+    def _use_until(self, tank: Tank, when: dt.datetime, following: dt.datetime, gap: float) -> float:
         """Expected use until the next delivery: ``d × gap`` days, or a weather site's expected days."""
         return used_between(tank, when, following, self.zone) if tank.daily_demand else tank.demand_per_day * gap
 
@@ -303,7 +303,7 @@ class Projection:
                 self._advance(tank.code, at)
         return CorrectedStop(tank.code, planned, quantity, level, None, quantity, 0.0, None, quantity, at)
 
-    def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float, gap: int) -> CorrectedStop:
+    def _stop(self, tank: Tank, planned: float, when: dt.datetime, free: float, gap: float) -> CorrectedStop:
         recorded = self._recorded(tank, planned, when)
         if recorded is not None:
             return recorded

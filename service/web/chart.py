@@ -156,13 +156,13 @@ def level_svg(levels: Any, *, unit: str, site_label: str, element_id: str, small
     # Level line, broken where there is no projected level.
     segment: list[str] = []
     segments: list[list[str]] = []
-    for offset, (_, value) in enumerate(days):
-        if value is None:
+    for offset, (_, level) in enumerate(days):
+        if level is None:
             if segment:
                 segments.append(segment)
             segment = []
         else:
-            segment.append(f"{_num(x(offset))},{_num(y(float(value)))}")
+            segment.append(f"{_num(x(offset))},{_num(y(float(level)))}")
     if segment:
         segments.append(segment)
     for points in segments:

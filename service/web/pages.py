@@ -122,7 +122,8 @@ def _week_html(db: Any, week: str, monday: dt.date, sunday: dt.date, config: Any
         "chart_days": CHART_DAYS,
     }
     # Rendered by our own autoescaping template.
-    return tuple(Markup(render_template("status_week.html", part=part, **values)) for part in ("head", "trucks"))
+    head, body = (Markup(render_template("status_week.html", part=part, **values)) for part in ("head", "trucks"))
+    return head, body
 
 
 @bp.get("/sites/<code>")
@@ -263,6 +264,7 @@ def _stop_notes(stop: schedule.PlannedStop, safety_stock: float) -> list[dict[st
         if state in ("empty", "below safety stock"):
             text = f"{state} before this delivery"
         else:
+            assert notice.date is not None  # a run_out_risk notice carries its date
             text = f"below safety stock from {notice.date.isoformat()}, before the next delivery"
         out.append({"kind": notice.kind, "text": text})
     return out

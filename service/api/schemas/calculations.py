@@ -108,7 +108,8 @@ class TripSchema(ma.Schema):
     day = ma.fields.Integer(metadata={"description": "Days since start_date"})
     date = ma.fields.Date(metadata={"description": "start_date + day (ISO 8601)"})
     trip = ma.fields.Integer(metadata={"description": "1-based index of the trip within its date"})
-    load = ma.fields.Float()
+    # The JSON field is named load: marshmallow's metaclass takes it out of the class, Schema.load stays.
+    load = ma.fields.Float()  # type: ignore[assignment]
     stops = ma.fields.List(ma.fields.Nested(StopSchema))
 
 

@@ -1,5 +1,8 @@
 """Pieces shared by the resource schemas."""
 
+import re
+from typing import Any
+
 import marshmallow as ma
 
 from service.api.fields import STORABLE_PATTERN, Range, storable
@@ -14,7 +17,9 @@ _CODE_ERROR = "Use 1–40 of A–Z, a–z, 0–9, '.', '_' or '-', and not only 
 
 
 class _WholeCode(ma.validate.Regexp):
-    def __call__(self, value: str) -> str:
+    regex: re.Pattern[str]  # compiled from a str pattern
+
+    def __call__(self, value: Any) -> Any:  # any JSON value arrives; only a matching str passes
         if not isinstance(value, str) or self.regex.fullmatch(value) is None:
             raise ma.ValidationError(self._format_error(value))
         return value

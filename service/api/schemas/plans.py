@@ -160,7 +160,10 @@ class DatedStopSchema(ma.Schema):
 class DatedTripSchema(ma.Schema):
     date = ma.fields.Date(metadata={"description": "Delivery day (service time zone)"})
     trip = ma.fields.Integer(metadata={"description": "1-based index of the trip within its date"})
-    load = ma.fields.Float(metadata={"description": "Sum of the stops' quantity: what the truck carries out"})
+    # The JSON field is named load: marshmallow's metaclass takes it out of the class, Schema.load stays.
+    load = ma.fields.Float(  # type: ignore[assignment]
+        metadata={"description": "Sum of the stops' quantity: what the truck carries out"}
+    )
     stops = ma.fields.List(ma.fields.Nested(DatedStopSchema), metadata={"description": "The stops, in plan order"})
 
 

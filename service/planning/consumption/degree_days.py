@@ -104,14 +104,15 @@ def fit_degree_days(dt_days, consumption, degree_days, confidence: float = 0.95)
     beta, resid, xtx_inv = wls(dt_days, c, dd)
     df = n - 2
     b, v = float(beta[0]), float(beta[1])
-    se = [None, None]
-    bands = [(None, None), (None, None)]
-    sigma = None
+    se: list[float | None] = [None, None]
+    bands: list[tuple[float | None, float | None]] = [(None, None), (None, None)]
+    sigma: float | None = None
     if df > 0:
         sigma = math.sqrt(float(resid @ resid) / df)
         q = float(stats.t.ppf(0.5 + confidence / 2, df))
-        se = [sigma * math.sqrt(float(xtx_inv[i, i])) for i in range(2)]
-        bands = [(beta[i] - q * se[i], beta[i] + q * se[i]) for i in range(2)]
+        errors = [sigma * math.sqrt(float(xtx_inv[i, i])) for i in range(2)]
+        se = [*errors]
+        bands = [(beta[i] - q * errors[i], beta[i] + q * errors[i]) for i in range(2)]
     return DegreeDayFit(
         n_intervals=n,
         df=df,

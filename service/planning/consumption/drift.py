@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from scipy import stats
@@ -70,8 +71,12 @@ def consumption_drift(
         raise PlanningInputError("sigma_df must be a positive integer", field="sigma_df")
     span, c = _arrays(estimate)
     mu0 = float(demand_per_day)
-    base = dict(demand_per_day=mu0, alpha=float(alpha), n_intervals=len(c), drifted=False, direction=None)
-    empty = dict(statistic=None, p_value=None, df=None, rate_low=None, rate_high=None, sigma_per_sqrt_day=None)
+    base: dict[str, Any] = dict(
+        demand_per_day=mu0, alpha=float(alpha), n_intervals=len(c), drifted=False, direction=None
+    )
+    empty: dict[str, Any] = dict(
+        statistic=None, p_value=None, df=None, rate_low=None, rate_high=None, sigma_per_sqrt_day=None
+    )
     if len(c) == 0:
         return DriftTest(**base, **empty, rate_per_day=None, sigma_source=None, residuals=(), message="no intervals")
     total = float(span.sum())

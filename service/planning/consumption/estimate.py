@@ -55,7 +55,12 @@ def random_walk_fit(dt_days: np.ndarray, c: np.ndarray, confidence: float = 0.95
     """
     n = len(c)
     total_dt, total_c = float(np.sum(dt_days)), float(np.sum(c))
-    out = {"n_intervals": n, "elapsed_days": total_dt, "consumption_total": total_c, "df": max(n - 1, 0)}
+    out: dict[str, float | None] = {
+        "n_intervals": n,
+        "elapsed_days": total_dt,
+        "consumption_total": total_c,
+        "df": max(n - 1, 0),
+    }
     out |= dict.fromkeys(("rate_per_day", "sigma_per_sqrt_day", "standard_error", "rate_low", "rate_high"))
     if n == 0:
         return out

@@ -91,10 +91,10 @@ def gauge_levels(readings, deliveries, start: float, end: float) -> Levels:
         d_t.append(t)
         d_order.append(_ORDER_DELIVERY)
         d_qty.append(_finite(d.quantity, "quantity", nonnegative=True))
-        for name, order in (("level_before", _ORDER_BEFORE), ("level_after", _ORDER_AFTER)):
+        for name, rank in (("level_before", _ORDER_BEFORE), ("level_after", _ORDER_AFTER)):
             value = getattr(d, name)
             if value is not None:
-                rows.append((t, order, len(readings) + i, d.time, _finite(value, name), name, i))
+                rows.append((t, rank, len(readings) + i, d.time, _finite(value, name), name, i))
     rows = [row for row in rows if start <= row[0] <= end]
     p_t = np.array([row[0] for row in rows], dtype=float)
     p_order = np.array([row[1] for row in rows], dtype=int)

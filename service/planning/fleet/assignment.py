@@ -106,7 +106,7 @@ def relocate(
             if assigned[i] not in options:
                 options = np.append(options, assigned[i])
             costs = []
-            for t in options:
+            for t in options.tolist():
                 detour = r[i, t]
                 if t in trees:
                     tree, on = trees[t]

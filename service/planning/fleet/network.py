@@ -166,7 +166,8 @@ def _route_trip(
     loading = load_trip(items, tk.truck.compartments)
     if loading is not None:
         return [(order, length, legs, loading.stops)]
-    out, part = [], []
+    out: list[tuple[list[int], float, tuple, tuple]] = []
+    part: list[int] = []
     for node in order:
         trial = [*part, node]
         if part and load_trip([(products[n - 1], quantity[codes[n]]) for n in trial], tk.truck.compartments) is None:
@@ -472,7 +473,7 @@ def plan_network(
     plannable = np.array([c not in unserved for c in codes])
     eligible &= plannable[:, None]
     depot_points = [d.location for d in depots]
-    site_points = [s.location for s in sites]
+    site_points = [s.location for s in sites if s.location is not None]  # every site has one (_check)
     r_depot = source.matrix(depot_points, site_points).T if n else np.zeros((0, len(depots)))
     r = r_depot[:, truck_depot]
     clock.report(0.02)
@@ -493,7 +494,7 @@ def plan_network(
         assigned, lat, lon, eligible, r, demand, usable, dispatch, per_km, capacity, limit, factor, clock.tick
     )
     assigned = within_throughput(assigned, eligible, r, demand, LIMIT_SHARE * limit)
-    for i in np.flatnonzero((assigned < 0) & plannable):
+    for i in np.flatnonzero((assigned < 0) & plannable).tolist():
         unserved[codes[i]] = "the trucks that may serve it have no throughput left (capacity × trips per day)"
     clock.report(0.08)
     # The bound over the plannable sites (bound.py).
