@@ -101,39 +101,42 @@ def _leave_one_out(estimates: dict[int, ConsumptionEstimate]) -> dict[int, tuple
     return out
 
 
-def for_sites(session: Session, sites: list[Site], days: int, now: dt.datetime | None = None) -> dict[int, Any]:
-    """``(estimate, drift)`` of each site, the drift tested with σ pooled over the other sites given."""
+def estimates(
+    session: Session, sites: list[Site], days: int, now: dt.datetime | None = None
+) -> dict[int, ConsumptionEstimate]:
+    """Each site's consumption estimate over the last ``days`` days, by site id."""
     now = now or utcnow()
     readings, deliveries = store.history(session, (s.id for s in sites), now - dt.timedelta(days=days))
-    estimates = {s.id: _estimate(s, readings[s.id], deliveries[s.id], days, now) for s in sites}
-    pooled = _leave_one_out(estimates)
-    out = {}
-    for s in sites:
-        rho, df = pooled[s.id]
-        if rho:
-            drift = consumption_drift(estimates[s.id], s.demand_per_day, sigma=rho * s.demand_per_day, sigma_df=df)
-        else:
-            drift = consumption_drift(estimates[s.id], s.demand_per_day)
-        out[s.id] = (estimates[s.id], drift)
-    return out
+    return {s.id: _estimate(s, readings[s.id], deliveries[s.id], days, now) for s in sites}
+
+
+def _drift(site: Site, estimate: ConsumptionEstimate, pooled: tuple[float | None, int]) -> DriftTest:
+    """The drift test of the stored demand, with the others' ``ρ · demand_per_day`` as σ when they have one."""
+    rho, df = pooled
+    if rho:
+        return consumption_drift(estimate, site.demand_per_day, sigma=rho * site.demand_per_day, sigma_df=df)
+    return consumption_drift(estimate, site.demand_per_day)
+
+
+def for_sites(session: Session, sites: list[Site], days: int, now: dt.datetime | None = None) -> dict[int, Any]:
+    """``(estimate, drift)`` of each site, the drift tested with σ pooled over the other sites given."""
+    learned = estimates(session, sites, days, now)
+    pooled = _leave_one_out(learned)
+    return {s.id: (learned[s.id], _drift(s, learned[s.id], pooled[s.id])) for s in sites}
 
 
 def estimated_rates(session: Session, sites: list[Site], days: int = DEFAULT_DAYS) -> dict[str, float | None]:
     """Each site's estimated consumption per day (``None``: too little data), by code."""
-    by_truck: dict[int, list[Site]] = {}
-    for site in sites:
-        by_truck.setdefault(site.truck_id, []).append(site)
-    out: dict[str, float | None] = {}
-    for group in by_truck.values():
-        learned = for_sites(session, group, days)
-        out.update({s.code: learned[s.id][0].rate_per_day for s in group})
-    return out
+    learned = estimates(session, sites, days)
+    return {s.code: learned[s.id].rate_per_day for s in sites}
 
 
 def site_consumption(session: Session, site: Site, days: int) -> SiteConsumption:
     """The consumption of one site, its drift tested against its truck's other active sites."""
     fleet = [s for s in store.truck_sites(session, site.truck_id) if s.id != site.id] + [site]
-    estimate, drift = for_sites(session, fleet, days)[site.id]
+    learned = estimates(session, fleet, days)  # the others only pool σ: one drift test, not one each
+    estimate = learned[site.id]
+    drift = _drift(site, estimate, _leave_one_out(learned)[site.id])
     cycle = cycle_days(session, site)
     suggested = fill = None
     mu, sigma = estimate.rate_per_day, estimate.sigma_per_sqrt_day
@@ -176,6 +179,7 @@ __all__ = [
     "SiteConsumption",
     "answer",
     "cycle_days",
+    "estimates",
     "for_sites",
     "site_consumption",
 ]
