@@ -20,6 +20,7 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
+from service.cache import LruCache
 from service.persistence import deliveries as store
 from service.persistence import plans as plan_store
 from service.persistence.models import Delivery, Reading, Site, Truck, utcnow
@@ -82,23 +83,38 @@ def cycle_days(session: Session, site: Site, truck: Truck | None = None) -> floa
     return (site.safe_fill * site.tank_capacity - site.safety_stock) / site.demand_per_day
 
 
-def _leave_one_out(estimates: dict[int, ConsumptionEstimate]) -> dict[int, tuple[float | None, int]]:
-    """``pooled_relative_sigma`` of every site's others, in one pass: ``ρ²`` pools sums of squares
-    over degrees of freedom, so the others' are the fleet's totals less the site's own
-    (``ρ_{−i}² = (Σ_j SS_j − SS_i) / (Σ_j df_j − df_i)``; the same figures as pooling each site's
-    others, in linear rather than quadratic time)."""
-    own = {}
-    for i, e in estimates.items():
-        rho, df = pooled_relative_sigma([e])
-        own[i] = ((rho or 0.0) ** 2 * df, df)
-    total_ss, total_df = math.fsum(ss for ss, _ in own.values()), sum(df for _, df in own.values())
-    positive = sum(1 for ss, _ in own.values() if ss > 0)
-    out: dict[int, tuple[float | None, int]] = {}
-    for i, (ss, df) in own.items():
-        others_df = total_df - df
-        others_ss = 0.0 if positive - (ss > 0) == 0 else max(0.0, total_ss - ss)
-        out[i] = (math.sqrt(others_ss / others_df) if others_df else None, others_df)
-    return out
+@dataclass(frozen=True)
+class _Pool:
+    """Each site's sum of squared relative residuals and degrees of freedom (``pooled_relative_sigma``
+    of the site alone: ``SS_i = ρ_i² · df_i``) and their totals, for the others' pooled σ."""
+
+    terms: dict[int, tuple[float, int]]
+    total_ss: float
+    total_df: int
+    positive: int  # sites with SS_i > 0
+
+    @classmethod
+    def of(cls, estimates: dict[int, ConsumptionEstimate]) -> _Pool:
+        terms = {}
+        for i, e in estimates.items():
+            rho, df = pooled_relative_sigma([e])
+            terms[i] = ((rho or 0.0) ** 2 * df, df)
+        ss = math.fsum(t[0] for t in terms.values())
+        return cls(terms, ss, sum(t[1] for t in terms.values()), sum(1 for t in terms.values() if t[0] > 0))
+
+    def others(self, site_id: int) -> tuple[float | None, int]:
+        """``pooled_relative_sigma`` of every site but ``site_id``: ρ² pools sums of squares over
+        degrees of freedom, so the others' are the totals less the site's own,
+        ``ρ_{−i}² = (Σ_j SS_j − SS_i) / (Σ_j df_j − df_i)`` (linear, not quadratic, in the sites)."""
+        ss, df = self.terms.get(site_id, (0.0, 0))
+        others_df = self.total_df - df
+        others_ss = 0.0 if self.positive - (ss > 0) == 0 else max(0.0, self.total_ss - ss)
+        return (math.sqrt(others_ss / others_df) if others_df else None), others_df
+
+
+#: A truck's :class:`_Pool` by (truck id, days, UTC date, change stamp): the consumption answer of
+#: one site then estimates only that site (every reading, delivery or site change moves the stamp).
+POOL_CACHE: LruCache[_Pool] = LruCache(64)
 
 
 def estimates(
@@ -121,8 +137,8 @@ def _drift(site: Site, estimate: ConsumptionEstimate, pooled: tuple[float | None
 def for_sites(session: Session, sites: list[Site], days: int, now: dt.datetime | None = None) -> dict[int, Any]:
     """``(estimate, drift)`` of each site, the drift tested with σ pooled over the other sites given."""
     learned = estimates(session, sites, days, now)
-    pooled = _leave_one_out(learned)
-    return {s.id: (learned[s.id], _drift(s, learned[s.id], pooled[s.id])) for s in sites}
+    pool = _Pool.of(learned)
+    return {s.id: (learned[s.id], _drift(s, learned[s.id], pool.others(s.id))) for s in sites}
 
 
 def estimated_rates(session: Session, sites: list[Site], days: int = DEFAULT_DAYS) -> dict[str, float | None]:
@@ -131,12 +147,24 @@ def estimated_rates(session: Session, sites: list[Site], days: int = DEFAULT_DAY
     return {s.code: learned[s.id].rate_per_day for s in sites}
 
 
-def site_consumption(session: Session, site: Site, days: int) -> SiteConsumption:
-    """The consumption of one site, its drift tested against its truck's other active sites."""
+def _pool(session: Session, site: Site, days: int, now: dt.datetime, stamp: str | None) -> _Pool:
+    """The pool of the site's truck (its other active sites and itself), from :data:`POOL_CACHE`
+    when the store's change ``stamp`` is given."""
+    key = (site.truck_id, days, now.date(), stamp)
+    cached = POOL_CACHE.get(key) if stamp is not None else None
+    if cached is not None:
+        return cached
     fleet = [s for s in store.truck_sites(session, site.truck_id) if s.id != site.id] + [site]
-    learned = estimates(session, fleet, days)  # the others only pool σ: one drift test, not one each
-    estimate = learned[site.id]
-    drift = _drift(site, estimate, _leave_one_out(learned)[site.id])
+    pool = _Pool.of(estimates(session, fleet, days, now))
+    return POOL_CACHE.put(key, pool) if stamp is not None else pool
+
+
+def site_consumption(session: Session, site: Site, days: int, stamp: str | None = None) -> SiteConsumption:
+    """The consumption of one site, its drift tested against its truck's other active sites (their
+    pool cached under the store's change ``stamp`` when given; apply-estimate passes none)."""
+    now = utcnow()
+    estimate = estimates(session, [site], days, now)[site.id]
+    drift = _drift(site, estimate, _pool(session, site, days, now, stamp).others(site.id))
     cycle = cycle_days(session, site)
     suggested = fill = None
     mu, sigma = estimate.rate_per_day, estimate.sigma_per_sqrt_day
