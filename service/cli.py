@@ -17,7 +17,7 @@ from service.health import alembic_config
 from service.persistence import repository as repo
 from service.persistence import tokens
 from service.persistence.db import make_engine
-from service.persistence.models import ROLES, Site, Truck
+from service.persistence.models import ROLES, Site, Truck, utcnow
 
 
 @contextmanager
@@ -109,15 +109,18 @@ def token_list(_args: argparse.Namespace) -> int:
 
 
 def demo(args: argparse.Namespace) -> int:
-    from service.demo import SAMPLE_DATA, load_demo  # noqa: PLC0415
+    from service.demo import SAMPLE_DATA, load_demo, load_history  # noqa: PLC0415
 
     with _session() as session:
         if repo.count_rows(session, Truck) or repo.count_rows(session, Site):
             print("the database already holds trucks or sites; the demo loads only into an empty one")
             return 0 if args.if_empty else 1
         trucks, sites = load_demo(session, Path(args.directory or SAMPLE_DATA), load_settings().quantity_unit)
+        history = load_history(session, utcnow()) if args.directory is None else None
         session.commit()
     print(f"loaded the demo network: {trucks} trucks, {sites} sites")
+    if history is not None:
+        print("and its invented history: {} days of temperatures, {} readings, {} deliveries".format(*history))
     return 0
 
 

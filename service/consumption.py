@@ -13,12 +13,14 @@ such fleet it falls back to the site's own σ (t test).
 from __future__ import annotations
 
 import datetime as dt
+import math
 from dataclasses import dataclass
 from statistics import NormalDist
 from typing import Any
 
 from sqlalchemy.orm import Session
 
+from service.cache import LruCache
 from service.persistence import deliveries as store
 from service.persistence import plans as plan_store
 from service.persistence.models import Delivery, Reading, Site, Truck, utcnow
@@ -81,39 +83,88 @@ def cycle_days(session: Session, site: Site, truck: Truck | None = None) -> floa
     return (site.safe_fill * site.tank_capacity - site.safety_stock) / site.demand_per_day
 
 
-def for_sites(session: Session, sites: list[Site], days: int, now: dt.datetime | None = None) -> dict[int, Any]:
-    """``(estimate, drift)`` of each site, the drift tested with σ pooled over all the sites given."""
+@dataclass(frozen=True)
+class _Pool:
+    """Each site's sum of squared relative residuals and degrees of freedom (``pooled_relative_sigma``
+    of the site alone: ``SS_i = ρ_i² · df_i``) and their totals, for the others' pooled σ."""
+
+    terms: dict[int, tuple[float, int]]
+    total_ss: float
+    total_df: int
+    positive: int  # sites with SS_i > 0
+
+    @classmethod
+    def of(cls, estimates: dict[int, ConsumptionEstimate]) -> _Pool:
+        terms = {}
+        for i, e in estimates.items():
+            rho, df = pooled_relative_sigma([e])
+            terms[i] = ((rho or 0.0) ** 2 * df, df)
+        ss = math.fsum(t[0] for t in terms.values())
+        return cls(terms, ss, sum(t[1] for t in terms.values()), sum(1 for t in terms.values() if t[0] > 0))
+
+    def others(self, site_id: int) -> tuple[float | None, int]:
+        """``pooled_relative_sigma`` of every site but ``site_id``: ρ² pools sums of squares over
+        degrees of freedom, so the others' are the totals less the site's own,
+        ``ρ_{−i}² = (Σ_j SS_j − SS_i) / (Σ_j df_j − df_i)`` (linear, not quadratic, in the sites)."""
+        ss, df = self.terms.get(site_id, (0.0, 0))
+        others_df = self.total_df - df
+        others_ss = 0.0 if self.positive - (ss > 0) == 0 else max(0.0, self.total_ss - ss)
+        return (math.sqrt(others_ss / others_df) if others_df else None), others_df
+
+
+#: A truck's :class:`_Pool` by (truck id, days, UTC date, change stamp): the consumption answer of
+#: one site then estimates only that site (every reading, delivery or site change moves the stamp).
+POOL_CACHE: LruCache[_Pool] = LruCache(64)
+
+
+def estimates(
+    session: Session, sites: list[Site], days: int, now: dt.datetime | None = None
+) -> dict[int, ConsumptionEstimate]:
+    """Each site's consumption estimate over the last ``days`` days, by site id."""
     now = now or utcnow()
     readings, deliveries = store.history(session, (s.id for s in sites), now - dt.timedelta(days=days))
-    estimates = {s.id: _estimate(s, readings[s.id], deliveries[s.id], days, now) for s in sites}
-    out = {}
-    for s in sites:
-        others = [e for i, e in estimates.items() if i != s.id]
-        rho, df = pooled_relative_sigma(others)
-        if rho:
-            drift = consumption_drift(estimates[s.id], s.demand_per_day, sigma=rho * s.demand_per_day, sigma_df=df)
-        else:
-            drift = consumption_drift(estimates[s.id], s.demand_per_day)
-        out[s.id] = (estimates[s.id], drift)
-    return out
+    return {s.id: _estimate(s, readings[s.id], deliveries[s.id], days, now) for s in sites}
+
+
+def _drift(site: Site, estimate: ConsumptionEstimate, pooled: tuple[float | None, int]) -> DriftTest:
+    """The drift test of the stored demand, with the others' ``ρ · demand_per_day`` as σ when they have one."""
+    rho, df = pooled
+    if rho:
+        return consumption_drift(estimate, site.demand_per_day, sigma=rho * site.demand_per_day, sigma_df=df)
+    return consumption_drift(estimate, site.demand_per_day)
+
+
+def for_sites(session: Session, sites: list[Site], days: int, now: dt.datetime | None = None) -> dict[int, Any]:
+    """``(estimate, drift)`` of each site, the drift tested with σ pooled over the other sites given."""
+    learned = estimates(session, sites, days, now)
+    pool = _Pool.of(learned)
+    return {s.id: (learned[s.id], _drift(s, learned[s.id], pool.others(s.id))) for s in sites}
 
 
 def estimated_rates(session: Session, sites: list[Site], days: int = DEFAULT_DAYS) -> dict[str, float | None]:
     """Each site's estimated consumption per day (``None``: too little data), by code."""
-    by_truck: dict[int, list[Site]] = {}
-    for site in sites:
-        by_truck.setdefault(site.truck_id, []).append(site)
-    out: dict[str, float | None] = {}
-    for group in by_truck.values():
-        learned = for_sites(session, group, days)
-        out.update({s.code: learned[s.id][0].rate_per_day for s in group})
-    return out
+    learned = estimates(session, sites, days)
+    return {s.code: learned[s.id].rate_per_day for s in sites}
 
 
-def site_consumption(session: Session, site: Site, days: int) -> SiteConsumption:
-    """The consumption of one site, its drift tested against its truck's other active sites."""
+def _pool(session: Session, site: Site, days: int, now: dt.datetime, stamp: str | None) -> _Pool:
+    """The pool of the site's truck (its other active sites and itself), from :data:`POOL_CACHE`
+    when the store's change ``stamp`` is given."""
+    key = (site.truck_id, days, now.date(), stamp)
+    cached = POOL_CACHE.get(key) if stamp is not None else None
+    if cached is not None:
+        return cached
     fleet = [s for s in store.truck_sites(session, site.truck_id) if s.id != site.id] + [site]
-    estimate, drift = for_sites(session, fleet, days)[site.id]
+    pool = _Pool.of(estimates(session, fleet, days, now))
+    return POOL_CACHE.put(key, pool) if stamp is not None else pool
+
+
+def site_consumption(session: Session, site: Site, days: int, stamp: str | None = None) -> SiteConsumption:
+    """The consumption of one site, its drift tested against its truck's other active sites (their
+    pool cached under the store's change ``stamp`` when given; apply-estimate passes none)."""
+    now = utcnow()
+    estimate = estimates(session, [site], days, now)[site.id]
+    drift = _drift(site, estimate, _pool(session, site, days, now, stamp).others(site.id))
     cycle = cycle_days(session, site)
     suggested = fill = None
     mu, sigma = estimate.rate_per_day, estimate.sigma_per_sqrt_day
@@ -156,6 +207,7 @@ __all__ = [
     "SiteConsumption",
     "answer",
     "cycle_days",
+    "estimates",
     "for_sites",
     "site_consumption",
 ]

@@ -620,27 +620,46 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
     return TripsView(truck.code, replay.summary, first, last, tuple(trips), tuple(_notices(replay, first, last)))
 
 
-def _unplanned_levels(
-    session: Session, site: Site, dates: list[dt.date], zone: ZoneInfo, notice: Notice | None = None
-) -> SiteLevels:
-    """A site the active plan does not serve: its reading falling at ``demand_per_day``, no deliveries."""
-    reading = plan_store.latest_readings(session, [site.id]).get(site.id)
-    safe_fill_level = site.safe_fill * site.tank_capacity
+def _alone(
+    session: Session,
+    site: Site,
+    reading: Any,
+    delivered: Sequence[Any],
+    first: dt.date,
+    last: dt.date,
+    settings: Settings,
+) -> Tank:
+    """A site's tank on its own, off any plan: its latest reading, the deliveries recorded since
+    (replayed in time order), a weather site's expected daily demand on ``first … last``."""
     tank = Tank(
         site.code,
         site.demand_per_day,
-        safe_fill_level,
+        site.safe_fill * site.tank_capacity,
         site.safety_stock,
         1,
         reading.level if reading else None,
         reading.measured_at if reading else None,
+        tuple((d.delivered_at, d.quantity) for d in delivered),
     )
+    return with_weather_demand(session, tank, site, first, last, settings) if reading else tank
+
+
+def _unplanned_levels(
+    session: Session, site: Site, dates: list[dt.date], settings: Settings, notice: Notice | None = None
+) -> SiteLevels:
+    """A site the active plan does not serve: its reading falling at its demand (a weather site's
+    expected daily demand), the deliveries recorded since replayed, nothing planned."""
+    zone = ZoneInfo(settings.timezone)
+    reading = plan_store.latest_readings(session, [site.id]).get(site.id)
+    delivered = delivery_store.since_latest_readings(session, [site.id])[site.id]
+    tank = _alone(session, site, reading, delivered, dates[0], dates[-1], settings)
     alone = Projection([tank], 0.0, zone)
+    alone.finish(day_start(dates[-1], zone))
     levels = tuple((d, alone.level_before(site.code, day_start(d, zone))) for d in dates)
     notice = notice or Notice(
         "no_active_plan", f"{site.name} ({site.code}) is in no active plan; no deliveries are planned.", site.code
     )
-    return SiteLevels(site.code, levels, (), safe_fill_level, site.safety_stock, site.tank_capacity, (notice,))
+    return SiteLevels(site.code, levels, (), tank.safe_fill_level, site.safety_stock, site.tank_capacity, (notice,))
 
 
 def truck_levels(
@@ -657,14 +676,14 @@ def truck_levels(
     out = {}
     for site in sites:
         if replay is None or site.code not in recorded:
-            out[site.code] = _unplanned_levels(session, site, dates, zone)
+            out[site.code] = _unplanned_levels(session, site, dates, settings)
             continue
         if site.code not in replay.projection.tanks:
             out[site.code] = _unplanned_levels(
                 session,
                 site,
                 dates,
-                zone,
+                settings,
                 Notice(
                     "limits_changed",
                     f"{site.name} ({site.code}): {_removed_reason(replay, site.code)}; the active plan "
@@ -710,7 +729,7 @@ def site_levels(session: Session, site: Site, first: dt.date, days: int, setting
 
 # ----------------------------------------------------------------------------------------------------
 # The dispatcher's morning: every tank's stock now (lowest first) and one day's load sheet per truck.
-# No delivery is recorded yet, so a tank's stock now is its latest reading falling at its demand.
+# A tank's stock now is its latest reading falling at its demand, plus the deliveries recorded since.
 
 #: How many days ahead the lowest-first view looks for each site's next planned delivery.
 NEXT_DELIVERY_DAYS = 28
@@ -730,10 +749,11 @@ def level_state(level: float | None, safety_stock: float) -> str | None:
 
 @dataclass(frozen=True)
 class TankStock:
-    """One active site's stock at ``now``: its latest reading falling at ``demand_per_day``
-    (:class:`Projection` of the tank alone, never below 0), the days that stock lasts above the
-    safety stock, ``(level − safety_stock) / demand_per_day`` (negative below it), and to empty,
-    ``level / demand_per_day``; and the next planned delivery from today on (date, quantity)."""
+    """One active site's stock at ``now``: its latest reading falling at ``demand_per_day`` (a
+    weather site's expected demand of each day), the deliveries recorded since added at their
+    times (:class:`Projection` of the tank alone, never below 0); the days that stock lasts above
+    the safety stock, ``(level − safety_stock) / d``, negative below it, and to empty, ``level / d``,
+    with ``d`` today's expected demand; and the next planned delivery from today on (date, quantity)."""
 
     site: str
     site_name: str
@@ -769,25 +789,25 @@ def next_deliveries(
     return out
 
 
-def tank_stock(
-    site: Site, truck_code: str, reading: tuple[float, dt.datetime] | None, now: dt.datetime, zone: ZoneInfo
-) -> TankStock:
-    """:class:`TankStock` of one site (without its next delivery)."""
+def tank_stock(site: Site, truck_code: str, tank: Tank, now: dt.datetime, zone: ZoneInfo) -> TankStock:
+    """:class:`TankStock` of one site from its tank alone (:func:`_alone`; without its next delivery)."""
     level = None
-    if reading is not None:
-        tank = Tank(site.code, site.demand_per_day, site.safe_fill * site.tank_capacity, site.safety_stock, 1, *reading)
-        level = Projection([tank], 0.0, zone).level_before(site.code, max(now, reading[1]))
+    if tank.reading_at is not None:
+        alone = Projection([tank], 0.0, zone)
+        when = max(now, tank.reading_at)
+        alone.finish(when)
+        level = alone.level_before(site.code, when)
     days_above = days_empty = None
     if level is not None:
-        demand = site.demand_per_day
+        demand = tank.daily_demand.get(now.astimezone(zone).date(), site.demand_per_day)
         days_above = (level - site.safety_stock) / demand if demand > 0 else math.inf
         days_empty = level / demand if demand > 0 else math.inf
     return TankStock(
         site.code,
         site.name,
         truck_code,
-        reading[0] if reading else None,
-        reading[1] if reading else None,
+        tank.reading_level,
+        tank.reading_at,
         level,
         site.safety_stock,
         days_above,
@@ -799,12 +819,15 @@ def tank_stock(
 def stocks(session: Session, now: dt.datetime, settings: Settings) -> list[TankStock]:
     """Every active site's :class:`TankStock` at ``now`` (no next delivery), in truck and site code order."""
     pairs = tanks.active_sites(session)
-    readings = plan_store.latest_readings(session, [site.id for site, _ in pairs])
+    ids = [site.id for site, _ in pairs]
+    readings = plan_store.latest_readings(session, ids)
+    delivered = delivery_store.since_latest_readings(session, ids)
     zone = ZoneInfo(settings.timezone)
+    day = now.astimezone(zone).date()
     out = []
     for site, truck in pairs:
-        reading = readings.get(site.id)
-        out.append(tank_stock(site, truck.code, (reading.level, reading.measured_at) if reading else None, now, zone))
+        tank = _alone(session, site, readings.get(site.id), delivered[site.id], day, day, settings)
+        out.append(tank_stock(site, truck.code, tank, now, zone))
     return out
 
 

@@ -15,8 +15,9 @@ from service.api.schemas.sites import SiteSchema
 from service.api.sites import dump, etag, site_or_404, truck_to_check, unit
 from service.auth import allow
 from service.errors import PROBLEM_JSON, Problem
+from service.persistence import plans as plan_store
 from service.persistence import repository as repo
-from service.request_db import get_session
+from service.request_db import get_session, read_engine
 
 PREFIX = "/sites"
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}
@@ -39,7 +40,8 @@ class SiteConsumption(MethodView):
         answer suggests a safety stock z·σ·√(T + L) and the fill rate it implies.
         """
         site = site_or_404(code)
-        return consumption.answer(consumption.site_consumption(get_session(), site, args["days"]))
+        stamp = plan_store.change_stamp(read_engine())
+        return consumption.answer(consumption.site_consumption(get_session(), site, args["days"], stamp))
 
 
 @blp.route("/<string:code>/apply-estimate")

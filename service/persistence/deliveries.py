@@ -9,7 +9,7 @@ import datetime as dt
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-from sqlalchemy import and_, or_, select
+from sqlalchemy import and_, func, or_, select
 from sqlalchemy.orm import Session
 
 from service.persistence.models import Delivery, Reading, Site, Truck
@@ -109,6 +109,28 @@ def history(
     ):
         deliveries[d.site_id].append(d)
     return readings, deliveries
+
+
+def since_latest_readings(session: Session, site_ids: Iterable[int]) -> dict[int, list[Delivery]]:
+    """Each site's deliveries at or after its newest reading, in time order (then id); sites
+    without a reading have none (the projection replays only those strictly after the reading)."""
+    ids = sorted(set(site_ids))
+    out: dict[int, list[Delivery]] = {i: [] for i in ids}
+    if not ids:
+        return out
+    newest = (
+        select(Reading.site_id, func.max(Reading.measured_at).label("at"))
+        .where(Reading.site_id.in_(ids))
+        .group_by(Reading.site_id)
+        .subquery()
+    )
+    for d in session.scalars(
+        select(Delivery)
+        .join(newest, (Delivery.site_id == newest.c.site_id) & (Delivery.delivered_at >= newest.c.at))
+        .order_by(Delivery.delivered_at, Delivery.id)
+    ):
+        out[d.site_id].append(d)
+    return out
 
 
 def truck_sites(session: Session, truck_id: int) -> list[Site]:

@@ -1,10 +1,10 @@
 """The dispatcher's morning: each tank's latest reading, every tank lowest first, a day's load sheets.
 
 * The latest readings (on the overview, never cached: their age moves with the clock): level,
-  time in the service time zone and how old, per active site. Deliveries are not recorded yet;
-  the last recorded delivery belongs beside the reading once they are.
+  time in the service time zone and how old, per active site.
 * ``/status/lowest``: every active tank ranked by the days its stock now lasts above its safety
-  stock (:func:`service.schedule.tank_stock`, :func:`service.schedule.lowest_first`), with the
+  stock (:func:`service.schedule.tank_stock`, :func:`service.schedule.lowest_first`: the latest
+  reading falling at the site's use, plus the deliveries recorded since), with the
   days to empty and the next planned delivery; tanks without a reading last, saying so.
 * ``/status/load-sheet?date=YYYY-MM-DD`` (default tomorrow in the service time zone): one
   printable A4 page per truck with trips that day (:func:`service.schedule.load_sheet`), one table

@@ -133,3 +133,30 @@ def test_no_estimate_without_data(client, auth, network):
     assert response.status_code == 422 and response.get_json()["type"].endswith("/no-estimate")
     assert client.get("/api/v1/sites/NOPE/consumption", headers=auth("viewer")).status_code == 404
     assert client.get("/api/v1/sites/A3/consumption?days=0", headers=auth("viewer")).status_code == 422
+
+
+def test_each_sites_drift_pools_sigma_over_exactly_its_others(client, auth, network, db_session):
+    from service import consumption
+    from service.persistence import deliveries as store
+    from service.persistence import repository as repo
+    from service.planning.consumption import consumption_drift, pooled_relative_sigma
+
+    record_history(client, auth, "A0", A0_RATE)
+    for i in (1, 2, 3):
+        record_history(client, auth, f"A{i}", 200.0 * (1 + 0.1 * i), shift=i)
+    sites = store.truck_sites(db_session, repo.truck_by_code(db_session, "T1").id)
+    now = dt.datetime.now(dt.UTC)
+    learned = consumption.for_sites(db_session, sites, 90, now)
+    for site in sites:
+        # The definition (docs/planning.md §11.4): ρ pooled over the other sites, recomputed directly.
+        rho, df = pooled_relative_sigma([learned[s.id][0] for s in sites if s.id != site.id])
+        direct = consumption_drift(
+            learned[site.id][0], site.demand_per_day, sigma=rho * site.demand_per_day, sigma_df=df
+        )
+        assert learned[site.id][1].statistic == pytest.approx(direct.statistic, rel=1e-9)
+        assert learned[site.id][1].p_value == pytest.approx(direct.p_value, rel=1e-9, abs=1e-15)
+    # The API's answer, first (pool computed) and again (pool from the cache): the same drift test.
+    answers = [client.get("/api/v1/sites/A0/consumption", headers=auth("viewer")).get_json() for _ in range(2)]
+    assert answers[0]["drift"] == answers[1]["drift"]
+    a0 = next(s for s in sites if s.code == "A0")
+    assert answers[0]["drift"]["statistic"] == pytest.approx(learned[a0.id][1].statistic, rel=1e-6)

@@ -352,3 +352,20 @@ def test_postgresql_backup_without_pg_dump_prints_the_command_without_the_passwo
     assert cli.main(["db", "restore", str(tmp_path / "x.dump")]) == 1
     err = capsys.readouterr().err
     assert "pg_restore is not installed" in err and "--single-transaction" in err and "SEKRET" not in err
+
+
+def test_the_demo_history_shows_service_levels_weather_and_recorded_deliveries(env_db, capsys, client):
+    assert cli.main(["demo"]) == 0
+    assert "737 days of temperatures, 24 readings, 12 deliveries" in capsys.readouterr().out
+    assert cli.main(["token", "create", "reader", "--role", "viewer"]) == 0
+    headers = {"Authorization": f"Bearer {capsys.readouterr().out.strip().splitlines()[-1]}"}
+    sites = {s["code"]: s for s in client.get("/api/v1/sites", headers=headers).get_json()["items"]}
+    assert {c for c, s in sites.items() if s["weather_region"] == "HV-VALLEY"} == {"HV-HTG-06", "HV-HTG-16"}
+    assert sites["HV-DEP-01"]["service_level"] == 0.98 and sites["HV-WTR-15"]["lead_time_days"] == 2
+    delivered = client.get("/api/v1/sites/HV-GAR-02/deliveries", headers=headers).get_json()["items"]
+    assert len(delivered) == 3 and all(d["quantity"] > 0 for d in delivered)
+    # Five weekly intervals of invented use (900 L/day ± 10 %): an estimate near the stored demand,
+    # and with the site's 97 % service level a suggested safety stock.
+    learned = client.get("/api/v1/sites/HV-GAR-02/consumption", headers=headers).get_json()
+    assert learned["n_intervals"] >= 4 and abs(learned["rate_per_day"] - 900) < 90
+    assert learned["service_level"] == 0.97 and learned["suggested_safety_stock"] > 0

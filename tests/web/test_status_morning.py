@@ -12,6 +12,8 @@ from status_helpers import LOW_SITE, PLANNED_TRUCK, UNPLANNED_TRUCK, Page, add_r
 
 from service import schedule, working_calendar
 from service.persistence import repository as repo
+from service.persistence.models import Site
+from service.planning.projection import Tank
 from service.web import formatting
 
 CAUTION = re.compile(
@@ -89,7 +91,9 @@ def test_the_overview_shows_each_sites_latest_reading_and_a_0_l_tank_plainly(app
     # The site's own page says it too.
     site_page = clean(browser_client.get(f"/status/sites/{EMPTY_SITE}").get_data(as_text=True))
     assert f"Latest reading 0 L at {clock}, 3 h ago empty when read" in site_page
-    assert "Latest reading none on record" in clean(browser_client.get("/status/sites/HV-FRM-04").get_data(as_text=True))
+    assert "Latest reading none on record" in clean(
+        browser_client.get("/status/sites/HV-FRM-04").get_data(as_text=True)
+    )
     # Between the warnings and the trucks: warnings stay first.
     assert body.index('id="warnings-heading"') < body.index('id="readings-heading"') < body.index(f">{PLANNED_TRUCK} <")
 
@@ -106,7 +110,10 @@ def test_the_overview_and_the_site_page_show_the_estimated_rate_next_to_the_stor
     assert rows["HV-FRM-04"].endswith("95 L, 120 L estimated")
     assert rows["HV-GAR-02"].endswith("900 L, too little data to estimate")
     site_page = clean(browser_client.get("/status/sites/HV-FRM-04").get_data(as_text=True))
-    assert "Use per day 95 L Estimated use per day 120 L, from the readings and deliveries of the last 90 days" in site_page
+    assert (
+        "Use per day 95 L Estimated use per day 120 L, from the readings and deliveries of the last 90 days"
+        in site_page
+    )
 
 
 # ------------------------------------------------------------------ lowest first
@@ -401,3 +408,63 @@ def test_a_run_out_warning_of_a_tank_that_read_0_l_says_it_is_empty(app, browser
     when = f"{local:%H:%M} that day" if date == local.date().isoformat() else f"{local:%Y-%m-%d %H:%M}"
     assert f"; it read 0 L (empty) at {when}." in risk
     assert risk.count(EMPTY_SITE) == 1 and risk.count(date) == 1
+
+
+def test_the_stock_now_and_a_site_in_no_plan_count_the_deliveries_recorded_since_the_reading(
+    app, browser_client, planned, auth, client, db_session
+):
+    code = "HV-GAR-12"  # on HV-R2, which has no active plan: 700 L/day, safety stock 2 000 L
+    now = dt.datetime.now(dt.UTC).replace(microsecond=0)
+    read_at, delivered_at = now - dt.timedelta(hours=4), now - dt.timedelta(hours=2)
+    for quantity_, at in ((1000.0, now - dt.timedelta(hours=6)), (6000.0, delivered_at)):
+        response = client.post(
+            f"/api/v1/sites/{code}/deliveries",
+            json={"quantity": quantity_, "delivered_at": at.isoformat()},
+            headers=auth("dispatcher"),
+        )
+        assert response.status_code == 201, response.get_data(as_text=True)
+    add_reading(browser_client, auth, code, 3000.0, read_at)
+    # Worked by hand: the reading falls at 700 L/day, the delivery after it adds 6 000 L, the one
+    # before it is already in the reading: 3 000 − 700 × 4/24 + 6 000 = 8 883.3 L now.
+    rows = rows_of(browser_client.get("/status/lowest").get_data(as_text=True), "lowest")
+    row = next(clean(r) for r in rows if f'class="code">{code}<' in r)
+    minute = 700 / 1440  # the page is read up to a minute after ``now``
+    assert any(quantity(9000 - 700 * 4 / 24 - k * minute) in row for k in (0, 1, 2)), row
+    # The site page's projected levels (no plan): the same replay, at 00:00 of the next days.
+    settings_ = app.config["ULLAGE_SETTINGS"]
+    zone = ZoneInfo(settings_.timezone)
+    tomorrow = today(app) + dt.timedelta(days=1)
+    site = repo.site_by_code(db_session, code)
+    levels = schedule.site_levels(db_session, site, tomorrow, 2, settings_)
+    for day, level in levels.days:
+        midnight = dt.datetime.combine(day, dt.time(0), tzinfo=zone)
+        elapsed = (midnight - read_at).total_seconds() / 86400
+        assert level == pytest.approx(max(0.0, 9000 - 700 * elapsed), abs=1e-6)
+    assert [n.kind for n in levels.notices] == ["no_active_plan"]
+
+
+def test_the_stock_now_of_a_weather_site_falls_at_the_expected_use_of_each_day():
+    # Worked by hand: 500 L read a day ago, 100 L delivered 12 h ago, an expected use of 200 L on
+    # every day (not the stored 100): 500 − 200 + 100 = 400 L now; (400 − 50) / 200 = 1.75 days
+    # above the safety stock and 400 / 200 = 2 days to empty at today's expected use.
+    now = dt.datetime(2026, 12, 3, 12, 0, tzinfo=dt.UTC)
+    site = Site(
+        code="W", name="Weather site", demand_per_day=100.0, safety_stock=50.0, safe_fill=0.9, tank_capacity=1000.0
+    )
+    days = {now.date() + dt.timedelta(days=k): 200.0 for k in (-2, -1, 0, 1)}
+    tank = Tank(
+        "W",
+        100.0,
+        900.0,
+        50.0,
+        1,
+        500.0,
+        now - dt.timedelta(days=1),
+        ((now - dt.timedelta(hours=12), 100.0),),
+        0.0,
+        days,
+    )
+    stock = schedule.tank_stock(site, "T", tank, now, ZoneInfo("UTC"))
+    assert stock.level == pytest.approx(400.0)
+    assert stock.days_above_safety == pytest.approx(1.75) and stock.days_to_empty == pytest.approx(2.0)
+    assert stock.reading_level == 500.0 and stock.state == "ok"
