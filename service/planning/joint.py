@@ -59,6 +59,8 @@ FALLBACK_SITES = 500
 #: Networks up to this many sites (not in the classic setting) also run each method's own search under
 #: ``best`` and keep the cheapest plan, so ``best`` is never worse than the methods it runs.
 BEST_OF_METHODS_SITES = 500
+#: Multiples ``M`` of the common-rhythm candidates (:meth:`_Search.rhythms`).
+RHYTHM_MULTIPLES = (1, 2, 4)
 #: Capacity factors of the fallback's greedy bins, tried in turn until the exact packing fits.
 FALLBACK_SHRINK = (1.0, 0.9, 0.75)
 
@@ -343,6 +345,34 @@ class _Search:
                 binding = _binding(self.problem, axis, policy)
                 self.candidates.append(_Candidate(policy.method, policy.base_days, patterns, binding, ev, policy))
 
+    def rhythms(self) -> None:
+        """Common-rhythm candidates, blind to the cost model but kind to the truck: for each dispatch
+        interval ``T0`` up to the shortest cap (working-day axis) and each ``M`` in ``RHYTHM_MULTIPLES``,
+        every site on ``T0 · min(M, p_i)`` with ``p_i`` the largest power of two whose cycle fits its
+        cap. Few distinct cycles make the staggered slots carry similar loads, so trips fill up where
+        the class optimum's mixed cycles leave nearly empty ones."""
+        caps = self.week.caps(self.problem.whole_days)
+        if caps.min() < 1:
+            return
+        for T0 in range(1, int(caps.min()) + 1):
+            room = caps // T0
+            top = np.left_shift(1, np.floor(np.log2(room)).astype(np.int64))
+            for M in RHYTHM_MULTIPLES:
+                if self.out_of_time() and self.candidates:
+                    return
+                m = np.minimum(M, top)
+                if M > 1 and (m == np.minimum(M // 2, top)).all():
+                    continue  # same as the previous M
+                policy = Policy("integer", None, T0, m * T0, m * T0 * 2, math.nan)
+                patterns = _patterns(self.problem, self.week, policy, self.deadline)
+                ev = self._evaluate(patterns)
+                if ev is not None and not self.drivable(ev):
+                    patterns = _patterns(self.problem, self.week, policy, self.deadline, rebalanced=True)
+                    ev = self._evaluate(patterns) or ev
+                if ev is not None:
+                    binding = np.full(self.problem.n, "", dtype=object)
+                    self.candidates.append(_Candidate("integer", None, patterns, binding, ev, policy))
+
     def _evaluate(self, patterns: Patterns) -> Evaluation | None:
         key = patterns.period.tobytes() + patterns.offset.tobytes() + patterns.site.tobytes()
         if key in self.seen:
@@ -426,6 +456,8 @@ def _search(problem: Problem, week: WorkWeek, method: str, base_days, deadline) 
     search.variant(1.0, 0.0)
     if not classic:
         search.variant(1.0, 0.0, INTERVALS)
+        if method != "power_of_two":
+            search.rhythms()
         for scale in DISPATCH_SCALES:
             for penalty in STOP_PENALTIES if problem.max_stops is not None else (0.0,):
                 if search.out_of_time():
