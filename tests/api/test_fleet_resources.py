@@ -263,3 +263,15 @@ def test_site_product_is_stored_and_must_be_known(client, auth, fleet, db_sessio
     assert created["product"] == "DSL"
     db_session.expire_all()
     assert db_session.scalars(select(Site.product).order_by(Site.code)).all() == ["LPG", "DSL"]
+
+
+def test_a_csv_reimport_keeps_the_sites_product(client, auth, fleet, db_session):
+    """The CSV carries no product column; importing a stored site again leaves its product alone."""
+    post(client, auth, TRUCKS, TRUCK)
+    post(client, auth, SITES, SITE | {"product": "DSL"})
+    csv = "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity\nS1,Site one,T1,350,0.001,30,10000\n"
+    response = client.post(f"{SITES}/import", data=csv, headers=auth("admin"), content_type="text/csv")
+    assert response.status_code == 200 and response.get_json()["updated"] == 1, response.get_json()
+    db_session.expire_all()
+    site = db_session.scalars(select(Site)).one()
+    assert (site.demand_per_day, site.product) == (350.0, "DSL")
