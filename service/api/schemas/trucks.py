@@ -73,7 +73,10 @@ class TruckSchema(CalendarSchema):
         load_default=None,
         allow_none=True,
         validate=[ma.validate.Length(min=1, max=MAX_PRODUCTS), no_repeats("product")],
-        metadata={"description": "Codes of the products the truck may carry; null: any"},
+        metadata={
+            "description": "Codes of the products the truck may carry, each once; null: any",
+            "uniqueItems": True,
+        },
     )
     active = JsonBool(load_default=True)
     version = ma.fields.Integer(dump_only=True)
