@@ -56,6 +56,8 @@ COLUMNS = (
     "weather_region",
     "base_temperature",
 )
+#: Site fields the CSV does not carry (set through the API); an import leaves them as they are.
+NOT_IN_CSV = ("product",)
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
 FORMAT = (
@@ -195,7 +197,7 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
             f"columns {', '.join(COLUMNS)} and optionally unit.",
             errors,
         )
-    schema = SiteSchema()
+    schema = SiteSchema(exclude=NOT_IN_CSV)  # a re-import keeps what the CSV does not carry
     trucks = repo.trucks_by_code(session)
     rows: list[dict[str, Any]] = []
     numbers: list[int] = []

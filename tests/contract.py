@@ -41,7 +41,7 @@ JOINT_SITE_FIELDS = {
 #: Friday with one trip a day.
 UNCONSTRAINED_CALENDAR = {"working_days": [1, 2, 3, 4, 5, 6, 7], "trips_per_day": 24}
 
-#: (method, rule) → least role, per issues 2, 4, 5 and 6.
+#: (method, rule) → least role, per issues 2, 4, 5, 6 and 16.
 ROUTE_ROLES = {
     ("GET", "/livez"): PUBLIC,
     ("GET", "/readyz"): PUBLIC,
@@ -53,6 +53,13 @@ ROUTE_ROLES = {
     ("GET", "/api/v1/trucks/<string:code>"): "viewer",
     ("PATCH", "/api/v1/trucks/<string:code>"): "admin",
     ("DELETE", "/api/v1/trucks/<string:code>"): "admin",
+    ("GET", "/api/v1/depots"): "viewer",
+    ("POST", "/api/v1/depots"): "admin",
+    ("GET", "/api/v1/depots/<string:code>"): "viewer",
+    ("PATCH", "/api/v1/depots/<string:code>"): "admin",
+    ("GET", "/api/v1/products"): "viewer",
+    ("POST", "/api/v1/products"): "admin",
+    ("GET", "/api/v1/products/<string:code>"): "viewer",
     ("GET", "/api/v1/sites"): "viewer",
     ("POST", "/api/v1/sites"): "admin",
     ("GET", "/api/v1/sites/<string:code>"): "viewer",

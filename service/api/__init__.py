@@ -49,7 +49,9 @@ def init_app(app: Flask) -> Api:
         calculations,
         consumption,
         deliveries,
+        depots,
         plans,
+        products,
         readings,
         settings,
         site_weather,
@@ -75,7 +77,20 @@ def init_app(app: Flask) -> Api:
     )
     app.url_map.converters["id"] = IdConverter  # plan ids in paths: 1 to fields.ID_MAX
     api = Api(app)
-    for module in (settings, trucks, sites, calculations, plans, readings, deliveries, consumption, weather, site_weather):
+    for module in (
+        settings,
+        depots,
+        products,
+        trucks,
+        sites,
+        calculations,
+        plans,
+        readings,
+        deliveries,
+        consumption,
+        weather,
+        site_weather,
+    ):
         api.register_blueprint(module.blp, url_prefix=API_PREFIX + module.PREFIX)
     api.spec.components.schema("WeatherDayIn", schema=WeatherDayInSchema)  # the raw body of POST /weather/{region}
     return api

@@ -5,8 +5,8 @@ from flask.views import MethodView
 from marshmallow import ValidationError
 
 from service import sites_csv
+from service.api import fleet_refs, usable_stock
 from service.api import http_headers as hh
-from service.api import usable_stock
 from service.api.blueprint import Blueprint, accepts_body
 from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
 from service.api.pagination import link_headers
@@ -101,6 +101,7 @@ class Sites(MethodView):
         if repo.code_taken(session, Site, data["code"]):
             raise Problem(409, f"A site with code {data['code']!r} already exists.", kind="conflict")
         usable_stock.check_site(data["code"], data, truck.code, truck.capacity, unit(), data.keys())
+        fleet_refs.check_site(data)
         site = repo.add_site(session, data, truck)
         session.commit()
         return dump(site, truck.code), {"Location": url_for("sites.SiteByCode", code=site.code), "ETag": etag(site)}
@@ -138,6 +139,7 @@ class SiteByCode(MethodView):
         truck = truck_to_check(code, data) if usable_stock.RULE_FIELDS & data.keys() else None
         site = site_or_404(code, for_update=True)
         require_if_match(etag(site))
+        fleet_refs.check_site(data)
         merged = {name: getattr(site, name) for name in ("safe_fill", "tank_capacity", "safety_stock")} | data
         try:
             check_safety_stock(merged)

@@ -3,8 +3,8 @@
 from flask import current_app, url_for
 from flask.views import MethodView
 
+from service.api import fleet_refs, usable_stock
 from service.api import http_headers as hh
-from service.api import usable_stock
 from service.api.blueprint import Blueprint
 from service.api.etags import IF_MATCH_PARAMETER, not_modified, require_if_match, version_etag
 from service.api.pagination import page
@@ -51,11 +51,13 @@ class Trucks(MethodView):
     def post(self, data):
         """Create a truck
 
-        Admin only. Answers 201 with the truck, its `Location` and its `ETag`.
+        Admin only. `depot` and `products` name stored depots and products, and `compartments`
+        sum to `capacity` (422 otherwise). Answers 201 with the truck, its `Location` and its `ETag`.
         """
         session = get_session()
         if repo.code_taken(session, Truck, data["code"]):
             raise Problem(409, f"A truck with code {data['code']!r} already exists.", kind="conflict")
+        fleet_refs.check_truck(data, data["capacity"], data["compartments"])
         truck = repo.add_truck(session, data)
         session.commit()
         return truck, {"Location": url_for("trucks.TruckByCode", code=truck.code), "ETag": etag(truck)}
@@ -85,12 +87,14 @@ class TruckByCode(MethodView):
     def patch(self, data, code):
         """Change a truck (needs If-Match)
 
-        Admin only. Send only the fields to change. A capacity cut below one day's demand of an
+        Admin only. Send only the fields to change. `depot` and `products` name stored depots and
+        products, and the compartments sum to the capacity (422 otherwise). A capacity cut below one day's demand of an
         active site of the truck is refused with 422. Answers with the new version and `ETag`.
         """
         session = get_session()
         truck = truck_or_404(code, for_update=True)
         require_if_match(etag(truck))
+        fleet_refs.check_truck(data, data.get("capacity", truck.capacity), data.get("compartments", truck.compartments))
         if data.get("capacity", truck.capacity) < truck.capacity:
             unit = current_app.config["ULLAGE_SETTINGS"].quantity_unit
             sites = repo.active_sites(session, truck)

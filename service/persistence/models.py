@@ -82,6 +82,7 @@ class Truck(Base):
         CheckConstraint("capacity > 0", name="capacity_positive"),
         CheckConstraint("max_stops IS NULL OR max_stops >= 1", name="max_stops_positive"),
         CheckConstraint("trips_per_day >= 1 AND trips_per_day <= 24", name="trips_per_day_range"),
+        CheckConstraint("cost_per_km >= 0", name="cost_per_km_nonnegative"),
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -101,6 +102,13 @@ class Truck(Base):
     holiday_region: Mapped[str | None] = mapped_column(String(HOLIDAY_REGION_LENGTH))
     #: Local time of day the truck's deliveries are made (projections deliver at this time).
     shift_start: Mapped[dt.time] = mapped_column(Time, default=DEFAULT_SHIFT_START, server_default=text("'06:00:00'"))
+    # The fleet level (issue 16): the depot it starts and ends its trips at, its cost per km of
+    # route, its compartments' capacities (one product per compartment; None: one undivided tank)
+    # and the product codes it may carry (None: any). Lists are JSON; the API validates them.
+    depot: Mapped[str | None] = mapped_column(ForeignKey("depots.code"))
+    cost_per_km: Mapped[float] = mapped_column(Float, default=0.0, server_default=text("0"))
+    compartments: Mapped[list[float] | None] = mapped_column(JSON)
+    products: Mapped[list[str] | None] = mapped_column(JSON)
     active: Mapped[bool] = mapped_column(default=True)
     version: Mapped[int] = mapped_column(default=1)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
@@ -148,9 +156,49 @@ class Site(Base):
     base_temperature: Mapped[float] = mapped_column(
         Float, default=DEFAULT_BASE_TEMPERATURE, server_default=text(str(DEFAULT_BASE_TEMPERATURE))
     )
+    #: Code of the liquid the tank holds (the products list); None: not yet said.
+    product: Mapped[str | None] = mapped_column(ForeignKey("products.code"))
     version: Mapped[int] = mapped_column(default=1)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
     updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class Depot(Base):
+    """Where trucks load and start and end their trips (WGS 84 degrees).
+
+    Watched by the change-stamp triggers: the fleet level's routes start and end here.
+    """
+
+    __tablename__ = "depots"
+    __table_args__ = (
+        CheckConstraint("latitude >= -90 AND latitude <= 90", name="latitude_range"),
+        CheckConstraint("longitude >= -180 AND longitude <= 180", name="longitude_range"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    code: Mapped[str] = mapped_column(String(CODE_LENGTH), unique=True)
+    name: Mapped[str] = mapped_column(String(NAME_LENGTH))
+    latitude: Mapped[float] = mapped_column(Float)
+    longitude: Mapped[float] = mapped_column(Float)
+    version: Mapped[int] = mapped_column(default=1)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class Product(Base):
+    """A liquid the service plans for, with the safe fill its tanks default to (fraction of the tank).
+
+    Watched by the change-stamp triggers, like every table a plan reads.
+    """
+
+    __tablename__ = "products"
+    __table_args__ = (CheckConstraint("safe_fill > 0 AND safe_fill <= 1", name="safe_fill_fraction"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    code: Mapped[str] = mapped_column(String(CODE_LENGTH), unique=True)
+    name: Mapped[str] = mapped_column(String(NAME_LENGTH))
+    safe_fill: Mapped[float] = mapped_column(Float)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
 
 
 class WeatherDay(Base):

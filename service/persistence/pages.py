@@ -14,7 +14,7 @@ from typing import Any
 from sqlalchemy import Select, select
 from sqlalchemy.orm import Session
 
-from service.persistence.models import Plan, Reading, Site, Truck, WeatherDay
+from service.persistence.models import Depot, Plan, Product, Reading, Site, Truck, WeatherDay
 
 
 @dataclass(frozen=True)
@@ -39,6 +39,16 @@ def _page(session: Session, statement: Select[Any], key: Any, limit: int, after:
 def trucks_page(session: Session, limit: int, after: str | None) -> Page:
     """Trucks by code."""
     return _page(session, select(Truck), Truck.code, limit, after, False)
+
+
+def depots_page(session: Session, limit: int, after: str | None) -> Page:
+    """Depots by code."""
+    return _page(session, select(Depot), Depot.code, limit, after, False)
+
+
+def products_page(session: Session, limit: int, after: str | None) -> Page:
+    """Products by code."""
+    return _page(session, select(Product), Product.code, limit, after, False)
 
 
 def sites_page(session: Session, limit: int, after: str | None, truck_code: str | None = None) -> Page:

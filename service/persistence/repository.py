@@ -21,6 +21,7 @@ SITE_FIELDS = (
     "lead_time_days",
     "weather_region",
     "base_temperature",
+    "product",
 )
 TRUCK_FIELDS = (
     "name",
@@ -32,6 +33,10 @@ TRUCK_FIELDS = (
     "closed_dates",
     "holiday_region",
     "shift_start",
+    "depot",
+    "cost_per_km",
+    "compartments",
+    "products",
     "active",
 )
 
@@ -106,8 +111,9 @@ def truck_codes(session: Session, ids: Iterable[int]) -> dict[int, str]:
     return dict(session.execute(select(Truck.id, Truck.code).where(Truck.id.in_(ids))).all())
 
 
-def apply_changes(row: Site | Truck, changes: Mapping[str, Any], allowed: Iterable[str]) -> bool:
-    """Set the allowed fields that differ; bump ``version`` and ``updated_at`` when anything changed."""
+def apply_changes(row: Any, changes: Mapping[str, Any], allowed: Iterable[str]) -> bool:
+    """Set the allowed fields that differ; bump ``version`` and ``updated_at`` when anything changed
+    (a site, truck or depot: any row with those two columns)."""
     changed = False
     for name in allowed:
         if name in changes and getattr(row, name) != changes[name]:

@@ -62,6 +62,7 @@ TRUCK_NUMBERS = {
     "capacity": (True, True, False, False),
     "max_stops": (False, True, False, True),
     "trips_per_day": (False, True, False, True),
+    "cost_per_km": (False, False, False, False),  # issue 16
 }
 NULLABLE = {"latitude", "longitude", "max_stops", "service_level"}
 

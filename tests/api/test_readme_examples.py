@@ -47,7 +47,7 @@ def _recording(app, log: list[tuple[str, str, int]]):  # type: ignore[no-untyped
 
 def test_the_readme_marks_its_runnable_examples():
     names = [name for name, _script in readme_examples()]
-    assert names == ["admin", "plans", "deliveries", "weather"]
+    assert names == ["admin", "plans", "deliveries", "fleet", "weather"]
     assert all("ull_..." not in script for name, script in readme_examples() if name != "admin")
 
 

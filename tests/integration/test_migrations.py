@@ -13,6 +13,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.health import alembic_config, migration_head
+from service.persistence import db
 from service.persistence import plans as plan_store
 from service.persistence.models import Base, Site, Truck
 
@@ -222,5 +223,68 @@ def test_0007_gives_existing_sites_no_weather_region_and_keeps_the_change_stamp(
                 ),
                 {"day": dt.date(2026, 11, 30), "now": now},
             )
+    finally:
+        engine.dispose()
+
+
+def test_0008_gives_existing_trucks_and_sites_fleet_defaults_and_keeps_the_change_stamp(database_url):
+    """Issue 16: a truck stored before the fleet level has no depot, cost per km 0, no compartments
+    and no product list, a site no product; trucks and sites (columns added in place, not rebuilt)
+    and the new depots and products tables all move the change stamp; the references hold."""
+    config = alembic_config(database_url)
+    command.downgrade(config, "0007")
+    engine = create_engine(database_url)
+    now = dt.datetime(2026, 12, 1, tzinfo=dt.UTC)
+    try:
+        with engine.begin() as conn:
+            conn.execute(
+                text(
+                    "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
+                    " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
+                ),
+                {"yes": True, "now": now},
+            )
+            conn.execute(
+                text(
+                    "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
+                    " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
+                    " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
+                ),
+                {"yes": True, "now": now},
+            )
+        command.upgrade(config, "head")
+        engine.dispose()
+        with engine.connect() as conn:
+            truck = conn.execute(text("SELECT depot, cost_per_km, compartments, products, version FROM trucks")).one()
+            site = conn.execute(text("SELECT product, version FROM sites")).one()
+        assert tuple(truck) == (None, 0.0, None, None, 1)
+        assert tuple(site) == (None, 1)
+        stamps = [plan_store.change_stamp(engine)]
+        for statement in (
+            "INSERT INTO depots (code, name, latitude, longitude, version, created_at, updated_at)"
+            " VALUES ('D1', 'North depot', 52.1, 4.3, 1, :now, :now)",
+            "INSERT INTO products (code, name, safe_fill, created_at) VALUES ('DSL', 'Diesel', 0.95, :now)",
+            "UPDATE trucks SET depot = 'D1', cost_per_km = 1.5",
+            "UPDATE sites SET product = 'DSL'",
+            "UPDATE depots SET latitude = 52.2",
+            "UPDATE products SET safe_fill = 0.9",
+        ):
+            with engine.begin() as conn:
+                conn.execute(text(statement), {"now": now})
+            stamps.append(plan_store.change_stamp(engine))
+        assert len(set(stamps)) == len(stamps)  # every change moved it
+    finally:
+        engine.dispose()
+    engine = db.make_engine(database_url)  # the app's engine: SQLite enforces foreign keys there
+    try:
+        for statement in (
+            "UPDATE trucks SET depot = 'NOWHERE'",  # fk_trucks_depot_depots
+            "UPDATE sites SET product = 'NOTHING'",  # fk_sites_product_products
+            "UPDATE trucks SET cost_per_km = -1",  # ck_trucks_cost_per_km_nonnegative
+            "UPDATE products SET safe_fill = 1.5",  # ck_products_safe_fill_fraction
+            "UPDATE depots SET latitude = 91",  # ck_depots_latitude_range
+        ):
+            with pytest.raises(IntegrityError), engine.begin() as conn:
+                conn.execute(text(statement))
     finally:
         engine.dispose()

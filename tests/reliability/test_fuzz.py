@@ -54,6 +54,10 @@ POSITIVE_ALSO = {
     "DELETE /api/v1/sites/{code}": (412,),
     "PATCH /api/v1/trucks/{code}": (412,),
     "DELETE /api/v1/trucks/{code}": (412,),
+    "PATCH /api/v1/depots/{code}": (412,),
+    # Issue 16: a truck's depot and products must name stored rows, its compartments sum to its
+    # capacity (a relation between fields and rows, not a field bound).
+    "POST /api/v1/trucks": (422,),
     # The optional If-Match of an activation: a generated tag never equals the plan's current ETag.
     "POST /api/v1/plans/{plan_id}/activate": (412,),
     # Cross-field physics: usable stock (tank_capacity × safe_fill − safety_stock, capped by the
@@ -67,7 +71,7 @@ POSITIVE_ALSO = {
     # The named truck must exist; safety_stock < safe_fill × tank_capacity and the usable stock
     # lasts one day of demand (cross-field, and across site and truck). A PATCH also meets the
     # If-Match refusal above.
-    "POST /api/v1/sites": (422,),
+    "POST /api/v1/sites": (422,),  # and its product must be stored (issue 16)
     "PATCH /api/v1/sites/{code}": (412, 422),
     # Some YYYY-W53 do not exist (2025-W53); `week` and `from`/`to` exclude each other; from ≤ to,
     # at most 92 days.
@@ -101,6 +105,7 @@ IF_MATCH_OPERATIONS = (
     "DELETE /api/v1/sites/{code}",
     "PATCH /api/v1/trucks/{code}",
     "DELETE /api/v1/trucks/{code}",
+    "PATCH /api/v1/depots/{code}",
 )
 DEFAULT_MISSING_HEADER = ["400", "401", "403", "406", "415", "422"]
 #: The one check switched off, for two operations, and why: ``/sites/import`` and ``/sites/export``

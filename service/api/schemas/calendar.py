@@ -15,7 +15,7 @@ from service.api.schemas.common import StrictSchema
 DATE_PATTERN = r"^(19[7-9][0-9]|20[0-9]{2}|21[0-9]{2}|2200)-(0[1-9]|1[0-2])-(0[1-9]|[12][0-9]|3[01])$"
 
 
-def _no_repeats(what: str):  # type: ignore[no-untyped-def]
+def no_repeats(what: str):  # type: ignore[no-untyped-def]
     def check(values: list[Any]) -> None:
         seen = set()
         for value in values:
@@ -52,7 +52,7 @@ class CalendarSchema(StrictSchema):
     working_days = ma.fields.List(
         JsonInt(validate=Range(min=1, max=7)),
         load_default=lambda: list(working_calendar.DEFAULT_WORKING_DAYS),
-        validate=[ma.validate.Length(min=1, max=7), _no_repeats("weekday")],
+        validate=[ma.validate.Length(min=1, max=7), no_repeats("weekday")],
         metadata={
             "description": "ISO weekdays the truck works (1 = Monday … 7 = Sunday), each at most once; "
             "default [1, 2, 3, 4, 5]. Trips are planned on these days only.",
@@ -68,7 +68,7 @@ class CalendarSchema(StrictSchema):
         # The pattern states the accepted years in the OpenAPI document (format "date" the days).
         BoundedDate(metadata={"pattern": DATE_PATTERN}),
         load_default=list,
-        validate=[ma.validate.Length(max=working_calendar.MAX_CLOSED_DATES), _no_repeats("date")],
+        validate=[ma.validate.Length(max=working_calendar.MAX_CLOSED_DATES), no_repeats("date")],
         metadata={
             "description": f"ISO dates the truck does not work (at most {working_calendar.MAX_CLOSED_DATES}, "
             f"{DATE_RANGE}), each at most once; default []. A delivery that falls on one moves to an "

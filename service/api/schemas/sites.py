@@ -73,6 +73,12 @@ class SiteSchema(StrictSchema):
         validate=Range(min=-50, max=50),
         metadata={"description": "Base of the site's heating degree days, °C (15.5 UK; 18 NL, CA; 18.3 = 65 °F US)"},
     )
+    product = ma.fields.String(
+        load_default=None,
+        allow_none=True,
+        validate=code_field_validate,
+        metadata={"description": "Code of the product the tank holds (GET /api/v1/products); null: not said"},
+    )
     version = ma.fields.Integer(dump_only=True)
     created_at = ma.fields.DateTime(dump_only=True)
     updated_at = ma.fields.DateTime(dump_only=True)

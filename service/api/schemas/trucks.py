@@ -7,10 +7,13 @@ import marshmallow as ma
 
 from service.api.fields import JsonBool, JsonFloat, JsonInt, Range
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.calendar import CalendarSchema
+from service.api.schemas.calendar import CalendarSchema, no_repeats
 from service.api.schemas.common import code_field_validate, name_validate, nonnegative, positive
 
 #: ``HH:MM`` or ``HH:MM:SS`` on a 24-hour clock (ISO 8601 extended format, no fraction, no offset).
+#: Compartments per truck: the exact loading search tries up to 2^C subsets (planning/fleet/compartments.py).
+MAX_COMPARTMENTS = 12
+MAX_PRODUCTS = 50
 CLOCK_PATTERN = r"^([01][0-9]|2[0-3]):[0-5][0-9](:[0-5][0-9])?$"
 
 
@@ -42,6 +45,37 @@ class TruckSchema(CalendarSchema):
         metadata={
             "description": "Local time of day deliveries are made (HH:MM or HH:MM:SS), default 06:00",
             "pattern": CLOCK_PATTERN,
+        },
+    )
+    depot = ma.fields.String(
+        load_default=None,
+        allow_none=True,
+        validate=code_field_validate,
+        metadata={"description": "Code of the depot the truck starts and ends its trips at"},
+    )
+    cost_per_km = JsonFloat(
+        load_default=0.0,
+        validate=nonnegative(),
+        metadata={"description": "Cost of one km of route, in the service currency; default 0"},
+    )
+    compartments = ma.fields.List(
+        JsonFloat(validate=positive()),
+        load_default=None,
+        allow_none=True,
+        validate=ma.validate.Length(min=1, max=MAX_COMPARTMENTS),
+        metadata={
+            "description": "Capacities of the compartments, one product per compartment; they sum to "
+            "`capacity`. null: one undivided tank"
+        },
+    )
+    products = ma.fields.List(
+        ma.fields.String(validate=code_field_validate),
+        load_default=None,
+        allow_none=True,
+        validate=[ma.validate.Length(min=1, max=MAX_PRODUCTS), no_repeats("product")],
+        metadata={
+            "description": "Codes of the products the truck may carry, each once; null: any",
+            "uniqueItems": True,
         },
     )
     active = JsonBool(load_default=True)

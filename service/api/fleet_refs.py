@@ -1,0 +1,57 @@
+"""The fleet fields of trucks and sites that name other rows or depend on each other (422 if not).
+
+A truck's ``depot`` and ``products`` and a site's ``product`` must name stored depots and
+products; a truck's ``compartments`` sum to its ``capacity`` (``W = Σ C_j``, docs/fleet.md §1).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from typing import Any
+
+from service.errors import Problem
+from service.persistence import fleet
+from service.persistence.repository import NotFound
+from service.request_db import get_session
+
+#: Relative slack when the compartments are compared with the capacity (decimal inputs).
+SUM_TOLERANCE = 1e-9
+
+
+def _refuse(pointer: str, detail: str) -> Problem:
+    return Problem(422, detail, kind="validation", errors=[{"pointer": pointer, "detail": detail}])
+
+
+def check_truck(changes: Mapping[str, Any], capacity: float, compartments: list[float] | None) -> None:
+    """Refuse an unknown depot or product and compartments that do not sum to the capacity.
+
+    ``changes`` are the fields sent; ``capacity`` and ``compartments`` the truck's values after the
+    change (the sent ones, else the stored ones).
+    """
+    session = get_session()
+    if changes.get("depot") is not None:
+        try:
+            fleet.depot_by_code(session, changes["depot"])
+        except NotFound as exc:
+            raise _refuse("#/depot", str(exc)) from exc
+    if changes.get("products") is not None:
+        unknown = fleet.unknown_products(session, changes["products"])
+        if unknown:
+            index = changes["products"].index(unknown[0])
+            raise _refuse(f"#/products/{index}", f"No product with code {unknown[0]!r}.")
+    if ({"capacity", "compartments"} & changes.keys()) and compartments is not None:
+        total = math.fsum(compartments)
+        if not math.isclose(total, capacity, rel_tol=SUM_TOLERANCE):
+            raise _refuse(
+                "#/compartments", f"The compartments sum to {total:g}; they must sum to the capacity {capacity:g}."
+            )
+
+
+def check_site(changes: Mapping[str, Any]) -> None:
+    """Refuse a site write that names an unknown product."""
+    if changes.get("product") is not None:
+        try:
+            fleet.product_by_code(get_session(), changes["product"])
+        except NotFound as exc:
+            raise _refuse("#/product", str(exc)) from exc
