@@ -99,6 +99,7 @@ def test_role_matrix(app, client, demo, auth):
                 headers=headers,
                 json={} if method in ("POST", "PATCH") and rule.startswith("/api/") else None,
             )
+            response.close()  # headers and status are all this test reads; a static file stays open otherwise
             where = f"{caller} {method} {path} → {response.status_code}"
             assert response.status_code < 500, where
             assert_security_headers(response, where)
