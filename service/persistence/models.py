@@ -83,6 +83,10 @@ class Truck(Base):
         CheckConstraint("max_stops IS NULL OR max_stops >= 1", name="max_stops_positive"),
         CheckConstraint("trips_per_day >= 1 AND trips_per_day <= 24", name="trips_per_day_range"),
         CheckConstraint("cost_per_km >= 0", name="cost_per_km_nonnegative"),
+        CheckConstraint("shift_hours IS NULL OR (shift_hours > 0 AND shift_hours <= 24)", name="shift_hours_range"),
+        CheckConstraint("average_speed_kmh IS NULL OR average_speed_kmh > 0", name="average_speed_kmh_range"),
+        CheckConstraint("stop_minutes IS NULL OR stop_minutes >= 0", name="stop_minutes_range"),
+        CheckConstraint("load_minutes IS NULL OR load_minutes >= 0", name="load_minutes_range"),
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -109,6 +113,12 @@ class Truck(Base):
     cost_per_km: Mapped[float] = mapped_column(Float, default=0.0, server_default=text("0"))
     compartments: Mapped[list[float] | None] = mapped_column(JSON)
     products: Mapped[list[str] | None] = mapped_column(JSON)
+    # The truck's shift (issue 16; None: not limited): when set, a day's trips (driving at the
+    # average speed, plus minutes per stop, plus loading minutes per trip) fit ``shift_hours``.
+    shift_hours: Mapped[float | None] = mapped_column(Float)
+    average_speed_kmh: Mapped[float | None] = mapped_column(Float)
+    stop_minutes: Mapped[float | None] = mapped_column(Float)
+    load_minutes: Mapped[float | None] = mapped_column(Float)
     active: Mapped[bool] = mapped_column(default=True)
     version: Mapped[int] = mapped_column(default=1)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
@@ -282,6 +292,40 @@ class Plan(Base):
     inputs: Mapped[dict[str, Any]] = mapped_column(JSON)
     inputs_digest: Mapped[str] = mapped_column(String(64))
     result: Mapped[dict[str, Any]] = mapped_column(JSON)
+
+
+class NetworkPlanJob(Base):
+    """A network plan (issue 16) computed in the background: request snapshot, state, result.
+
+    ``queued`` → ``running`` (claimed by ``worker``, which writes ``progress`` and ``heartbeat_at``)
+    → ``done`` (``result`` set) or ``failed`` (``error`` set). A running job whose heartbeat is older
+    than the lease is failed by the next reader or worker. ``activated_at`` is set once, in the same
+    transaction that applies the assignment and activates every truck's plan.
+    """
+
+    __tablename__ = "network_plan_jobs"
+    __table_args__ = (
+        CheckConstraint("status IN ('queued', 'running', 'done', 'failed')", name="status_known"),
+        CheckConstraint("progress >= 0 AND progress <= 1", name="progress_fraction"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    status: Mapped[str] = mapped_column(String(12), default="queued", index=True)
+    progress: Mapped[float] = mapped_column(Float, default=0.0)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    created_by: Mapped[str] = mapped_column(String(80))
+    started_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+    heartbeat_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+    finished_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+    worker: Mapped[str | None] = mapped_column(String(120))
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    start_date: Mapped[dt.date] = mapped_column(Date)
+    inputs: Mapped[dict[str, Any]] = mapped_column(JSON)
+    inputs_digest: Mapped[str] = mapped_column(String(64))
+    result: Mapped[dict[str, Any] | None] = mapped_column(JSON)
+    error: Mapped[str | None] = mapped_column(Text)
+    activated_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+    activated_by: Mapped[str | None] = mapped_column(String(80))
 
 
 class PlanSite(Base):
