@@ -25,6 +25,7 @@ from service.planning.errors import PlanningInputError
 from service.planning.evaluation import Evaluation, evaluate, limited
 from service.planning.fallback import fallback_patterns
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
+from service.planning.local_search import improve_local
 from service.planning.integer_multiple import integer_policies_by_interval, integer_policy
 from service.planning.patterns import Patterns, from_working_cycles
 from service.planning.policy import Policy
@@ -61,6 +62,15 @@ FALLBACK_SITES = 500
 BEST_OF_METHODS_SITES = 500
 #: Multiples ``M`` of the common-rhythm candidates (:meth:`_Search.rhythms`).
 RHYTHM_MULTIPLES = (1, 2, 4)
+#: Under ``best``, networks up to this many sites (not in the classic setting) get the local search of
+#: :mod:`local_search` on the chosen plan and on greedy starts of these repeat periods (days).
+LOCAL_SITES = 500
+LOCAL_REPEATS_WEEKLY = (14, 28, 56, 112)
+LOCAL_REPEATS_DAILY = (6, 8, 10, 12, 16, 28, 56, 112)
+#: Seconds the local search may take at most (within the planning budget).
+LOCAL_SECONDS = 4.0
+#: The chosen plan is a local-search start when its repeat (whole weeks) is at most this many days.
+LOCAL_START_DAYS = 112
 #: Capacity factors of the fallback's greedy bins, tried in turn until the exact packing fits.
 FALLBACK_SHRINK = (1.0, 0.9, 0.75)
 
@@ -473,6 +483,22 @@ def _search(problem: Problem, week: WorkWeek, method: str, base_days, deadline) 
     return search
 
 
+def _local(problem: Problem, week: WorkWeek, search: _Search, deadline) -> _Candidate:
+    """The chosen plan or the cheapest drivable plan of the local search (:mod:`local_search`)."""
+    best = search.best
+    assert best is not None
+    R = best.evaluation.repeat if week.n == 7 else math.lcm(best.evaluation.repeat, 7)
+    start = best.patterns if R <= LOCAL_START_DAYS else None
+    repeats = list(LOCAL_REPEATS_DAILY if week.n == 7 else LOCAL_REPEATS_WEEKLY)
+    own = time.monotonic() + LOCAL_SECONDS
+    until = own if deadline is None else min(deadline, own)
+    for patterns in improve_local(problem, week, start, R, repeats, until):
+        ev = evaluate(problem, patterns, search.limited)
+        if ev is not None and search.drivable(ev) and ev.cost < best.evaluation.cost * (1 - 1e-12):
+            best = _Candidate("integer", None, patterns, np.full(problem.n, "", dtype=object), ev, None)
+    return best
+
+
 def _least_trips_needed(problem: Problem, week: WorkWeek, method: str, base_days, deadline, found: int) -> int:
     """The least ``trips_per_day`` above the given one for which the search finds a drivable plan: each
     smaller value than ``found`` (what the best candidate needed) whose drivable bound is finite is
@@ -591,6 +617,8 @@ def plan_joint(
             ):
                 search.best = other.best
     classic = week.n == 7 and not search.limited
+    if method == "best" and search.best is not None and not classic and problem.n <= LOCAL_SITES:
+        search.best = _local(problem, week, search, deadline)
     warnings: list[str] = []
     if not base_fits:
         i = int(np.argmin(axis_caps))

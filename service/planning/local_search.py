@@ -1,0 +1,302 @@
+"""Local search over whole site patterns after the candidate search: fewer, fuller trips.
+
+The candidates of ``joint.py`` come from policy classes; their trips are then what the staggering gives,
+often a few nearly empty ones. This step works on the plan itself, on a fixed repeat ``R`` (calendar
+days; whole weeks unless all seven days work). A site's *option* is a pattern of period ``P`` (a
+divisor of ``R`` of the form ``R / 2^k``, whole weeks on a weekly calendar) with ``c`` deliveries on
+working days spread as evenly as the working days allow: on the ``N`` working days of ``[0, P)``,
+indices ``(r + ⌊j N / c⌋) mod N``, ``j < c``, for every rotation ``r < N`` (Bresenham spreads; a
+shifted spread ``⌊(j N + s) / c⌋`` is the same cyclic word of gaps started elsewhere, so the rotations
+cover it; Monday, Wednesday, Friday is one of them), kept when every cyclic calendar gap is
+at most ``⌊U_i⌋``. Rule 2 then holds by construction (each delivery carries ``d_i ×`` its gap), the
+dates are distinct (one stop per site per date) and on working weekdays.
+
+Each date ``t`` of the repeat needs at least ``L(t) = max(⌈load_t / W⌉, ⌈count_t / S⌉, big_t, [count_t > 0])``
+trips (``rebalance.py``; ``big_t`` the deliveries above ``W / 2``, no two of which share a trip); the
+search minimises
+
+    K Σ_t L(t) / R + Σ_i own_i − ε (K / R) Σ_t ((load_t / W)² + (count_t / S)²) + BIG · Σ_t max(0, L(t) − τ)
+
+one site at a time (``own_i = (k_i c + H_i Σ g²) / P`` its stop and holding cost per day): take the
+site out, score every option at once, put it on the best. An option may cost the site more than its
+pattern when it saves a trip; the small concentration term (ε) prefers fuller dates, so that
+nearly empty trips drain over several moves. Starts: the chosen plan (when its periods divide
+``R``) and a greedy insertion (largest deliveries first) on a few short repeats. The planner keeps
+the result only when its exact cost (every date packed, ``evaluation.py``) is lower and every date
+fits ``trips_per_day``; the step is anytime (checks the deadline between sites).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from service.planning.inputs import Problem
+from service.planning.packing import LOAD_TOLERANCE
+from service.planning.patterns import Patterns
+from service.planning.workweek import WorkWeek
+
+#: Weight of the concentration term (in trips: a date filled to ``W`` and ``S`` scores ``2 ε``).
+CONCENTRATION = 0.05
+#: Passes over the sites per start at most.
+PASSES = 6
+#: Options per site and start at most (the cheapest for the site first).
+MAX_OPTIONS = 4000
+
+
+@dataclass
+class _Options:
+    """Flat options of one site: per option its period, own cost, and its (date, gap) entries over ``R``."""
+
+    period: np.ndarray
+    own: np.ndarray
+    first: np.ndarray  # offset of each option's first entry in ``date``/``gap``
+    date: np.ndarray
+    gap: np.ndarray
+    owner: np.ndarray  # option of each entry
+    base: list  # (days within P, gaps) of each option
+
+
+class _Spreads:
+    """Even spreads of ``c`` deliveries over the working days of a period ``P`` (cached per ``(P, c)``)."""
+
+    def __init__(self, week: WorkWeek):
+        self.week = week
+        self.cache: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]] = {}
+
+    def get(self, P: int, c: int) -> tuple[np.ndarray, np.ndarray]:
+        key = (P, c)
+        if key not in self.cache:
+            days = np.arange(P)
+            wd = days[self.week.is_working(days)]
+            N = len(wd)
+            idx = (np.arange(N)[:, None] + (np.arange(c)[None, :] * N) // c) % N
+            idx = np.unique(np.sort(idx, axis=1), axis=0)
+            cal = wd[idx]
+            nxt = np.concatenate([cal[:, 1:], cal[:, :1] + P], axis=1)
+            self.cache[key] = (cal, nxt - cal)
+        return self.cache[key]
+
+
+def _periods(R: int, week: WorkWeek) -> list[int]:
+    out = []
+    P = R
+    while P >= 1 and R % P == 0 and (week.n == 7 or P % 7 == 0):
+        out.append(P)
+        if P % 2:
+            break
+        P //= 2
+    return out
+
+
+def _options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int) -> _Options | None:
+    """The options of site ``i`` whose own cost is within ``K c / P`` of the cheapest (``c / P`` the
+    deliveries per day of the cheapest; no move can save more trips per day than the site's deliveries)."""
+    k, H, u = float(problem.stop_cost[i]), float(problem.H[i]), int(problem.whole_days[i])
+    found = []  # (own, P, days, gaps)
+    for P in _periods(R, week):
+        N = int(week.is_working(np.arange(P)).sum())
+        for c in range(max(1, math.ceil(P / u)), N + 1):
+            found.append((P, c, (k * c + H * P * P / c) / P))  # Σ g² ≥ P² / c
+    if not found:
+        return None
+    cheapest = min(found, key=lambda f: f[2])
+    floor = cheapest[2]
+    window = problem.dispatch_cost * cheapest[1] / cheapest[0] * 1.5
+    rows = []
+    for P, c, low in found:
+        if low > floor + window:
+            continue
+        cal, gaps = spreads.get(P, c)
+        ok = gaps.max(axis=1) <= u
+        if not ok.any():
+            continue
+        cal, gaps = cal[ok], gaps[ok]
+        own = (k * c + H * (gaps.astype(float) ** 2).sum(axis=1)) / P
+        for row in range(len(cal)):
+            rows.append((float(own[row]), P, cal[row], gaps[row]))
+    if not rows:
+        return None
+    least = min(r[0] for r in rows)
+    rows = [r for r in rows if r[0] <= least + window]
+    rows.sort(key=lambda r: r[0])
+    rows = rows[:MAX_OPTIONS]
+    return _pack_options(rows, R)
+
+
+def _pack_options(rows, R: int) -> _Options:
+    dates, gaps, owners, firsts = [], [], [], []
+    at = 0
+    for j, (_, P, days, g) in enumerate(rows):
+        reps = R // P
+        d = (days[None, :] + P * np.arange(reps)[:, None]).ravel()
+        dates.append(d)
+        gaps.append(np.tile(g, reps))
+        owners.append(np.full(len(d), j))
+        firsts.append(at)
+        at += len(d)
+    return _Options(
+        period=np.array([r[1] for r in rows], dtype=np.int64),
+        own=np.array([r[0] for r in rows]),
+        first=np.array(firsts, dtype=np.int64),
+        date=np.concatenate(dates),
+        gap=np.concatenate(gaps).astype(float),
+        owner=np.concatenate(owners),
+        base=[(r[2], r[3]) for r in rows],
+    )
+
+
+class _State:
+    """Per-date loads and counts over the repeat, and the scoring of :func:`improve_local`."""
+
+    def __init__(self, problem: Problem, R: int):
+        self.R = R
+        self.limit = problem.capacity * (1 + LOAD_TOLERANCE)
+        self.stops = math.inf if problem.max_stops is None else float(problem.max_stops)
+        self.tau = math.inf if problem.trips_per_day is None else problem.trips_per_day
+        self.big = float(problem.n + 1)
+        self.K = problem.dispatch_cost
+        self.load = np.zeros(R)
+        self.count = np.zeros(R)
+        self.large = np.zeros(R)  # deliveries above W / 2: no two share a trip
+        self.half = self.limit / 2
+        self.wload = 1.0 / self.limit if math.isfinite(self.limit) else 0.0
+        self.wcount = 1.0 / self.stops if math.isfinite(self.stops) else 0.0
+
+    def score(self, load, count, big):
+        by_load = np.ceil(load * self.wload * (1 - 1e-12)) if self.wload else 0.0
+        L = np.maximum(np.maximum(by_load, np.ceil(count * self.wcount * (1 - 1e-12))), np.maximum(big, count > 0))
+        over = np.maximum(L - self.tau, 0.0) if math.isfinite(self.tau) else 0.0
+        fill = (load * self.wload) ** 2 + (count * self.wcount) ** 2
+        return self.K / self.R * (L - CONCENTRATION * fill + self.big * over)
+
+    def delta(self, date, q):
+        load, count, big = self.load[date], self.count[date], self.large[date]
+        return self.score(load + q, count + 1, big + (q > self.half)) - self.score(load, count, big)
+
+    def add(self, date, q, sign):
+        self.load[date] += sign * q
+        self.count[date] += sign
+        self.large[date] += sign * (q > self.half)
+
+
+def _best(state: _State, opts: _Options, demand: float) -> int:
+    q = demand * opts.gap
+    d = state.delta(opts.date, q)
+    total = np.bincount(opts.owner, weights=d, minlength=len(opts.own)) + opts.own
+    return int(np.argmin(total))
+
+
+def _search(problem, state: _State, options: list[_Options], chosen: list[int], deadline) -> bool:
+    """Site-by-site moves until a pass changes nothing (or ``PASSES``, or the deadline); False when cut."""
+    d = problem.demand
+    order = np.argsort(-np.array([o.own[c] for o, c in zip(options, chosen, strict=True)]), kind="stable").tolist()
+    for _ in range(PASSES):
+        changed = False
+        for i in order:
+            if deadline is not None and time.monotonic() > deadline:
+                return False
+            o, c = options[i], chosen[i]
+            sl = o.owner == c
+            state.add(o.date[sl], d[i] * o.gap[sl], -1)
+            j = _best(state, o, float(d[i]))
+            q = d[i] * o.gap
+            if j != c:
+                cur = float(state.delta(o.date[sl], q[sl]).sum() + o.own[c])
+                new = float(state.delta(o.date[o.owner == j], q[o.owner == j]).sum() + o.own[j])
+                if new < cur - 1e-12:
+                    chosen[i] = j
+                    changed = True
+            sl = o.owner == chosen[i]
+            state.add(o.date[sl], q[sl], +1)
+        if not changed:
+            break
+    return True
+
+
+def _patterns(problem: Problem, options: list[_Options], chosen: list[int]) -> Patterns:
+    period = np.array([o.period[c] for o, c in zip(options, chosen, strict=True)], dtype=np.int64)
+    sites, offsets, gaps = [], [], []
+    for i, (o, c) in enumerate(zip(options, chosen, strict=True)):
+        days, g = o.base[c]
+        sites.append(np.full(len(days), i))
+        offsets.append(days)
+        gaps.append(g)
+    site, offset, gap = np.concatenate(sites), np.concatenate(offsets), np.concatenate(gaps)
+    order = np.lexsort((offset, site))
+    return Patterns(period, site[order], offset[order].astype(np.int64), gap[order].astype(np.int64))
+
+
+def _with_current(opts: _Options, P: int, days: np.ndarray, gaps: np.ndarray, own: float, R: int) -> tuple[_Options, int]:
+    """``opts`` with the site's current pattern added as an option (its index returned)."""
+    rows = [(float(o), int(p), b[0], b[1]) for o, p, b in zip(opts.own, opts.period, opts.base, strict=True)]
+    for j, (o, p, bd, bg) in enumerate(rows):
+        if p == P and len(bd) == len(days) and (bd == days).all():
+            return opts, j
+    rows.append((own, P, days, gaps))
+    return _pack_options(rows, R), len(rows) - 1
+
+
+def improve_local(
+    problem: Problem, week: WorkWeek, start: Patterns | None, start_repeat: int, repeats: list[int], deadline: float | None
+) -> list[Patterns]:
+    """Improved plans (module docstring): one per start that completed, best first is not guaranteed."""
+    d = problem.demand
+    out: list[Patterns] = []
+    spreads = _Spreads(week)
+    for R, from_start in ([(start_repeat, True)] if start is not None else []) + [(R, False) for R in repeats]:
+        if deadline is not None and time.monotonic() > deadline:
+            break
+        if from_start:
+            assert start is not None
+            if (R % start.period).any():
+                continue
+        state = _State(problem, R)
+        options: list[_Options] = []
+        chosen: list[int] = []
+        own_stop, own_hold = (None, None) if start is None else start.site_costs(problem.stop_cost, problem.H)
+        failed = False
+        for i in range(problem.n):
+            o = _options(problem, week, spreads, R, i)
+            if from_start:
+                assert start is not None and own_stop is not None and own_hold is not None
+                mine = start.site == i
+                P = int(start.period[i])
+                if o is None:
+                    o = _pack_options([(0.0, P, start.offset[mine], start.gap[mine])], R)
+                    o.own[:] = own_stop[i] + own_hold[i]
+                    c = 0
+                else:
+                    o, c = _with_current(o, P, start.offset[mine], start.gap[mine], float(own_stop[i] + own_hold[i]), R)
+            elif o is None:
+                failed = True
+                break
+            else:
+                c = -1
+            options.append(o)
+            chosen.append(c)
+        if failed:
+            continue
+        if not from_start:  # greedy insertion, largest deliveries first
+            size = np.array([d[i] * float(o.gap[o.owner == 0].max()) for i, o in enumerate(options)])
+            for i in np.argsort(-size, kind="stable").tolist():
+                if deadline is not None and time.monotonic() > deadline:
+                    failed = True
+                    break
+                o = options[i]
+                j = _best(state, o, float(d[i]))
+                chosen[i] = j
+                sl = o.owner == j
+                state.add(o.date[sl], d[i] * o.gap[sl], +1)
+            if failed:
+                break
+        else:
+            for i, (o, c) in enumerate(zip(options, chosen, strict=True)):
+                sl = o.owner == c
+                state.add(o.date[sl], d[i] * o.gap[sl], +1)
+        _search(problem, state, options, chosen, deadline)
+        out.append(_patterns(problem, options, chosen))
+    return out
