@@ -71,6 +71,8 @@ LOCAL_REPEATS_DAILY = (6, 8, 10, 12, 16, 28, 56, 112)
 LOCAL_SECONDS = 4.0
 #: The chosen plan is a local-search start when its repeat (whole weeks) is at most this many days.
 LOCAL_START_DAYS = 112
+#: A local plan is also a start on twice its repeat when that is at most this many days.
+LOCAL_LONG_DAYS = 224
 #: Capacity factors of the fallback's greedy bins, tried in turn until the exact packing fits.
 FALLBACK_SHRINK = (1.0, 0.9, 0.75)
 
@@ -492,7 +494,16 @@ def _local(problem: Problem, week: WorkWeek, search: _Search, deadline) -> _Cand
     repeats = list(LOCAL_REPEATS_DAILY if week.n == 7 else LOCAL_REPEATS_WEEKLY)
     own = time.monotonic() + LOCAL_SECONDS
     until = own if deadline is None else min(deadline, own)
-    for patterns in improve_local(problem, week, start, R, repeats, until):
+    plans = improve_local(problem, week, start, R, repeats, until)
+    best = _cheapest(problem, search, best, plans)
+    R = best.evaluation.repeat
+    if best.policy is None and 2 * R <= LOCAL_LONG_DAYS:  # the local plan as a start on twice its repeat
+        best = _cheapest(problem, search, best, improve_local(problem, week, best.patterns, 2 * R, [], until))
+    return best
+
+
+def _cheapest(problem: Problem, search: _Search, best: _Candidate, plans: list[Patterns]) -> _Candidate:
+    for patterns in plans:
         ev = evaluate(problem, patterns, search.limited)
         if ev is not None and search.drivable(ev) and ev.cost < best.evaluation.cost * (1 - 1e-12):
             best = _Candidate("integer", None, patterns, np.full(problem.n, "", dtype=object), ev, None)

@@ -53,11 +53,17 @@ class _Options:
 
     period: np.ndarray
     own: np.ndarray
-    first: np.ndarray  # offset of each option's first entry in ``date``/``gap``
     date: np.ndarray
     gap: np.ndarray
     owner: np.ndarray  # option of each entry
-    base: list  # (days within P, gaps) of each option
+    blocks: list  # (own, P, days, gaps) with ``days``, ``gaps`` of shape (options, c)
+    where: np.ndarray  # (block, row) of each option
+
+    def base(self, j: int) -> tuple[int, np.ndarray, np.ndarray]:
+        """Period, days within it and gaps of option ``j``."""
+        b, row = self.where[j]
+        _, P, days, gaps = self.blocks[b]
+        return P, days[row], gaps[row]
 
 
 class _Spreads:
@@ -106,7 +112,7 @@ def _options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int
     cheapest = min(found, key=lambda f: f[2])
     floor = cheapest[2]
     window = problem.dispatch_cost * cheapest[1] / cheapest[0] * 1.5
-    rows = []
+    blocks = []
     for P, c, low in found:
         if low > floor + window:
             continue
@@ -116,36 +122,45 @@ def _options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int
             continue
         cal, gaps = cal[ok], gaps[ok]
         own = (k * c + H * (gaps.astype(float) ** 2).sum(axis=1)) / P
-        for row in range(len(cal)):
-            rows.append((float(own[row]), P, cal[row], gaps[row]))
-    if not rows:
+        blocks.append((own, P, cal, gaps))
+    if not blocks:
         return None
-    least = min(r[0] for r in rows)
-    rows = [r for r in rows if r[0] <= least + window]
-    rows.sort(key=lambda r: r[0])
-    rows = rows[:MAX_OPTIONS]
-    return _pack_options(rows, R)
+    every = np.concatenate([b[0] for b in blocks])
+    limit = min(float(every.min()) + window, float(np.sort(every)[min(MAX_OPTIONS, len(every)) - 1]))
+    kept = []
+    for own, P, cal, gaps in blocks:
+        ok = own <= limit
+        if ok.any():
+            kept.append((own[ok], P, cal[ok], gaps[ok]))
+    return _pack_blocks(kept, R)
 
 
-def _pack_options(rows, R: int) -> _Options:
-    dates, gaps, owners, firsts = [], [], [], []
+def _pack_blocks(blocks, R: int) -> _Options:
+    dates, gaps, owners, periods, owns, where = [], [], [], [], [], []
     at = 0
-    for j, (_, P, days, g) in enumerate(rows):
+    for b, (own, P, days, g) in enumerate(blocks):
+        m, c = days.shape
         reps = R // P
-        d = (days[None, :] + P * np.arange(reps)[:, None]).ravel()
-        dates.append(d)
-        gaps.append(np.tile(g, reps))
-        owners.append(np.full(len(d), j))
-        firsts.append(at)
-        at += len(d)
+        d = (days[:, None, :] + P * np.arange(reps)[None, :, None]).reshape(m, -1)
+        dates.append(d.ravel())
+        gaps.append(np.tile(g, (1, reps)).ravel())
+        owners.append(np.repeat(np.arange(at, at + m), reps * c))
+        periods.append(np.full(m, P))
+        owns.append(own)
+        where.append(np.stack([np.full(m, b), np.arange(m)], axis=1))
+        at += m
+    own = np.concatenate(owns).astype(float)
+    order = np.argsort(own, kind="stable")  # option 0 is the cheapest for the site; ties go to it
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
     return _Options(
-        period=np.array([r[1] for r in rows], dtype=np.int64),
-        own=np.array([r[0] for r in rows]),
-        first=np.array(firsts, dtype=np.int64),
+        period=np.concatenate(periods).astype(np.int64)[order],
+        own=own[order],
         date=np.concatenate(dates),
         gap=np.concatenate(gaps).astype(float),
-        owner=np.concatenate(owners),
-        base=[(r[2], r[3]) for r in rows],
+        owner=rank[np.concatenate(owners)],
+        blocks=blocks,
+        where=np.concatenate(where)[order],
     )
 
 
@@ -221,7 +236,7 @@ def _patterns(problem: Problem, options: list[_Options], chosen: list[int]) -> P
     period = np.array([o.period[c] for o, c in zip(options, chosen, strict=True)], dtype=np.int64)
     sites, offsets, gaps = [], [], []
     for i, (o, c) in enumerate(zip(options, chosen, strict=True)):
-        days, g = o.base[c]
+        _, days, g = o.base(c)
         sites.append(np.full(len(days), i))
         offsets.append(days)
         gaps.append(g)
@@ -232,12 +247,14 @@ def _patterns(problem: Problem, options: list[_Options], chosen: list[int]) -> P
 
 def _with_current(opts: _Options, P: int, days: np.ndarray, gaps: np.ndarray, own: float, R: int) -> tuple[_Options, int]:
     """``opts`` with the site's current pattern added as an option (its index returned)."""
-    rows = [(float(o), int(p), b[0], b[1]) for o, p, b in zip(opts.own, opts.period, opts.base, strict=True)]
-    for j, (o, p, bd, bg) in enumerate(rows):
-        if p == P and len(bd) == len(days) and (bd == days).all():
-            return opts, j
-    rows.append((own, P, days, gaps))
-    return _pack_options(rows, R), len(rows) - 1
+    for b, (_, p, b_days, _) in enumerate(opts.blocks):
+        if p == P and b_days.shape[1] == len(days):
+            same = np.flatnonzero((b_days == days[None, :]).all(axis=1))
+            if len(same):
+                return opts, int(np.flatnonzero((opts.where[:, 0] == b) & (opts.where[:, 1] == same[0]))[0])
+    block = (np.array([own]), P, np.asarray(days)[None, :], np.asarray(gaps)[None, :])
+    opts = _pack_blocks([*opts.blocks, block], R)
+    return opts, int(np.flatnonzero(opts.where[:, 0] == len(opts.blocks) - 1)[0])
 
 
 def improve_local(
@@ -266,8 +283,8 @@ def improve_local(
                 mine = start.site == i
                 P = int(start.period[i])
                 if o is None:
-                    o = _pack_options([(0.0, P, start.offset[mine], start.gap[mine])], R)
-                    o.own[:] = own_stop[i] + own_hold[i]
+                    mine_own = np.array([own_stop[i] + own_hold[i]])
+                    o = _pack_blocks([(mine_own, P, start.offset[mine][None, :], start.gap[mine][None, :])], R)
                     c = 0
                 else:
                     o, c = _with_current(o, P, start.offset[mine], start.gap[mine], float(own_stop[i] + own_hold[i]), R)
