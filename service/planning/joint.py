@@ -5,7 +5,9 @@ power-of-two and integer-multiple optima) run on the truck's working-day axis, o
 truck-aware variants of it; each candidate is staggered, turned into calendar patterns, and evaluated
 exactly by packing every date of its repeat period into trips; the cheapest candidate that never needs
 more than ``trips_per_day`` trips on a date wins. When none fits, the weekly fallback plan of
-:mod:`fallback` is tried (under ``best`` also as a candidate up to ``FALLBACK_SITES`` sites).
+:mod:`fallback` is tried (under ``best`` also as a candidate up to ``FALLBACK_SITES`` sites). Under
+``best`` (up to ``LOCAL_SITES`` sites) the chosen plan then goes through the local search of
+:mod:`local_search` (whole site patterns moved to fill trips), kept when its exact cost is lower.
 """
 
 from __future__ import annotations
@@ -25,8 +27,8 @@ from service.planning.errors import PlanningInputError
 from service.planning.evaluation import Evaluation, evaluate, limited
 from service.planning.fallback import fallback_patterns
 from service.planning.inputs import Problem, SiteInput, TruckInput, validate
-from service.planning.local_search import improve_local
 from service.planning.integer_multiple import integer_policies_by_interval, integer_policy
+from service.planning.local_search import improve_local
 from service.planning.patterns import Patterns, from_working_cycles
 from service.planning.policy import Policy
 from service.planning.power_of_two import power_of_two_policy
