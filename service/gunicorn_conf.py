@@ -79,6 +79,9 @@ def post_worker_init(worker):  # type: ignore[no-untyped-def]
     from service.bounded import start_pool  # noqa: PLC0415
 
     start_pool(worker.wsgi)  # the planning processes (service.compute), before the first request
+    from service.network_worker import start  # noqa: PLC0415
+
+    start(worker.wsgi)  # ULLAGE_NETWORK_WORKERS threads running network plan jobs
 
 
 def child_exit(server, worker):  # type: ignore[no-untyped-def]
