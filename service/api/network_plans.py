@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask import Response, current_app, json, request, url_for
+from flask import Response, current_app, json, url_for
 from flask.views import MethodView
 
 from service import bounded, idempotency, network_activation, network_inputs, schedule
@@ -95,9 +95,7 @@ def _snapshot(body: dict[str, Any]) -> dict[str, Any]:
     try:
         inputs = network_inputs.snapshot(get_session(), body["trucks"])
     except repo.NotFound as exc:
-        raise Problem(
-            422, str(exc), kind="validation", errors=[{"pointer": "#/trucks", "detail": str(exc)}]
-        ) from exc
+        raise Problem(422, str(exc), kind="validation", errors=[{"pointer": "#/trucks", "detail": str(exc)}]) from exc
     if not inputs["trucks"] or not inputs["sites"]:
         raise Problem(422, "No active truck with active sites to plan.", kind="no-sites")
     sites, trucks = network_inputs.missing_places(inputs)
@@ -231,7 +229,10 @@ class NetworkPlanActivation(MethodView):
             plan_ids = network_activation.activate(session, job, current_caller().name)
         except network_activation.Changed as exc:
             session.rollback()
-            named = [f"sites {', '.join(exc.sites)}" if exc.sites else "", f"trucks {', '.join(exc.trucks)}" if exc.trucks else ""]
+            named = [
+                f"sites {', '.join(exc.sites)}" if exc.sites else "",
+                f"trucks {', '.join(exc.trucks)}" if exc.trucks else "",
+            ]
             raise Problem(
                 409,
                 f"Changed since network plan {job_id} was computed: {'; '.join(n for n in named if n)}. "

@@ -81,9 +81,8 @@ def claim_next(session: Session, worker: str, now: dt.datetime | None = None) ->
 
 
 def _running(job_id: int, worker: str) -> Any:
-    return (
-        update(NetworkPlanJob)
-        .where(NetworkPlanJob.id == job_id, NetworkPlanJob.status == "running", NetworkPlanJob.worker == worker)
+    return update(NetworkPlanJob).where(
+        NetworkPlanJob.id == job_id, NetworkPlanJob.status == "running", NetworkPlanJob.worker == worker
     )
 
 
@@ -131,7 +130,9 @@ def fail_stale(session: Session, lease_seconds: float, now: dt.datetime | None =
         if _changed(
             session,
             update(NetworkPlanJob)
-            .where(NetworkPlanJob.id == job_id, NetworkPlanJob.status == "running", NetworkPlanJob.heartbeat_at < cutoff)
+            .where(
+                NetworkPlanJob.id == job_id, NetworkPlanJob.status == "running", NetworkPlanJob.heartbeat_at < cutoff
+            )
             .values(status="failed", error=STALE_ERROR.format(lease=lease_seconds), finished_at=now),
         ):
             failed.append(job_id)

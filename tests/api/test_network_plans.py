@@ -8,11 +8,14 @@ and ``ullage worker`` loop over), so no test waits on a clock.
 from __future__ import annotations
 
 import datetime as dt
+import threading
+import time
 
 import pytest
 from haversine import haversine
 from sqlalchemy import select, update
 
+from service import cli
 from service.network_worker import Worker
 from service.persistence import network_jobs as jobs
 from service.persistence.models import NetworkPlanJob, Plan, Site, Truck
@@ -93,7 +96,12 @@ def test_post_answers_202_with_location_then_done(client, auth, fleet, run_jobs)
     response = _start(client, auth)
     body = response.get_json()
     assert response.headers["Location"] == f"{NETWORK_PLANS}/{body['id']}"
-    assert (body["status"], body["progress"], body["estimated_seconds_left"], body["result"]) == ("queued", 0.0, None, None)
+    assert (body["status"], body["progress"], body["estimated_seconds_left"], body["result"]) == (
+        "queued",
+        0.0,
+        None,
+        None,
+    )
     assert body["trucks"] == ["T-L", "T-N", "T-S"] and body["site_count"] == len(SITES)
     polled = client.get(response.headers["Location"], headers=auth("viewer"))
     assert polled.status_code == 200 and polled.get_json()["status"] == "queued" and polled.headers["ETag"]
@@ -291,3 +299,35 @@ def test_a_stale_job_is_failed_by_the_next_worker(client, auth, fleet, db_sessio
     assert run_jobs() is None
     db_session.expire_all()
     assert db_session.get(NetworkPlanJob, job_id).status == "failed"
+
+
+def test_a_worker_thread_runs_the_job_while_requests_are_served(client, auth, fleet, app):
+    worker, stop = Worker(app.config["ULLAGE_SETTINGS"], name="thread-worker"), threading.Event()
+    thread = threading.Thread(target=worker.loop, args=(stop,), daemon=True)
+    thread.start()
+    try:
+        location = _start(client, auth).headers["Location"]
+        seen = set()
+        for _ in range(600):  # at most about a minute; ends as soon as the job is done
+            body = client.get(location, headers=auth("viewer")).get_json()
+            seen.add(body["status"])
+            if body["status"] in ("done", "failed"):
+                break
+            time.sleep(0.1)
+        assert body["status"] == "done" and body["result"]["assignment"], body
+        assert body["created_by"] == "test-dispatcher" and seen <= {"queued", "running", "done"}
+    finally:
+        stop.set()
+        thread.join(timeout=30)
+        worker.close()
+
+
+def test_the_worker_command_runs_the_queued_jobs(client, auth, fleet, app, monkeypatch, capsys):
+    first = _start(client, auth).get_json()["id"]
+    second = _start(client, auth, {"trucks": ["T-N"]}).get_json()["id"]
+    monkeypatch.setenv("DATABASE_URL", app.config["DATABASE_URL"])
+    assert cli.main(["worker", "--once"]) == 0
+    for job_id in (first, second):
+        body = client.get(f"{NETWORK_PLANS}/{job_id}", headers=auth("viewer")).get_json()
+        assert body["status"] == "done"
+    assert set(body["result"]["assignment"].values()) == {"T-N"} and body["trucks"] == ["T-N"]

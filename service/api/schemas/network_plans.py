@@ -15,7 +15,9 @@ class NetworkPlanRequestSchema(StrictSchema):
     start_date = BoundedDate(
         load_default=None,
         allow_none=True,
-        metadata={"description": f"Day 0 of every truck's plan (default: today in the service time zone), {DATE_RANGE}"},
+        metadata={
+            "description": f"Day 0 of every truck's plan (default: today in the service time zone), {DATE_RANGE}"
+        },
     )
     trucks = ma.fields.List(
         ma.fields.String(validate=ma.validate.Length(min=1, max=80)),
@@ -52,7 +54,8 @@ class RoutedTripSchema(ma.Schema):
     day = ma.fields.Integer(metadata={"description": "Days since start_date"})
     date = ma.fields.Date()
     trip = ma.fields.Integer(metadata={"description": "1-based index within the date"})
-    load = ma.fields.Float()
+    # The JSON field is named load: marshmallow's metaclass takes it out of the class, Schema.load stays.
+    load = ma.fields.Float()  # type: ignore[assignment]
     stops = ma.fields.List(
         ma.fields.Nested(RouteStopSchema), metadata={"description": "In driving order from the truck's depot"}
     )
