@@ -178,9 +178,10 @@ class Settings:
             raise ValueError(f"ULLAGE_NETWORK_MAX_SITES must be 1 to {MAX_PLAN_SITES}")
         if self.network_workers < 0:
             raise ValueError("ULLAGE_NETWORK_WORKERS must be 0 or more")
-        if not 5 <= self.network_lease_seconds <= MAX_PLAN_SECONDS or not 0 < self.network_poll_seconds <= 60:
+        if not 15 <= self.network_lease_seconds <= MAX_PLAN_SECONDS or not 0 < self.network_poll_seconds <= 60:
             raise ValueError(
-                "ULLAGE_NETWORK_LEASE_SECONDS must be 5 to 3600 and ULLAGE_NETWORK_POLL_SECONDS above 0, at most 60"
+                "ULLAGE_NETWORK_LEASE_SECONDS must be 15 to 3600 (three heartbeats of 5 s) and "
+                "ULLAGE_NETWORK_POLL_SECONDS above 0, at most 60"
             )
         if self.max_plan_sites > MAX_PLAN_SITES:
             raise ValueError(f"ULLAGE_MAX_PLAN_SITES must be at most {MAX_PLAN_SITES} (the request schema's own limit)")
