@@ -84,6 +84,12 @@ def post_worker_init(worker):  # type: ignore[no-untyped-def]
     start(worker.wsgi)  # ULLAGE_NETWORK_WORKERS threads running network plan jobs
 
 
+def worker_exit(server, worker):  # type: ignore[no-untyped-def]
+    from service.network_worker import release_all  # noqa: PLC0415
+
+    release_all()  # a network plan job being computed goes back to the queue for another worker
+
+
 def child_exit(server, worker):  # type: ignore[no-untyped-def]
     """Prometheus multiprocess mode: forget the dead worker's live files (service.metrics)."""
     from service.metrics import mark_process_dead  # noqa: PLC0415

@@ -11,7 +11,9 @@ GIL; the thread only waits. The child writes ``progress`` (at most once a second
 progress callback, ``plan_network(progress=…)``); the waiting thread writes the heartbeat every
 :data:`BEAT_SECONDS`. The child is killed at the job's budget plus ``ULLAGE_PLAN_GRACE_SECONDS``.
 
-**A worker that dies.** Its heartbeat stops; after ``ULLAGE_NETWORK_LEASE_SECONDS`` the next worker
+**A worker that stops.** Stopped gracefully (gunicorn's ``worker_exit``, e.g. recycled after
+``max_requests``; ``ullage worker`` interrupted), it hands its job back to the queue
+(:func:`release_all`; failed instead after :data:`MAX_ATTEMPTS` claims). Killed, its heartbeat stops; after ``ULLAGE_NETWORK_LEASE_SECONDS`` the next worker
 or reader of the job fails it with a clear error (``network_jobs.fail_stale``). A job never writes
 anything but its own row until it is activated (a separate request), so a dead worker leaves nothing
 half-applied. A result that arrives after its job was failed is dropped.
@@ -22,6 +24,7 @@ from __future__ import annotations
 import datetime as dt
 import logging
 import os
+import signal
 import socket
 import threading
 import time
@@ -43,6 +46,8 @@ log = logging.getLogger("ullage.network")
 BEAT_SECONDS = 5.0
 PROGRESS_SECONDS = 1.0
 PRELOAD = ("service.network_worker",)
+#: A job handed back by a worker that shuts down gracefully is queued again until it was claimed this often.
+MAX_ATTEMPTS = 3
 
 
 class JobGone(Exception):
@@ -98,6 +103,7 @@ class Worker:
         self.name = name or worker_name()
         self.engine, self.session = _sessions(settings.database_url)
         self.pool = compute.pool(max(1, settings.network_workers), 0, PRELOAD)
+        self.current: int | None = None
 
     def close(self) -> None:
         self.engine.dispose()
@@ -115,10 +121,12 @@ class Worker:
             job = jobs.job_by_id(s, job_id)
             inputs, start, budget = job.inputs, job.start_date.isoformat(), float(job.inputs["time_budget_seconds"])
         log.info("network plan started", extra={"fields": {"job": job_id, "worker": self.name}})
+        self.current = job_id  # stays set if an interrupt ends the computation: release() hands it back
         result, error = self._compute(job_id, inputs, start, budget)
         with self.session() as s:
             kept = jobs.finish(s, job_id, self.name, result=result, error=error)
             s.commit()
+        self.current = None
         log.info("network plan finished", extra={"fields": {"job": job_id, "ok": error is None, "kept": kept}})
         return job_id
 
@@ -167,8 +175,19 @@ class Worker:
                 log.exception("network plan worker: retrying")
                 stop.wait(self.settings.network_poll_seconds)
 
+    def release(self) -> str | None:
+        """Hand the job being computed back to the queue (:func:`network_jobs.requeue`); what became of it."""
+        job_id = self.current
+        if job_id is None:
+            return None
+        with self.session() as s:
+            outcome = jobs.requeue(s, job_id, self.name, MAX_ATTEMPTS)
+            s.commit()
+        log.warning("network plan handed back", extra={"fields": {"job": job_id, "outcome": outcome}})
+        return outcome
 
-_threads: list[threading.Thread] = []
+
+_workers: list[Worker] = []
 STOP = threading.Event()
 
 
@@ -177,15 +196,31 @@ def start(app: Flask) -> None:
     settings: Settings = app.config["ULLAGE_SETTINGS"]
     for n in range(settings.network_workers):
         worker = Worker(settings)
-        thread = threading.Thread(target=worker.loop, args=(STOP,), name=f"network-worker-{n}", daemon=True)
-        thread.start()
-        _threads.append(thread)
+        threading.Thread(target=worker.loop, args=(STOP,), name=f"network-worker-{n}", daemon=True).start()
+        _workers.append(worker)
+
+
+def release_all() -> None:
+    """On a graceful exit (gunicorn's ``worker_exit``, e.g. recycling after ``max_requests``): stop the
+    loops and hand every job being computed back to the queue, so another worker computes it."""
+    STOP.set()
+    for worker in _workers:
+        try:
+            worker.release()
+        except Exception:  # noqa: BLE001 - the database is gone too: the lease fails the job later
+            log.exception("network plan worker: could not hand a job back")
+
+
+def _terminate(_signum: int, _frame: Any) -> None:
+    raise SystemExit(0)  # unwinds to serve()'s release(), as Ctrl-C does
 
 
 def serve(settings: Settings, stop: threading.Event | None = None) -> None:
     """``ullage worker``: the loop in this process until interrupted."""
     worker = Worker(settings)
+    signal.signal(signal.SIGTERM, _terminate)
     try:
         worker.loop(stop or STOP)
     finally:
+        worker.release()
         worker.close()

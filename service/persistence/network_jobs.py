@@ -116,6 +116,23 @@ def finish(
     return _changed(session, _running(job_id, worker).values(**values))
 
 
+def requeue(session: Session, job_id: int, worker: str, max_attempts: int) -> str | None:
+    """Hand a running job of ``worker`` back to the queue (its worker is shutting down gracefully):
+    ``"queued"``, or ``"failed"`` once it has been claimed ``max_attempts`` times; ``None`` when it is no
+    longer this worker's."""
+    if _changed(
+        session,
+        _running(job_id, worker)
+        .where(NetworkPlanJob.attempts < max_attempts)
+        .values(status="queued", worker=None, started_at=None, heartbeat_at=None, progress=0.0),
+    ):
+        return "queued"
+    error = f"Its worker was stopped {max_attempts} times while computing it; post the network plan again."
+    if _changed(session, _running(job_id, worker).values(status="failed", error=error, finished_at=utcnow())):
+        return "failed"
+    return None
+
+
 def fail_stale(session: Session, lease_seconds: float, now: dt.datetime | None = None) -> list[int]:
     """Fail every running job whose heartbeat is older than ``lease_seconds``; their ids."""
     now = now or utcnow()

@@ -331,3 +331,33 @@ def test_the_worker_command_runs_the_queued_jobs(client, auth, fleet, app, monke
         body = client.get(f"{NETWORK_PLANS}/{job_id}", headers=auth("viewer")).get_json()
         assert body["status"] == "done"
     assert set(body["result"]["assignment"].values()) == {"T-N"} and body["trucks"] == ["T-N"]
+
+
+def test_a_worker_that_stops_gracefully_hands_its_job_back(client, auth, fleet, app, db_session, run_jobs):
+    job_id = _start(client, auth).get_json()["id"]
+    stopping = Worker(app.config["ULLAGE_SETTINGS"], name="recycled-worker")
+    try:
+        assert jobs.claim_next(db_session, stopping.name) == job_id
+        db_session.commit()
+        stopping.current = job_id  # as while its computation runs
+        assert stopping.release() == "queued"
+    finally:
+        stopping.close()
+    body = client.get(f"{NETWORK_PLANS}/{job_id}", headers=auth("viewer")).get_json()
+    assert (body["status"], body["progress"], body["started_at"]) == ("queued", 0.0, None)
+    assert run_jobs() == job_id
+    body = client.get(f"{NETWORK_PLANS}/{job_id}", headers=auth("viewer")).get_json()
+    assert (body["status"], body["attempts"]) == ("done", 2)
+
+
+def test_a_job_handed_back_too_often_fails(client, auth, fleet, db_session):
+    job_id = _start(client, auth).get_json()["id"]
+    for attempt in range(1, 4):
+        assert jobs.claim_next(db_session, f"w{attempt}") == job_id
+        assert jobs.requeue(db_session, job_id, f"w{attempt}", max_attempts=3) == (
+            "queued" if attempt < 3 else "failed"
+        )
+        db_session.commit()
+    body = client.get(f"{NETWORK_PLANS}/{job_id}", headers=auth("viewer")).get_json()
+    assert body["status"] == "failed" and "stopped 3 times" in body["error"]
+    assert jobs.requeue(db_session, job_id, "w3", max_attempts=3) is None
