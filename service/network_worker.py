@@ -61,8 +61,8 @@ def worker_name() -> str:
 def _sessions(url: str) -> Any:
     engine = make_engine(url)
 
-    def session() -> Session:
-        write_intent.set(True)
+    def session(write: bool = True) -> Session:
+        write_intent.set(write)  # SQLite: BEGIN IMMEDIATE only for writes (persistence/db.py)
         return Session(engine)
 
     return engine, session
@@ -110,6 +110,9 @@ class Worker:
 
     def run_once(self) -> int | None:
         """Fail stale jobs, then claim and compute the oldest queued one: its id, or ``None``."""
+        with self.session(write=False) as s:
+            if not jobs.has_work(s, self.settings.network_lease_seconds):
+                return None
         with self.session() as s:
             failed = jobs.fail_stale(s, self.settings.network_lease_seconds)
             job_id = jobs.claim_next(s, self.name)

@@ -53,6 +53,17 @@ def _changed(session: Session, statement: Any) -> bool:
     return result.rowcount == 1
 
 
+def has_work(session: Session, lease_seconds: float, now: dt.datetime | None = None) -> bool:
+    """Whether a job is queued or a running one's heartbeat is older than the lease (one read, so an
+    idle worker's poll takes no write lock)."""
+    cutoff = (now or utcnow()) - dt.timedelta(seconds=lease_seconds)
+    statement = select(NetworkPlanJob.id).where(
+        (NetworkPlanJob.status == "queued")
+        | ((NetworkPlanJob.status == "running") & (NetworkPlanJob.heartbeat_at < cutoff))
+    )
+    return session.scalars(statement.limit(1)).first() is not None
+
+
 def claim_next(session: Session, worker: str, now: dt.datetime | None = None) -> int | None:
     """Claim the oldest queued job for ``worker``: its id, or ``None`` when none is left.
 
