@@ -31,6 +31,7 @@ import time
 from typing import Any
 
 from flask import Flask
+from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session
 
 from service import compute
@@ -140,9 +141,12 @@ class Worker:
         def heartbeat() -> bool:  # called by the pool every 0.1 s while it waits
             if time.monotonic() - beat[0] >= BEAT_SECONDS:
                 beat[0] = time.monotonic()
-                with self.session() as s:
-                    gone[0] = not jobs.beat(s, job_id, self.name)
-                    s.commit()
+                try:
+                    with self.session() as s:
+                        gone[0] = not jobs.beat(s, job_id, self.name)
+                        s.commit()
+                except DBAPIError:  # a short outage: the next beat may pass, the lease allows three missed
+                    log.warning("network plan worker: heartbeat not written (database unavailable)")
             return gone[0]
 
         limit = budget + self.settings.plan_grace_seconds
@@ -174,7 +178,10 @@ class Worker:
             try:
                 if self.run_once() is None:
                     stop.wait(self.settings.network_poll_seconds)
-            except Exception:  # noqa: BLE001 - a database outage: wait and try again
+            except DBAPIError as exc:  # the database is down or busy: wait and try again
+                log.warning("network plan worker: database unavailable (%s); retrying", type(exc.orig).__name__)
+                stop.wait(self.settings.network_poll_seconds)
+            except Exception:  # noqa: BLE001 - a bug: logged with its trace, the loop goes on
                 log.exception("network plan worker: retrying")
                 stop.wait(self.settings.network_poll_seconds)
 
@@ -210,8 +217,8 @@ def release_all() -> None:
     for worker in _workers:
         try:
             worker.release()
-        except Exception:  # noqa: BLE001 - the database is gone too: the lease fails the job later
-            log.exception("network plan worker: could not hand a job back")
+        except Exception as exc:  # noqa: BLE001 - the database is gone too: the lease fails the job later
+            log.warning("network plan worker: could not hand a job back (%s)", type(exc).__name__)
 
 
 def _terminate(_signum: int, _frame: Any) -> None:
