@@ -79,9 +79,12 @@ def compute_job(database_url: str, job_id: int, worker: str, inputs: dict[str, A
         if now - last[0] < PROGRESS_SECONDS:
             return
         last[0] = now
-        with session() as s:
-            ok = jobs.write_progress(s, job_id, worker, fraction)
-            s.commit()
+        try:
+            with session() as s:
+                ok = jobs.write_progress(s, job_id, worker, fraction)
+                s.commit()
+        except DBAPIError:  # the database is down or busy: this fraction is not shown, the plan goes on
+            return
         if not ok:
             raise JobGone(f"network plan {job_id} is no longer running here")
 
