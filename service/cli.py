@@ -160,6 +160,27 @@ def serve(args: argparse.Namespace) -> int:
     return 0  # pragma: no cover - exec does not return
 
 
+def worker(args: argparse.Namespace) -> int:
+    """Run network plan jobs in this process until interrupted (or, with --once, the queued ones)."""
+    from service import network_worker  # noqa: PLC0415 - the planning core loads only for this command
+
+    settings = load_settings()
+    if args.once:
+        runner = network_worker.Worker(settings)
+        try:
+            while runner.run_once() is not None:
+                pass
+        finally:
+            runner.close()
+        return 0
+    print(f"ullage worker: running network plan jobs of {settings.database_url.split('@')[-1]}", flush=True)
+    try:
+        network_worker.serve(settings)
+    except KeyboardInterrupt:
+        pass
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="ullage", description="Delivery planning for bulk-liquid tanks.")
     sub = parser.add_subparsers(dest="command", required=True)
@@ -207,6 +228,10 @@ def build_parser() -> argparse.ArgumentParser:
     sv.add_argument("--port", type=int, help="default: ULLAGE_PORT or 8000")
     sv.add_argument("--workers", type=int, default=0, help="default: WEB_CONCURRENCY or 2")
     sv.set_defaults(func=serve)
+
+    wk = sub.add_parser("worker", help="run network plan jobs (POST /network-plans) in this process")
+    wk.add_argument("--once", action="store_true", help="run the queued jobs, then exit")
+    wk.set_defaults(func=worker)
     return parser
 
 

@@ -53,6 +53,11 @@ ENVIRONMENT = {
     "ULLAGE_PLAN_PROCESSES": "plan_processes",
     "ULLAGE_PLAN_QUEUE": "plan_queue",
     "ULLAGE_MAX_PLAN_SITES": "max_plan_sites",
+    "ULLAGE_NETWORK_PLAN_SECONDS": "network_plan_seconds",
+    "ULLAGE_NETWORK_MAX_SITES": "network_max_sites",
+    "ULLAGE_NETWORK_WORKERS": "network_workers",
+    "ULLAGE_NETWORK_LEASE_SECONDS": "network_lease_seconds",
+    "ULLAGE_NETWORK_POLL_SECONDS": "network_poll_seconds",
     "ULLAGE_MAX_TRIPS_DAYS": "max_trips_days",
     "ULLAGE_LONG_TRIPS_DAYS": "long_trips_days",
     "ULLAGE_PLANNING_PER_MINUTE": "planning_per_minute",
@@ -108,6 +113,15 @@ class Settings:
     plan_queue: int = 2
     #: Largest network one planning call may take (sites of a calculation or of a truck's plan).
     max_plan_sites: int = 1000
+    #: Network plans (issue 16, service.network_worker): the default and largest time budget of one
+    #: job, the most sites one job takes, the job threads each serving process runs (0: none, jobs
+    #: then run only in `ullage worker`), how long a running job may go without a heartbeat before
+    #: it is failed, and how often an idle worker looks for a queued job.
+    network_plan_seconds: float = 280.0
+    network_max_sites: int = 20_000
+    network_workers: int = 1
+    network_lease_seconds: float = 60.0
+    network_poll_seconds: float = 2.0
     #: Longest trips window; windows longer than ``long_trips_days`` are heavy reads.
     max_trips_days: int = 92
     long_trips_days: int = 35
@@ -157,6 +171,17 @@ class Settings:
         if not 0 < self.plan_seconds <= MAX_PLAN_SECONDS or not 0 < self.plan_grace_seconds <= MAX_PLAN_SECONDS:
             raise ValueError(
                 f"ULLAGE_PLAN_SECONDS and ULLAGE_PLAN_GRACE_SECONDS must be above 0, at most {MAX_PLAN_SECONDS}"
+            )
+        if not 0 < self.network_plan_seconds <= MAX_PLAN_SECONDS:
+            raise ValueError(f"ULLAGE_NETWORK_PLAN_SECONDS must be above 0, at most {MAX_PLAN_SECONDS}")
+        if not 1 <= self.network_max_sites <= MAX_PLAN_SITES:
+            raise ValueError(f"ULLAGE_NETWORK_MAX_SITES must be 1 to {MAX_PLAN_SITES}")
+        if self.network_workers < 0:
+            raise ValueError("ULLAGE_NETWORK_WORKERS must be 0 or more")
+        if not 15 <= self.network_lease_seconds <= MAX_PLAN_SECONDS or not 0 < self.network_poll_seconds <= 60:
+            raise ValueError(
+                "ULLAGE_NETWORK_LEASE_SECONDS must be 15 to 3600 (three heartbeats of 5 s) and "
+                "ULLAGE_NETWORK_POLL_SECONDS above 0, at most 60"
             )
         if self.max_plan_sites > MAX_PLAN_SITES:
             raise ValueError(f"ULLAGE_MAX_PLAN_SITES must be at most {MAX_PLAN_SITES} (the request schema's own limit)")

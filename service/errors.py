@@ -43,6 +43,7 @@ PROBLEM_TYPES: dict[str, str] = {
     "idempotency-in-progress": "A request with this Idempotency-Key is still running; retry after `Retry-After` (409).",
     "idempotency-key-reused": "This Idempotency-Key was used with another body; use a new key (422).",
     "no-active-plan": "The truck has no active plan to take trips from (409).",
+    "inputs-changed": "Trucks or sites changed since the network plan was computed; `sites` and `trucks` name them (409).",
     "no-weather-region": "The site has no `weather_region`, so its consumption cannot be fitted to the weather (409).",
     "precondition-failed": "If-Match names an ETag that is no longer current: GET again and retry (412).",
     "precondition-required": "The change needs If-Match with the ETag of your last read (428).",

@@ -79,6 +79,15 @@ def post_worker_init(worker):  # type: ignore[no-untyped-def]
     from service.bounded import start_pool  # noqa: PLC0415
 
     start_pool(worker.wsgi)  # the planning processes (service.compute), before the first request
+    from service.network_worker import start  # noqa: PLC0415
+
+    start(worker.wsgi)  # ULLAGE_NETWORK_WORKERS threads running network plan jobs
+
+
+def worker_exit(server, worker):  # type: ignore[no-untyped-def]
+    from service.network_worker import release_all  # noqa: PLC0415
+
+    release_all()  # a network plan job being computed goes back to the queue for another worker
 
 
 def child_exit(server, worker):  # type: ignore[no-untyped-def]

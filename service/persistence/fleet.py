@@ -58,3 +58,13 @@ def add_product(session: Session, data: Mapping[str, Any]) -> Product:
     session.add(product)
     session.flush()
     return product
+
+
+def all_depots(session: Session) -> list[Depot]:
+    """Every depot, by code."""
+    return list(session.scalars(select(Depot).order_by(Depot.code)))
+
+
+def all_products(session: Session) -> list[Product]:
+    """Every product, by code."""
+    return list(session.scalars(select(Product).order_by(Product.code)))

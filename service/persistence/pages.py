@@ -14,7 +14,7 @@ from typing import Any
 from sqlalchemy import Select, select
 from sqlalchemy.orm import Session
 
-from service.persistence.models import Depot, Plan, Product, Reading, Site, Truck, WeatherDay
+from service.persistence.models import Depot, NetworkPlanJob, Plan, Product, Reading, Site, Truck, WeatherDay
 
 
 @dataclass(frozen=True)
@@ -79,3 +79,8 @@ def weather_days_page(
     if last is not None:
         statement = statement.where(WeatherDay.day <= last)
     return _page(session, statement, WeatherDay.day, limit, after, False)
+
+
+def network_jobs_page(session: Session, limit: int, after: int | None) -> Page:
+    """Network plan jobs by id, newest first."""
+    return _page(session, select(NetworkPlanJob), NetworkPlanJob.id, limit, after, True)

@@ -48,11 +48,13 @@ def snapshot(truck: Truck, sites: Iterable[Site]) -> dict[str, Any]:
             **working_calendar.Calendar.of(truck).stored(),
             "version": truck.version,
         },
-        "sites": [
-            {"code": s.code, "name": s.name, "version": s.version, **{k: getattr(s, k) for k in SITE_INPUTS}}
-            for s in sites
-        ],
+        "sites": [snapshot_site(s) for s in sites],
     }
+
+
+def snapshot_site(site: Site) -> dict[str, Any]:
+    """A site's recorded fields in a plan's snapshot: code, name, version and the planner's inputs."""
+    return {"code": site.code, "name": site.name, "version": site.version, **{k: getattr(site, k) for k in SITE_INPUTS}}
 
 
 def digest(inputs: dict[str, Any]) -> str:
@@ -125,6 +127,14 @@ def activate(session: Session, plan: Plan) -> Plan:
         session.flush()
         session.refresh(plan)
     return plan
+
+
+def supersede_active(session: Session, truck: Truck) -> None:
+    """The truck's active plan, if any, becomes superseded (the truck then follows no plan)."""
+    session.execute(
+        update(Plan).where(Plan.truck_id == truck.id, Plan.status == "active").values(status="superseded")
+    )
+    session.flush()
 
 
 @dataclass(frozen=True)

@@ -32,7 +32,7 @@ SITE, TRUCK = "HV-GAR-02", "HV-R1"
 
 EXPECTED = ROUTE_ROLES
 #: Concrete values for the path variables.
-VALUES = {"code": SITE, "plan_id": "1", "filename": "ullage.css", "rest": "nothing-here"}
+VALUES = {"code": SITE, "plan_id": "1", "job_id": "1", "filename": "ullage.css", "rest": "nothing-here"}
 TRUCK_RULES = ("/api/v1/trucks/<string:code>",)
 
 
