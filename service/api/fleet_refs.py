@@ -48,6 +48,16 @@ def check_truck(changes: Mapping[str, Any], capacity: float, compartments: list[
             )
 
 
+def check_shift(shift_hours: float | None, average_speed_kmh: float | None) -> None:
+    """Refuse a truck whose ``shift_hours`` is set without ``average_speed_kmh`` (values after the change):
+    a shift limits the day only when trips can be timed (docs/fleet.md §6a)."""
+    if shift_hours is not None and average_speed_kmh is None:
+        raise _refuse(
+            "#/average_speed_kmh",
+            "shift_hours needs average_speed_kmh (km/h) to time the trips; set both, or shift_hours null for no limit.",
+        )
+
+
 def check_site(changes: Mapping[str, Any]) -> None:
     """Refuse a site write that names an unknown product."""
     if changes.get("product") is not None:
