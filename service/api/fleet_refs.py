@@ -10,6 +10,7 @@ import math
 from collections.abc import Mapping
 from typing import Any
 
+from service.api.schemas.sites import DEFAULT_SAFE_FILL
 from service.errors import Problem
 from service.persistence import fleet
 from service.persistence.repository import NotFound
@@ -58,10 +59,17 @@ def check_shift(shift_hours: float | None, average_speed_kmh: float | None) -> N
         )
 
 
-def check_site(changes: Mapping[str, Any]) -> None:
-    """Refuse a site write that names an unknown product."""
+def check_site(changes: Mapping[str, Any]) -> float | None:
+    """Refuse a site write that names an unknown product; the named product's default safe fill."""
     if changes.get("product") is not None:
         try:
-            fleet.product_by_code(get_session(), changes["product"])
+            return float(fleet.product_by_code(get_session(), changes["product"]).safe_fill)
         except NotFound as exc:
             raise _refuse("#/product", str(exc)) from exc
+    return None
+
+
+def fill_safe_fill(data: dict[str, Any], product_safe_fill: float | None) -> None:
+    """A new site without ``safe_fill`` gets its product's default safe fill, else ``DEFAULT_SAFE_FILL``."""
+    if data.get("safe_fill") is None:
+        data["safe_fill"] = DEFAULT_SAFE_FILL if product_safe_fill is None else product_safe_fill
