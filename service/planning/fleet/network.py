@@ -409,8 +409,9 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
     With a shift: sites whose one-stop trip alone is longer than the shift are set aside; the stop limit
     and trips per day start at what the shift allows (``floor`` of the hours left for stops over the
     minutes per stop; ``floor`` of the shift over the shortest one-stop trip); while no candidate's every
-    day fits, the stop limit and then the trips per day are cut (in proportion to the overflow, at least by
-    one) and the truck is planned again. At one stop and one trip a day every day is one one-stop trip, which
+    day fits, the trips per day are cut when every listed trip fits the shift, else the stop limit (in
+    proportion to the overflow, at least by one), and the truck is planned again (once the time budget is spent, straight to one stop and one trip a
+    day). At one stop and one trip a day every day is one one-stop trip, which
     fits (the sites left all passed the first test); should none fit even so, the truck's sites are set
     aside. Sites set aside while the limits were cut get the reason "the truck's shift cannot fit …"."""
     truck = tk.truck
@@ -461,12 +462,18 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
         over = rejected.utilisation["longest_day_hours"] / shift
         seen_stops = max((len(t.stops) for t in rejected.trips), default=1)
         seen_trips = max((t.trip for t in rejected.trips), default=1)
-        if (stops if stops is not None else seen_stops) > 1:
-            now = stops if stops is not None else seen_stops
-            stops = max(1, min(now - 1, int(math.floor(now / over))))
-        elif tpd > 1:
+        longest_trip = max((t.duration_hours or 0.0 for t in rejected.trips), default=0.0)
+        now_stops = stops if stops is not None else seen_stops
+        if clock.out() and (stops != 1 or tpd != 1):  # budget spent: the one limit that surely fits
+            stops, tpd = 1, 1
+        elif tpd > 1 and longest_trip <= shift + SHIFT_TOLERANCE:  # the trips fit, their number does not
             now = min(tpd, seen_trips)
             tpd = max(1, min(now - 1, int(math.floor(now / over))))
+        elif now_stops > 1:
+            over_trip = max(longest_trip / shift, 1.0)
+            stops = max(1, min(now_stops - 1, int(math.floor(now_stops / over_trip))))
+        elif tpd > 1:
+            tpd = max(1, min(min(tpd, seen_trips) - 1, int(math.floor(min(tpd, seen_trips) / over))))
         else:
             for i in cur.sites:
                 unserved.setdefault(
