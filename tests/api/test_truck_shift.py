@@ -28,7 +28,12 @@ def test_shift_fields_default_to_null_and_round_trip(client, auth, db_session):
     read = client.get(f"{TRUCKS}/T2", headers=auth("viewer")).get_json()
     assert {k: read[k] for k in SHIFT} == SHIFT
     stored = db_session.scalars(select(Truck).where(Truck.code == "T2")).one()
-    assert (stored.shift_hours, stored.average_speed_kmh, stored.stop_minutes, stored.load_minutes) == (9.5, 55.0, 25.0, 40.0)
+    assert (stored.shift_hours, stored.average_speed_kmh, stored.stop_minutes, stored.load_minutes) == (
+        9.5,
+        55.0,
+        25.0,
+        40.0,
+    )
     # A speed alone times the trips without limiting the day.
     alone = client.post(TRUCKS, json=TRUCK | {"code": "T3", "average_speed_kmh": 60.0}, headers=auth("admin"))
     assert alone.status_code == 201 and alone.get_json()["shift_hours"] is None

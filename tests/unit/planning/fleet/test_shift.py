@@ -22,7 +22,11 @@ def _day_hours(plan, truck):
     days: dict[int, float] = {}
     for trip in plan.trips:
         km = sum(s.leg_km for s in trip.stops) + trip.return_km
-        hours = km / truck.average_speed_kmh + len(trip.stops) * (truck.stop_minutes or 0) / 60 + (truck.load_minutes or 0) / 60
+        hours = (
+            km / truck.average_speed_kmh
+            + len(trip.stops) * (truck.stop_minutes or 0) / 60
+            + (truck.load_minutes or 0) / 60
+        )
         assert trip.duration_hours == pytest.approx(hours)
         days[trip.day] = days.get(trip.day, 0.0) + hours
     return days
@@ -39,7 +43,10 @@ def _day_hours(plan, truck):
 )
 def test_every_day_fits_the_shift(seed, n_sites, shift, speed, stop_minutes, load_minutes):
     sites, trucks, depots, products, calendars = fleet(n_sites, 2, 1, seed=seed)
-    trucks = [replace(t, shift_hours=shift, average_speed_kmh=speed, stop_minutes=stop_minutes, load_minutes=load_minutes) for t in trucks]
+    trucks = [
+        replace(t, shift_hours=shift, average_speed_kmh=speed, stop_minutes=stop_minutes, load_minutes=load_minutes)
+        for t in trucks
+    ]
     result = plan_network(sites, trucks, depots, products, calendars, start_date=START)
     truck_of = {t.code: t for t in trucks}
     for plan in result.trucks:
