@@ -8,7 +8,7 @@ import marshmallow as ma
 from service.api.fields import JsonBool, JsonFloat, JsonInt, Range
 from service.api.pagination import PageArgsSchema
 from service.api.schemas.calendar import CalendarSchema, no_repeats
-from service.api.schemas.common import AMOUNT_MAX, code_field_validate, name_validate, nonnegative, positive
+from service.api.schemas.common import POSITIVE_MIN, code_field_validate, name_validate, nonnegative, positive
 
 #: ``HH:MM`` or ``HH:MM:SS`` on a 24-hour clock (ISO 8601 extended format, no fraction, no offset).
 #: Compartments per truck: the exact loading search tries up to 2^C subsets (planning/fleet/compartments.py).
@@ -81,7 +81,7 @@ class TruckSchema(CalendarSchema):
     shift_hours = JsonFloat(
         load_default=None,
         allow_none=True,
-        validate=Range(min=0, max=24, min_inclusive=False, error="Must be more than 0 and at most 24."),
+        validate=Range(min=POSITIVE_MIN, max=24),
         metadata={
             "description": "Hours a day's trips may last in all (driving, stops and loading), (0, 24]; needs "
             "`average_speed_kmh`. null: the day is not limited"
@@ -90,7 +90,7 @@ class TruckSchema(CalendarSchema):
     average_speed_kmh = JsonFloat(
         load_default=None,
         allow_none=True,
-        validate=Range(min=0, max=AMOUNT_MAX, min_inclusive=False, error="Must be more than 0."),
+        validate=positive(),
         metadata={"description": "Mean road speed used to time trips, km/h, > 0; null: trips are not timed"},
     )
     stop_minutes = JsonFloat(
