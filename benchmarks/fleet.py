@@ -2,7 +2,7 @@
 
 Run: ``.venv/bin/python benchmarks/fleet.py [small|large|all]``. Networks come from
 ``tests/unit/planning/fleet/networks.py`` (an invented region, 2–4 compartment trucks, four products):
-``small`` is 300 sites / 4 trucks / 2 depots, ``large`` 10 000 sites / 60 trucks / 6 depots. Each size
+``small`` is 300 sites / 4 trucks / 2 depots, ``shifts`` the same with 12-hour shifts, ``large`` 10 000 sites / 60 trucks / 6 depots. Each size
 runs in its own child process, so its peak resident memory (``resource.getrusage``, ``ru_maxrss``) is
 its own. Printed: wall time, peak memory, the longest interval between two progress reports, the
 network cost per day, the lower bound and the gap, unserved sites and routed trips.
@@ -33,9 +33,11 @@ except ImportError:
     parent.__spec__ = importlib.util.spec_from_loader("service", loader=None, is_package=True)
     sys.modules["service"] = parent
 
-SIZES = {"small": (300, 4, 2), "large": (10_000, 60, 6)}
+SIZES = {"small": (300, 4, 2), "shifts": (300, 4, 2), "large": (10_000, 60, 6)}
 #: Time budget handed to plan_network per size (s): the target less a margin.
-BUDGET = {"small": 9.0, "large": 280.0}
+BUDGET = {"small": 9.0, "shifts": 9.0, "large": 280.0}
+#: ``shifts``: the small network with 12-hour shifts at 70 km/h, 10 min per stop, 30 min loading.
+SHIFT = {"shift_hours": 12.0, "average_speed_kmh": 70.0, "stop_minutes": 10.0, "load_minutes": 30.0}
 
 
 def run(size: str) -> None:
@@ -44,6 +46,10 @@ def run(size: str) -> None:
 
     n, m, g = SIZES[size]
     args = fleet(n, m, g, seed=1)
+    if size == "shifts":
+        from dataclasses import replace
+
+        args = (args[0], [replace(t, **SHIFT) for t in args[1]], *args[2:])
     marks: list[float] = []
     began = time.perf_counter()
     result = plan_network(
@@ -57,7 +63,8 @@ def run(size: str) -> None:
     print(
         f"| {n} / {m} / {g} | {elapsed:.1f} s | {peak_mb:.0f} MB | {max(gaps):.2f} s | {result.status.name.lower()} "
         f"| {result.cost_per_day:,.0f} | {result.lower_bound_per_day:,.0f} | {result.gap:.1%} "
-        f"| {len(result.unserved)} | {trips} |",
+        f"| {len(result.unserved)} | {trips} |"
+        + "".join(f" {p.truck}: longest {p.utilisation['longest_day_hours']:.1f} h" for p in result.trucks if "shift_hours" in p.utilisation),
         flush=True,
     )
 

@@ -27,6 +27,10 @@ from service.planning.fleet import Calendar, Depot, FleetSite, FleetTruck, Point
 UNSPECIFIED_PRODUCT = "(none)"
 
 
+#: The truck's shift settings (issue 16; None: the day is not limited), passed to the core as they are.
+SHIFT_FIELDS = ("shift_hours", "average_speed_kmh", "stop_minutes", "load_minutes")
+
+
 def _truck(truck: Truck) -> dict[str, Any]:
     recorded = plan_store.snapshot(truck, [])["truck"]
     return recorded | {
@@ -34,6 +38,7 @@ def _truck(truck: Truck) -> dict[str, Any]:
         "cost_per_km": truck.cost_per_km,
         "compartments": truck.compartments,
         "products": truck.products,
+        **{name: getattr(truck, name) for name in SHIFT_FIELDS},
     }
 
 
@@ -107,6 +112,7 @@ def fleet_inputs(
                 compartments=tuple(t["compartments"] or (t["capacity"],)),
                 products=tuple(t["products"] if t["products"] is not None else all_products),
                 max_stops=t["max_stops"],
+                **{name: t.get(name) for name in SHIFT_FIELDS},
             )
         )
         one = plan_store.truck_input(t, start)

@@ -10,7 +10,9 @@ Errors name rows as a spreadsheet numbers them: the header is row 1.
 A ``unit`` column may give a row's volumes in ``L``, ``gal`` (US gallon, exactly 3.785411784 L,
 NIST Handbook 44 App. C) or ``m3`` (1000 L); they are converted to the service unit. Volumes are
 ``demand_per_day``, ``tank_capacity`` and ``safety_stock``; ``holding_cost`` is per volume unit and
-is divided by the same factor.
+is divided by the same factor. ``product`` (optional) names a stored product; a file without the column
+leaves stored sites' products alone. A row without ``safe_fill`` gets its product's default safe fill
+(else 0.9).
 
 Export: a text cell that starts with ``= + - @``, tab or carriage return gets a leading ``'`` so a
 spreadsheet does not read it as a formula (OWASP "CSV injection"); so does a cell that starts with
@@ -35,8 +37,9 @@ from typing import Any
 from marshmallow import ValidationError
 from sqlalchemy.orm import Session
 
-from service.api import usable_stock
-from service.api.schemas.sites import SiteSchema
+from service.api import fleet_refs, usable_stock
+from service.api.schemas.sites import SiteSchema, check_safety_stock
+from service.persistence import fleet
 from service.persistence import repository as repo
 from service.planning.inputs import SITE_PARAMETERS
 
@@ -55,8 +58,9 @@ COLUMNS = (
     "lead_time_days",
     "weather_region",
     "base_temperature",
+    "product",
 )
-#: Site fields the CSV does not carry (set through the API); an import leaves them as they are.
+#: Optional columns an older file may lack; an import of such a file leaves these fields as they are.
 NOT_IN_CSV = ("product",)
 REQUIRED = ("code", "name", "truck", "demand_per_day", "holding_cost", "stop_cost", "tank_capacity")
 #: The format, for the OpenAPI document (request body of the import, response of the export).
@@ -72,7 +76,7 @@ FORMAT = (
 )
 EXAMPLE = (
     ",".join(COLUMNS)
-    + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3,0.98,1.0,,15.5\r\n"
+    + "\r\nHV-FARM-01,Example farm tank,HV-R1,95.0,0.0032,15.0,2500.0,0.9,200.0,true,52.1,5.3,0.98,1.0,,15.5,DSL\r\n"
 )
 #: A text cell the export prefixes with ``'``: any number of ``'``, then a character that starts
 #: a formula (``= + - @``, tab, carriage return).
@@ -197,8 +201,10 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
             f"columns {', '.join(COLUMNS)} and optionally unit.",
             errors,
         )
-    schema = SiteSchema(exclude=NOT_IN_CSV)  # a re-import keeps what the CSV does not carry
+    # A re-import keeps what the CSV does not carry (files from before the product column).
+    schema = SiteSchema(exclude=tuple(c for c in NOT_IN_CSV if c not in header))
     trucks = repo.trucks_by_code(session)
+    safe_fills = fleet.product_safe_fills(session)
     rows: list[dict[str, Any]] = []
     numbers: list[int] = []
     errors = []
@@ -220,6 +226,9 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
         truck = data.get("truck")
         if isinstance(truck, str) and truck and truck not in trucks:
             problems.append(("truck", f"no truck with code {truck!r}."))
+        product = data.get("product")
+        if isinstance(product, str) and product and product not in safe_fills:
+            problems.append(("product", f"no product with code {product!r}."))
         code = data.get("code")
         if isinstance(code, str) and code in seen:
             problems.append(("code", f"{code!r} appears twice."))
@@ -232,6 +241,22 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
             continue
         rows.append(loaded)
         numbers.append(number)
+    existing = repo.sites_by_code(session, seen)
+    for data in rows:
+        # No safe_fill cell: the product's default safe fill (the row's product, else the stored site's
+        # when the file has no product column), else DEFAULT_SAFE_FILL — as a site created by the API.
+        stored = existing.get(data["code"])
+        product = data.get("product") if "product" in header else (stored.product if stored is not None else None)
+        fleet_refs.fill_safe_fill(data, safe_fills.get(product) if product is not None else None)
+    for number, data in zip(numbers, rows, strict=True):
+        try:
+            check_safety_stock(data)
+        except ValidationError as exc:
+            errors += [
+                {"pointer": f"#/rows/{number}/{col}", "detail": f"Row {number}, {col}: {msg}"}
+                for col, messages in exc.normalized_messages().items()
+                for msg in (messages if isinstance(messages, list) else [messages])
+            ]
     locked = repo.trucks_for_site_writes(session, (trucks[data["truck"]].id for data in rows))
     for number, data in zip(numbers, rows, strict=True):
         truck = locked[trucks[data["truck"]].id]
@@ -247,7 +272,6 @@ def _import_sites(session: Session, body: bytes, *, dry_run: bool, service_unit:
         )
     if not rows:
         raise CsvRefused("The CSV has no rows.")
-    existing = repo.sites_by_code(session, seen)
     created = updated = 0
     for data in rows:
         truck = trucks[data["truck"]]
@@ -287,5 +311,6 @@ def export_sites(session: Session) -> str:
         ]
         row += [repr(site.lead_time_days)]
         row += ["" if site.weather_region is None else _defuse(site.weather_region), repr(site.base_temperature)]
+        row += ["" if site.product is None else _defuse(site.product)]
         writer.writerow(row)
     return out.getvalue()

@@ -10,6 +10,7 @@ import math
 from collections.abc import Mapping
 from typing import Any
 
+from service.api.schemas.sites import DEFAULT_SAFE_FILL
 from service.errors import Problem
 from service.persistence import fleet
 from service.persistence.repository import NotFound
@@ -48,10 +49,27 @@ def check_truck(changes: Mapping[str, Any], capacity: float, compartments: list[
             )
 
 
-def check_site(changes: Mapping[str, Any]) -> None:
-    """Refuse a site write that names an unknown product."""
+def check_shift(shift_hours: float | None, average_speed_kmh: float | None) -> None:
+    """Refuse a truck whose ``shift_hours`` is set without ``average_speed_kmh`` (values after the change):
+    a shift limits the day only when trips can be timed (docs/fleet.md §6a)."""
+    if shift_hours is not None and average_speed_kmh is None:
+        raise _refuse(
+            "#/average_speed_kmh",
+            "shift_hours needs average_speed_kmh (km/h) to time the trips; set both, or shift_hours null for no limit.",
+        )
+
+
+def check_site(changes: Mapping[str, Any]) -> float | None:
+    """Refuse a site write that names an unknown product; the named product's default safe fill."""
     if changes.get("product") is not None:
         try:
-            fleet.product_by_code(get_session(), changes["product"])
+            return float(fleet.product_by_code(get_session(), changes["product"]).safe_fill)
         except NotFound as exc:
             raise _refuse("#/product", str(exc)) from exc
+    return None
+
+
+def fill_safe_fill(data: dict[str, Any], product_safe_fill: float | None) -> None:
+    """A new site without ``safe_fill`` gets its product's default safe fill, else ``DEFAULT_SAFE_FILL``."""
+    if data.get("safe_fill") is None:
+        data["safe_fill"] = DEFAULT_SAFE_FILL if product_safe_fill is None else product_safe_fill

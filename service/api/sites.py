@@ -93,18 +93,34 @@ class Sites(MethodView):
         """Create a site
 
         Admin only. The site's usable stock (`tank_capacity × safe_fill − safety_stock`, capped by its
-        truck's capacity) must last at least one day of `demand_per_day` (422 otherwise). Answers 201
+        truck's capacity) must last at least one day of `demand_per_day` (422 otherwise). Without
+        `safe_fill` the site gets its product's default safe fill (0.9 without a product). Answers 201
         with the site, its `Location` and its `ETag`.
         """
         session = get_session()
         truck = truck_for(data["truck"])
         if repo.code_taken(session, Site, data["code"]):
             raise Problem(409, f"A site with code {data['code']!r} already exists.", kind="conflict")
-        usable_stock.check_site(data["code"], data, truck.code, truck.capacity, unit(), data.keys())
-        fleet_refs.check_site(data)
+        sent = set(data.keys())
+        fleet_refs.fill_safe_fill(data, fleet_refs.check_site(data))
+        _check_safety_stock(data)
+        usable_stock.check_site(data["code"], data, truck.code, truck.capacity, unit(), sent)
         site = repo.add_site(session, data, truck)
         session.commit()
         return dump(site, truck.code), {"Location": url_for("sites.SiteByCode", code=site.code), "ETag": etag(site)}
+
+
+def _check_safety_stock(site: dict) -> None:
+    """422 unless ``safety_stock < safe_fill × tank_capacity`` (the values as they would be stored)."""
+    try:
+        check_safety_stock(site)
+    except ValidationError as exc:
+        raise Problem(
+            422,
+            "safety_stock must be below safe_fill × tank_capacity.",
+            kind="validation",
+            errors=flatten_messages(exc.normalized_messages()),
+        ) from exc
 
 
 @blp.route("/<string:code>")
@@ -133,6 +149,7 @@ class SiteByCode(MethodView):
         """Change a site (needs If-Match; every change bumps version)
 
         Admin only. Send only the fields to change; `active: false` takes the site out of future plans.
+        Changing `product` alone keeps the stored `safe_fill` (send both to change both).
         Answers with the new version and `ETag`.
         """
         session = get_session()
@@ -141,15 +158,7 @@ class SiteByCode(MethodView):
         require_if_match(etag(site))
         fleet_refs.check_site(data)
         merged = {name: getattr(site, name) for name in ("safe_fill", "tank_capacity", "safety_stock")} | data
-        try:
-            check_safety_stock(merged)
-        except ValidationError as exc:
-            raise Problem(
-                422,
-                "safety_stock must be below safe_fill × tank_capacity.",
-                kind="validation",
-                errors=flatten_messages(exc.normalized_messages()),
-            ) from exc
+        _check_safety_stock(merged)
         if truck is not None:
             merged = usable_stock.values(site) | data
             usable_stock.check_site(site.code, merged, truck.code, truck.capacity, unit(), data.keys())

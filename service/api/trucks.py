@@ -52,12 +52,14 @@ class Trucks(MethodView):
         """Create a truck
 
         Admin only. `depot` and `products` name stored depots and products, and `compartments`
-        sum to `capacity` (422 otherwise). Answers 201 with the truck, its `Location` and its `ETag`.
+        sum to `capacity` (422 otherwise). `shift_hours` needs `average_speed_kmh` (422 naming
+        it otherwise); without `shift_hours` a truck's day is not limited. Answers 201 with the truck, its `Location` and its `ETag`.
         """
         session = get_session()
         if repo.code_taken(session, Truck, data["code"]):
             raise Problem(409, f"A truck with code {data['code']!r} already exists.", kind="conflict")
         fleet_refs.check_truck(data, data["capacity"], data["compartments"])
+        fleet_refs.check_shift(data["shift_hours"], data["average_speed_kmh"])
         truck = repo.add_truck(session, data)
         session.commit()
         return truck, {"Location": url_for("trucks.TruckByCode", code=truck.code), "ETag": etag(truck)}
@@ -95,6 +97,9 @@ class TruckByCode(MethodView):
         truck = truck_or_404(code, for_update=True)
         require_if_match(etag(truck))
         fleet_refs.check_truck(data, data.get("capacity", truck.capacity), data.get("compartments", truck.compartments))
+        fleet_refs.check_shift(
+            data.get("shift_hours", truck.shift_hours), data.get("average_speed_kmh", truck.average_speed_kmh)
+        )
         if data.get("capacity", truck.capacity) < truck.capacity:
             unit = current_app.config["ULLAGE_SETTINGS"].quantity_unit
             sites = repo.active_sites(session, truck)

@@ -37,6 +37,10 @@ TRUCK_FIELDS = (
     "cost_per_km",
     "compartments",
     "products",
+    "shift_hours",
+    "average_speed_kmh",
+    "stop_minutes",
+    "load_minutes",
     "active",
 )
 

@@ -266,7 +266,7 @@ def test_site_product_is_stored_and_must_be_known(client, auth, fleet, db_sessio
 
 
 def test_a_csv_reimport_keeps_the_sites_product(client, auth, fleet, db_session):
-    """The CSV carries no product column; importing a stored site again leaves its product alone."""
+    """A CSV without the product column (older files) leaves a stored site's product alone."""
     post(client, auth, TRUCKS, TRUCK)
     post(client, auth, SITES, SITE | {"product": "DSL"})
     csv = "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity\nS1,Site one,T1,350,0.001,30,10000\n"

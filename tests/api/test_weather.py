@@ -188,8 +188,8 @@ def test_site_weather_fields_and_csv_round_trip(client, auth, truck):
         )
     export = client.get("/api/v1/sites/export", headers=auth("viewer")).get_data(as_text=True)
     header, h1, p1 = export.splitlines()
-    assert header.endswith(",weather_region,base_temperature")
-    assert h1.endswith(",NW-COAST,15.5") and p1.endswith(",INLAND,18.0")
+    assert header.endswith(",weather_region,base_temperature,product")  # product: the last column
+    assert h1.endswith(",NW-COAST,15.5,") and p1.endswith(",INLAND,18.0,")  # no product set
     response = client.post("/api/v1/sites/import", data=export, headers={**auth("admin"), "Content-Type": "text/csv"})
     assert response.status_code == 200 and response.get_json()["updated"] == 0  # imports back unchanged
 

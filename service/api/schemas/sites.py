@@ -17,6 +17,11 @@ from service.api.schemas.common import (
 RESERVED_SITE_CODES = ("import", "export")
 
 
+#: A new site's safe fill when neither the site nor its product gives one (liquid fuels 0.90–0.95;
+#: docs/fleet.md §1).
+DEFAULT_SAFE_FILL = 0.9
+
+
 class SiteSchema(StrictSchema):
     code = ma.fields.String(
         required=True,
@@ -36,9 +41,11 @@ class SiteSchema(StrictSchema):
     stop_cost = JsonFloat(required=True, validate=nonnegative(), metadata={"description": "Currency per delivery"})
     tank_capacity = JsonFloat(required=True, validate=positive(), metadata={"description": "Nominal tank size"})
     safe_fill = JsonFloat(
-        load_default=0.9,
         validate=Range(min=0.01, max=1.0),
-        metadata={"description": "Fraction of the tank that may be filled, (0, 1]"},
+        metadata={
+            "description": "Fraction of the tank that may be filled, (0, 1]. Not sent on create: the "
+            f"product's safe_fill, else {DEFAULT_SAFE_FILL}; a PATCH of `product` alone keeps the stored value"
+        },
     )
     safety_stock = JsonFloat(
         load_default=0.0,

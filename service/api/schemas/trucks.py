@@ -8,7 +8,7 @@ import marshmallow as ma
 from service.api.fields import JsonBool, JsonFloat, JsonInt, Range
 from service.api.pagination import PageArgsSchema
 from service.api.schemas.calendar import CalendarSchema, no_repeats
-from service.api.schemas.common import code_field_validate, name_validate, nonnegative, positive
+from service.api.schemas.common import POSITIVE_MIN, code_field_validate, name_validate, nonnegative, positive
 
 #: ``HH:MM`` or ``HH:MM:SS`` on a 24-hour clock (ISO 8601 extended format, no fraction, no offset).
 #: Compartments per truck: the exact loading search tries up to 2^C subsets (planning/fleet/compartments.py).
@@ -77,6 +77,33 @@ class TruckSchema(CalendarSchema):
             "description": "Codes of the products the truck may carry, each once; null: any",
             "uniqueItems": True,
         },
+    )
+    shift_hours = JsonFloat(
+        load_default=None,
+        allow_none=True,
+        validate=Range(min=POSITIVE_MIN, max=24),
+        metadata={
+            "description": "Hours a day's trips may last in all (driving, stops and loading), (0, 24]; needs "
+            "`average_speed_kmh`. null: the day is not limited"
+        },
+    )
+    average_speed_kmh = JsonFloat(
+        load_default=None,
+        allow_none=True,
+        validate=positive(),
+        metadata={"description": "Mean road speed used to time trips, km/h, > 0; null: trips are not timed"},
+    )
+    stop_minutes = JsonFloat(
+        load_default=None,
+        allow_none=True,
+        validate=nonnegative(),
+        metadata={"description": "Minutes spent at each stop (>= 0); null counts as 0"},
+    )
+    load_minutes = JsonFloat(
+        load_default=None,
+        allow_none=True,
+        validate=nonnegative(),
+        metadata={"description": "Minutes of loading at the depot per trip (>= 0); null counts as 0"},
     )
     active = JsonBool(load_default=True)
     version = ma.fields.Integer(dump_only=True)

@@ -46,7 +46,12 @@ class FleetSite:
 @dataclass(frozen=True)
 class FleetTruck:
     """A truck based at ``depot``: cost per trip (``dispatch_cost``) and per kilometre, its compartments
-    (capacities; the truck's capacity is their sum), the products it may carry, and a stop limit."""
+    (capacities; the truck's capacity is their sum), the products it may carry, and a stop limit.
+
+    Optional shift (``docs/fleet.md`` §6a; ``None`` = not limited): a trip lasts
+    ``route_km / average_speed_kmh + stops × stop_minutes / 60 + load_minutes / 60`` hours, and when
+    ``shift_hours`` is set each day's trips together last at most ``shift_hours``. ``shift_hours`` needs
+    ``average_speed_kmh``; ``stop_minutes`` and ``load_minutes`` count as 0 when ``None``."""
 
     code: str
     depot: str
@@ -55,10 +60,24 @@ class FleetTruck:
     compartments: tuple[float, ...]
     products: tuple[str, ...]
     max_stops: int | None = None
+    shift_hours: float | None = None
+    average_speed_kmh: float | None = None
+    stop_minutes: float | None = None
+    load_minutes: float | None = None
 
     @property
     def capacity(self) -> float:
         return float(sum(self.compartments))
+
+    def trip_hours(self, route_km: float, stops: int) -> float | None:
+        """A trip's duration in hours, ``None`` without an average speed."""
+        if self.average_speed_kmh is None:
+            return None
+        return (
+            float(route_km) / float(self.average_speed_kmh)
+            + stops * float(self.stop_minutes or 0.0) / 60.0
+            + float(self.load_minutes or 0.0) / 60.0
+        )
 
 
 @dataclass(frozen=True)

@@ -125,6 +125,7 @@ def _check(sites, trucks, depots, products) -> None:
             raise PlanningInputError(f"truck `{t.code}`: compartments must be capacities > 0", field="compartments")
         if not (t.cost_per_km >= 0 and t.dispatch_cost >= 0):
             raise PlanningInputError(f"truck `{t.code}`: costs must be >= 0", field="cost_per_km", code=t.code)
+        _check_shift(t)
         for p in t.products:
             if p not in known_products:
                 raise PlanningInputError(f"truck `{t.code}`: unknown product `{p}`", field="products", code=t.code)
@@ -133,6 +134,23 @@ def _check(sites, trucks, depots, products) -> None:
             raise PlanningInputError(f"site `{s.code}`: unknown product `{s.product}`", field="product", code=s.code)
         if s.depot is not None and s.depot not in known_depots:
             raise PlanningInputError(f"site `{s.code}`: unknown depot `{s.depot}`", field="depot", code=s.code)
+
+
+def _check_shift(t: FleetTruck) -> None:
+    """The shift fields' ranges (as the trucks table's checks) and ``shift_hours`` needing a speed."""
+    checks = (
+        ("shift_hours", t.shift_hours, lambda v: 0 < v <= 24, "in (0, 24]"),
+        ("average_speed_kmh", t.average_speed_kmh, lambda v: v > 0, "> 0"),
+        ("stop_minutes", t.stop_minutes, lambda v: v >= 0, ">= 0"),
+        ("load_minutes", t.load_minutes, lambda v: v >= 0, ">= 0"),
+    )
+    for name, value, ok, what in checks:
+        if value is not None and not (isinstance(value, int | float) and math.isfinite(value) and ok(value)):
+            raise PlanningInputError(f"truck `{t.code}`: {name} must be {what}", field=name, code=t.code)
+    if t.shift_hours is not None and t.average_speed_kmh is None:
+        raise PlanningInputError(
+            f"truck `{t.code}`: shift_hours needs average_speed_kmh", field="average_speed_kmh", code=t.code
+        )
 
 
 def _usable(site: FleetSite) -> float:
@@ -206,6 +224,7 @@ def _costed(
     split = count = 0
     length_sum = load = stops_sum = 0.0
     by_day: dict[int, int] = {}
+    hours_of: dict[int, float] = {}
     for n_trip, trip in enumerate(trips):
         if n_trip % 256 == 0:
             tick()
@@ -223,6 +242,9 @@ def _costed(
             length_sum += length
             stops_sum += sum(k_of[name] for name in names)
             load += sum(q for piece in loads for _, q in piece)
+            hours = truck.trip_hours(length, len(names))
+            if hours is not None:
+                hours_of[trip.day] = hours_of.get(trip.day, 0.0) + hours
             if trip.day >= ROUTED_DAYS:
                 continue
             stops = tuple(
@@ -233,7 +255,7 @@ def _costed(
             routed.append(
                 RoutedTrip(
                     trip.day, trip.date, by_day[trip.day], sum(x.quantity for x in stops), stops,
-                    float(legs[-1]), float(length), float(cost),
+                    float(legs[-1]), float(length), float(cost), hours,
                 )
             )
     if split:
@@ -248,6 +270,10 @@ def _costed(
         "trip_share": count / (open_days * tk.calendar.trips_per_day) if open_days and tk.calendar.trips_per_day else None,
         "load_share": load / (count * truck.capacity) if count else 0.0,
     }
+    if truck.shift_hours is not None:
+        utilisation["shift_hours"] = float(truck.shift_hours)
+        utilisation["longest_day_hours"] = max(hours_of.values(), default=0.0)
+        utilisation["mean_day_hours"] = sum(hours_of.values()) / len(hours_of) if hours_of else 0.0
     limit = tk.calendar.trips_per_day
     if limit is not None and any(v > limit for v in by_day.values()):
         warnings.append(f"splitting for the compartments needs more than {limit} trip(s) on some dates")
@@ -366,9 +392,101 @@ def _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
     )  # fmt: skip
 
 
+#: Slack on the shift check (hours), for rounding only.
+SHIFT_TOLERANCE = 1e-9
+
+
+def _fits_shift(plan: TruckPlan, truck: FleetTruck) -> bool:
+    if truck.shift_hours is None:
+        return True
+    return plan.utilisation["longest_day_hours"] <= truck.shift_hours + SHIFT_TOLERANCE
+
+
 def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unserved):
-    """The cheapest candidate plan of one truck (module docstring, steps 3–4), or ``None``."""
+    """The cheapest candidate plan of one truck (module docstring, steps 3–4) whose every day fits the
+    truck's shift (``docs/fleet.md`` §6a), or ``None``.
+
+    With a shift: sites whose one-stop trip alone is longer than the shift are set aside; the stop limit
+    and trips per day start at what the shift allows (``floor`` of the hours left for stops over the
+    minutes per stop; ``floor`` of the shift over the shortest one-stop trip); while no candidate's every
+    day fits, the trips per day are cut when every listed trip fits the shift, else the stop limit (in
+    proportion to the overflow, at least by one), and the truck is planned again (once the time budget is spent, straight to one stop and one trip a
+    day). At one stop and one trip a day every day is one one-stop trip, which
+    fits (the sites left all passed the first test); should none fit even so, the truck's sites are set
+    aside. Sites set aside while the limits were cut get the reason "the truck's shift cannot fit …"."""
+    truck = tk.truck
+    if truck.shift_hours is None:
+        return _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, unserved)[0]
+    shift = float(truck.shift_hours)
+    local_products = dict(zip([codes[i] for i in tk.sites], products, strict=True))
+    single = np.array([truck.trip_hours(float(tk.d[0, j] + tk.d[j, 0]), 1) for j in range(1, len(tk.sites) + 1)])
+    too_long = single > shift + SHIFT_TOLERANCE
+    for j in np.flatnonzero(too_long):
+        unserved.setdefault(
+            codes[tk.sites[j]],
+            f"the truck's shift cannot fit a trip to this site: truck `{truck.code}` needs {single[j]:.2f} h "
+            f"for it alone, its shift is {shift:g} h",
+        )
+    tk = _subset(tk, ~too_long)
+    if not len(tk.sites):
+        return None
+    single = single[~too_long]
+    stop_h = float(truck.stop_minutes or 0.0) / 60.0
+    load_h = float(truck.load_minutes or 0.0) / 60.0
+    drive_h = float(single.min()) - stop_h - load_h
+    stops = truck.max_stops
+    if stop_h > 0:
+        room = max(1, int(math.floor((shift - load_h - drive_h) / stop_h + SHIFT_TOLERANCE)))
+        stops = room if stops is None else min(stops, room)
+    tpd = max(1, int(math.floor(shift / float(single.min()) + SHIFT_TOLERANCE)))
+    if tk.calendar.trips_per_day is not None:
+        tpd = min(tpd, tk.calendar.trips_per_day)
+    tightened = False
+    while True:
+        keep = np.array([codes[i] not in unserved for i in tk.sites], dtype=bool)
+        tk = _subset(tk, keep)
+        if not len(tk.sites):
+            return None
+        cur = _Truck(tk.index, replace(truck, max_stops=stops), replace(tk.calendar, trips_per_day=tpd), tk.sites, tk.d)
+        before = set(unserved)
+        prods = [local_products[codes[i]] for i in cur.sites]
+        best, rejected = _plan_truck_once(cur, fleet_sites, start, clock, codes, stop_cost, prods, unserved)
+        if tightened:
+            for code in set(unserved) - before:
+                unserved[code] = (
+                    f"the truck's shift cannot fit it: {shift:g} h allow truck `{truck.code}` at most {tpd} trip(s) "
+                    f"of at most {stops} stop(s) a day; {unserved[code]}"
+                )
+        if best is not None or rejected is None:
+            return best
+        over = rejected.utilisation["longest_day_hours"] / shift
+        seen_stops = max((len(t.stops) for t in rejected.trips), default=1)
+        seen_trips = max((t.trip for t in rejected.trips), default=1)
+        longest_trip = max((t.duration_hours or 0.0 for t in rejected.trips), default=0.0)
+        now_stops = stops if stops is not None else seen_stops
+        if clock.out() and (stops != 1 or tpd != 1):  # budget spent: the one limit that surely fits
+            stops, tpd = 1, 1
+        elif tpd > 1 and longest_trip <= shift + SHIFT_TOLERANCE:  # the trips fit, their number does not
+            now = min(tpd, seen_trips)
+            tpd = max(1, min(now - 1, int(math.floor(now / over))))
+        elif now_stops > 1:
+            over_trip = max(longest_trip / shift, 1.0)
+            stops = max(1, min(now_stops - 1, int(math.floor(now_stops / over_trip))))
+        elif tpd > 1:
+            tpd = max(1, min(min(tpd, seen_trips) - 1, int(math.floor(min(tpd, seen_trips) / over))))
+        else:
+            for i in cur.sites:
+                unserved.setdefault(
+                    codes[i], f"the truck's shift cannot fit its trips: truck `{truck.code}`, shift {shift:g} h"
+                )
+            return None
+        tightened = True
+
+
+def _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, unserved):
+    """The cheapest candidate fitting the shift and the cheapest one that does not (or ``None``s)."""
     best: TruckPlan | None = None
+    rejected: TruckPlan | None = None
     retry = True
     while retry and len(tk.sites):
         retry, nu = False, _neighbour(tk.d)
@@ -380,20 +498,25 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
             clock.tick()
             if plan == "retry":
                 tk = _subset(tk, np.array([codes[i] not in unserved for i in tk.sites]))
-                best, retry = None, True
+                best, rejected, retry = None, None, True
                 break
             if plan is None:
-                return None
+                return None, None
             if plan == "skip":
+                continue
+            if not _fits_shift(plan, tk.truck):
+                rejected = rejected or plan
                 continue
             if best is None or plan.cost_per_day < best.cost_per_day:
                 best = plan
-    if best is None:
-        return None
     cyclic = _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
+    if cyclic is not None and not _fits_shift(cyclic, tk.truck):
+        rejected, cyclic = rejected or cyclic, None
+    if best is None:  # every candidate skipped (no cyclic fallback then), or none fits the shift
+        return (cyclic if rejected is not None else None), rejected
     if cyclic is not None and cyclic.cost_per_day < best.cost_per_day - 1e-9:
         best = cyclic
-    return best
+    return best, rejected
 
 
 def _subset(tk: _Truck, keep: np.ndarray) -> _Truck:

@@ -23,7 +23,9 @@ class RouteStop(_ToDict):
 class RoutedTrip(_ToDict):
     """One trip in driving order from and back to the depot: ``day`` (since the start date), ``date``,
     ``trip`` (1-based within the date), ``load``, ``stops``, ``return_km`` (last stop to the depot),
-    ``distance_km`` (the whole route) and ``cost`` (dispatch + cost per km × distance + stop costs)."""
+    ``distance_km`` (the whole route), ``cost`` (dispatch + cost per km × distance + stop costs) and
+    ``duration_hours`` (``distance_km / average_speed_kmh + stops × stop_minutes / 60 + load_minutes / 60``;
+    ``None`` when the truck has no average speed)."""
 
     day: int
     date: dt.date
@@ -33,6 +35,7 @@ class RoutedTrip(_ToDict):
     return_km: float
     distance_km: float
     cost: float
+    duration_hours: float | None = None
 
 
 @dataclass(frozen=True)
@@ -44,7 +47,9 @@ class TruckPlan(_ToDict):
     exhaustive cyclic search of :mod:`cyclic`). ``cost_per_day`` = ``(Σ trip costs) / repeat_days`` +
     holding, split in ``cost_breakdown`` ``{"dispatch", "distance", "stops", "holding"}``.
     ``utilisation``: ``{"trips_per_open_day", "trip_share"`` (trips over open days × trips_per_day;
-    ``None`` without a trip limit), ``"load_share"`` (load over trips × capacity)``}``.
+    ``None`` without a trip limit), ``"load_share"`` (load over trips × capacity)``}``; with a shift also
+    ``"shift_hours"``, ``"longest_day_hours"`` and ``"mean_day_hours"`` (over the days with trips, every
+    day of the repeat period counted, not only the listed ones).
     """
 
     truck: str
