@@ -8,7 +8,7 @@ from typing import Any
 from flask import Response, current_app, json, request, url_for
 from flask.views import MethodView
 
-from service import bounded, idempotency, schedule
+from service import bounded, idempotency, routes, schedule
 from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified, require_if_match
@@ -328,6 +328,7 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
                 "stops": [
                     {
                         "site": s.site,
+                        "sequence": t.route.sequence(s.site),
                         "planned_quantity": s.planned_quantity,
                         "quantity": s.quantity,
                         "projected_level_before": s.projected_level_before,
@@ -337,6 +338,8 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
                     }
                     for s in t.stops
                 ],
+                "route": routes.route_json(t.route),
+                "route_note": t.route.reason,
             }
             for t in view.trips
         ],

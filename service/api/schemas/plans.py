@@ -129,6 +129,13 @@ class NoticeSchema(ma.Schema):
 
 class DatedStopSchema(ma.Schema):
     site = ma.fields.String(metadata={"description": "Code of the site to deliver to"})
+    sequence = ma.fields.Integer(
+        allow_none=True,
+        metadata={
+            "description": "1-based position of the stop in driving order (the trip's `route`); null when the "
+            "trip is not routed (`route_note` says why)"
+        },
+    )
     planned_quantity = ma.fields.Float(metadata={"description": "The quantity the recorded plan gave this stop"})
     quantity = ma.fields.Float(
         metadata={
@@ -157,6 +164,25 @@ class DatedStopSchema(ma.Schema):
     warnings = ma.fields.List(ma.fields.Nested(NoticeSchema), metadata={"description": "Notices about this stop"})
 
 
+class RouteLegSchema(ma.Schema):
+    from_ = ma.fields.String(data_key="from", metadata={"description": "Depot code or site code the leg starts at"})
+    to = ma.fields.String(metadata={"description": "Site code or depot code the leg ends at"})
+    km = ma.fields.Float(metadata={"description": "Road distance: great-circle distance × circuity (1.3), km"})
+
+
+class RouteSchema(ma.Schema):
+    depot = ma.fields.String(metadata={"description": "Code of the truck's depot: the route starts and ends there"})
+    stops = ma.fields.List(ma.fields.String(), metadata={"description": "Site codes in driving order"})
+    legs = ma.fields.List(
+        ma.fields.Nested(RouteLegSchema),
+        metadata={"description": "Depot → first stop, …, last stop → depot (one more leg than stops)"},
+    )
+    km = ma.fields.Float(metadata={"description": "Route length: the sum of the legs, km"})
+    exact = ma.fields.Boolean(
+        metadata={"description": "The order is the proven shortest (exact dynamic programme, up to 12 stops)"}
+    )
+
+
 class DatedTripSchema(ma.Schema):
     date = ma.fields.Date(metadata={"description": "Delivery day (service time zone)"})
     trip = ma.fields.Integer(metadata={"description": "1-based index of the trip within its date"})
@@ -164,7 +190,21 @@ class DatedTripSchema(ma.Schema):
     load = ma.fields.Float(  # type: ignore[assignment]
         metadata={"description": "Sum of the stops' quantity: what the truck carries out"}
     )
-    stops = ma.fields.List(ma.fields.Nested(DatedStopSchema), metadata={"description": "The stops, in plan order"})
+    stops = ma.fields.List(
+        ma.fields.Nested(DatedStopSchema),
+        metadata={"description": "The stops, in plan order (site code order); `sequence` gives the driving order"},
+    )
+    route = ma.fields.Nested(
+        RouteSchema,
+        allow_none=True,
+        metadata={
+            "description": "The stops in driving order from and back to the truck's depot with each leg's road "
+            "distance; null when the truck has no depot or a stop or the depot lacks coordinates"
+        },
+    )
+    route_note = ma.fields.String(
+        allow_none=True, metadata={"description": "Why the trip is not routed (null when `route` is set)"}
+    )
 
 
 class TripsSchema(ma.Schema):
