@@ -60,6 +60,8 @@ class TripRoute:
     km: float | None
     exact: bool
     reason: str | None
+    #: The depot's point then each stop's point in driving order (empty when not routed).
+    points: tuple[Point, ...] = ()
 
     @property
     def routed(self) -> bool:
@@ -86,7 +88,8 @@ def _routed(depot: str, depot_point: Point, stops: tuple[tuple[str, Point], ...]
         Leg(names[a], names[b], round(km, KM_DECIMALS))
         for a, b, km in zip(tour.order[:-1], tour.order[1:], tour.legs, strict=True)
     )
-    return TripRoute(depot, order, legs, round(tour.length, KM_DECIMALS), tour.exact, None)
+    ordered = tuple(points[i] for i in tour.order[:-1])
+    return TripRoute(depot, order, legs, round(tour.length, KM_DECIMALS), tour.exact, None, ordered)
 
 
 def trip_route(
