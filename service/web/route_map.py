@@ -33,7 +33,9 @@ def _project(route: TripRoute) -> list[tuple[float, float]]:
     span = max(max(xs) - min(xs), max(ys) - min(ys)) or 1.0
     scale = min(WIDTH, HEIGHT) - 2 * MARGIN
     cx, cy = (max(xs) + min(xs)) / 2, (max(ys) + min(ys)) / 2
-    return [(WIDTH / 2 + (x - cx) / span * scale, HEIGHT / 2 - (y - cy) / span * scale) for x, y in zip(xs, ys, strict=True)]
+    return [
+        (WIDTH / 2 + (x - cx) / span * scale, HEIGHT / 2 - (y - cy) / span * scale) for x, y in zip(xs, ys, strict=True)
+    ]
 
 
 def route_svg(route: TripRoute, names: Mapping[str, str], element_id: str) -> Markup:
