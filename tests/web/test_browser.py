@@ -81,6 +81,7 @@ def server(tmp_path_factory: pytest.TempPathFactory):
     _cli(env, "db", "upgrade")
     _cli(env, "demo")
     token = _cli(env, "token", "create", "browser-dispatcher", "--role", "dispatcher").strip().splitlines()[-1]
+    admin = _cli(env, "token", "create", "browser-admin", "--role", "admin").strip().splitlines()[-1]
     port = _free_port()
     log = open(workdir / "gunicorn.log", "w")  # noqa: SIM115 - closed below
     process = subprocess.Popen(
@@ -109,14 +110,15 @@ def server(tmp_path_factory: pytest.TempPathFactory):
         api.trust_env = False
         api.headers["Authorization"] = f"Bearer {token}"
         # Issue 16: the first truck starts from an (invented) depot, so its trips are routed and drawn.
+        as_admin = {"Authorization": f"Bearer {admin}"}
         truck_now = api.get(f"{base}/api/v1/trucks/{TRUCK}", timeout=30)
         if truck_now.json()["depot"] is None:
             depot = {"code": "HV-BT-DEPOT", "name": "Invented test depot", "latitude": 51.76, "longitude": -3.40}
-            assert api.post(f"{base}/api/v1/depots", json=depot, timeout=30).status_code == 201
+            assert api.post(f"{base}/api/v1/depots", json=depot, headers=as_admin, timeout=30).status_code == 201
             moved = api.patch(
                 f"{base}/api/v1/trucks/{TRUCK}",
                 json={"depot": depot["code"]},
-                headers={"If-Match": truck_now.headers["ETag"]},
+                headers={"If-Match": truck_now.headers["ETag"], **as_admin},
                 timeout=30,
             )
             assert moved.status_code == 200, moved.text
