@@ -55,7 +55,12 @@ def route_svg(route: TripRoute, names: Mapping[str, str], element_id: str) -> Ma
     ]
     dx, dy = at[0]
     parts.append(f'<rect class="depot-mark" x="{dx - 6:.1f}" y="{dy - 6:.1f}" width="12" height="12"/>')
-    parts.append(f'<text class="depot-label" x="{dx + 9:.1f}" y="{dy - 8:.1f}">{escape(route.depot or "")}</text>')
+    # The label goes on the side of the depot with more room, so it stays inside the drawing.
+    lx, anchor = (dx + 9, "start") if dx < WIDTH / 2 else (dx - 9, "end")
+    ly = dy - 8 if dy > MARGIN + 4 else dy + 18
+    parts.append(
+        f'<text class="depot-label" x="{lx:.1f}" y="{ly:.1f}" text-anchor="{anchor}">{escape(route.depot or "")}</text>'
+    )
     for i, ((x, y), code) in enumerate(zip(at[1:], route.order, strict=True), 1):
         parts.append(
             f'<g class="stop-mark" data-site="{escape(code)}"><circle cx="{x:.1f}" cy="{y:.1f}" r="8"/>'

@@ -57,3 +57,19 @@ def test_without_a_depot_the_page_keeps_its_caution_and_draws_no_map(app, planne
     page = Page(browser_client.get(f"/status?week={week_of(app)}").get_data(as_text=True))
     assert not page.find("svg", class_="route-map")
     assert "Stops, not in driving order (quantity to deliver)" in page.text
+
+
+def test_the_route_map_escapes_names_and_draws_every_stop_inside_the_drawing():
+    from service.routes import Point, trip_route  # noqa: PLC0415
+    from service.web.route_map import HEIGHT, WIDTH, route_svg  # noqa: PLC0415
+
+    route = trip_route("D<1>", Point(51.70, -3.35), [("A", Point(51.75, -3.30)), ("B", Point(51.65, -3.42))])
+    svg = str(route_svg(route, {"A": 'Tank "<script>alert(1)</script>"', "B": "B & sons"}, 'id"x'))
+    assert "<script>" not in svg and "&lt;script&gt;" in svg and "B &amp; sons" in svg and 'id="id&#34;x"' in svg
+    assert "D&lt;1&gt;" in svg and "<title>" in svg
+    page = Page(svg)
+    circles = page.find("circle")
+    assert len(circles) == 2
+    for circle in circles:
+        assert 0 <= float(circle.attrs["cx"] or "") <= WIDTH and 0 <= float(circle.attrs["cy"] or "") <= HEIGHT
+    assert route_svg(trip_route(None, None, [("A", None)]), {}, "x") == ""
