@@ -133,3 +133,22 @@ def test_moving_the_depot_changes_the_cached_routes(client, auth, network):
     expected = road_km((51.80, DEPOT["longitude"]), PLACES[first["to"]])
     assert first["km"] == pytest.approx(expected, abs=2e-3)
     assert first["km"] != before[0]["route"]["legs"][0]["km"]
+
+
+def test_a_recorded_plan_lists_each_trip_with_its_route(client, auth, network):
+    body = client.post("/api/v1/trucks/T1/plans", json={"start_date": START.isoformat()}, headers=auth("dispatcher"))
+    assert body.status_code == 201, body.get_json()
+    for answer in (
+        body.get_json(),
+        client.get(f"/api/v1/plans/{body.get_json()['id']}", headers=auth("viewer")).get_json(),
+    ):
+        assert answer["trips"]
+        places = {"D-W": (DEPOT["latitude"], DEPOT["longitude"]), **PLACES}
+        for trip in answer["trips"]:
+            route, codes = trip["route"], [s["code"] for s in trip["stops"]]
+            assert trip["route_note"] is None and sorted(route["stops"]) == sorted(codes)
+            best = min(
+                sum(road_km(places[a], places[b]) for a, b in itertools.pairwise(["D-W", *order, "D-W"]))
+                for order in itertools.permutations(codes)
+            )
+            assert route["km"] == pytest.approx(best, abs=2e-3)

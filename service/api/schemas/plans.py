@@ -14,7 +14,7 @@ from service.api.fields import (
     Range,
 )
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema
+from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema, TripSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema
 from service.planning.joint import METHODS
 
@@ -32,6 +32,39 @@ class PlanRequestSchema(StrictSchema):
     )
 
 
+class RouteLegSchema(ma.Schema):
+    from_ = ma.fields.String(data_key="from", metadata={"description": "Depot code or site code the leg starts at"})
+    to = ma.fields.String(metadata={"description": "Site code or depot code the leg ends at"})
+    km = ma.fields.Float(metadata={"description": "Road distance: great-circle distance × circuity (1.3), km"})
+
+
+class RouteSchema(ma.Schema):
+    depot = ma.fields.String(metadata={"description": "Code of the truck's depot: the route starts and ends there"})
+    stops = ma.fields.List(ma.fields.String(), metadata={"description": "Site codes in driving order"})
+    legs = ma.fields.List(
+        ma.fields.Nested(RouteLegSchema),
+        metadata={"description": "Depot → first stop, …, last stop → depot (one more leg than stops)"},
+    )
+    km = ma.fields.Float(metadata={"description": "Route length: the sum of the legs, km"})
+    exact = ma.fields.Boolean(
+        metadata={"description": "The order is the proven shortest (exact dynamic programme, up to 12 stops)"}
+    )
+
+
+class PlanTripSchema(TripSchema):
+    route = ma.fields.Nested(
+        RouteSchema,
+        allow_none=True,
+        metadata={
+            "description": "The stops in driving order from and back to the truck's current depot, from the "
+            "sites' current coordinates; null when not routable (`route_note` says why)"
+        },
+    )
+    route_note = ma.fields.String(
+        allow_none=True, metadata={"description": "Why the trip is not routed (null when `route` is set)"}
+    )
+
+
 class PlanSchema(JointFieldsSchema):
     id = ma.fields.Integer()
     truck = ma.fields.String(metadata={"description": "Code of the truck the plan is for"})
@@ -44,7 +77,9 @@ class PlanSchema(JointFieldsSchema):
     )
     planning_status = ma.fields.String(
         validate=ma.validate.OneOf([s for s in STATUSES if s != "infeasible"]),
-        metadata={"description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION},
+        metadata={
+            "description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION
+        },
     )
     stale = ma.fields.Boolean(
         metadata={"description": "True when a truck or site input changed since the plan was computed"}
@@ -61,6 +96,7 @@ class PlanSchema(JointFieldsSchema):
         }
     )
     inputs_digest = ma.fields.String(metadata={"description": "SHA-256 of the canonical JSON of inputs"})
+    trips = ma.fields.List(ma.fields.Nested(PlanTripSchema))
 
 
 class PlanListSchema(ma.Schema):
@@ -162,25 +198,6 @@ class DatedStopSchema(ma.Schema):
         allow_none=True, metadata={"description": "When the recorded delivery was made, in UTC; null otherwise"}
     )
     warnings = ma.fields.List(ma.fields.Nested(NoticeSchema), metadata={"description": "Notices about this stop"})
-
-
-class RouteLegSchema(ma.Schema):
-    from_ = ma.fields.String(data_key="from", metadata={"description": "Depot code or site code the leg starts at"})
-    to = ma.fields.String(metadata={"description": "Site code or depot code the leg ends at"})
-    km = ma.fields.Float(metadata={"description": "Road distance: great-circle distance × circuity (1.3), km"})
-
-
-class RouteSchema(ma.Schema):
-    depot = ma.fields.String(metadata={"description": "Code of the truck's depot: the route starts and ends there"})
-    stops = ma.fields.List(ma.fields.String(), metadata={"description": "Site codes in driving order"})
-    legs = ma.fields.List(
-        ma.fields.Nested(RouteLegSchema),
-        metadata={"description": "Depot → first stop, …, last stop → depot (one more leg than stops)"},
-    )
-    km = ma.fields.Float(metadata={"description": "Route length: the sum of the legs, km"})
-    exact = ma.fields.Boolean(
-        metadata={"description": "The order is the proven shortest (exact dynamic programme, up to 12 stops)"}
-    )
 
 
 class DatedTripSchema(ma.Schema):
