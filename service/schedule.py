@@ -7,7 +7,9 @@ Day ``k`` of a plan's calendar is ``start_date + k`` days; trips before the star
 exist. Quantities are corrected from the latest reading of each site (service.planning.projection),
 each to last until that site's next listed delivery (the calendar's gaps differ: a Friday delivery
 on Monday to Friday lasts until Monday), looking past the window for it.
-Stops are listed in the plan's order (site code order).
+Stops are listed in the plan's order (site code order); each trip also carries its ``route``
+(``service.routes``): the stops in driving order from and back to the truck's depot with the leg
+distances, or why it is not routed (no depot, or a stop or the depot without coordinates).
 
 Current limits always win over the plan's snapshot: the projection gets each site's current
 demand, safe-fill level and safety stock and the truck's current capacity and ``max_stops``; a
@@ -37,9 +39,10 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
-from service import consumption, weather, working_calendar
+from service import consumption, routes, weather, working_calendar
 from service.config import Settings
 from service.persistence import deliveries as delivery_store
+from service.persistence import fleet as fleet_store
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence import tanks
@@ -103,6 +106,8 @@ class DayTrip:
     load: float
     capacity: float
     stops: tuple[PlannedStop, ...]
+    #: The stops in driving order from and back to the truck's depot, or why not (``service.routes``).
+    route: routes.TripRoute = routes.TripRoute(None, (), (), None, False, routes.NO_DEPOT)
 
 
 @dataclass(frozen=True)
@@ -604,19 +609,32 @@ def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = 
     return out
 
 
+def _points(
+    session: Session, truck: Truck, sites: dict[str, Site]
+) -> tuple[routes.Point | None, dict[str, routes.Point | None]]:
+    """The truck's depot point (``None`` without a depot) and each site's point, by site code."""
+    depot_point = None
+    if truck.depot is not None:
+        depot = fleet_store.depot_by_code(session, truck.depot)
+        depot_point = routes.point_of(depot.latitude, depot.longitude)
+    return depot_point, {code: routes.point_of(site.latitude, site.longitude) for code, site in sites.items()}
+
+
 def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, settings: Settings) -> TripsView:
     """The active plan's trips on ``first … last`` with corrected quantities and notices."""
     plan = plan_store.active_plan(session, truck)
     if plan is None:
         raise NoActivePlan(truck.code)
     replay = _replay(session, plan, truck, first, last, settings)
+    depot_point, points = _points(session, truck, replay.drift.sites)
     trips: list[DayTrip] = []
     index: dict[dt.date, int] = {}
     for t in replay.trips:
         if first <= t.date <= last:
             index[t.date] = index.get(t.date, 0) + 1
             stops = tuple(_stop(replay, s, t.date) for s in t.stops)
-            trips.append(DayTrip(t.date, index[t.date], t.load, truck.capacity, stops))
+            route = routes.trip_route(truck.depot, depot_point, [(s.site, points.get(s.site)) for s in stops])
+            trips.append(DayTrip(t.date, index[t.date], t.load, truck.capacity, stops, route))
     return TripsView(truck.code, replay.summary, first, last, tuple(trips), tuple(_notices(replay, first, last)))
 
 

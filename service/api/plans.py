@@ -8,7 +8,7 @@ from typing import Any
 from flask import Response, current_app, json, request, url_for
 from flask.views import MethodView
 
-from service import bounded, idempotency, schedule
+from service import bounded, idempotency, routes, schedule
 from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified, require_if_match
@@ -26,6 +26,7 @@ from service.api.trucks import truck_or_404
 from service.auth import allow, current_caller
 from service.cache import LruCache
 from service.errors import PROBLEM_JSON, Problem
+from service.persistence import fleet as fleet_store
 from service.persistence import pages
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
@@ -70,7 +71,28 @@ def plan_json(plan: Plan, truck_code: str, *, heavy: bool = True) -> dict[str, A
         "inputs_digest": plan.inputs_digest,
         **result,
     }
+    if heavy:
+        body["trips"] = _routed_trips(truck_code, result.get("trips") or [])
     return body if heavy else {k: v for k, v in body.items() if k not in HEAVY}
+
+
+def _routed_trips(truck_code: str, trips: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The plan's trips, each with its ``route`` from the truck's current depot and the sites'
+    current coordinates (``service.routes``; null with ``route_note`` when not routable)."""
+    session = get_session()
+    truck = repo.truck_by_code(session, truck_code)
+    depot_point = None
+    if truck.depot is not None:
+        depot = fleet_store.depot_by_code(session, truck.depot)
+        depot_point = routes.point_of(depot.latitude, depot.longitude)
+    codes = {stop["code"] for trip in trips for stop in trip["stops"]}
+    sites = repo.sites_by_code(session, codes)
+    points = {code: routes.point_of(site.latitude, site.longitude) for code, site in sites.items()}
+    out = []
+    for trip in trips:
+        route = routes.trip_route(truck.depot, depot_point, [(s["code"], points.get(s["code"])) for s in trip["stops"]])
+        out.append({**trip, "route": routes.route_json(route), "route_note": route.reason})
+    return out
 
 
 def _json_response(body: Any, status: int = 200, **headers: str) -> Response:
@@ -328,6 +350,7 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
                 "stops": [
                     {
                         "site": s.site,
+                        "sequence": t.route.sequence(s.site),
                         "planned_quantity": s.planned_quantity,
                         "quantity": s.quantity,
                         "projected_level_before": s.projected_level_before,
@@ -337,6 +360,8 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
                     }
                     for s in t.stops
                 ],
+                "route": routes.route_json(t.route),
+                "route_note": t.route.reason,
             }
             for t in view.trips
         ],
@@ -354,9 +379,7 @@ class TruckTrips(MethodView):
     @blp.alt_response(
         422, description="Invalid window, or longer than ULLAGE_MAX_TRIPS_DAYS (default 92 days)", **PROBLEM
     )
-    @blp.alt_response(
-        429, description="Too many long windows (heavy reads) of this token", headers=hh.RETRY, **PROBLEM
-    )
+    @blp.alt_response(429, description="Too many long windows (heavy reads) of this token", headers=hh.RETRY, **PROBLEM)
     @blp.alt_response(503, description="A long window found the planning processes busy", headers=hh.RETRY, **PROBLEM)
     @blp.header_parameters(hh.IF_NONE_MATCH)
     def get(self, args, code):

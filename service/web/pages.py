@@ -25,6 +25,7 @@ from service.request_db import get_session, read_engine
 from service.web import bp, error_page, formatting, log, settings
 from service.web.access import page
 from service.web.chart import chart_id, level_svg
+from service.web.route_map import route_svg
 
 CHART_DAYS = 28
 ASCII_WEEK = re.compile(r"[0-9]{4}-W[0-9]{2}")
@@ -222,12 +223,27 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
         "truck": truck,
         "calendar": working_calendar.Calendar.of(truck).describe(),
         "view": view,
+        "routes": _trip_routes(truck, view),
         "plan": plan,
         "gap": gap,
         "charts": charts,
         "warnings": warnings,
         "notes": notes,
     }
+
+
+def _trip_routes(truck: Truck, view: schedule.TripsView | None) -> dict[tuple[dt.date, int], dict[str, Any]]:
+    """Each trip's stops in driving order (plan order when not routed) and its route map."""
+    out: dict[tuple[dt.date, int], dict[str, Any]] = {}
+    for trip in view.trips if view is not None else ():
+        route = trip.route
+        stops = list(trip.stops)
+        if route.routed:
+            stops.sort(key=lambda stop: route.sequence(stop.site) or 0)
+        names = {stop.site: stop.site_name for stop in trip.stops}
+        element_id = chart_id(f"route-{truck.code}", f"{trip.date.isoformat()}-{trip.trip}")
+        out[(trip.date, trip.trip)] = {"route": route, "stops": stops, "svg": route_svg(route, names, element_id)}
+    return out
 
 
 def _with_empty(

@@ -20,6 +20,7 @@ from sqlalchemy import func, select
 from service.persistence import plans as plan_store
 from service.persistence import repository as repo
 from service.persistence.models import Plan
+from service.routes import NO_DEPOT
 
 JOINT = "/api/v1/calculations/joint"
 CHRISTMAS = dt.date(2026, 12, 25)
@@ -314,9 +315,9 @@ def test_a_plan_recorded_before_calendars_still_loads_and_lists_its_trips(client
     assert JOINT_FIELDS <= set(body) and "extra_trips" not in body
     assert body["planning_status"] == "optimal" and body["needed"] is None and body["start_date"] == START.isoformat()
     assert body["sites"][0] == old_result["sites"][0] | {"period_days": 3, "delivery_days": [0], "longest_gap_days": 3}
-    assert body["trips"] == [
-        {"day": 0, "date": START.isoformat(), "trip": 1, "load": 900.0, "stops": [{"code": "S0", "quantity": 900.0}]}
-    ]
+    trip = {"day": 0, "date": START.isoformat(), "trip": 1, "load": 900.0, "stops": [{"code": "S0", "quantity": 900.0}]}
+    # Issue 16: each listed trip also carries its route (none: this truck has no depot).
+    assert body["trips"] == [trip | {"route": None, "route_note": NO_DEPOT}]
     assert body["stale"] is False
     assert client.post(f"/api/v1/plans/{plan.id}/activate", headers=auth("dispatcher")).status_code == 200
     trips = client.get("/api/v1/trucks/T1/trips?week=2026-W52", headers=auth("viewer")).get_json()["trips"]

@@ -10,9 +10,10 @@ import pytest
 from contract import UNCONSTRAINED_CALENDAR
 
 START = dt.date(2026, 12, 7)  # Monday of ISO week 2026-W50
-TRIP_FIELDS = {"date", "trip", "load", "stops"}
+TRIP_FIELDS = {"date", "trip", "load", "stops", "route", "route_note"}  # issue 16: driving order
 STOP_FIELDS = {
     "site",
+    "sequence",  # issue 16: position in driving order
     "planned_quantity",
     "quantity",
     "projected_level_before",

@@ -81,6 +81,7 @@ def server(tmp_path_factory: pytest.TempPathFactory):
     _cli(env, "db", "upgrade")
     _cli(env, "demo")
     token = _cli(env, "token", "create", "browser-dispatcher", "--role", "dispatcher").strip().splitlines()[-1]
+    admin = _cli(env, "token", "create", "browser-admin", "--role", "admin").strip().splitlines()[-1]
     port = _free_port()
     log = open(workdir / "gunicorn.log", "w")  # noqa: SIM115 - closed below
     process = subprocess.Popen(
@@ -108,6 +109,19 @@ def server(tmp_path_factory: pytest.TempPathFactory):
         api = requests.Session()
         api.trust_env = False
         api.headers["Authorization"] = f"Bearer {token}"
+        # Issue 16: the first truck starts from an (invented) depot, so its trips are routed and drawn.
+        as_admin = {"Authorization": f"Bearer {admin}"}
+        truck_now = api.get(f"{base}/api/v1/trucks/{TRUCK}", timeout=30)
+        if truck_now.json()["depot"] is None:
+            depot = {"code": "HV-BT-DEPOT", "name": "Invented test depot", "latitude": 51.76, "longitude": -3.40}
+            assert api.post(f"{base}/api/v1/depots", json=depot, headers=as_admin, timeout=30).status_code == 201
+            moved = api.patch(
+                f"{base}/api/v1/trucks/{TRUCK}",
+                json={"depot": depot["code"]},
+                headers={"If-Match": truck_now.headers["ETag"], **as_admin},
+                timeout=30,
+            )
+            assert moved.status_code == 200, moved.text
         for truck in (TRUCK, OTHER_TRUCK):
             created = api.post(f"{base}/api/v1/trucks/{truck}/plans", json={}, timeout=30)
             assert created.status_code == 201, created.text
@@ -190,7 +204,12 @@ def test_sign_in_week_trips_and_site_chart_in_chromium(server):
                 row = rows.nth(index)
                 assert trip["date"] in row.locator("th").inner_text()
                 codes = row.locator(".stops .code").all_inner_texts()
-                assert codes == [s["site"] for s in trip["stops"]]
+                # Issue 16: a routed trip lists its stops in driving order beside its SVG route map.
+                assert trip["route"] is not None
+                assert codes == trip["route"]["stops"]
+                route_map = row.locator("svg.route-map")
+                assert route_map.is_visible() and route_map.locator(".stop-mark").count() == len(codes)
+                assert route_map.bounding_box()["width"] > 100  # type: ignore[index]
             assert page.locator("svg.level-chart").count() == 16
             page.screenshot(path=str(ARTIFACTS / "status-overview.png"), full_page=True)
 

@@ -14,7 +14,7 @@ from service.api.fields import (
     Range,
 )
 from service.api.pagination import PageArgsSchema
-from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema
+from service.api.schemas.calculations import STATUS_DESCRIPTION, STATUSES, JointFieldsSchema, TripSchema
 from service.api.schemas.common import AMOUNT_MAX, StrictSchema
 from service.planning.joint import METHODS
 
@@ -32,6 +32,39 @@ class PlanRequestSchema(StrictSchema):
     )
 
 
+class RouteLegSchema(ma.Schema):
+    from_ = ma.fields.String(data_key="from", metadata={"description": "Depot code or site code the leg starts at"})
+    to = ma.fields.String(metadata={"description": "Site code or depot code the leg ends at"})
+    km = ma.fields.Float(metadata={"description": "Road distance: great-circle distance × circuity (1.3), km"})
+
+
+class RouteSchema(ma.Schema):
+    depot = ma.fields.String(metadata={"description": "Code of the truck's depot: the route starts and ends there"})
+    stops = ma.fields.List(ma.fields.String(), metadata={"description": "Site codes in driving order"})
+    legs = ma.fields.List(
+        ma.fields.Nested(RouteLegSchema),
+        metadata={"description": "Depot → first stop, …, last stop → depot (one more leg than stops)"},
+    )
+    km = ma.fields.Float(metadata={"description": "Route length: the sum of the legs, km"})
+    exact = ma.fields.Boolean(
+        metadata={"description": "The order is the proven shortest (exact dynamic programme, up to 12 stops)"}
+    )
+
+
+class PlanTripSchema(TripSchema):
+    route = ma.fields.Nested(
+        RouteSchema,
+        allow_none=True,
+        metadata={
+            "description": "The stops in driving order from and back to the truck's current depot, from the "
+            "sites' current coordinates; null when not routable (`route_note` says why)"
+        },
+    )
+    route_note = ma.fields.String(
+        allow_none=True, metadata={"description": "Why the trip is not routed (null when `route` is set)"}
+    )
+
+
 class PlanSchema(JointFieldsSchema):
     id = ma.fields.Integer()
     truck = ma.fields.String(metadata={"description": "Code of the truck the plan is for"})
@@ -44,7 +77,9 @@ class PlanSchema(JointFieldsSchema):
     )
     planning_status = ma.fields.String(
         validate=ma.validate.OneOf([s for s in STATUSES if s != "infeasible"]),
-        metadata={"description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION},
+        metadata={
+            "description": "The joint result's status (an infeasible result is never recorded): " + STATUS_DESCRIPTION
+        },
     )
     stale = ma.fields.Boolean(
         metadata={"description": "True when a truck or site input changed since the plan was computed"}
@@ -61,6 +96,7 @@ class PlanSchema(JointFieldsSchema):
         }
     )
     inputs_digest = ma.fields.String(metadata={"description": "SHA-256 of the canonical JSON of inputs"})
+    trips = ma.fields.List(ma.fields.Nested(PlanTripSchema))
 
 
 class PlanListSchema(ma.Schema):
@@ -129,6 +165,13 @@ class NoticeSchema(ma.Schema):
 
 class DatedStopSchema(ma.Schema):
     site = ma.fields.String(metadata={"description": "Code of the site to deliver to"})
+    sequence = ma.fields.Integer(
+        allow_none=True,
+        metadata={
+            "description": "1-based position of the stop in driving order (the trip's `route`); null when the "
+            "trip is not routed (`route_note` says why)"
+        },
+    )
     planned_quantity = ma.fields.Float(metadata={"description": "The quantity the recorded plan gave this stop"})
     quantity = ma.fields.Float(
         metadata={
@@ -164,7 +207,21 @@ class DatedTripSchema(ma.Schema):
     load = ma.fields.Float(  # type: ignore[assignment]
         metadata={"description": "Sum of the stops' quantity: what the truck carries out"}
     )
-    stops = ma.fields.List(ma.fields.Nested(DatedStopSchema), metadata={"description": "The stops, in plan order"})
+    stops = ma.fields.List(
+        ma.fields.Nested(DatedStopSchema),
+        metadata={"description": "The stops, in plan order (site code order); `sequence` gives the driving order"},
+    )
+    route = ma.fields.Nested(
+        RouteSchema,
+        allow_none=True,
+        metadata={
+            "description": "The stops in driving order from and back to the truck's depot with each leg's road "
+            "distance; null when the truck has no depot or a stop or the depot lacks coordinates"
+        },
+    )
+    route_note = ma.fields.String(
+        allow_none=True, metadata={"description": "Why the trip is not routed (null when `route` is set)"}
+    )
 
 
 class TripsSchema(ma.Schema):
