@@ -8,8 +8,8 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.persistence.models import Depot, Product
-from service.persistence.repository import NotFound, lock_for_update
+from service.persistence.models import Depot, Product, Site
+from service.persistence.repository import NotFound, apply_changes, lock_for_update
 
 DEPOT_FIELDS = ("name", "latitude", "longitude")
 PRODUCT_FIELDS = ("name", "safe_fill")
@@ -32,6 +32,21 @@ def product_by_code(session: Session, code: str) -> Product:
     if product is None:
         raise NotFound(f"No product with code {code!r}.")
     return product
+
+
+def set_site_products(session: Session, products: Mapping[str, str]) -> int:
+    """Set the product of each site named in ``products`` (site code → product code), bumping the
+    version of each site that changes; returns how many changed. ``NotFound`` names the first
+    unknown site or product."""
+    sites = {site.code: site for site in session.scalars(select(Site).where(Site.code.in_(set(products))))}
+    changed = 0
+    for code, product in products.items():
+        if code not in sites:
+            raise NotFound(f"No site with code {code!r}.")
+        product_by_code(session, product)
+        changed += apply_changes(sites[code], {"product": product}, ("product",))
+    session.flush()
+    return changed
 
 
 def code_taken(session: Session, model: type[Depot] | type[Product], code: str) -> bool:
