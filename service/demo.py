@@ -1,5 +1,6 @@
-"""Load the invented demo network in ``service/sample_data/`` (trucks.csv, then sites.csv via the CSV
-import) and, for ``ullage demo``, some invented recent history (:func:`load_history`)."""
+"""Load the invented demo network in ``service/sample_data/`` (products.csv, depots.csv, trucks.csv,
+then sites.csv via the CSV import) and, for ``ullage demo``, some invented recent
+history (:func:`load_history`)."""
 
 from __future__ import annotations
 
@@ -11,6 +12,7 @@ from pathlib import Path
 from sqlalchemy.orm import Session
 
 from service.persistence import deliveries as delivery_store
+from service.persistence import fleet
 from service.persistence import repository as repo
 from service.persistence import weather as weather_store
 from service.persistence.models import Site
@@ -20,10 +22,38 @@ from service.sites_csv import import_sites
 SAMPLE_DATA = Path(__file__).resolve().parent / "sample_data"
 
 
+def _rows(path: Path) -> list[dict[str, str]]:
+    """The rows of a CSV file with a header; none if the file is absent (a directory of an older
+    demo may have only trucks.csv and sites.csv)."""
+    if not path.exists():
+        return []
+    with open(path, encoding="utf-8", newline="") as handle:
+        return list(csv.DictReader(handle))
+
+
+def _words(cell: str | None) -> list[str]:
+    return (cell or "").split()
+
+
 def load_demo(session: Session, directory: Path, service_unit: str) -> tuple[int, int]:
-    """Add the trucks and sites; returns how many of each. The caller commits."""
-    with open(directory / "trucks.csv", encoding="utf-8", newline="") as handle:
-        trucks = list(csv.DictReader(handle))
+    """Add the products, depots, trucks and sites; returns how many trucks and sites. The caller commits.
+
+    products.csv (code, name, safe_fill) and depots.csv (code, name, latitude, longitude) are
+    optional (loaded first, so sites.csv's ``product`` column can name them); trucks.csv may carry
+    depot, cost_per_km, compartments and products (lists separated by spaces)."""
+    for row in _rows(directory / "products.csv"):
+        fleet.add_product(session, {"code": row["code"], "name": row["name"], "safe_fill": float(row["safe_fill"])})
+    for row in _rows(directory / "depots.csv"):
+        fleet.add_depot(
+            session,
+            {
+                "code": row["code"],
+                "name": row["name"],
+                "latitude": float(row["latitude"]),
+                "longitude": float(row["longitude"]),
+            },
+        )
+    trucks = _rows(directory / "trucks.csv")
     for row in trucks:
         repo.add_truck(
             session,
@@ -36,6 +66,10 @@ def load_demo(session: Session, directory: Path, service_unit: str) -> tuple[int
                 "working_days": [int(day) for day in row["working_days"].split()],
                 "trips_per_day": int(row["trips_per_day"]),
                 "holiday_region": row["holiday_region"] or None,
+                "depot": row.get("depot") or None,
+                "cost_per_km": float(row.get("cost_per_km") or 0),
+                "compartments": [float(c) for c in _words(row.get("compartments"))] or None,
+                "products": _words(row.get("products")) or None,
             },
         )
     result = import_sites(session, (directory / "sites.csv").read_bytes(), dry_run=False, service_unit=service_unit)

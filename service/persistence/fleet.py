@@ -39,6 +39,7 @@ def product_safe_fills(session: Session) -> dict[str, float]:
     return {code: float(fill) for code, fill in session.execute(select(Product.code, Product.safe_fill))}
 
 
+
 def code_taken(session: Session, model: type[Depot] | type[Product], code: str) -> bool:
     """Whether a depot (or product) with this code exists."""
     return session.scalar(select(model.id).where(model.code == code)) is not None

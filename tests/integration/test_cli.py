@@ -113,12 +113,13 @@ def test_revoke_makes_the_token_fail_once_the_cache_entry_expires(env_db, capsys
 
 def test_demo_loads_into_an_empty_database_only(env_db, capsys, db_session):
     assert cli.main(["demo"]) == 0
-    assert "2 trucks, 16 sites" in capsys.readouterr().out
-    assert (count(db_session, Truck), count(db_session, Site)) == (2, 16)
+    # Issue 16: the demo is a small fleet of 4 trucks (service/sample_data/trucks.csv).
+    assert "4 trucks, 16 sites" in capsys.readouterr().out
+    assert (count(db_session, Truck), count(db_session, Site)) == (4, 16)
     assert cli.main(["demo"]) == 1
     assert "empty" in capsys.readouterr().out
     assert cli.main(["demo", "--if-empty"]) == 0
-    assert (count(db_session, Truck), count(db_session, Site)) == (2, 16)
+    assert (count(db_session, Truck), count(db_session, Site)) == (4, 16)
 
 
 def test_demo_network_is_served(env_db, capsys, client):
@@ -127,7 +128,7 @@ def test_demo_network_is_served(env_db, capsys, client):
     token = capsys.readouterr().out.strip().splitlines()[-1]
     sites = client.get("/api/v1/sites", headers={"Authorization": f"Bearer {token}"}).get_json()["items"]
     assert len(sites) == 16
-    assert {s["truck"] for s in sites} == {"HV-R1", "HV-R2"}
+    assert {s["truck"] for s in sites} == {"HV-R1", "HV-R2", "HV-R3", "HV-R4"}  # every demo truck has sites
     capacities = [s["tank_capacity"] for s in sites]
     assert min(capacities) < 1500 < 50000 < max(capacities)  # farm tanks to depots
 

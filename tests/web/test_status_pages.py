@@ -240,11 +240,14 @@ def test_overview_shows_warnings_plan_line_and_the_weeks_trips(app, browser_clie
 
 def test_each_truck_shows_its_calendar_and_the_plan_shows_its_status(browser_client, planned, client, auth):
     """Issue 13: the demo company works Monday to Friday with one trip a day (the south round also
-    Saturdays, two trips), closed on the Welsh public holidays."""
+    Saturdays, two trips; issue 16's heating-oil truck Mon–Fri, the small chemicals truck Tuesdays and
+    Thursdays), closed on the Welsh public holidays."""
     page = Page(html(browser_client.get("/status")))
     assert [words(e) for e in page.by_class("calendar-line")] == [
         "Works: Mon–Fri, 1 trip a day, holidays: GB-WLS",
         "Works: Mon–Sat, 2 trips a day, holidays: GB-WLS",
+        "Works: Mon–Fri, 1 trip a day, holidays: GB-WLS",
+        "Works: Tue, Thu, 1 trip a day, holidays: GB-WLS",
     ]
     plan = client.get(f"/api/v1/plans/{planned}", headers=auth("viewer")).get_json()
     assert plan["planning_status"] in ("optimal", "feasible", "time_limit")
