@@ -880,7 +880,9 @@ class SheetTrip:
     trip: int  # 1-based within its date (a truck may run several trips a day)
     load: float
     capacity: float
+    #: In driving order when ``route`` is routed, else in the plan's site order.
     stops: tuple[SheetStop, ...]
+    route: routes.TripRoute
 
 
 @dataclass(frozen=True)
@@ -895,8 +897,8 @@ class TruckSheet:
 
 
 def load_sheet(session: Session, truck: Truck, sites: Sequence[Site], day: dt.date, settings: Settings) -> TruckSheet:
-    """The truck's trips on ``day`` (:func:`trips_view`) with each stop's coordinates and room;
-    ``NoActivePlan`` without an active plan."""
+    """The truck's trips on ``day`` (:func:`trips_view`) with each stop's coordinates and room, the
+    stops in driving order when the trip is routed; ``NoActivePlan`` without an active plan."""
     view = trips_view(session, truck, day, day, settings)
     by_code = {site.code: site for site in sites}
     trips = []
@@ -907,7 +909,9 @@ def load_sheet(session: Session, truck: Truck, sites: Sequence[Site], day: dt.da
             safe_fill_level = site.safe_fill * site.tank_capacity
             room = None if stop.projected_level_before is None else safe_fill_level - stop.projected_level_before
             stops.append(SheetStop(stop, site.latitude, site.longitude, safe_fill_level, room))
-        trips.append(SheetTrip(trip.date, trip.trip, trip.load, trip.capacity, tuple(stops)))
+        if trip.route.routed:
+            stops.sort(key=lambda s: trip.route.sequence(s.stop.site) or 0)
+        trips.append(SheetTrip(trip.date, trip.trip, trip.load, trip.capacity, tuple(stops), trip.route))
     codes = {stop.site for trip in view.trips for stop in trip.stops}
     notices = tuple(n for n in view.notices if n.site is None or n.site in codes)
     plan_id = view.plan.id if view.plan is not None else None

@@ -10,7 +10,8 @@
   printable A4 page per truck with trips that day (:func:`service.schedule.load_sheet`), one table
   per trip (numbered when a truck runs several that day). Trips follow the truck's working calendar;
   a truck that does not work that day is listed with the reason (weekday off, closed date, holiday).
-  Stops follow the plan's site order, which is not a driving order: no route is planned.
+  A routed trip lists its stops in driving order from and back to the truck's depot with each leg's
+  road km (``service.routes``); otherwise they follow the plan's site order and the caption says why.
 """
 
 from __future__ import annotations

@@ -239,16 +239,23 @@ def test_the_load_sheet_has_one_sheet_per_truck_with_stops_room_load_and_caution
     for truck, section in zip((PLANNED_TRUCK, UNPLANNED_TRUCK), sections, strict=True):
         sheet = clean(section.split("</section>")[0])
         assert f"Load sheet · {truck}" in sheet and day.isoformat() in sheet
-        assert "Stops, not in driving order" in sheet
         assert CAUTION.search(sheet)
         [trip] = client.get(f"/api/v1/trucks/{truck}/trips?from={day}&to={day}", headers=auth("viewer")).get_json()[
             "trips"
         ]
+        # The demo's trucks have depots: the sheet lists the stops in the API's driving order.
+        route = trip["route"]
+        assert f"Stops in driving order from depot {route['depot']} and back, {route['km']:.1f} km" in sheet
+        assert f"Back to depot {route['depot']} {route['legs'][-1]['km']:.1f}" in sheet
+        by_site = {stop["site"]: stop for stop in trip["stops"]}
         stop_rows = [clean(r) for r in rows_of(section, "sheet-stops")]
         assert len(stop_rows) == len(trip["stops"])
-        for row, stop in zip(stop_rows, trip["stops"], strict=True):  # the plan's order
+        for number, (row, code) in enumerate(zip(stop_rows, route["stops"], strict=True), start=1):
+            stop, leg = by_site[code], route["legs"][number - 1]
+            assert stop["sequence"] == number and leg["to"] == code
             site = repo.site_by_code(db_session, stop["site"])
-            assert stop["site"] in row and f"{quantity(stop['quantity'])}" in row
+            assert row.startswith(f"{number} {site.name} {code} {leg['km']:.1f} ")
+            assert f"{quantity(stop['quantity'])}" in row
             assert f"{site.latitude:.5f}, {site.longitude:.5f}" in row
             safe_fill = site.safe_fill * site.tank_capacity
             if stop["projected_level_before"] is None:
@@ -328,7 +335,9 @@ def test_labels_say_what_they_mean(app, browser_client, planned, client, auth):
     for name, text in texts.items():
         assert "delivered" not in text.lower(), name  # no delivery is recorded yet
         assert re.sub(r"not in driving order", "", text).lower().count("in order") == 0, name
-    assert "Stops, not in driving order (quantity to deliver)" in texts["overview"]
+    # The demo's trucks have depots and its sites coordinates: the week's stops are routed.
+    depot = client.get(f"/api/v1/trucks/{PLANNED_TRUCK}", headers=auth("viewer")).get_json()["depot"]
+    assert f"Stops in driving order from depot {depot} (quantity to deliver)" in texts["overview"]
     assert "to deliver" in texts["lowest"]
 
 

@@ -20,6 +20,17 @@ def give_depot(client, auth) -> None:
     assert patched.status_code == 200, patched.get_json()
 
 
+def drop_depot(client, auth) -> None:
+    truck = client.get(f"/api/v1/trucks/{PLANNED_TRUCK}", headers=auth("admin"))
+    patched = client.patch(
+        f"/api/v1/trucks/{PLANNED_TRUCK}",
+        json={"depot": None},
+        headers=auth("admin", **{"If-Match": truck.headers["ETag"]}),
+    )
+    assert patched.status_code == 200, patched.get_json()
+    assert patched.get_json()["depot"] is None
+
+
 def week_of(app) -> str:
     year, week, _ = today(app).isocalendar()
     return f"{year}-W{week:02d}"
@@ -53,7 +64,8 @@ def test_trips_are_listed_in_driving_order_with_a_route_map(app, client, auth, p
     assert "planning aid" in page.text  # the page's caution stays
 
 
-def test_without_a_depot_the_page_keeps_its_caution_and_draws_no_map(app, planned, browser_client):
+def test_without_a_depot_the_page_keeps_its_caution_and_draws_no_map(app, client, auth, planned, browser_client):
+    drop_depot(client, auth)
     page = Page(browser_client.get(f"/status?week={week_of(app)}").get_data(as_text=True))
     assert not page.find("svg", class_="route-map")
     assert "Stops, not in driving order (quantity to deliver)" in page.text
