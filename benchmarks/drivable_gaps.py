@@ -7,7 +7,7 @@ every day, 1–3 trips a day, some with public holidays closed). For each networ
 
 * ``gap = cost_per_day / lower_bound_per_day − 1`` of ``plan_joint(method="best")`` (the service's own
   bound), per class of network (truck-binding, calendar-binding, both, neither);
-* the gap to the independent reference bound of ``shared/reference/drivable-bound.md`` (``ref gap``,
+* the gap to the independent reference bound (``docs/planning.md``, "The plain bound") (``ref gap``,
   at least the reported gap when the service's bound is at least the reference);
 * ``best`` against the cheapest plan of the methods it runs (``best / min − 1``, target ≤ 1 %);
 * every plan through ``check_plan`` (rules 1–3); violations are counted and the first ones printed.

@@ -400,7 +400,7 @@ def drivable_lower_bound(
     Whenever the truck has a limit or a calendar (and ``gap_patterns``), holding is bounded through
     the gaps' patterns: :func:`weekday_gap_lines` on a weekly calendar, :func:`whole_day_gap_lines`
     (whole-day gaps) on seven days. With no limit and all seven days the bound stays §4's relaxation
-    on the caps ``u_i``. ``gap_patterns=False`` gives the bound of the shared note alone (plus the
+    on the caps ``u_i``. ``gap_patterns=False`` gives the plain bound of ``docs/planning.md`` alone (plus the
     stop room), e.g. to compare with it.
 
     Weights whose cut is void are fixed at 0 (``β`` when there is no capacity, ``γ`` when there

@@ -18,8 +18,8 @@ TABLES = (Truck, Site, Plan, PlanSite, Reading, IdempotencyRecord)
 
 
 def c2(**extra):
-    """Check value C2 of /work/shared/reference/check-values.md §1 (DERIVED, recomputed there):
-    d = 1200 L/day, h = 0.002 $/L/day, K + k = 350, safe cap 20 000 L."""
+    """Check case C2 (derived from the EOQ cost ``(K + k)/T + h d T/2``, Harris 1913, with a tank cap;
+    docs/planning.md §2): d = 1200 L/day, h = 0.002 $/L/day, K + k = 350, safe cap 20 000 L."""
     return {
         "demand_per_day": 1200,
         "holding_cost": 0.002,
@@ -56,7 +56,7 @@ def counts(db_session) -> dict[str, int]:
 
 
 def test_cycle_c2_check_value_tank_binding(client, auth):
-    # C2: /work/shared/reference/check-values.md §1 "Single-tank cap checks" (DERIVED, recomputed):
+    # C2, derived from the capped EOQ cost (Harris 1913; docs/planning.md §2), recomputed by hand:
     # capped continuous cost 41.000000 $/day at U = 16.666667 d; whole days T = 16, cost 41.075.
     response = client.post(CYCLE, json=c2(), headers=auth("dispatcher"))
     assert response.status_code == 200, response.get_json()
@@ -74,7 +74,7 @@ def test_cycle_admin_allowed_and_free_optimum_has_no_binding(client, auth):
     response = client.post(CYCLE, json=c2(tank_capacity=100000), headers=auth("admin"))
     assert response.status_code == 200
     body = response.get_json()
-    # Free optimum T* = sqrt(2·350/(0.002·1200)) = 17.078251 d (C2 row, check-values.md).
+    # Free optimum T* = sqrt(2·350/(0.002·1200)) = 17.078251 d (EOQ, Harris 1913).
     assert body["cycle_days_continuous"] == pytest.approx(17.078251, rel=1e-7)
     assert body["binding"] is None
     assert body["cycle_days"] in (17, 18)

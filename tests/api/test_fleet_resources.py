@@ -18,8 +18,8 @@ PRODUCTS = "/api/v1/products"
 TRUCKS = "/api/v1/trucks"
 SITES = "/api/v1/sites"
 DEPOT = {"code": "D-N", "name": "North depot", "latitude": 52.37, "longitude": 4.89}
-# Safe fills: liquid fuels 0.90–0.95, LPG 0.80–0.85 (/work/shared/reference/fleet-check-values.md C4:
-# IFC 5704.2.9.7.5 and 40 CFR 280.20(c) for liquid fuels, OSHA 1910.110 for LPG).
+# Safe fills: liquid fuels 0.90–0.95, LPG 0.80–0.85 (International Fire Code 5704.2.9.7.5 and
+# 40 CFR 280.20(c) for liquid fuels; OSHA 1910.110 and NFPA 58 practice for LPG).
 DIESEL = {"code": "DSL", "name": "Diesel", "safe_fill": 0.95}
 LPG = {"code": "LPG", "name": "Propane", "safe_fill": 0.8}
 TRUCK = {"code": "T1", "name": "Truck one", "dispatch_cost": 150.0, "capacity": 18000.0}

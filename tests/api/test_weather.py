@@ -291,8 +291,8 @@ def test_noisy_fit_holds_the_truth_in_its_intervals(client, auth, truck):
 
 
 def test_k_factor_of_the_dealers_worked_example(client, auth, truck):
-    # Heating-oil dealers' worked example (common practice, shared reference C2): 1 853 degree days
-    # for 287 gallons → K = 6.456. A site with no base load uses 287 over weekly intervals that total
+    # Heating-oil dealers' worked example (common practice, several dealers' published pages):
+    # 1 853 degree days for 287 gallons → K = 6.456. A site with no base load uses 287 over weekly intervals that total
     # 1 853 degree days; the service reports K = 6.456. At K = 6.5 a 300-gallon usable stock lasts
     # 1 950 degree days: a second site using 1/6.5 per degree day gets K = 6.5 and K · 300 = 1 950.
     for code, total_volume in (("K1", 287.0), ("K2", 1853.0 / 6.5)):
@@ -336,8 +336,8 @@ def test_fit_uses_the_latest_gap_free_weather_and_says_why_not(client, auth, tru
 
 def test_seattle_2012_posted_as_csv_gives_the_noaa_degree_days(client, auth):
     # NOAA daily max/min for Seattle in vega-datasets (MIT, read offline), posted as CSV min/max rows:
-    # the stored means give 4 808.8 heating degree days at 65 °F for 2012 (shared reference C3,
-    # derived by us; the unit test recomputes it by a plain loop).
+    # the stored means give 4 808.8 heating degree days at 65 °F for 2012 (derived by us
+    # from the NOAA data; the unit test recomputes it by a plain loop).
     frame = data.seattle_weather()
     rows = [
         f"{d.date().isoformat()},{lo!r},{hi!r}"

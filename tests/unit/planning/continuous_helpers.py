@@ -15,7 +15,7 @@ def integer_optimum(K, k, H, m_cap=60):
     Between the breakpoints ``sqrt(k_i / (H_i m (m + 1)))`` the core's per-T choice of
     multiples is fixed up to the site forced to 1; every such candidate ``m`` is a valid
     policy whose best T is ``sqrt(A / B)`` with cost ``2 sqrt(A B)``
-    (check-values "Model conventions", DERIVED).
+    (the JRP cost of docs/planning.md §3, DERIVED).
 
     Returns
     -------

@@ -10,8 +10,8 @@ Four kinds of tank (figures are common practice of the trade, invented here, no 
 | industrial chemical | 5 000–30 000 | 200–2 500 | 15–25 % | 2–6 |
 
 Holding cost per litre and day = price × a yearly rate of 15–30 % / 365; safe fill 0.90–0.95
-(above-ground tanks are not filled above 95 % — International Fire Code 5704.2.9.7.5, see
-``shared/reference/fleet-check-values.md`` C4); stop cost 10–80 by kind. The truck carries
+(above-ground tanks are not filled above 95 % — International Fire Code 5704.2.9.7.5; US
+underground tanks 40 CFR 280.20(c)); stop cost 10–80 by kind. The truck carries
 20 000–38 000 L, 6–12 stops per trip, costs 150–400 per trip, and works Mon–Fri, Mon–Sat or every
 day with 1–3 trips a day, some networks with a list of closed dates (public holidays).
 
@@ -22,8 +22,8 @@ scaled down; every tank lasts the calendar's longest closed stretch (demand capp
 drivable plan. So every network is feasible (an infeasible answer on one is wrong), and the
 witness's cost is a naive upper bound on its optimum.
 
-Classes: **truck-binding** when the load or stop cut raises the bound of
-``shared/reference/drivable-bound.md`` (by more than 0.1 %); **calendar-binding** when fewer than
+Classes: **truck-binding** when the load or stop cut raises the plain bound of
+``docs/planning.md`` ("Drivable lower bound", by more than 0.1 %); **calendar-binding** when fewer than
 seven days are working days or ``trips_per_day`` offers less than twice the relaxation's trip rate.
 """
 

@@ -9,7 +9,7 @@ Rules (issue 13):
    date, indexed 1..n; load = Σ stop quantities ≤ W; stops ≤ S; a site at most once per date.
 2. quantity = d_i × days to the site's next delivery; no gap above ⌊U_i⌋ whole days.
 3. cost_per_day = (K·#trips + Σ k_i + Σ h_i d_i g²/2) / repeat_days over one repeat period.
-4. bound ≥ the relaxation of ``shared/reference/drivable-bound.md`` (:func:`reference_bound`).
+4. bound ≥ the relaxation of ``docs/planning.md``, "The plain bound" (:func:`reference_bound`).
 5. infeasible answers: status, success false, ``needed``.
 """
 
@@ -285,7 +285,7 @@ def check_plan(result, sites, truck) -> None:
 
 @dataclass(frozen=True)
 class ReferenceBound:
-    """The bound of drivable-bound.md, computed two ways without the core.
+    """The plain bound of ``docs/planning.md`` ("Drivable lower bound"), computed two ways without the core.
 
     ``value``: the Lagrangian form maximised over the weights (:func:`dual_bound`; a valid lower
     bound for any weights by weak duality). ``primal``: the direct convex solve
@@ -302,7 +302,7 @@ class ReferenceBound:
 
 
 def bound_caps(sites, truck) -> np.ndarray:
-    """``U'_i = min(⌊(f_i V_i − s_i)/d_i⌋, W/d_i)`` (drivable-bound.md)."""
+    """``U'_i = min(⌊(f_i V_i − s_i)/d_i⌋, W/d_i)`` (docs/planning.md, "The plain bound")."""
     caps = []
     for s in sites:
         tank = math.floor((s.tank_capacity * s.safe_fill - s.safety_stock) / s.demand_per_day + DAY_TOL)
@@ -402,7 +402,7 @@ def _arrays(sites, truck):
 
 
 def lagrangian_bound(sites, truck, alpha: float, beta: float, gamma: float) -> float:
-    """``LB(α, β, γ)`` of drivable-bound.md for one choice of weights (α + β + γ = 1).
+    """``LB(α, β, γ)`` of docs/planning.md ("The plain bound") for one choice of weights (α + β + γ = 1).
 
     ``K β D/W + min_{T0} [K α/T0 + Σ_i min_{T_i ∈ [T0, U'_i]} ((k_i + K γ/S)/T_i + H_i T_i)]``; the
     inner minimum of each convex ``a/T + H T`` on an interval is at ``sqrt(a/H)`` clipped to it, and
@@ -428,7 +428,7 @@ def lagrangian_bound(sites, truck, alpha: float, beta: float, gamma: float) -> f
 def dual_bound(sites, truck) -> tuple[float, tuple[float, float, float]]:
     """``max`` of :func:`lagrangian_bound` over the weights: a grid of step 0.1 refined by
     Nelder–Mead (the function is concave in the weights). Weak duality makes every value a valid
-    bound; drivable-bound.md reports that the maximum equals the direct convex solve."""
+    bound; by strong duality (Boyd & Vandenberghe 2004, §5.2) the maximum equals the direct convex solve."""
     absent_load, absent_stops = truck.capacity is None, truck.max_stops is None
 
     def weights(ab) -> tuple[float, float, float]:

@@ -1,4 +1,4 @@
-"""Published and derived check values from ``shared/reference/check-values.md`` (rows cited by id).
+"""Published JRP instances (sources named per row) and values derived from them (rows cited by id).
 
 JRP data are in the sources' own units (years unless noted); ``g = h d / 2`` is the
 holding term the core calls ``H``.

@@ -33,7 +33,7 @@ def seattle():
 
 
 def test_seattle_2012_heating_degree_days(seattle):
-    # Reference C3 (DERIVED by us from the NOAA data): 2012 HDD at 65 °F from the mean of max and
+    # NOAA daily temperatures in vega-datasets' seattle-weather.csv (values DERIVED by us): 2012 HDD at 65 °F from the mean of max and
     # min converted to °F = 4 808.8; at 18 °C 2 565.10; at 15.5 °C 1 835.20. Second, independent
     # route: a plain Python loop over the rows.
     days, tmax, tmin = seattle
@@ -52,7 +52,7 @@ def test_seattle_2012_heating_degree_days(seattle):
 
 
 def test_k_factor_dealers_worked_example():
-    # Heating-oil dealers' worked example (common practice, reference C2): 1 853 degree days for
+    # Heating-oil dealers' worked example (common practice, dealers' pages): 1 853 degree days for
     # 287 gallons → K = 6.456; at K = 6.5 a 300-gallon usable stock lasts 1 950 degree days;
     # 40 degree days at K = 6.5 use 6.15 gallons.
     assert k_factor(1853, 287) == pytest.approx(6.456, abs=5e-4)

@@ -82,8 +82,8 @@ def test_without_limits_and_whole_day_tanks_it_equals_todays_bound():
 
 
 def _reference_vertex_bounds(sites, truck, grid=3000):
-    """The reference bound ``LB`` at ``α = 1``, ``β = 1``, ``γ = 1`` (reference: shared note
-    ``drivable-bound.md``), with its own caps ``min(⌊tank / d⌋, W / d)`` and its inner minimum taken
+    """The reference bound ``LB`` at ``α = 1``, ``β = 1``, ``γ = 1`` (docs/planning.md, "The plain
+    bound"), with its own caps ``min(⌊tank / d⌋, W / d)`` and its inner minimum taken
     by brute force on a fine geometric grid of ``T0`` and of each ``T_i`` (an upper estimate of the
     true minimum, close to it)."""
     K, k, H, d, tank_days = _arrays(sites, truck)

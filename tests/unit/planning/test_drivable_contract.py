@@ -1,5 +1,5 @@
 """Issue 13's contract on every plan: rules 1–3 from the listed trips (``check_plan``), rule 4 against
-the reference bound of ``shared/reference/drivable-bound.md``, rule 5's answer, rule 6 against brute force."""
+the reference bound (docs/planning.md, "The plain bound"), rule 5's answer, rule 6 against brute force."""
 
 from __future__ import annotations
 
@@ -61,7 +61,7 @@ def _weekly_stretch(working) -> int:
 
 
 def surely_infeasible(sites, truck) -> str | None:
-    """Necessary conditions of a drivable plan (drivable-bound.md, steps 2–3, over one week)."""
+    """Necessary conditions of a drivable plan (docs/planning.md, "Why it is valid", steps 2–3, over one week)."""
     if not all(whole_day_cap(s, truck) >= 1 for s in sites):
         return None  # an input error, not a plan
     stretch = _weekly_stretch(truck.working_days)

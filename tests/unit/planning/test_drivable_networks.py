@@ -36,5 +36,5 @@ def test_networks_are_within_their_ranges_and_drivable_by_construction(seed):
     assert trip_rate(net.sites, truck) <= 0.75 * truck.trips_per_day * len(truck.working_days) / 7
     witness = witness_plan(net.sites, truck, net.start_date)  # a drivable plan exists
     assert witness is not None
-    # the witness is a drivable plan, so the reference bound lies below it (rule 4, drivable-bound.md)
+    # the witness is a drivable plan, so the reference bound lies below it (rule 4, docs/planning.md "The plain bound")
     assert reference_bound(net.sites, truck, primal=False).value <= witness * (1 + 1e-9)

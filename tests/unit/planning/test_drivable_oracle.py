@@ -22,7 +22,7 @@ BIG = 1e12  # a tank that never binds
 
 
 def test_reference_bound_single_site_is_the_whole_day_capped_eoq():
-    # C2 of shared/reference/check-values.md (DERIVED): d = 1200, h = 0.002, K + k = 350, safe cap
+    # C2, derived from the capped EOQ cost (Harris 1913; docs/planning.md §2): d = 1200, h = 0.002, K + k = 350, safe cap
     # 20 000 L: T* = 17.08 > ⌊U⌋ = 16, so the bound with whole-day caps is 350/16 + 1.2·16 = 41.075.
     site = SiteInput("depot", 1200.0, 0.002, 50.0, 20_000.0, safe_fill=1.0)
     bound = reference_bound([site], TruckInput(300.0))
@@ -31,7 +31,7 @@ def test_reference_bound_single_site_is_the_whole_day_capped_eoq():
 
 
 def test_reference_bound_uncapped_is_the_jrp_relaxation():
-    # J3 of shared/reference/check-values.md (scmo_jrp_ex, data PUBLISHED in stockpyl; LB DERIVED):
+    # J3: stockpyl instance scmo_jrp_ex (data PUBLISHED in stockpyl; LB DERIVED, Roundy 1985 relaxation):
     # K = 600, k = (120, 840, 300), h = (160, 20, 50), d = 1: LB = 836.5081086 at T0 = 3 (≥ 1 day, no caps).
     sites = [SiteInput(f"j{i}", 1.0, h, k, BIG) for i, (k, h) in enumerate([(120, 160), (840, 20), (300, 50)])]
     bound = reference_bound(sites, TruckInput(600.0))
@@ -40,7 +40,7 @@ def test_reference_bound_uncapped_is_the_jrp_relaxation():
 
 
 def test_load_cut_counts_the_whole_volume():
-    # drivable-bound.md, step 3: N ≥ D R / W. Six daily sites (⌊U⌋ = 1) of 18 000 L/day in all on a
+    # docs/planning.md, "Why it is valid", step 3: N ≥ D R / W. Six daily sites (⌊U⌋ = 1) of 18 000 L/day in all on a
     # 9 000 L truck, no stop or holding cost: at least two trips a day, 2 × 100 per day.
     sites = [
         SiteInput(f"d{i}", q, 0.0, 0.0, 1.5 * q, safe_fill=1.0) for i, q in enumerate([4e3, 4e3, 3e3, 3e3, 2e3, 2e3])
@@ -52,7 +52,7 @@ def test_load_cut_counts_the_whole_volume():
 
 @pytest.mark.parametrize("seed", range(8))
 def test_the_two_forms_of_the_reference_bound_agree(seed):
-    # Strong duality (drivable-bound.md, last paragraph): the Lagrangian maximum over the weights equals
+    # Strong duality (Boyd & Vandenberghe 2004, §5.2; docs/planning.md "Maximising the multipliers"): the Lagrangian maximum over the weights equals
     # the direct convex solve; the first is a valid bound for any weights, the second a feasible point.
     net = network(1000 + seed, n=[5, 9, 14, 30][seed % 4], classified=False)
     bound = reference_bound(net.sites, net.truck)

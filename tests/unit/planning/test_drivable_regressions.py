@@ -54,7 +54,7 @@ def test_one_stop_per_trip_costs_the_sum_of_the_single_site_optima():
 
 def test_six_daily_sites_pack_into_two_trips_a_day():
     # 4 000/4 000/3 000/3 000/2 000/2 000 L a day on 9 000 L, tanks of 1.5 days: 4 + 3 + 2 twice, two trips
-    # of 100 a day; the load cut K·D/W = 100 · 18 000/9 000 = 200 proves it optimal (drivable-bound.md).
+    # of 100 a day; the load cut K·D/W = 100 · 18 000/9 000 = 200 proves it optimal (docs/planning.md, "The plain bound").
     sites = [
         SiteInput(f"d{i}", q, 0.0, 0.0, 1.5 * q, safe_fill=1.0) for i, q in enumerate([4e3, 4e3, 3e3, 3e3, 2e3, 2e3])
     ]

@@ -1,4 +1,4 @@
-"""Published JRP instances J1–J9 (check-values §2) in their own units, continuous mode."""
+"""Published JRP instances J1–J9 (sources in ``reference_instances.py``) in their own units, continuous mode."""
 
 import numpy as np
 import pytest
@@ -10,8 +10,8 @@ from service.planning.relaxation import _relaxation
 from .continuous_helpers import integer_optimum, power_of_two_optimised_base
 from .reference_instances import JRP, arrays
 
-ROUNDY_FIXED = 1.0606602  # check-values 1b / §3.2: (√2 + 1/√2)/2 (DERIVED)
-ROUNDY_OPT = 1.0201394  # check-values 1b / §3.3: 1/(√2 ln 2) (DERIVED)
+ROUNDY_FIXED = 1.0606602  # Roundy (1985) fixed base: (√2 + 1/√2)/2 (DERIVED)
+ROUNDY_OPT = 1.0201394  # Roundy (1985) optimised base: 1/(√2 ln 2) (DERIVED)
 
 
 def _lb(K, k, H):
@@ -20,7 +20,7 @@ def _lb(K, k, H):
 
 @pytest.mark.parametrize("name", sorted(JRP))
 def test_lower_bound_matches(name):
-    # J1–J9 LB column (DERIVED in check-values, the Roundy / JMM relaxation)
+    # J1–J9 LB column (DERIVED by us, the Roundy / JMM 1985 relaxation)
     K, k, H = arrays(JRP[name])
     assert _lb(K, k, H).value == pytest.approx(JRP[name][7], rel=1e-9)
 

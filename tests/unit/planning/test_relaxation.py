@@ -74,14 +74,14 @@ def test_lower_bound_never_above_a_policy(seed):
 
 
 def test_single_site_bound_is_the_capped_eoq():
-    # one site: LB = min over T in [1, U] of (K + k)/T + H T (DERIVED); C2 data gives 41.0 (check-values C2)
+    # one site: LB = min over T in [1, U] of (K + k)/T + H T (DERIVED); C2 data gives 41.0 (docs/planning.md §2)
     site = SiteInput("depot", 1200, 0.002, 50, 20000, safe_fill=1.0)
     assert lower_bound([site], TruckInput(300)) == pytest.approx(41.0, rel=1e-12)
 
 
 @pytest.mark.parametrize("seed", range(25))
 def test_roundy_bounds_on_random_uncapped_instances(seed):
-    # Roundy (1985) via check-values §3: LB ≤ exact ≤ PoT(opt) ≤ 1.0201394 LB and PoT(fixed base) ≤ 1.0606602 LB
+    # Roundy (1985), Management Science 31(11): LB ≤ exact ≤ PoT(opt) ≤ 1.0201394 LB and PoT(fixed base) ≤ 1.0606602 LB
     rng = np.random.default_rng(1000 + seed)
     n = int(rng.integers(1, 6))
     K = float(np.exp(rng.uniform(-2, 5)))
@@ -99,7 +99,7 @@ def test_roundy_bounds_on_random_uncapped_instances(seed):
 
 
 def test_fixed_base_bound_is_tight():
-    # check-values §3.2: one item with T*/T_L on a √2 boundary reaches 1.06066 (DERIVED)
+    # Roundy (1985) fixed-base bound (√2 + 1/√2)/2: one item with T*/T_L on a √2 boundary reaches 1.06066 (DERIVED)
     K, k, H = 0.0, np.array([2.0]), np.array([1.0])  # T* = √2
     cost = _power_of_two_continuous(K, k, H, 1.0)[0]
     assert cost / (2 * np.sqrt(2.0)) == pytest.approx(1.0606601717798212, rel=1e-12)
@@ -107,7 +107,7 @@ def test_fixed_base_bound_is_tight():
 
 @pytest.mark.parametrize(
     "t_star, chosen, ratio",
-    # check-values 1b single-item rounding on base 1 (DERIVED); "1.41421" there means just below √2
+    # single-item rounding on base 1, cost ratio (x + 1/x)/2 for x = T/T* (EOQ sensitivity; DERIVED)
     [
         (1.0, 1, 1.0),
         (1.2, 1, 1.016667),

