@@ -31,3 +31,17 @@ class ProblemSchema(ma.Schema):
             "`{trips_per_day, remove_sites}` as in the joint calculation's `needed`"
         },
     )
+    sites = ma.fields.List(
+        ma.fields.String(),
+        metadata={
+            "description": "Network plans: the site codes concerned (problem type `planning-input`: sites without "
+            "coordinates; `inputs-changed`: sites changed since the plan was computed)"
+        },
+    )
+    trucks = ma.fields.List(
+        ma.fields.String(),
+        metadata={
+            "description": "Network plans: the truck codes concerned (problem type `planning-input`: trucks without "
+            "a depot; `inputs-changed`: trucks changed since the plan was computed)"
+        },
+    )
