@@ -62,6 +62,13 @@ class RoutedTripSchema(ma.Schema):
     return_km = ma.fields.Float(metadata={"description": "Last stop back to the depot"})
     distance_km = ma.fields.Float(metadata={"description": "The whole route"})
     cost = ma.fields.Float(metadata={"description": "dispatch_cost + cost_per_km × distance_km + the stops' costs"})
+    duration_hours = ma.fields.Float(
+        allow_none=True,
+        metadata={
+            "description": "Driving (distance_km / average_speed_kmh) plus stop_minutes per stop plus load_minutes, in "
+            "hours; null when the truck has no average_speed_kmh"
+        },
+    )
 
 
 class NetworkBreakdownSchema(ma.Schema):
