@@ -95,6 +95,10 @@ POSITIVE_ALSO = {
     "POST /api/v1/weather/{region}": (422,),
     # `from` ≤ `to`.
     "GET /api/v1/weather/{region}": (422,),
+    # Issue 16. State, not shape: every truck planned needs a depot and every site coordinates
+    # (trucks the fuzzer created have none), the named trucks must exist, and an Idempotency-Key
+    # the fuzzer reuses with another body is refused.
+    "POST /api/v1/network-plans": (422,),
 }
 DEFAULT_POSITIVE = ["2xx", "3xx", "401", "403", "404", "409", "429"]
 #: ``missing_required_header`` expects 400/401/403/406/415/422; a missing If-Match is answered
