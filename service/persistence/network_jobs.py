@@ -11,7 +11,7 @@ from __future__ import annotations
 import datetime as dt
 from typing import Any
 
-from sqlalchemy import CursorResult, select, update
+from sqlalchemy import CursorResult, func, select, update
 from sqlalchemy.orm import Session
 
 from service.persistence.models import NetworkPlanJob, Site, Truck, utcnow
@@ -46,6 +46,34 @@ def job_by_id(session: Session, job_id: int) -> NetworkPlanJob:
     if job is None:
         raise NotFound(f"No network plan with id {job_id}.")
     return job
+
+
+def recent(session: Session, limit: int = 5) -> list[dict[str, Any]]:
+    """The newest ``limit`` jobs for the status page, newest first, without their large JSON: the
+    state columns, the trucks' codes, the number of sites, and of a result its status, cost per day,
+    gap and number of unserved sites (read inside the database: ``JSON_EXTRACT`` on SQLite, ``->``
+    on PostgreSQL)."""
+    job = NetworkPlanJob
+    columns = (
+        job.id, job.status, job.progress, job.created_at, job.created_by, job.started_at, job.heartbeat_at,
+        job.finished_at, job.error, job.activated_at, job.activated_by,
+        job.inputs["trucks"].label("trucks"),
+        func.json_array_length(job.inputs["sites"]).label("site_count"),
+        job.result["status"].as_string().label("result_status"),
+        job.result["cost_per_day"].as_float().label("cost_per_day"),
+        job.result["gap"].as_float().label("gap"),
+        func.json_array_length(job.result["unserved"]).label("unserved"),
+    )  # fmt: skip
+    rows = session.execute(select(*columns).order_by(job.id.desc()).limit(limit)).mappings().all()
+    # SQLite counts a missing result's unserved as 0 (json_array_length('null')): None without a result.
+    return [
+        dict(
+            row,
+            trucks=[t["code"] for t in row["trucks"] or ()],
+            unserved=row["unserved"] if row["result_status"] else None,
+        )
+        for row in rows
+    ]
 
 
 def _changed(session: Session, statement: Any) -> bool:

@@ -18,6 +18,7 @@ The data comes from :mod:`service.schedule`, the same module the weekly trips ca
 Modules: this one (blueprint, headers, error pages), :mod:`service.web.access` (sign-in, session,
 CSRF), :mod:`service.web.pages` (overview and site pages), :mod:`service.web.morning` (latest
 readings, lowest first, load sheets), :mod:`service.web.chart` (SVG),
+:mod:`service.web.network_plans` (the overview's latest network plans and their progress),
 :mod:`service.web.formatting` (numbers and dates for people).
 """
 

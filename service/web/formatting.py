@@ -59,6 +59,18 @@ def days(value: float | None) -> str:
     return number(value, 1)
 
 
+def duration(seconds: float | None) -> str:
+    """A length of time: ``45 s``, ``3 min 05 s``, ``1 h 20 min``; ``–`` when unknown."""
+    if seconds is None or not math.isfinite(seconds):
+        return "–"
+    whole = int(round(seconds))
+    if whole < 60:
+        return f"{whole}{GROUP}s"
+    if whole < 3600:
+        return f"{whole // 60}{GROUP}min {whole % 60:02d}{GROUP}s"
+    return f"{whole // 3600}{GROUP}h {whole % 3600 // 60:02d}{GROUP}min"
+
+
 def age(then: dt.datetime, now: dt.datetime) -> str:
     """How long ago, as a person says it: ``just now``, ``25 min ago``, ``3 h ago``, ``4 days ago``."""
     minutes = int((now - then).total_seconds() // 60)

@@ -22,7 +22,7 @@ from service.persistence import tanks
 from service.persistence.models import Truck, utcnow
 from service.planning.projection import TOLERANCE
 from service.request_db import get_session, read_engine
-from service.web import bp, error_page, formatting, log, settings
+from service.web import bp, error_page, formatting, log, network_plans, settings
 from service.web.access import page
 from service.web.chart import chart_id, level_svg
 from service.web.route_map import route_svg
@@ -95,6 +95,7 @@ def overview() -> Any:
         rates=rates,
         now=now,
         today=key[1],
+        network_plans=network_plans.recent(db, now, config.network_lease_seconds),
     )
 
 

@@ -328,3 +328,59 @@ def test_latest_readings_lowest_first_and_load_sheets_print_one_a4_page_per_truc
             _non_blank(ARTIFACTS / "status-overview-readings.png")
         finally:
             browser.close()
+
+
+def test_network_plans_show_progress_and_outcome_in_chromium(server):
+    """Issue 16: a network plan posted through the API and computed by `ullage worker --once` shows its
+    cost per day; a running one (written as the worker writes it) shows an accessible progress bar."""
+    from playwright.sync_api import sync_playwright  # noqa: PLC0415
+    from sqlalchemy.orm import Session  # noqa: PLC0415
+
+    from service import network_inputs  # noqa: PLC0415
+    from service.persistence import network_jobs as jobs  # noqa: PLC0415
+    from service.persistence.db import make_engine  # noqa: PLC0415
+
+    base, api = server["base"], server["api"]
+    posted = api.post(f"{base}/api/v1/network-plans", json={}, timeout=30)
+    assert posted.status_code == 202, posted.text
+    _cli(server["env"], "worker", "--once")  # this gunicorn runs no worker thread (no config file)
+    done = api.get(f"{base}{posted.headers['Location']}", timeout=30).json()
+    assert done["status"] == "done", done
+    # A running job as a worker writes it (claimed in the transaction that adds it; its heartbeat fresh).
+    engine = make_engine(server["env"]["DATABASE_URL"])
+    try:
+        with Session(engine) as db:
+            inputs = dict(network_inputs.snapshot(db), time_budget_seconds=60.0)
+            job = jobs.add_job(db, created_by="browser-test", start_date=dt.date(2026, 1, 5), inputs=inputs)
+            assert jobs.claim_next(db, "browser-test-worker") == job.id
+            assert jobs.write_progress(db, job.id, "browser-test-worker", 0.42)
+            db.commit()
+            running = job.id
+    finally:
+        engine.dispose()
+
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            context = browser.new_context(viewport={"width": 1366, "height": 900}, java_script_enabled=False)
+            page = context.new_page()
+            page.goto(f"{base}/status")
+            page.fill("#token", server["token"])
+            page.click("button[type=submit]")
+            page.wait_for_load_state()
+            section = page.locator("section.network-plans")
+            assert section.is_visible()
+            # The progress bar by its role and label, as assistive technology finds it.
+            bar = page.get_by_role("progressbar", name=f"Progress of network plan {running}")
+            assert bar.is_visible() and bar.get_attribute("value") == "0.4200"
+            assert bar.bounding_box()["width"] > 50  # type: ignore[index]
+            row = section.locator("tr.job").filter(has=page.locator("th", has_text=f"#{running}"))
+            assert "42\u00a0%" in row.inner_text() and "Running" in row.inner_text()
+            finished = section.locator("tr.job").filter(has=page.locator("th", has_text=f"#{done['id']}"))
+            text = finished.inner_text()
+            cost = f"{done['result']['cost_per_day']:,.2f}".replace(",", "\u00a0")
+            assert "Done" in text and f"cost {cost}" in text and "not activated" in text, text
+            assert finished.locator("progress").count() == 0
+            section.screenshot(path=str(ARTIFACTS / "status-network-plans.png"))
+        finally:
+            browser.close()

@@ -46,6 +46,10 @@ from service.planning.workweek import WorkWeek
 
 #: Longest single call of the one-truck planner (s), so progress is reported at least every 2 s.
 STEP_SECONDS = 1.2
+#: Seconds after the last progress report at which the next tick reports a fraction moved on: half the
+#: job worker's one write a second (``service/network_worker.py``), so each of its writes carries a new
+#: fraction and none waits for a whole second more.
+TICK_SECONDS = 0.5
 #: Trucks with more sites than this are planned with power-of-two cycles only: their repeat period stays
 #: short (``B 2^p`` days), so listing, routing and costing every trip of it stays fast; the power-of-two
 #: class stays close to the relaxation (Roundy 1985, ``docs/planning.md`` §5).
@@ -76,7 +80,17 @@ class _Truck:
 
 
 class _Clock:
-    """Budget, progress reports (fraction 0–1) and the cut flag."""
+    """Budget, progress reports (fraction 0–1) and the cut flag.
+
+    The work is cut into steps (the set-up, each truck), each ending at a known fraction. Within a step
+    ``tick`` moves the fraction from the step's start ``f0`` towards its end ``f1`` by the time spent on
+    it: ``f = f0 + (f1 − f0)(1 − e^(−t/τ))`` with ``τ = (f1 − f0) · T0 / f0``, the time the step takes at
+    the pace of the run so far (``T0`` s for ``f0``; 1 s before any pace is known). The fraction grows at
+    every tick yet never reaches ``f1`` before the step ends, so a client sees it move at least every
+    ``TICK_SECONDS`` plus the longest stretch without a tick (one call of the one-truck planner is cut at
+    ``STEP_SECONDS``) even through one long truck, and the estimate ``elapsed × (1 − f) / f`` stays that
+    of the run's pace.
+    """
 
     def __init__(self, budget: float | None, progress: Callable[[float], None] | None):
         self.began = time.monotonic()
@@ -85,6 +99,7 @@ class _Clock:
         self.cut = False
         self.fraction = 0.0
         self.last = self.began
+        self.step_from, self.step_to, self.step_began, self.tau = 0.0, 0.0, self.began, 1.0
 
     def left(self) -> float:
         return math.inf if self.deadline is None else self.deadline - time.monotonic()
@@ -94,16 +109,28 @@ class _Clock:
             self.cut = True
         return self.cut
 
-    def report(self, fraction: float) -> None:
-        self.fraction = min(1.0, max(0.0, float(fraction)))
+    def report(self, fraction: float, until: float | None = None) -> None:
+        """Report ``fraction``; with ``until``, a step starts here and ends at ``until``."""
+        self.fraction = min(1.0, max(self.fraction, float(fraction)))
         self.last = time.monotonic()
+        if until is not None:
+            spent = self.last - self.began
+            self.step_from, self.step_to, self.step_began = self.fraction, min(1.0, float(until)), self.last
+            width = self.step_to - self.step_from
+            self.tau = width * spent / self.fraction if self.fraction > 0 and spent > 0 and width > 0 else 1.0
         if self.progress is not None:
             self.progress(self.fraction)
 
     def tick(self) -> None:
-        """Repeat the last fraction when a second has passed since the last report."""
-        if time.monotonic() - self.last >= 1.0:
-            self.report(self.fraction)
+        """Report the fraction moved on within the step when ``TICK_SECONDS`` passed since the last report."""
+        now = time.monotonic()
+        if now - self.last < TICK_SECONDS:
+            return
+        if self.step_to > self.fraction:
+            share = -math.expm1(-(now - self.step_began) / self.tau)  # 1 − e^(−t/τ), in [0, 1)
+            moved = self.step_from + (self.step_to - self.step_from) * share
+            self.fraction = max(self.fraction, min(moved, self.step_to))
+        self.report(self.fraction)
 
 
 def _check(sites, trucks, depots, products) -> None:
@@ -493,7 +520,7 @@ def _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, 
         for n_scale, scale in enumerate(STEM_SCALES):
             if n_scale and clock.out():
                 break
-            clock.report(clock.fraction)
+            clock.tick()
             plan = _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved)
             clock.tick()
             if plan == "retry":
@@ -558,8 +585,9 @@ def plan_network(
         When it runs out, each truck not yet planned gets one quick candidate and the status is
         ``time_limit``.
     progress : callable or None
-        Called with the fraction done (0–1), at least every 2 s of planning (each call of the one-truck
-        planner is cut at ``STEP_SECONDS``).
+        Called with the fraction done (0–1), never decreasing, about every ``TICK_SECONDS`` and at least
+        every 2 s of planning, with a larger fraction each time within a step (``_Clock``; each call of
+        the one-truck planner is cut at ``STEP_SECONDS``).
 
     Raises
     ------
@@ -568,7 +596,7 @@ def plan_network(
         the one-truck planner's site checks.
     """
     clock = _Clock(time_budget_seconds, progress)
-    clock.report(0.0)
+    clock.report(0.0, until=0.02)
     calendars = dict(calendars or {})
     _check(sites, trucks, depots, products)
     source = distance if distance is not None else CircuityDistance()
@@ -599,7 +627,7 @@ def plan_network(
     site_points = [s.location for s in sites if s.location is not None]  # every site has one (_check)
     r_depot = source.matrix(depot_points, site_points).T if n else np.zeros((0, len(depots)))
     r = r_depot[:, truck_depot]
-    clock.report(0.02)
+    clock.report(0.02, until=0.08)
     cals = [calendars.get(t.code, Calendar()) for t in trucks]
     days_share = np.array([len(set(c.working_days)) / 7.0 for c in cals])
     per_day = np.array([c.trips_per_day or 1 for c in cals], dtype=float)
@@ -619,7 +647,7 @@ def plan_network(
     assigned = within_throughput(assigned, eligible, r, demand, LIMIT_SHARE * limit)
     for i in np.flatnonzero((assigned < 0) & plannable).tolist():
         unserved[codes[i]] = "the trucks that may serve it have no throughput left (capacity × trips per day)"
-    clock.report(0.08)
+    clock.report(0.08, until=0.12)
     # The bound over the plannable sites (bound.py).
     served = np.flatnonzero(plannable)
     nu = nearest_other([site_points[i] for i in served], depot_points, source, clock.tick) if len(served) else np.zeros(0)
@@ -631,7 +659,7 @@ def plan_network(
     stop_cost = np.array([float(s.site.stop_cost) for s in sites])
     cap_days = np.maximum(np.minimum(usable[served], best_capacity[served]) / demand[served], 1.0)
     parts = (demand[served], H, stop_cost[served], cap_days, stem, visit)
-    clock.report(0.12)
+    clock.report(0.12, until=0.12)
     products_of = [s.product for s in sites]
     plans: list[TruckPlan] = []
     total_sites = max(1, int((assigned >= 0).sum()))
@@ -640,6 +668,7 @@ def plan_network(
         idx = np.flatnonzero(assigned == t)
         if not len(idx):
             continue
+        clock.report(clock.fraction, until=0.12 + 0.88 * (done + len(idx)) / total_sites)
         nodes = [depot_points[truck_depot[t]]] + [site_points[i] for i in idx]
         tk = _Truck(t, trucks[t], cals[t], idx, source.matrix(nodes, nodes))
         prods = [products_of[i] for i in idx]

@@ -165,3 +165,28 @@ def test_trips_keep_the_truck_calendar():
         assert plan.utilisation["trip_share"] is not None
     for u in result.unserved:
         assert u.reason
+
+
+def test_progress_moves_within_a_step_and_never_reaches_its_end(monkeypatch):
+    from service.planning.fleet import network
+
+    now = [100.0]
+    monkeypatch.setattr(network.time, "monotonic", lambda: now[0])
+    marks: list[float] = []
+    clock = network._Clock(None, marks.append)
+    now[0] += 6.0
+    clock.report(0.12, until=0.5)  # 0.12 in 6 s: the step of 0.38 should take 0.38 × 6 / 0.12 = 19 s
+    assert clock.tau == pytest.approx(19.0)
+    now[0] += network.TICK_SECONDS / 2
+    clock.tick()  # too soon: nothing reported
+    assert marks == [0.12]
+    for _ in range(200):
+        now[0] += network.TICK_SECONDS
+        clock.tick()
+    assert len(marks) == 201
+    assert all(a < b < 0.5 for a, b in zip(marks, marks[1:], strict=False))
+    # f = f0 + (f1 − f0)(1 − e^(−t/τ)), written out with math.exp.
+    t = now[0] - 106.0
+    assert marks[-1] == pytest.approx(0.12 + 0.38 * (1 - math.exp(-t / 19.0)))
+    clock.report(0.5)  # the step's end, then the next step starts there
+    assert marks[-1] == 0.5
