@@ -135,3 +135,23 @@ def test_a_truck_without_compartments_lists_as_before_without_compartments(clien
     # Capacity and max_stops alone: the date's 33 000 L go on two trips (worked above).
     first = [sorted(s["site"] for s in t["stops"]) for t in trips if t["date"] == START.isoformat()]
     assert first == [["D1", "D2", "K1"], ["K2", "K3"]]
+
+
+def test_changing_the_compartments_changes_the_cached_trips(client, auth, network):
+    # The trips cache and ETag follow the change stamp, which every UPDATE of trucks bumps
+    # (migration 0002's triggers), so a compartments change shows at once.
+    _activate(client, auth)
+    url = "/api/v1/trucks/T1/trips?week=2026-W50"
+    before = client.get(url, headers=auth("viewer"))
+    etag = client.get("/api/v1/trucks/T1", headers=auth("viewer")).headers["ETag"]
+    changed = client.patch(
+        "/api/v1/trucks/T1", json={"compartments": [9000.0, 9000.0]}, headers=auth("admin", **{"If-Match": etag})
+    )
+    assert changed.status_code == 200, changed.get_json()
+    after = client.get(url, headers=auth("viewer", **{"If-None-Match": before.headers["ETag"]}))
+    assert after.status_code == 200 and after.headers["ETag"] != before.headers["ETag"]
+    # By hand, compartments 9000 | 9000: {K1 9000, D1 3600, D2 3000} loads whole (heating oil in one,
+    # diesel 6600 in the other) and {K2 9000, K3 8400} takes both for 17 400 L of heating oil: two trips.
+    first = [t for t in after.get_json()["trips"] if t["date"] == START.isoformat()]
+    assert [sorted(s["site"] for s in t["stops"]) for t in first] == [["D1", "D2", "K1"], ["K2", "K3"]]
+    assert [s["compartments"] for s in first[0]["stops"] if s["site"] == "K1"] in ([[[1, 9000.0]]], [[[2, 9000.0]]])
