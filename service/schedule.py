@@ -39,7 +39,7 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy.orm import Session
 
-from service import consumption, routes, weather, working_calendar
+from service import consumption, routes, trip_compartments, weather, working_calendar
 from service.config import Settings
 from service.persistence import deliveries as delivery_store
 from service.persistence import fleet as fleet_store
@@ -97,6 +97,8 @@ class PlannedStop:
     notices: tuple[Notice, ...]
     delivered_quantity: float | None = None
     delivered_at: dt.datetime | None = None
+    #: ``(compartment number from 1, quantity)`` pieces of the load; None when the truck has none.
+    compartments: tuple[tuple[int, float], ...] | None = None
 
 
 @dataclass(frozen=True)
@@ -287,6 +289,10 @@ class _Replay:
     capacity_shrank: bool
     #: The core's warnings about closed dates no move could keep within the limits.
     calendar_warnings: tuple[str, ...]
+    #: The core's warnings about dates whose compartment split needs more than trips_per_day trips.
+    compartment_warnings: tuple[str, ...]
+    #: The plan's sites that get stops (active, on the plan's truck), by code.
+    served: dict[str, Site]
     #: The sites whose stored demand the drift test rejects (``consumption_changed``), by code.
     drifted: dict[str, Notice]
 
@@ -380,6 +386,7 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
     planned: list[PlannedTrip] = []
     removed: dict[str, list[dt.date]] = {}
     warnings: tuple[str, ...] = ()
+    compartment_warnings: tuple[str, ...] = ()
     if sim_last >= plan.start_date:
         window_truck = working_calendar.window_truck(plan.inputs["truck"], truck, sim_first, sim_last)
         first_day, last_day = (sim_first - plan.start_date).days, (sim_last - plan.start_date).days
@@ -390,14 +397,21 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
         ahead = max((s.longest_gap_days for s in result.sites), default=0) + NEXT_GAP_MARGIN_DAYS
         after = trips_between(result, window_truck, last_day + 1, last_day + ahead).trips
         days = _delivery_days([*window.trips, *after])
+        kept = []
         for trip in window.trips:
             date = plan.start_date + dt.timedelta(days=trip.day)
             for stop in trip.stops:
                 if stop.code not in served:
                     removed.setdefault(stop.code, []).append(date)
-            stops = tuple((s.code, s.quantity) for s in trip.stops if s.code in served)
-            if stops:
-                planned.append(PlannedTrip(date, stops, _next_days(days, trip.day, [c for c, _ in stops])))
+            on_truck = tuple(s for s in trip.stops if s.code in served)
+            if on_truck:
+                kept.append(dataclasses.replace(trip, stops=on_truck))
+        loaded = trip_compartments.listed(kept, truck, served, window_truck.trips_per_day)
+        compartment_warnings = loaded.warnings
+        for trip, spaces in zip(loaded.trips, loaded.spaces, strict=True):
+            date = plan.start_date + dt.timedelta(days=trip.day)
+            stops = tuple((s.code, s.quantity) for s in trip.stops)
+            planned.append(PlannedTrip(date, stops, _next_days(days, trip.day, [c for c, _ in stops]), spaces))
     corrected = projection.correct(planned)
     projection.finish(day_start(last + dt.timedelta(days=1), zone))
     names = {code: (drift.sites[code].name if code in drift.sites else s["name"]) for code, s in recorded.items()}
@@ -417,6 +431,8 @@ def _replay(session: Session, plan: Plan, truck: Truck, first: dt.date, last: dt
         frozenset(c.code for c in drift.changes if c.subject == "site" and c.field in ROOM_FIELDS),
         truck.capacity < plan.inputs["truck"]["capacity"],
         warnings,
+        compartment_warnings,
+        served,
         {
             code: _consumption_notice(site, learned[site.id][1], settings.quantity_unit)
             for code, site in served.items()
@@ -467,7 +483,9 @@ def _limit_notices_of(replay: _Replay, stop: CorrectedStop, date: dt.date) -> li
     return out
 
 
-def _stop(replay: _Replay, stop: CorrectedStop, date: dt.date) -> PlannedStop:
+def _stop(
+    replay: _Replay, stop: CorrectedStop, date: dt.date, compartments: tuple[tuple[int, float], ...] | None = None
+) -> PlannedStop:
     name = replay.names[stop.site]
     notices = [_run_out_notice(stop.site, name, stop.run_out.date)] if stop.run_out else []
     if stop.empty:
@@ -483,6 +501,7 @@ def _stop(replay: _Replay, stop: CorrectedStop, date: dt.date) -> PlannedStop:
         tuple(notices),
         stop.delivered_quantity,
         stop.delivered_at,
+        compartments,
     )
 
 
@@ -542,11 +561,15 @@ def _named_sites(message: str, codes: Sequence[str]) -> list[str]:
     return [code for code in codes if code in quoted]
 
 
-def _calendar_notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None) -> list[Notice]:
+def _calendar_notices(
+    replay: _Replay, first: dt.date, last: dt.date, only: str | None, kind: str = "calendar"
+) -> list[Notice]:
     """``calendar`` notices: the core's warnings about closed dates in the window (by the first
-    date each names; one that names none is shown in every window)."""
+    date each names; one that names none is shown in every window); with ``kind="compartments"``
+    its warnings about dates the compartments split into more than ``trips_per_day`` trips."""
     out = []
-    for message in replay.calendar_warnings:
+    messages = replay.calendar_warnings if kind == "calendar" else replay.compartment_warnings
+    for message in messages:
         match = ISO_DATE.search(message)
         date = dt.date.fromisoformat(match[1]) if match else None
         if date is not None and not first <= date <= last:
@@ -555,7 +578,7 @@ def _calendar_notices(replay: _Replay, first: dt.date, last: dt.date, only: str 
         if only is not None and only not in sites:
             continue
         site = only if only is not None else (sites[0] if len(sites) == 1 else None)
-        out.append(Notice("calendar", f"Truck {replay.truck.code}: {message}", site, date))
+        out.append(Notice(kind, f"Truck {replay.truck.code}: {message}", site, date))
     return out
 
 
@@ -591,6 +614,7 @@ def _notices(replay: _Replay, first: dt.date, last: dt.date, only: str | None = 
     out.extend(n for code, n in sorted(replay.drifted.items()) if only is None or code == only)
     out.extend(_limit_notices(replay, first, last, only))
     out.extend(_calendar_notices(replay, first, last, only))
+    out.extend(_calendar_notices(replay, first, last, only, "compartments"))
     if replay.summary.stale and only is None:
         out.append(_stale_notice(replay.plan, replay.drift.changes, replay.unit))
     for code, is_recent in sorted(replay.recent.items()):
@@ -632,7 +656,8 @@ def trips_view(session: Session, truck: Truck, first: dt.date, last: dt.date, se
     for t in replay.trips:
         if first <= t.date <= last:
             index[t.date] = index.get(t.date, 0) + 1
-            stops = tuple(_stop(replay, s, t.date) for s in t.stops)
+            loads = trip_compartments.pieces(t, truck, replay.served)
+            stops = tuple(_stop(replay, s, t.date, c) for s, c in zip(t.stops, loads, strict=True))
             route = routes.trip_route(truck.depot, depot_point, [(s.site, points.get(s.site)) for s in stops])
             trips.append(DayTrip(t.date, index[t.date], t.load, truck.capacity, stops, route))
     return TripsView(truck.code, replay.summary, first, last, tuple(trips), tuple(_notices(replay, first, last)))

@@ -358,6 +358,7 @@ def trips_json(view: schedule.TripsView) -> dict[str, Any]:
                         "delivered_at": s.delivered_at.astimezone(dt.UTC).isoformat() if s.delivered_at else None,
                         "warnings": [notice_json(n) for n in s.notices],
                     }
+                    | ({} if s.compartments is None else {"compartments": [list(p) for p in s.compartments]})
                     for s in t.stops
                 ],
                 "route": routes.route_json(t.route),

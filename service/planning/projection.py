@@ -26,6 +26,10 @@ site's *current* values (the plan only gives the dates, the cycle and the planne
 * A site without a reading (or a delivery before its reading's date) keeps its planned quantity,
   but never more than ``F − s`` (the room when the level is at the safety stock, the level the plan
   assumes just before a delivery) nor more than ``free``.
+* On a truck with compartments (``PlannedTrip.spaces``) the stops of one product share the space of
+  the compartments given to that product on the trip, as the stops of a trip share the truck: ``free``
+  is also at most that space minus what the product's earlier stops take and its unread stops keep,
+  and the product's stops share it as above when it cannot carry them all.
 * A trip with more stops than the truck's current ``max_stops`` keeps the stops with the fewest
   days of stock above the safety stock at 00:00 of the day (``(level − s)/d``; a site without a
   projected level counts as at its safety stock, 0 days; ties in the plan's stop order); the
@@ -79,6 +83,9 @@ class PlannedTrip:
     date: dt.date
     stops: tuple[tuple[str, float], ...]
     next_days: Mapping[str, int] = field(default_factory=dict, hash=False, compare=False)
+    #: On a truck with compartments: ``(site codes, space)`` per product on the trip, the codes sharing
+    #: the space of the compartments given to their product; each group's load stays within it.
+    spaces: tuple[tuple[tuple[str, ...], float], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -403,13 +410,27 @@ class Projection:
             }
             reserved = sum(unread.values())
             shares = self._shares(trip, kept, when, self.capacity - reserved)
+            group = {code: g for g, (codes, _space) in enumerate(trip.spaces) for code in codes}
+            held = [sum(unread.get(c, 0.0) for c in codes) for codes, _space in trip.spaces]
+            group_shares = [
+                self._shares(trip, [s for s in kept if s[0] in codes], when, space - held[g])
+                for g, (codes, space) in enumerate(trip.spaces)
+            ]
+            group_load = [0.0] * len(trip.spaces)
             for code, planned in kept:
                 reserved -= unread.get(code, 0.0)
                 tank = self.tanks[code]
                 gap = trip.next_days.get(code, tank.cycle_days)
                 free = shares.get(code, self.capacity - load - reserved)
+                g = group.get(code)
+                if g is not None:
+                    held[g] -= unread.get(code, 0.0)
+                    room = trip.spaces[g][1] - group_load[g] - held[g]
+                    free = max(0.0, min(free, group_shares[g].get(code, room)))
                 stop = self._stop(tank, planned, when, free, gap)
                 load += stop.quantity
+                if g is not None:
+                    group_load[g] += stop.quantity
                 stops.append(stop)
             out.append(CorrectedTrip(trip.date, load, tuple(stops), dropped))
         return out

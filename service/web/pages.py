@@ -43,6 +43,7 @@ NOTICE_KINDS = {
     "consumption_changed": ("Consumption changed", 1),
     "limits_changed": ("Limits changed", 1),
     "calendar": ("Closed date", 1),
+    "compartments": ("Compartments", 1),
     "no_active_plan": ("No active plan", 2),
     "plan_stale": ("Plan out of date", 3),
     "no_recent_reading": ("No recent reading", 4),
@@ -188,8 +189,8 @@ def _truck_panel(db: Any, truck: Truck, monday: dt.date, sunday: dt.date, config
     all_levels = schedule.truck_levels(db, truck, sites, monday, CHART_DAYS, config)
     for site in sites:
         levels = all_levels[site.code]
-        # The week's calendar notices are the trips view's (one per date, naming every site).
-        notices.extend(n for n in levels.notices if n.kind != "calendar")
+        # The week's calendar and compartments notices are the trips view's (one per date, naming every site).
+        notices.extend(n for n in levels.notices if n.kind not in ("calendar", "compartments"))
         label = f"{site.name} ({site.code})"
         charts.append(
             {

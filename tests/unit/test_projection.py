@@ -95,6 +95,21 @@ def test_capped_by_truck_free_space():
     assert first.run_out is not None and second.run_out is not None  # neither lasts above 500
 
 
+def test_a_products_stops_share_its_compartments_space():
+    """``PlannedTrip.spaces`` (issue 16): A and B share 3000 of compartments, C has 6000 to itself;
+    the truck (18 000) is no limit. Same tanks as above: A needs 2400, B 3400, C (level 2000) 2400."""
+    a, b, c = tank("A"), tank("B", level=1000.0), tank("C")
+    p = Projection([a, b, c], 18000.0, UTC)
+    spaces = ((("A", "B"), 3000.0), (("C",), 6000.0))
+    [trip] = p.correct([PlannedTrip(day(3), (("A", 2500.0), ("B", 2500.0), ("C", 2500.0)), {}, spaces)])
+    first, second, third = trip.stops
+    # A and B share 3000 as a full truck's stops do: 3000/5800 of each need (by hand); C gets its need.
+    assert first.quantity == pytest.approx(2400.0 * 3000.0 / 5800.0)
+    assert second.quantity == pytest.approx(3400.0 * 3000.0 / 5800.0)
+    assert third.quantity == pytest.approx(2400.0)
+    assert first.run_out is not None and third.run_out is None
+
+
 def test_planned_quantity_without_a_reading():
     p = Projection([tank(level=None)], 18000.0, UTC)
     stop = p.correct([PlannedTrip(day(3), (("A", 3000.0),))])[0].stops[0]

@@ -319,6 +319,32 @@ def test_a_truck_with_several_trips_a_day_gets_them_numbered_on_its_load_sheet(a
         assert trip["stops"][0]["site"] in row
 
 
+def test_the_load_sheet_says_which_compartment_holds_each_stops_load(app, browser_client, client, auth):
+    """A truck of two compartments (3000 | 2000) and two daily sites of two products: each trip's
+    heating oil goes in one compartment and its diesel in the other (issue 16)."""
+    for code, name in (("KER", "Heating oil"), ("DSL", "Diesel")):
+        product = {"code": code, "name": name, "safe_fill": 0.95}
+        assert client.post("/api/v1/products", json=product, headers=auth("admin")).status_code == 201
+    truck = {"code": "T3", "name": "Two compartments", "dispatch_cost": 100.0, "capacity": 5000.0, "max_stops": 2}
+    truck |= {"compartments": [3000.0, 2000.0], "working_days": [1, 2, 3, 4, 5, 6, 7], "trips_per_day": 2}
+    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
+    for code, product in (("K1", "KER"), ("D1", "DSL")):
+        site = {"code": code, "name": f"Daily {code}", "truck": "T3", "product": product, "demand_per_day": 900.0}
+        site |= {"holding_cost": 0.002, "stop_cost": 10.0, "tank_capacity": 2000.0, "safe_fill": 0.9}
+        site |= {"safety_stock": 100.0}
+        response = client.post("/api/v1/sites", json=site, headers=auth("admin"))
+        assert response.status_code == 201, response.get_json()
+    record_plan(client, auth, "T3", today(app))
+    day = today(app) + dt.timedelta(days=1)
+    trips = client.get(f"/api/v1/trucks/T3/trips?from={day}&to={day}", headers=auth("viewer")).get_json()["trips"]
+    stops = [s for t in trips for s in t["stops"]]
+    assert stops and all(s["compartments"] for s in stops)
+    text = text_of(browser_client.get(f"/status/load-sheet?date={day}"))
+    for stop in stops:
+        for number, part in stop["compartments"]:
+            assert f"{quantity(part)} in compartment {number}" in text
+
+
 # ------------------------------------------------------------------ labels
 
 

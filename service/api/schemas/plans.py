@@ -130,6 +130,7 @@ NOTICE_KINDS = (
     "plan_stale",
     "no_recent_reading",
     "calendar",
+    "compartments",
 )
 
 
@@ -148,7 +149,9 @@ class NoticeSchema(ma.Schema):
             "no_recent_reading: the site's quantities are not corrected by a recent reading; "
             "calendar: deliveries fall on a date the truck does not work (a closed date, a holiday of its "
             "holiday_region, or a weekday it no longer works) and no earlier working day has room for "
-            "them within the truck's and the tanks' limits; the message names the date and the sites"
+            "them within the truck's and the tanks' limits; the message names the date and the sites; "
+            "compartments: loading one product per compartment of the truck splits a date's stops into "
+            "more trips than its trips_per_day; the message names the date and the sites"
         },
     )
     message = ma.fields.String(metadata={"description": "The notice for a person: the site, the date, what to do"})
@@ -198,6 +201,15 @@ class DatedStopSchema(ma.Schema):
         allow_none=True, metadata={"description": "When the recorded delivery was made, in UTC; null otherwise"}
     )
     warnings = ma.fields.List(ma.fields.Nested(NoticeSchema), metadata={"description": "Notices about this stop"})
+    compartments = ma.fields.List(
+        ma.fields.List(ma.fields.Float()),
+        metadata={
+            "description": "[compartment number (from 1), quantity] pieces of this stop's `quantity` on a truck "
+            "with compartments (one product per compartment; the trip's stops of one product share its "
+            "compartments, as in a network plan's trips); empty when the quantity is 0; absent when the truck "
+            "has no compartments"
+        },
+    )
 
 
 class DatedTripSchema(ma.Schema):
