@@ -164,21 +164,29 @@ def _shift_sizing(trucks, cals, eligible, r, truck_depot, demand, size, nu, days
     their values.
 
     A truck with a shift ``S`` may serve a site only when a one-stop trip to it fits ``S`` (a site that
-    fits no truck's shift stays eligible where it was, and the truck's plan sets it aside with the
-    reason). Its throughput is ``n × load × working days / 7`` with ``n`` trips of a typical load per
+    fits no eligible truck's shift is set aside with the reason). Its throughput is ``n × load × working days / 7`` with ``n`` trips of a typical load per
     working day (:func:`assignment.shift_trips`, over the sites whose nearest eligible depot is the
     truck's; capped by the calendar's trips per day), which also bounds its demand in the assignment.
-    Returns ``(eligible, throughput, limit, starting trips per day of each truck or None)``."""
+    Returns ``(eligible, throughput, limit, starting trips per day of each truck or None, reasons of the
+    sites no eligible truck's shift can reach)``."""
     eligible, throughput, limit = eligible.copy(), throughput.copy(), limit.copy()
     shift_tpd: list[int | None] = [None] * len(trucks)
     timed = [t for t, tr in enumerate(trucks) if tr.shift_hours is not None]
     if not timed:
-        return eligible, throughput, limit, shift_tpd
+        return eligible, throughput, limit, shift_tpd, {}
     fits = eligible.copy()
+    hours = np.zeros(eligible.shape)
     for t in timed:
-        single = np.array([trucks[t].trip_hours(2.0 * float(x), 1) for x in r[:, t]], dtype=float).reshape(-1)
-        fits[:, t] &= single <= float(trucks[t].shift_hours) + SHIFT_TOLERANCE
-    eligible = np.where(fits.any(axis=1)[:, None], fits, eligible)
+        hours[:, t] = [trucks[t].trip_hours(2.0 * float(x), 1) for x in r[:, t]]
+        fits[:, t] &= hours[:, t] <= float(trucks[t].shift_hours) + SHIFT_TOLERANCE
+    beyond: dict[int, str] = {}
+    for i in np.flatnonzero(eligible.any(axis=1) & ~fits.any(axis=1)).tolist():
+        t = int(np.argmin(np.where(eligible[i], hours[i], np.inf)))
+        beyond[i] = (
+            f"the truck's shift cannot fit a trip to this site: truck `{trucks[t].code}` needs {hours[i, t]:.2f} h "
+            f"for it alone, its shift is {float(trucks[t].shift_hours):g} h"
+        )
+    eligible = fits
     home = truck_depot[np.argmin(np.where(eligible, r, np.inf), axis=1)] if len(r) else np.zeros(0, dtype=int)
     for t in timed:
         tr = trucks[t]
@@ -192,7 +200,7 @@ def _shift_sizing(trucks, cals, eligible, r, truck_depot, demand, size, nu, days
             trips = min(trips, float(cals[t].trips_per_day))
         shift_tpd[t] = int(trips)
         throughput[t] = limit[t] = trips * load * days_share[t]
-    return eligible, throughput, limit, shift_tpd
+    return eligible, throughput, limit, shift_tpd, beyond
 
 
 def _typical_delivery(demand: np.ndarray, usable: np.ndarray, capacity: np.ndarray) -> np.ndarray:
@@ -663,10 +671,12 @@ def plan_network(
     limit = np.where([c.trips_per_day is None for c in cals], np.inf, throughput)
     nu_all = np.zeros(n)
     nu_all[served] = nu
-    eligible, throughput, limit, shift_tpd = _shift_sizing(
+    eligible, throughput, limit, shift_tpd, beyond = _shift_sizing(
         trucks, cals, eligible, r, truck_depot, demand, _typical_delivery(demand, usable, capacity), nu_all,
         days_share, throughput, limit,
     )  # fmt: skip
+    for i, why in beyond.items():
+        unserved[codes[i]] = why
     lat = np.array([p.latitude for p in site_points], dtype=float)
     lon = np.array([p.longitude for p in site_points], dtype=float)
     dlat = np.array([p.latitude for p in depot_points], dtype=float)
@@ -680,7 +690,8 @@ def plan_network(
     )
     assigned = within_throughput(assigned, eligible, r, demand, LIMIT_SHARE * limit)
     for i in np.flatnonzero((assigned < 0) & plannable).tolist():
-        unserved[codes[i]] = (
+        unserved.setdefault(
+            codes[i],
             "the trucks that may serve it have no throughput left (capacity × trips per day, or the trips "
             "their shifts hold)"
         )
