@@ -5,7 +5,8 @@
 2. **Sweep** (after Gillett & Miller 1974's sweep heuristic): each site goes to the nearest depot that
    has an eligible truck; around each depot the sites are sorted by bearing and cut into consecutive
    sectors, one per truck of the depot, each sector's demand proportional to the truck's throughput
-   ``W_t × trips_per_day × working days / 7`` (one trip a day when unlimited). A site whose sector truck
+   ``W_t × trips_per_day × working days / 7`` (one trip a day when unlimited; a truck with a shift: the
+   trips and load its shift holds, :func:`shift_trips`). A site whose sector truck
    may not carry it goes to the eligible truck of its depot with the most spare throughput.
 3. **Relocation.** Each site is moved to the eligible truck with the lowest surrogate cost per day
    ``d_i (K_t + 2 c_t r_it) / W_t + 2 c_t ν_it d_i / min(q_i, W_t)`` (its radial full-load share plus a

@@ -56,7 +56,7 @@ LIMIT_SHARE = 0.8
 #: Share of a truck's sites (the farthest first) set aside per retry when its plan needs more trips per
 #: day than its calendar allows.
 SHED_SHARE = 0.1
-#: Largest share set aside per retry once the time budget is spent (in proportion to the trips per day
+#: Largest share set aside per retry once the truck's share of the time budget is spent (in proportion to the trips per day
 #: missing, ``1 − allowed / needed``, at least :data:`SHED_SHARE`): a few retries, not one per 10 %.
 SHED_SHARE_LATE = 0.5
 #: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
@@ -91,9 +91,18 @@ class _Clock:
         self.cut = False
         self.fraction = 0.0
         self.last = self.began
+        self.soft = math.inf
 
     def left(self) -> float:
         return math.inf if self.deadline is None else self.deadline - time.monotonic()
+
+    def share(self, fraction: float) -> None:
+        """Give the next truck ``fraction`` of the time left (its share of the sites left)."""
+        self.soft = time.monotonic() + self.left() * fraction
+
+    def late(self) -> bool:
+        """The truck's share of the budget (or the budget) is spent."""
+        return time.monotonic() > self.soft or self.out()
 
     def out(self) -> bool:
         if self.left() <= 0:
@@ -384,7 +393,7 @@ def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost,
         if not removed and (result.needed or {}).get("trips_per_day") and len(tk.sites) > 1:
             share = SHED_SHARE
             needed, allowed = (result.needed or {}).get("trips_per_day"), cal.trips_per_day
-            if clock.out() and needed and allowed:  # budget spent: in proportion to the trips missing
+            if clock.late() and needed and allowed:  # truck's time spent: in proportion to the trips missing
                 share = min(SHED_SHARE_LATE, max(share, 1.0 - float(allowed) / float(needed)))
             far = np.argsort(-(tk.d[0, 1:] + tk.d[1:, 0]), kind="stable")[: max(1, int(share * len(tk.sites)))]
             for j in far:
@@ -552,7 +561,7 @@ def _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, 
     while retry and len(tk.sites):
         retry, nu = False, _neighbour(tk.d)
         for n_scale, scale in enumerate(STEM_SCALES):
-            if n_scale and clock.out():
+            if n_scale and (clock.late() if tk.truck.shift_hours is not None else clock.out()):
                 break
             clock.report(clock.fraction)
             plan = _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved)
@@ -717,6 +726,7 @@ def plan_network(
         nodes = [depot_points[truck_depot[t]]] + [site_points[i] for i in idx]
         tk = _Truck(t, trucks[t], cals[t], idx, source.matrix(nodes, nodes), shift_tpd[t])
         prods = [products_of[i] for i in idx]
+        clock.share(len(idx) / max(1, total_sites - done))
         plan = _plan_truck(tk, sites, start, clock, codes, stop_cost, prods, unserved)
         if plan is not None:
             plans.append(plan)
