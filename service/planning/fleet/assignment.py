@@ -5,7 +5,8 @@
 2. **Sweep** (after Gillett & Miller 1974's sweep heuristic): each site goes to the nearest depot that
    has an eligible truck; around each depot the sites are sorted by bearing and cut into consecutive
    sectors, one per truck of the depot, each sector's demand proportional to the truck's throughput
-   ``W_t × trips_per_day × working days / 7`` (one trip a day when unlimited). A site whose sector truck
+   ``W_t × trips_per_day × working days / 7`` (one trip a day when unlimited; a truck with a shift: the
+   trips and load its shift holds, :func:`shift_trips`). A site whose sector truck
    may not carry it goes to the eligible truck of its depot with the most spare throughput.
 3. **Relocation.** Each site is moved to the eligible truck with the lowest surrogate cost per day
    ``d_i (K_t + 2 c_t r_it) / W_t + 2 c_t ν_it d_i / min(q_i, W_t)`` (its radial full-load share plus a
@@ -153,3 +154,49 @@ def within_throughput(
             if target >= 0:
                 load[target] += demand[i]
     return assigned
+
+
+def shift_trips(
+    r: np.ndarray,
+    region: np.ndarray,
+    demand: np.ndarray,
+    size: np.ndarray,
+    nu: np.ndarray,
+    compartments: tuple[float, ...],
+    max_stops: int | None,
+    shift: float,
+    speed: float,
+    stop_h: float,
+    load_h: float,
+) -> tuple[float, float]:
+    """Trips per working day a shift of ``shift`` hours holds, and the load of a typical trip, for a
+    truck whose region is the sites ``region`` (``docs/fleet.md`` §6a).
+
+    Over the region, weighted by demand ``d_i``: the depot distance ``r̄``, the delivery ``q̄`` (each
+    delivery ``size`` of each site) and its cycle ``T̄ = q̄ / d̄``. A trip visits ``s`` stops, as many
+    deliveries of ``q̄`` as the compartments hold when each needs compartments of its own (different
+    products; compartments taken largest first until they hold ``q̄``), at least 1 and at most the stop
+    limit; a delivery larger than the truck counts as a full load. Between stops it drives the nearest-neighbour
+    distance among the sites served that day, a ``1 / T̄`` share of them: for points spread at density
+    ``ρ`` the mean nearest-neighbour distance is ``1 / (2 √ρ)`` (Clark & Evans 1954, *Ecology* 35), so
+    it grows from ``ν̄`` (nearest other place of each site) to ``ℓ = ν̄ √T̄``. The trip lasts
+
+        τ = (2 r̄ + (s − 1) ℓ) / v + s · m_stop / 60 + m_load / 60   hours
+
+    and the shift holds ``n = max(1, ⌊S / τ⌋)`` of them, each carrying ``min(W, s q̄)``."""
+    capacity = float(sum(compartments))
+    if not region.any():
+        return 1.0, capacity
+    w = demand[region] / demand[region].sum()
+    r_bar = float(w @ r[region])
+    q_bar = float(w @ size[region])
+    cycle = max(1.0, q_bar / float(demand[region].mean()))
+    stops, held = 0, 0.0
+    for c in sorted(compartments, reverse=True):
+        held += c
+        if held >= q_bar:
+            stops, held = stops + 1, 0.0
+    stops = max(1, stops if max_stops is None else min(stops, max_stops))
+    leg = float(w @ nu[region]) * np.sqrt(cycle)
+    tau = (2.0 * r_bar + (stops - 1) * leg) / speed + stops * stop_h + load_h
+    return float(max(1, np.floor(shift / tau))), float(min(capacity, stops * q_bar))

@@ -31,7 +31,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from service.planning.errors import PlanningInputError
-from service.planning.fleet.assignment import relocate, sweep, within_throughput
+from service.planning.fleet.assignment import relocate, shift_trips, sweep, within_throughput
 from service.planning.fleet.bound import nearest_other, network_bound
 from service.planning.fleet.compartments import load_trip
 from service.planning.fleet.cyclic import MAX_CHOICES, choice_count, cyclic_search
@@ -60,11 +60,16 @@ LIMIT_SHARE = 0.8
 #: Share of a truck's sites (the farthest first) set aside per retry when its plan needs more trips per
 #: day than its calendar allows.
 SHED_SHARE = 0.1
+#: Largest share set aside per retry once the truck's share of the time budget is spent (in proportion to the trips per day
+#: missing, ``1 − allowed / needed``, at least :data:`SHED_SHARE`): a few retries, not one per 10 %.
+SHED_SHARE_LATE = 0.5
 #: Days of each truck's repeat period whose routed trips are listed (all listed days are costed).
 ROUTED_DAYS = 63
 #: Stem scales of the routing-aware trip cost tried per truck, ``None`` for direct shipping (candidates
 #: after the first only while the time budget lasts).
 STEM_SCALES = (1.0, None, 0.5)
+#: Slack on the shift check (hours), for rounding only.
+SHIFT_TOLERANCE = 1e-9
 
 
 @dataclass
@@ -77,6 +82,7 @@ class _Truck:
     calendar: Calendar
     sites: np.ndarray
     d: np.ndarray
+    shift_trips: int | None = None
 
 
 class _Clock:
@@ -100,9 +106,18 @@ class _Clock:
         self.fraction = 0.0
         self.last = self.began
         self.step_from, self.step_to, self.step_began, self.tau = 0.0, 0.0, self.began, 1.0
+        self.soft = math.inf
 
     def left(self) -> float:
         return math.inf if self.deadline is None else self.deadline - time.monotonic()
+
+    def share(self, fraction: float) -> None:
+        """Give the next truck ``fraction`` of the time left (its share of the sites left)."""
+        self.soft = time.monotonic() + self.left() * fraction
+
+    def late(self) -> bool:
+        """The truck's share of the budget (or the budget) is spent."""
+        return time.monotonic() > self.soft or self.out()
 
     def out(self) -> bool:
         if self.left() <= 0:
@@ -178,6 +193,58 @@ def _check_shift(t: FleetTruck) -> None:
         raise PlanningInputError(
             f"truck `{t.code}`: shift_hours needs average_speed_kmh", field="average_speed_kmh", code=t.code
         )
+
+
+def _shift_sizing(trucks, cals, eligible, r, truck_depot, demand, size, nu, days_share, throughput, limit):
+    """The assignment's view of the trucks' shifts (``docs/fleet.md`` §6a); trucks without a shift keep
+    their values.
+
+    A truck with a shift ``S`` may serve a site only when a one-stop trip to it fits ``S`` (a site that
+    fits no eligible truck's shift is set aside with the reason). Its throughput is ``n × load × working days / 7`` with ``n`` trips of a typical load per
+    working day (:func:`assignment.shift_trips`, over the sites whose nearest eligible depot is the
+    truck's; capped by the calendar's trips per day), which also bounds its demand in the assignment.
+    Returns ``(eligible, throughput, limit, starting trips per day of each truck or None, reasons of the
+    sites no eligible truck's shift can reach)``."""
+    eligible, throughput, limit = eligible.copy(), throughput.copy(), limit.copy()
+    shift_tpd: list[int | None] = [None] * len(trucks)
+    timed = [t for t, tr in enumerate(trucks) if tr.shift_hours is not None]
+    if not timed:
+        return eligible, throughput, limit, shift_tpd, {}
+    fits = eligible.copy()
+    hours = np.zeros(eligible.shape)
+    for t in timed:
+        hours[:, t] = [trucks[t].trip_hours(2.0 * float(x), 1) for x in r[:, t]]
+        fits[:, t] &= hours[:, t] <= float(trucks[t].shift_hours) + SHIFT_TOLERANCE
+    beyond: dict[int, str] = {}
+    for i in np.flatnonzero(eligible.any(axis=1) & ~fits.any(axis=1)).tolist():
+        t = int(np.argmin(np.where(eligible[i], hours[i], np.inf)))
+        beyond[i] = (
+            f"the truck's shift cannot fit a trip to this site: truck `{trucks[t].code}` needs {hours[i, t]:.2f} h "
+            f"for it alone, its shift is {float(trucks[t].shift_hours):g} h"
+        )
+    eligible = fits
+    home = truck_depot[np.argmin(np.where(eligible, r, np.inf), axis=1)] if len(r) else np.zeros(0, dtype=int)
+    for t in timed:
+        tr = trucks[t]
+        region = eligible[:, t] & (home == truck_depot[t])
+        trips, load = shift_trips(
+            r[:, t], region if region.any() else eligible[:, t], demand, size[:, t], nu, tr.compartments, tr.max_stops,
+            float(tr.shift_hours), float(tr.average_speed_kmh), float(tr.stop_minutes or 0.0) / 60.0,
+            float(tr.load_minutes or 0.0) / 60.0,
+        )  # fmt: skip
+        if cals[t].trips_per_day is not None:
+            trips = min(trips, float(cals[t].trips_per_day))
+        shift_tpd[t] = int(trips)
+        throughput[t] = limit[t] = trips * load * days_share[t]
+    return eligible, throughput, limit, shift_tpd, beyond
+
+
+def _typical_delivery(demand: np.ndarray, usable: np.ndarray, capacity: np.ndarray) -> np.ndarray:
+    """Site × truck: ``d_i 2^⌊log₂ U_it⌋`` with ``U_it = min(usable_i, W_t) / d_i`` (at least 1), the
+    longest power-of-two cycle's delivery — the class large trucks are planned in (§6 step 3); where
+    trip costs outweigh holding, deliveries are as large as the cycle allows."""
+    days = np.maximum(np.minimum(usable[:, None], capacity[None, :]) / np.maximum(demand, 1e-12)[:, None], 1.0)
+    return demand[:, None] * np.exp2(np.floor(np.log2(days)))
 
 
 def _usable(site: FleetSite) -> float:
@@ -351,7 +418,11 @@ def _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost,
     if not result.success:
         removed = set((result.needed or {}).get("remove_sites") or [])
         if not removed and (result.needed or {}).get("trips_per_day") and len(tk.sites) > 1:
-            far = np.argsort(-(tk.d[0, 1:] + tk.d[1:, 0]), kind="stable")[: max(1, int(SHED_SHARE * len(tk.sites)))]
+            share = SHED_SHARE
+            needed, allowed = (result.needed or {}).get("trips_per_day"), cal.trips_per_day
+            if clock.late() and needed and allowed:  # truck's time spent: in proportion to the trips missing
+                share = min(SHED_SHARE_LATE, max(share, 1.0 - float(allowed) / float(needed)))
+            far = np.argsort(-(tk.d[0, 1:] + tk.d[1:, 0]), kind="stable")[: max(1, int(share * len(tk.sites)))]
             for j in far:
                 unserved.setdefault(codes[tk.sites[j]], f"truck `{truck.code}`: {result.message}")
             return "retry"
@@ -419,10 +490,6 @@ def _cyclic_candidate(tk, fleet_sites, start, clock, codes, stop_cost, products)
     )  # fmt: skip
 
 
-#: Slack on the shift check (hours), for rounding only.
-SHIFT_TOLERANCE = 1e-9
-
-
 def _fits_shift(plan: TruckPlan, truck: FleetTruck) -> bool:
     if truck.shift_hours is None:
         return True
@@ -466,15 +533,18 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
         room = max(1, int(math.floor((shift - load_h - drive_h) / stop_h + SHIFT_TOLERANCE)))
         stops = room if stops is None else min(stops, room)
     tpd = max(1, int(math.floor(shift / float(single.min()) + SHIFT_TOLERANCE)))
+    safe_tpd = max(1, int(math.floor(shift / float(single.max()) + SHIFT_TOLERANCE)))
     if tk.calendar.trips_per_day is not None:
         tpd = min(tpd, tk.calendar.trips_per_day)
+    if tk.shift_trips is not None:
+        tpd = min(tpd, tk.shift_trips)
     tightened = False
     while True:
         keep = np.array([codes[i] not in unserved for i in tk.sites], dtype=bool)
         tk = _subset(tk, keep)
         if not len(tk.sites):
             return None
-        cur = _Truck(tk.index, replace(truck, max_stops=stops), replace(tk.calendar, trips_per_day=tpd), tk.sites, tk.d)
+        cur = replace(tk, truck=replace(truck, max_stops=stops), calendar=replace(tk.calendar, trips_per_day=tpd))
         before = set(unserved)
         prods = [local_products[codes[i]] for i in cur.sites]
         best, rejected = _plan_truck_once(cur, fleet_sites, start, clock, codes, stop_cost, prods, unserved)
@@ -491,8 +561,8 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
         seen_trips = max((t.trip for t in rejected.trips), default=1)
         longest_trip = max((t.duration_hours or 0.0 for t in rejected.trips), default=0.0)
         now_stops = stops if stops is not None else seen_stops
-        if clock.out() and (stops != 1 or tpd != 1):  # budget spent: the one limit that surely fits
-            stops, tpd = 1, 1
+        if clock.out() and (stops != 1 or tpd > safe_tpd):  # budget spent: limits that surely fit
+            stops, tpd = 1, min(tpd, safe_tpd)
         elif tpd > 1 and longest_trip <= shift + SHIFT_TOLERANCE:  # the trips fit, their number does not
             now = min(tpd, seen_trips)
             tpd = max(1, min(now - 1, int(math.floor(now / over))))
@@ -518,7 +588,7 @@ def _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, 
     while retry and len(tk.sites):
         retry, nu = False, _neighbour(tk.d)
         for n_scale, scale in enumerate(STEM_SCALES):
-            if n_scale and clock.out():
+            if n_scale and (clock.late() if tk.truck.shift_hours is not None else clock.out()):
                 break
             clock.tick()
             plan = _joint_candidate(tk, fleet_sites, nu, scale, start, clock, codes, stop_cost, products, unserved)
@@ -548,7 +618,7 @@ def _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, 
 
 def _subset(tk: _Truck, keep: np.ndarray) -> _Truck:
     nodes = np.concatenate([[0], np.flatnonzero(keep) + 1])
-    return _Truck(tk.index, tk.truck, tk.calendar, tk.sites[keep], tk.d[np.ix_(nodes, nodes)])
+    return replace(tk, sites=tk.sites[keep], d=tk.d[np.ix_(nodes, nodes)])
 
 
 def _neighbour(d: np.ndarray) -> np.ndarray:
@@ -623,16 +693,27 @@ def plan_network(
             unserved[s.code] = "usable stock holds less than one day of demand"
     plannable = np.array([c not in unserved for c in codes])
     eligible &= plannable[:, None]
+    eligible_bound = eligible.copy()
     depot_points = [d.location for d in depots]
     site_points = [s.location for s in sites if s.location is not None]  # every site has one (_check)
     r_depot = source.matrix(depot_points, site_points).T if n else np.zeros((0, len(depots)))
     r = r_depot[:, truck_depot]
     clock.report(0.02, until=0.08)
+    served = np.flatnonzero(plannable)
+    nu = nearest_other([site_points[i] for i in served], depot_points, source, clock.tick) if len(served) else np.zeros(0)
     cals = [calendars.get(t.code, Calendar()) for t in trucks]
     days_share = np.array([len(set(c.working_days)) / 7.0 for c in cals])
     per_day = np.array([c.trips_per_day or 1 for c in cals], dtype=float)
     throughput = capacity * days_share * per_day
     limit = np.where([c.trips_per_day is None for c in cals], np.inf, throughput)
+    nu_all = np.zeros(n)
+    nu_all[served] = nu
+    eligible, throughput, limit, shift_tpd, beyond = _shift_sizing(
+        trucks, cals, eligible, r, truck_depot, demand, _typical_delivery(demand, usable, capacity), nu_all,
+        days_share, throughput, limit,
+    )  # fmt: skip
+    for i, why in beyond.items():
+        unserved[codes[i]] = why
     lat = np.array([p.latitude for p in site_points], dtype=float)
     lon = np.array([p.longitude for p in site_points], dtype=float)
     dlat = np.array([p.latitude for p in depot_points], dtype=float)
@@ -646,12 +727,14 @@ def plan_network(
     )
     assigned = within_throughput(assigned, eligible, r, demand, LIMIT_SHARE * limit)
     for i in np.flatnonzero((assigned < 0) & plannable).tolist():
-        unserved[codes[i]] = "the trucks that may serve it have no throughput left (capacity × trips per day)"
+        unserved.setdefault(
+            codes[i],
+            "the trucks that may serve it have no throughput left (capacity × trips per day, or the trips "
+            "their shifts hold)"
+        )
     clock.report(0.08, until=0.12)
-    # The bound over the plannable sites (bound.py).
-    served = np.flatnonzero(plannable)
-    nu = nearest_other([site_points[i] for i in served], depot_points, source, clock.tick) if len(served) else np.zeros(0)
-    E = eligible[served]
+    # The bound over the plannable sites (bound.py), every truck that may carry them eligible.
+    E = eligible_bound[served]
     stem = np.where(E, (dispatch + 2 * per_km * r[served]) / capacity, np.inf).min(axis=1)
     stops_limit = np.array([t.max_stops or np.inf for t in trucks], dtype=float)
     visit = np.where(E, dispatch / stops_limit + per_km * nu[:, None], np.inf).min(axis=1)
@@ -670,8 +753,9 @@ def plan_network(
             continue
         clock.report(clock.fraction, until=0.12 + 0.88 * (done + len(idx)) / total_sites)
         nodes = [depot_points[truck_depot[t]]] + [site_points[i] for i in idx]
-        tk = _Truck(t, trucks[t], cals[t], idx, source.matrix(nodes, nodes))
+        tk = _Truck(t, trucks[t], cals[t], idx, source.matrix(nodes, nodes), shift_tpd[t])
         prods = [products_of[i] for i in idx]
+        clock.share(len(idx) / max(1, total_sites - done))
         plan = _plan_truck(tk, sites, start, clock, codes, stop_cost, prods, unserved)
         if plan is not None:
             plans.append(plan)
