@@ -26,7 +26,8 @@ from sqlalchemy import create_engine, text
 
 from .helpers import add_tokens, bearer, fresh_pg_database, load_demo_network, migrate, start_gunicorn
 
-TRUCK, SITE, READ_SITE = "HV-R1", "HV-GAR-02", "HV-GAR-03"
+# The demo truck with the fewest sites (two) and one of them: plans come quickly, many run at once.
+TRUCK, SITE, READ_SITE = "HV-R3", "HV-HTG-16", "HV-GAR-03"
 KEYS_PER_CREATOR = 15
 EDITS_PER_EDITOR = 20
 RUN_LIMIT_S = 60
