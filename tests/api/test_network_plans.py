@@ -361,3 +361,20 @@ def test_a_job_handed_back_too_often_fails(client, auth, fleet, db_session):
     body = client.get(f"{NETWORK_PLANS}/{job_id}", headers=auth("viewer")).get_json()
     assert body["status"] == "failed" and "stopped 3 times" in body["error"]
     assert jobs.requeue(db_session, job_id, "w3", max_attempts=3) is None
+
+
+def test_the_list_pages_newest_first_without_results(client, auth, fleet, run_jobs):
+    """GET /network-plans: keyset pages (RFC 8288 `Link: rel="next"`), newest first, no `result`."""
+    first = _done(client, auth, run_jobs)
+    second = _start(client, auth, {"start_date": "2026-01-12"}).get_json()  # still queued
+    page = client.get(f"{NETWORK_PLANS}?limit=1", headers=auth("viewer"))
+    assert page.status_code == 200
+    [newest] = page.get_json()["items"]
+    assert (newest["id"], newest["status"], "result" in newest) == (second["id"], "queued", False)
+    link = page.headers["Link"]
+    assert link.endswith('>; rel="next"')
+    rest = client.get(link[1 : link.index(">")], headers=auth("viewer"))
+    [older] = rest.get_json()["items"]
+    assert (older["id"], older["status"], "result" in older) == (first["id"], "done", False)
+    assert older["site_count"] == len(SITES) and older["trucks"] == first["trucks"]
+    assert "Link" not in rest.headers
