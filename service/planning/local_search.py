@@ -49,15 +49,33 @@ MAX_OPTIONS = 4000
 
 @dataclass
 class _Options:
-    """Flat options of one site: per option its period, own cost, and its (date, gap) entries over ``R``."""
+    """Flat options of one site: per option its period, own cost, and its (day, gap) entries within one
+    period; an entry's cell ``base[P] + day · G + gap`` indexes the (date, gap) grid folded onto ``P``."""
 
+    R: int
     period: np.ndarray
     own: np.ndarray
-    date: np.ndarray
+    day: np.ndarray
     gap: np.ndarray
     owner: np.ndarray  # option of each entry
+    first: np.ndarray  # entries of option ``j``: ``first[j] : first[j] + count[j]``
+    count: np.ndarray
+    cell: np.ndarray
+    G: int  # longest gap + 1
+    periods: list  # the periods, in the order of their grids
     blocks: list  # (own, P, days, gaps) with ``days``, ``gaps`` of shape (options, c)
     where: np.ndarray  # (block, row) of each option
+
+    def dates(self, j: int, demand: float) -> tuple[np.ndarray, np.ndarray]:
+        """Dates over ``R`` and quantities of option ``j``."""
+        sl = slice(self.first[j], self.first[j] + self.count[j])
+        P = int(self.period[j])
+        reps = self.R // P
+        d = (self.day[sl][None, :] + P * np.arange(reps)[:, None]).ravel()
+        return d, np.tile(demand * self.gap[sl], reps)
+
+    def longest(self, j: int) -> float:
+        return float(self.gap[self.first[j] : self.first[j] + self.count[j]].max())
 
     def base(self, j: int) -> tuple[int, np.ndarray, np.ndarray]:
         """Period, days within it and gaps of option ``j``."""
@@ -72,6 +90,13 @@ class _Spreads:
     def __init__(self, week: WorkWeek):
         self.week = week
         self.cache: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]] = {}
+        self.count: dict[int, int] = {}
+
+    def working(self, P: int) -> int:
+        """Working days in ``[0, P)``."""
+        if P not in self.count:
+            self.count[P] = int(self.week.is_working(np.arange(P)).sum())
+        return self.count[P]
 
     def get(self, P: int, c: int) -> tuple[np.ndarray, np.ndarray]:
         key = (P, c)
@@ -98,13 +123,14 @@ def _periods(R: int, week: WorkWeek) -> list[int]:
     return out
 
 
-def _options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int) -> _Options | None:
+def _options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int, cache: dict) -> _Options | None:
     """The options of site ``i`` whose own cost is within ``K c / P`` of the cheapest (``c / P`` the
-    deliveries per day of the cheapest; no move can save more trips per day than the site's deliveries)."""
+    deliveries per day of the cheapest; no move can save more trips per day than the site's deliveries).
+    ``cache`` keeps each site's spreads that fit its tank, per ``(i, P, c)``, across repeats."""
     k, H, u = float(problem.stop_cost[i]), float(problem.H[i]), int(problem.whole_days[i])
-    found = []  # (own, P, days, gaps)
+    found = []  # (P, c, lower bound on the own cost)
     for P in _periods(R, week):
-        N = int(week.is_working(np.arange(P)).sum())
+        N = spreads.working(P)
         for c in range(max(1, math.ceil(P / u)), N + 1):
             found.append((P, c, (k * c + H * P * P / c) / P))  # Σ g² ≥ P² / c
     if not found:
@@ -116,49 +142,66 @@ def _options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int
     for P, c, low in found:
         if low > floor + window:
             continue
-        cal, gaps = spreads.get(P, c)
-        ok = gaps.max(axis=1) <= u
-        if not ok.any():
-            continue
-        cal, gaps = cal[ok], gaps[ok]
-        own = (k * c + H * (gaps.astype(float) ** 2).sum(axis=1)) / P
-        blocks.append((own, P, cal, gaps))
+        key = (i, P, c)
+        if key not in cache:
+            cal, gaps = spreads.get(P, c)
+            ok = gaps.max(axis=1) <= u
+            cache[key] = None
+            if ok.any():
+                cal, gaps = cal[ok], gaps[ok]
+                cache[key] = ((k * c + H * (gaps.astype(float) ** 2).sum(axis=1)) / P, P, cal, gaps)
+        if cache[key] is not None:
+            blocks.append(cache[key])
     if not blocks:
         return None
     every = np.concatenate([b[0] for b in blocks])
-    limit = min(float(every.min()) + window, float(np.sort(every)[min(MAX_OPTIONS, len(every)) - 1]))
+    last = min(MAX_OPTIONS, len(every)) - 1
+    limit = min(float(every.min()) + window, float(np.partition(every, last)[last]))
     kept = []
     for own, P, cal, gaps in blocks:
         ok = own <= limit
-        if ok.any():
+        if ok.all():
+            kept.append((own, P, cal, gaps))
+        elif ok.any():
             kept.append((own[ok], P, cal[ok], gaps[ok]))
     return _pack_blocks(kept, R)
 
 
 def _pack_blocks(blocks, R: int) -> _Options:
-    dates, gaps, owners, periods, owns, where = [], [], [], [], [], []
-    at = 0
-    for b, (own, P, days, g) in enumerate(blocks):
-        m, c = days.shape
-        reps = R // P
-        d = (days[:, None, :] + P * np.arange(reps)[None, :, None]).reshape(m, -1)
-        dates.append(d.ravel())
-        gaps.append(np.tile(g, (1, reps)).ravel())
-        owners.append(np.repeat(np.arange(at, at + m), reps * c))
-        periods.append(np.full(m, P))
+    G = max(int(b[3].max()) for b in blocks) + 1
+    periods = sorted({b[1] for b in blocks}, reverse=True)
+    base = dict(zip(periods, np.cumsum([0] + [P * G for P in periods[:-1]]).tolist(), strict=True))
+    days, gaps, counts, periods_of, owns, where = [], [], [], [], [], []
+    for b, (own, P, d, g) in enumerate(blocks):
+        m, c = d.shape
+        days.append(d.ravel())
+        gaps.append(g.ravel())
+        counts.append(np.full(m, c))
+        periods_of.append(np.full(m, P))
         owns.append(own)
         where.append(np.stack([np.full(m, b), np.arange(m)], axis=1))
-        at += m
     own = np.concatenate(owns).astype(float)
     order = np.argsort(own, kind="stable")  # option 0 is the cheapest for the site; ties go to it
     rank = np.empty_like(order)
     rank[order] = np.arange(len(order))
+    count = np.concatenate(counts)
+    first = np.concatenate([[0], np.cumsum(count)[:-1]])
+    period = np.concatenate(periods_of).astype(np.int64)
+    day, gap = np.concatenate(days).astype(np.int64), np.concatenate(gaps).astype(np.int64)
+    owner = np.repeat(np.arange(len(own)), count)
+    offset = np.array([base[P] for P in period.tolist()], dtype=np.int64)
     return _Options(
-        period=np.concatenate(periods).astype(np.int64)[order],
+        R=R,
+        period=period[order],
         own=own[order],
-        date=np.concatenate(dates),
-        gap=np.concatenate(gaps).astype(float),
-        owner=rank[np.concatenate(owners)],
+        day=day,
+        gap=gap.astype(float),
+        owner=rank[owner],
+        first=first[order],
+        count=count[order],
+        cell=offset[owner] + day * G + gap,
+        G=G,
+        periods=periods,
         blocks=blocks,
         where=np.concatenate(where)[order],
     )
@@ -199,9 +242,11 @@ class _State:
 
 
 def _best(state: _State, opts: _Options, demand: float) -> int:
-    q = demand * opts.gap
-    d = state.delta(opts.date, q)
-    total = np.bincount(opts.owner, weights=d, minlength=len(opts.own)) + opts.own
+    """The option of least score: each (date, gap) cell's change scored once, then summed per option."""
+    R, G = state.R, opts.G
+    grid = state.delta(np.repeat(np.arange(R), G), demand * np.tile(np.arange(G, dtype=float), R)).reshape(R, G)
+    folded = np.concatenate([grid.reshape(R // P, P, G).sum(axis=0).ravel() for P in opts.periods])
+    total = np.bincount(opts.owner, weights=folded[opts.cell], minlength=len(opts.own)) + opts.own
     return int(np.argmin(total))
 
 
@@ -215,18 +260,18 @@ def _search(problem, state: _State, options: list[_Options], chosen: list[int], 
             if deadline is not None and time.monotonic() > deadline:
                 return False
             o, c = options[i], chosen[i]
-            sl = o.owner == c
-            state.add(o.date[sl], d[i] * o.gap[sl], -1)
+            dates, q = o.dates(c, float(d[i]))
+            state.add(dates, q, -1)
             j = _best(state, o, float(d[i]))
-            q = d[i] * o.gap
             if j != c:
-                cur = float(state.delta(o.date[sl], q[sl]).sum() + o.own[c])
-                new = float(state.delta(o.date[o.owner == j], q[o.owner == j]).sum() + o.own[j])
+                new_dates, new_q = o.dates(j, float(d[i]))
+                cur = float(state.delta(dates, q).sum() + o.own[c])
+                new = float(state.delta(new_dates, new_q).sum() + o.own[j])
                 if new < cur - 1e-12:
                     chosen[i] = j
                     changed = True
-            sl = o.owner == chosen[i]
-            state.add(o.date[sl], q[sl], +1)
+                    dates, q = new_dates, new_q
+            state.add(dates, q, +1)
         if not changed:
             break
     return True
@@ -264,6 +309,7 @@ def improve_local(
     d = problem.demand
     out: list[Patterns] = []
     spreads = _Spreads(week)
+    cache: dict = {}
     for R, from_start in ([(start_repeat, True)] if start is not None else []) + [(R, False) for R in repeats]:
         if deadline is not None and time.monotonic() > deadline:
             break
@@ -277,7 +323,7 @@ def improve_local(
         own_stop, own_hold = (None, None) if start is None else start.site_costs(problem.stop_cost, problem.H)
         failed = False
         for i in range(problem.n):
-            o = _options(problem, week, spreads, R, i)
+            o = _options(problem, week, spreads, R, i, cache)
             if from_start:
                 assert start is not None and own_stop is not None and own_hold is not None
                 mine = start.site == i
@@ -298,7 +344,7 @@ def improve_local(
         if failed:
             continue
         if not from_start:  # greedy insertion, largest deliveries first
-            size = np.array([d[i] * float(o.gap[o.owner == 0].max()) for i, o in enumerate(options)])
+            size = np.array([d[i] * o.longest(0) for i, o in enumerate(options)])
             for i in np.argsort(-size, kind="stable").tolist():
                 if deadline is not None and time.monotonic() > deadline:
                     failed = True
@@ -306,14 +352,14 @@ def improve_local(
                 o = options[i]
                 j = _best(state, o, float(d[i]))
                 chosen[i] = j
-                sl = o.owner == j
-                state.add(o.date[sl], d[i] * o.gap[sl], +1)
+                dates, q = o.dates(j, float(d[i]))
+                state.add(dates, q, +1)
             if failed:
                 break
         else:
             for i, (o, c) in enumerate(zip(options, chosen, strict=True)):
-                sl = o.owner == c
-                state.add(o.date[sl], d[i] * o.gap[sl], +1)
+                dates, q = o.dates(c, float(d[i]))
+                state.add(dates, q, +1)
         _search(problem, state, options, chosen, deadline)
         out.append(_patterns(problem, options, chosen))
     return out
