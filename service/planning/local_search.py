@@ -35,7 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from service.planning.inputs import Problem
-from service.planning.packing import LOAD_TOLERANCE
+from service.planning.packing import LOAD_TOLERANCE, pack, pack_date
 from service.planning.patterns import Patterns
 from service.planning.workweek import WorkWeek
 
@@ -45,6 +45,11 @@ CONCENTRATION = 0.05
 PASSES = 6
 #: Options per site and start at most (the cheapest for the site first).
 MAX_OPTIONS = 4000
+#: Rounds of :func:`_adapt` (dates' capacities lowered where the packing needs more trips) per start.
+ADAPT_ROUNDS = 3
+ADAPT_SHRINK = 0.97
+#: Plans returned (the cheapest starts with their dates packed), each then evaluated exactly by the planner.
+KEEP = 2
 
 
 @dataclass
@@ -126,7 +131,14 @@ def _periods(R: int, week: WorkWeek) -> list[int]:
 def _options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int, cache: dict) -> _Options | None:
     """The options of site ``i`` whose own cost is within ``K c / P`` of the cheapest (``c / P`` the
     deliveries per day of the cheapest; no move can save more trips per day than the site's deliveries).
-    ``cache`` keeps each site's spreads that fit its tank, per ``(i, P, c)``, across repeats."""
+    ``cache`` keeps each site's spreads that fit its tank, per ``(i, P, c)``, and its options per
+    ``(i, R)``, across starts."""
+    if (i, R) not in cache:
+        cache[i, R] = _fresh_options(problem, week, spreads, R, i, cache)
+    return cache[i, R]
+
+
+def _fresh_options(problem: Problem, week: WorkWeek, spreads: _Spreads, R: int, i: int, cache: dict):
     k, H, u = float(problem.stop_cost[i]), float(problem.H[i]), int(problem.whole_days[i])
     found = []  # (P, c, lower bound on the own cost)
     for P in _periods(R, week):
@@ -221,19 +233,20 @@ class _State:
         self.count = np.zeros(R)
         self.large = np.zeros(R)  # deliveries above W / 2: no two share a trip
         self.half = self.limit / 2
-        self.wload = 1.0 / self.limit if math.isfinite(self.limit) else 0.0
+        self.wload = np.full(R, 1.0 / self.limit if math.isfinite(self.limit) else 0.0)  # 1 / (W of each date)
         self.wcount = 1.0 / self.stops if math.isfinite(self.stops) else 0.0
 
-    def score(self, load, count, big):
-        by_load = np.ceil(load * self.wload * (1 - 1e-12)) if self.wload else 0.0
+    def score(self, date, load, count, big):
+        wload = self.wload[date]
+        by_load = np.ceil(load * wload * (1 - 1e-12))
         L = np.maximum(np.maximum(by_load, np.ceil(count * self.wcount * (1 - 1e-12))), np.maximum(big, count > 0))
         over = np.maximum(L - self.tau, 0.0) if math.isfinite(self.tau) else 0.0
-        fill = (load * self.wload) ** 2 + (count * self.wcount) ** 2
+        fill = (load * wload) ** 2 + (count * self.wcount) ** 2
         return self.K / self.R * (L - CONCENTRATION * fill + self.big * over)
 
     def delta(self, date, q):
         load, count, big = self.load[date], self.count[date], self.large[date]
-        return self.score(load + q, count + 1, big + (q > self.half)) - self.score(load, count, big)
+        return self.score(date, load + q, count + 1, big + (q > self.half)) - self.score(date, load, count, big)
 
     def add(self, date, q, sign):
         self.load[date] += sign * q
@@ -250,15 +263,73 @@ def _best(state: _State, opts: _Options, demand: float) -> int:
     return int(np.argmin(total))
 
 
-def _search(problem, state: _State, options: list[_Options], chosen: list[int], deadline) -> bool:
-    """Site-by-site moves until a pass changes nothing (or ``PASSES``, or the deadline); False when cut."""
+class _Packed:
+    """Each date's deliveries (site → quantity) and its trips as the cost packs them (``pack_date``), so a
+    move is checked on the trips it really adds or saves (memoised per set of quantities)."""
+
+    def __init__(self, problem: Problem, state: _State, options: list[_Options], chosen: list[int]):
+        self.problem, self.tau, self.K, self.R = problem, state.tau, state.K, state.R
+        self.items: list[dict[int, float]] = [{} for _ in range(state.R)]
+        for i, (o, c) in enumerate(zip(options, chosen, strict=True)):
+            dates, q = o.dates(c, float(problem.demand[i]))
+            for t, x in zip(dates.tolist(), q.tolist(), strict=True):
+                self.items[t][i] = x
+        self.memo: dict[tuple, int] = {}
+        self.trips = [self.count(list(m.values())) for m in self.items]
+
+    def count(self, q: list[float]) -> int:
+        if not q:
+            return 0
+        key = tuple(sorted(q))
+        if key not in self.memo:
+            self.memo[key] = len(pack_date(np.array(q), self.problem.capacity, self.problem.max_stops))
+        return self.memo[key]
+
+    def delta(self, i: int, old: np.ndarray, new: np.ndarray, new_q: np.ndarray) -> tuple[float, dict[int, int]]:
+        """Change of the trips' cost per day (with the charge for trips above ``trips_per_day``) when site
+        ``i`` moves from dates ``old`` to ``new``, and the new trips of the touched dates."""
+        put = dict(zip(new.tolist(), new_q.tolist(), strict=True))
+        change, after = 0.0, {}
+        for t in set(old.tolist()) | put.keys():
+            q = [x for s, x in self.items[t].items() if s != i]
+            if t in put:
+                q.append(put[t])
+            n = self.count(q)
+            after[t] = n
+            was = self.trips[t]
+            change += n - was
+            if math.isfinite(self.tau):
+                change += (self.problem.n + 1) * (max(n - self.tau, 0) - max(was - self.tau, 0))
+        return self.K * change / self.R, after
+
+    def cost(self, options: list[_Options], chosen: list[int]) -> float:
+        if math.isfinite(self.tau) and max(self.trips) > self.tau:
+            return math.inf
+        own = sum(float(o.own[c]) for o, c in zip(options, chosen, strict=True))
+        return self.K * sum(self.trips) / self.R + own
+
+    def move(self, i: int, old: np.ndarray, new: np.ndarray, new_q: np.ndarray, after: dict[int, int]) -> None:
+        for t in old.tolist():
+            del self.items[t][i]
+        for t, x in zip(new.tolist(), new_q.tolist(), strict=True):
+            self.items[t][i] = x
+        for t, n in after.items():
+            self.trips[t] = n
+
+
+def _search(problem, state: _State, options: list[_Options], chosen: list[int], deadline) -> float:
+    """Site-by-site moves until a pass changes nothing (or ``PASSES``, or the deadline); False when cut.
+    A move proposed by the score is made when it lowers the cost with the dates packed (:class:`_Packed`),
+    or keeps it and improves the score. Returns the plan's cost with its dates packed (``inf`` when a date
+    needs more than ``trips_per_day`` trips)."""
     d = problem.demand
+    packed = _Packed(problem, state, options, chosen)
     order = np.argsort(-np.array([o.own[c] for o, c in zip(options, chosen, strict=True)]), kind="stable").tolist()
     for _ in range(PASSES):
         changed = False
         for i in order:
             if deadline is not None and time.monotonic() > deadline:
-                return False
+                return packed.cost(options, chosen)
             o, c = options[i], chosen[i]
             dates, q = o.dates(c, float(d[i]))
             state.add(dates, q, -1)
@@ -268,12 +339,41 @@ def _search(problem, state: _State, options: list[_Options], chosen: list[int], 
                 cur = float(state.delta(dates, q).sum() + o.own[c])
                 new = float(state.delta(new_dates, new_q).sum() + o.own[j])
                 if new < cur - 1e-12:
-                    chosen[i] = j
-                    changed = True
-                    dates, q = new_dates, new_q
+                    trips, after = packed.delta(i, dates, new_dates, new_q)
+                    exact = trips + float(o.own[j] - o.own[c])
+                    if exact < -1e-12 or (exact <= 1e-12 and trips <= 0):
+                        packed.move(i, dates, new_dates, new_q, after)
+                        chosen[i] = j
+                        changed = True
+                        dates, q = new_dates, new_q
             state.add(dates, q, +1)
         if not changed:
             break
+    return packed.cost(options, chosen)
+
+
+def _adapt(problem: Problem, state: _State, options: list[_Options], chosen: list[int]) -> bool:
+    """Pack every date of the plan (``packing.pack``, the rule the cost uses); where it needs more trips
+    than the search's count, lower that date's capacity in the count (to at most ``ADAPT_SHRINK`` of it and
+    below ``load / (trips − 1)``), so the next search sees the trip the packing adds. False when none did."""
+    d = problem.demand
+    days, sites, quantities = [], [], []
+    for i, (o, c) in enumerate(zip(options, chosen, strict=True)):
+        dates, q = o.dates(c, float(d[i]))
+        days.append(dates)
+        sites.append(np.full(len(dates), i))
+        quantities.append(q)
+    day, site, quantity = np.concatenate(days), np.concatenate(sites), np.concatenate(quantities)
+    order = np.lexsort((site, day))
+    _, dates, trips = pack(day[order], site[order], quantity[order], problem.capacity, problem.max_stops)
+    counted = np.ceil(state.load[dates] * state.wload[dates] * (1 - 1e-12))
+    counted = np.maximum(counted, np.maximum(np.ceil(state.count[dates] * state.wcount * (1 - 1e-12)), state.large[dates]))
+    short = trips > np.maximum(counted, 1)
+    if not short.any():
+        return False
+    t, n = dates[short], trips[short]
+    limit = np.minimum(ADAPT_SHRINK / state.wload[t], state.load[t] / (n - 1) * (1 - 1e-6))
+    state.wload[t] = 1.0 / limit
     return True
 
 
@@ -307,7 +407,7 @@ def improve_local(
 ) -> list[Patterns]:
     """Improved plans (module docstring): one per start that completed, best first is not guaranteed."""
     d = problem.demand
-    out: list[Patterns] = []
+    out: list[tuple[float, Patterns]] = []
     spreads = _Spreads(week)
     cache: dict = {}
     for R, from_start in ([(start_repeat, True)] if start is not None else []) + [(R, False) for R in repeats]:
@@ -360,6 +460,15 @@ def improve_local(
             for i, (o, c) in enumerate(zip(options, chosen, strict=True)):
                 dates, q = o.dates(c, float(d[i]))
                 state.add(dates, q, +1)
-        _search(problem, state, options, chosen, deadline)
-        out.append(_patterns(problem, options, chosen))
-    return out
+            _adapt(problem, state, options, chosen)  # the start's own packing, before it is moved
+        cost = _search(problem, state, options, chosen, deadline)
+        kept = (cost, _patterns(problem, options, chosen))
+        for _ in range(ADAPT_ROUNDS):
+            if (deadline is not None and time.monotonic() > deadline) or not _adapt(problem, state, options, chosen):
+                break
+            cost = _search(problem, state, options, chosen, deadline)
+            if cost < kept[0]:
+                kept = (cost, _patterns(problem, options, chosen))
+        out.append(kept)
+    out.sort(key=lambda k: k[0])
+    return [p for _, p in out[:KEEP]]
