@@ -18,12 +18,19 @@ search minimises
     K Σ_t L(t) / R + Σ_i own_i − ε (K / R) Σ_t ((load_t / W)² + (count_t / S)²) + BIG · Σ_t max(0, L(t) − τ)
 
 one site at a time (``own_i = (k_i c + H_i Σ g²) / P`` its stop and holding cost per day): take the
-site out, score every option at once, put it on the best. An option may cost the site more than its
-pattern when it saves a trip; the small concentration term (ε) prefers fuller dates, so that
-nearly empty trips drain over several moves. Starts: the chosen plan (when its periods divide
-``R``) and a greedy insertion (largest deliveries first) on a few short repeats. The planner keeps
-the result only when its exact cost (every date packed, ``evaluation.py``) is lower and every date
-fits ``trips_per_day``; the step is anytime (checks the deadline between sites).
+site out, score every option at once (each (date, gap) cell scored once on the repeat and folded onto
+the option's period), and propose the best. An option may cost the site more than its pattern when it
+saves a trip; the small concentration term (ε) prefers fuller dates, so that nearly empty trips drain
+over several moves. ``L(t)`` is only a lower bound on a date's trips (0.65, 0.49, 0.42, 0.23, 0.18 of
+``W`` load 1.96 ``W`` and need three), so a proposed move is made only when, with the touched dates packed
+as the cost packs them (``packing.pack_date``), the cost does not rise and the trips do not grow
+(:class:`_Packed`). After a search, the dates whose packing needs more trips than ``L(t)`` get a lower
+capacity in the count (at most ``ADAPT_SHRINK`` of it and below ``load / (trips − 1)``) and the search runs
+again (``ADAPT_ROUNDS``; on the chosen plan also before the first search), so the score learns where the
+packing adds a trip. Starts: the chosen plan (when its periods divide ``R``) and a greedy insertion
+(largest deliveries first) on a few short repeats; the ``KEEP`` cheapest (dates packed) are returned.
+The planner keeps the result only when its exact cost (every date packed, ``evaluation.py``) is lower
+and every date fits ``trips_per_day``; the step is anytime (checks the deadline between sites).
 """
 
 from __future__ import annotations
