@@ -1,6 +1,7 @@
 """Gaps of drivable plans on 150 realistic one-truck networks (prints markdown tables; not a test).
 
-Run: ``.venv/bin/python benchmarks/drivable_gaps.py [count]``. Networks come from
+Run: ``.venv/bin/python benchmarks/drivable_gaps.py [count] [jobs]`` (``jobs`` processes; each plan's time
+is then measured beside the others). Networks come from
 ``tests/unit/planning/drivable_networks.py`` with seeds ``0 … count-1`` (farm diesel, garages,
 heating-oil homes, industrial chemicals; trucks of 20 000–38 000 L, 6–12 stops, Mon–Fri, Mon–Sat or
 every day, 1–3 trips a day, some with public holidays closed). For each network:
@@ -19,6 +20,7 @@ neither binds, median ≤ 3 %.
 from __future__ import annotations
 
 import importlib.util
+import multiprocessing
 import pathlib
 import sys
 import time
@@ -53,45 +55,53 @@ def _stats(values) -> str:
     return f"{np.median(v):.1f} % | {np.percentile(v, 90):.1f} % | {v.max():.1f} %"
 
 
-def main(count: int = 150) -> None:
+def _one(seed: int) -> tuple[dict | None, list[str]]:
+    """One network: its row (None when ``best`` found no plan) and its rule violations."""
+    methods = [m for m in METHODS if m != "best"]
+    violations = []
+    net = network(seed)
+    t0 = time.perf_counter()
+    best = plan_joint(net.sites, net.truck, start_date=net.start_date)
+    seconds = time.perf_counter() - t0
+    costs = {}
+    for m in methods:
+        r = plan_joint(net.sites, net.truck, method=m, start_date=net.start_date)
+        if r.success:
+            costs[m] = r.cost_per_day
+    try:
+        check_plan(best, net.sites, net.truck)
+    except AssertionError as error:
+        violations.append(f"seed {seed} (best, n={len(net.sites)}): {str(error).splitlines()[0]}")
+    if not best.success:
+        violations.append(f"seed {seed}: infeasible ({best.message}) — the generator only makes feasible networks")
+        return None, violations
+    reference = reference_bound(net.sites, net.truck, primal=False).value
+    row = {
+        "seed": seed,
+        "class": net.label,
+        "n": len(net.sites),
+        "gap": best.cost_per_day / best.lower_bound_per_day - 1,
+        "ref_gap": best.cost_per_day / reference - 1,
+        "bound_vs_ref": best.lower_bound_per_day / reference - 1,
+        "vs_methods": best.cost_per_day / min(costs.values()) - 1 if costs else 0.0,
+        "status": best.status.name.lower(),
+        "seconds": seconds,
+    }
+    return row, violations
+
+
+def main(count: int = 150, jobs: int = 1) -> None:
     methods = [m for m in METHODS if m != "best"]
     rows = []
-    violations = []
+    violations: list[str] = []
     start_all = time.perf_counter()
-    for seed in range(count):
-        if seed % 10 == 0:
-            print(f"… network {seed} at {time.perf_counter() - start_all:.0f} s", file=sys.stderr, flush=True)
-        net = network(seed)
-        t0 = time.perf_counter()
-        best = plan_joint(net.sites, net.truck, start_date=net.start_date)
-        seconds = time.perf_counter() - t0
-        costs = {}
-        for m in methods:
-            r = plan_joint(net.sites, net.truck, method=m, start_date=net.start_date)
-            if r.success:
-                costs[m] = r.cost_per_day
-        for method, r in [("best", best)]:
-            try:
-                check_plan(r, net.sites, net.truck)
-            except AssertionError as error:
-                violations.append(f"seed {seed} ({method}, n={len(net.sites)}): {str(error).splitlines()[0]}")
-        if not best.success:
-            violations.append(f"seed {seed}: infeasible ({best.message}) — the generator only makes feasible networks")
-            continue
-        reference = reference_bound(net.sites, net.truck, primal=False).value
-        rows.append(
-            {
-                "seed": seed,
-                "class": net.label,
-                "n": len(net.sites),
-                "gap": best.cost_per_day / best.lower_bound_per_day - 1,
-                "ref_gap": best.cost_per_day / reference - 1,
-                "bound_vs_ref": best.lower_bound_per_day / reference - 1,
-                "vs_methods": best.cost_per_day / min(costs.values()) - 1 if costs else 0.0,
-                "status": best.status.name.lower(),
-                "seconds": seconds,
-            }
-        )
+    with multiprocessing.Pool(jobs) as pool:
+        for seed, (row, found) in enumerate(pool.imap(_one, range(count))):
+            if seed % 10 == 0:
+                print(f"… network {seed} at {time.perf_counter() - start_all:.0f} s", file=sys.stderr, flush=True)
+            violations.extend(found)
+            if row is not None:
+                rows.append(row)
     total = time.perf_counter() - start_all
 
     print(f"{count} networks, methods run by best: {', '.join(methods)}; {total:.0f} s in all")
@@ -127,4 +137,4 @@ def main(count: int = 150) -> None:
 
 
 if __name__ == "__main__":
-    main(int(sys.argv[1]) if len(sys.argv) > 1 else 150)
+    main(int(sys.argv[1]) if len(sys.argv) > 1 else 150, int(sys.argv[2]) if len(sys.argv) > 2 else 1)
