@@ -1,5 +1,5 @@
 """A small network through the API: truck ``T1`` and its sites ``A0``, ``A1``, … (the readings,
-deliveries, consumption and plan concurrency tests start from it)."""
+deliveries, consumption, trips and plan concurrency tests start from it)."""
 
 from __future__ import annotations
 
@@ -7,10 +7,14 @@ from collections.abc import Sequence
 
 
 def post_network(client, auth, demands: Sequence[float]) -> None:
-    """Truck ``T1`` (capacity 18 000, at most 6 stops) and one site ``A<i>`` per demand, each with a
-    10 000 tank and a safety stock of 500."""
+    """Truck ``T1`` (capacity 18 000, at most 6 stops) and its sites (:func:`post_sites`)."""
     truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
+    post_sites(client, auth, demands)
+
+
+def post_sites(client, auth, demands: Sequence[float]) -> None:
+    """One site ``A<i>`` on truck ``T1`` per demand, each with a 10 000 tank and a safety stock of 500."""
     for i, demand in enumerate(demands):
         site = {
             "code": f"A{i}",
