@@ -1,5 +1,5 @@
-"""Request bodies of the fleet tests (issue 16): two products, a truck and a site on it, and the
-routes they are posted to. Products and rows are our own invented scenario."""
+"""Request bodies of the API tests: two products, a truck and a site on it (issue 16's fleet tests),
+the routes they are posted to, and trucks and sites by code. Products and rows are invented."""
 
 from __future__ import annotations
 
@@ -20,3 +20,13 @@ SITE = {
     "stop_cost": 30.0,
     "tank_capacity": 10000.0,
 }
+
+
+def truck(code: str = "T1", **extra) -> dict:
+    """A truck body named after ``code`` (capacity 18 000, at most 6 stops), ``extra`` fields added."""
+    return {"code": code, "name": f"Truck {code}", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6} | extra
+
+
+def site(code: str, truck_code: str = "T1", **extra) -> dict:
+    """:data:`SITE` named after ``code``, on ``truck_code``, ``extra`` fields added."""
+    return SITE | {"code": code, "name": f"Site {code}", "truck": truck_code} | extra
