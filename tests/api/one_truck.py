@@ -1,5 +1,5 @@
 """A small network through the API: truck ``T1`` and its sites ``A0``, ``A1``, … (the readings,
-deliveries, consumption, trips and plan concurrency tests start from it)."""
+deliveries, consumption, trips, idempotency and plan concurrency tests start from it)."""
 
 from __future__ import annotations
 
