@@ -19,26 +19,14 @@ neither binds, median ≤ 3 %.
 
 from __future__ import annotations
 
-import importlib.util
 import multiprocessing
-import pathlib
 import sys
 import time
-import types
 
 import numpy as np
+import pure_core  # this directory is on the path when run as a script
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT))
-try:  # service/__init__.py imports the web app; the pure core does not need it
-    import service  # noqa: F401
-except ImportError:
-    for name in [m for m in sys.modules if m == "service" or m.startswith("service.")]:
-        del sys.modules[name]
-    parent = types.ModuleType("service")
-    parent.__path__ = [str(ROOT / "service")]
-    parent.__spec__ = importlib.util.spec_from_loader("service", loader=None, is_package=True)
-    sys.modules["service"] = parent
+pure_core.make_importable()
 
 from service.planning import plan_joint  # noqa: E402
 from service.planning.joint import METHODS  # noqa: E402

@@ -14,26 +14,15 @@ Issue 16's targets: small ≤ 10 s, large ≤ 300 s on the 2-core machine, progr
 from __future__ import annotations
 
 import datetime as dt
-import importlib.util
 import math
-import pathlib
 import resource
 import subprocess
 import sys
 import time
-import types
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT))
-try:  # service/__init__.py imports the web app; the pure core does not need it
-    import service  # noqa: F401
-except ImportError:
-    for name in [m for m in sys.modules if m == "service" or m.startswith("service.")]:
-        del sys.modules[name]
-    parent = types.ModuleType("service")
-    parent.__path__ = [str(ROOT / "service")]
-    parent.__spec__ = importlib.util.spec_from_loader("service", loader=None, is_package=True)
-    sys.modules["service"] = parent
+import pure_core  # this directory is on the path when run as a script
+
+pure_core.make_importable()
 
 #: The job worker writes a progress report at most once a second (``service/network_worker.PROGRESS_SECONDS``).
 WRITE_SECONDS = 1.0

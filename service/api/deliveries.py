@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+from collections.abc import Callable
 from typing import Any
 
 from flask import Response, request, url_for
@@ -51,6 +52,43 @@ BULK_FORMAT = (
     "A JSON array of row objects, or UTF-8 CSV with a header row naming the same fields (number cells "
     f"plain ASCII decimals, empty cells left out). At most {bulk.MAX_ROWS} rows; all or nothing."
 )
+
+
+def bulk_upload(csv_example: str) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
+    """The role, media types and documentation of a bulk upload's POST (``csv_example``: a CSV body)."""
+    decorators = (
+        allow("dispatcher"),
+        accepts_body("application/json", "text/csv"),
+        blp.response(201, BulkResultSchema),
+        blp.alt_response(
+            413, description=f"More than {bulk.MAX_ROWS} CSV rows (a JSON array that long: 422)", **PROBLEM
+        ),
+        blp.alt_response(422, description="A bad row: `errors` points at each bad cell; nothing recorded", **PROBLEM),
+        blp.doc(
+            requestBody={
+                "required": True,
+                "description": BULK_FORMAT,
+                "content": {
+                    "application/json": {
+                        "schema": {
+                            "type": "array",
+                            "items": {"type": "object"},
+                            "minItems": 1,
+                            "maxItems": bulk.MAX_ROWS,
+                        }
+                    },
+                    "text/csv": {"schema": {"type": "string"}, "example": csv_example},
+                },
+            }
+        ),
+    )
+
+    def decorate(view: Callable[..., Any]) -> Callable[..., Any]:
+        for decorator in reversed(decorators):  # innermost first, as stacked @ lines apply
+            view = decorator(view)
+        return view
+
+    return decorate
 
 
 def dump(delivery: Delivery, code: str, truck_code: str | None) -> dict[str, Any]:
@@ -168,26 +206,7 @@ class SiteDeliveries(MethodView):
 
 @blp.route("/deliveries")
 class BulkDeliveries(MethodView):
-    @allow("dispatcher")
-    @accepts_body("application/json", "text/csv")
-    @blp.response(201, BulkResultSchema)
-    @blp.alt_response(413, description=f"More than {bulk.MAX_ROWS} CSV rows (a JSON array that long: 422)", **PROBLEM)
-    @blp.alt_response(422, description="A bad row: `errors` points at each bad cell; nothing recorded", **PROBLEM)
-    @blp.doc(
-        requestBody={
-            "required": True,
-            "description": BULK_FORMAT,
-            "content": {
-                "application/json": {
-                    "schema": {"type": "array", "items": {"type": "object"}, "minItems": 1, "maxItems": bulk.MAX_ROWS}
-                },
-                "text/csv": {
-                    "schema": {"type": "string"},
-                    "example": "site,quantity,delivered_at\r\nHV-FARM-01,1800,2026-12-01T07:10:00+01:00\r\n",
-                },
-            },
-        }
-    )
+    @bulk_upload("site,quantity,delivered_at\r\nHV-FARM-01,1800,2026-12-01T07:10:00+01:00\r\n")
     def post(self):
         """Record many deliveries (JSON array or CSV; all or nothing)
 
@@ -225,26 +244,7 @@ class BulkDeliveries(MethodView):
 
 @blp.route("/readings")
 class BulkReadings(MethodView):
-    @allow("dispatcher")
-    @accepts_body("application/json", "text/csv")
-    @blp.response(201, BulkResultSchema)
-    @blp.alt_response(413, description=f"More than {bulk.MAX_ROWS} CSV rows (a JSON array that long: 422)", **PROBLEM)
-    @blp.alt_response(422, description="A bad row: `errors` points at each bad cell; nothing recorded", **PROBLEM)
-    @blp.doc(
-        requestBody={
-            "required": True,
-            "description": BULK_FORMAT,
-            "content": {
-                "application/json": {
-                    "schema": {"type": "array", "items": {"type": "object"}, "minItems": 1, "maxItems": bulk.MAX_ROWS}
-                },
-                "text/csv": {
-                    "schema": {"type": "string"},
-                    "example": "site,level,measured_at\r\nHV-FARM-01,1240,2026-12-01T07:00:00+01:00\r\n",
-                },
-            },
-        }
-    )
+    @bulk_upload("site,level,measured_at\r\nHV-FARM-01,1240,2026-12-01T07:00:00+01:00\r\n")
     def post(self):
         """Record many tank readings (JSON array or CSV; all or nothing)
 

@@ -7,7 +7,9 @@ adds them to the parameters flask-smorest builds (``@blp.doc(parameters=...)`` w
 
 from __future__ import annotations
 
-from service.idempotency import REPLAYED_HEADER
+from typing import Any
+
+from service.idempotency import HEADER, REPLAYED_HEADER
 
 _STRING = {"type": "string"}
 
@@ -62,3 +64,18 @@ IF_MATCH_OPTIONAL = {
     "description": "Optional: the ETag of your last GET of the plan; 412 when the plan changed since "
     "(its status or staleness). A tag without its quotes is refused with 400.",
 }
+
+#: What the server accepts, in OpenAPI terms: 1–255 visible ASCII characters, bare or as an
+#: sf-string ``"…"`` with ``\"`` and ``\\`` escapes (service.idempotency.parse_key).
+IDEMPOTENCY_KEY_PATTERN = r'^([\x21\x23-\x5b\x5d-\x7e]{1,255}|"([\x21\x23-\x5b\x5d-\x7e]|\\["\\]){1,255}")$'
+
+
+def idempotency_key(replay: str) -> dict[str, Any]:
+    """The optional Idempotency-Key of a planning POST; ``replay`` says what a repeat answers."""
+    return {
+        "in": "header",
+        "name": HEADER,
+        "required": False,
+        "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
+        "description": f"Optional. Same key + same body → {replay}, with `{REPLAYED_HEADER}: true`; kept 24 h per token.",
+    }

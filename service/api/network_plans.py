@@ -12,7 +12,6 @@ from service.api import http_headers as hh
 from service.api.blueprint import Blueprint
 from service.api.etags import content_etag, not_modified
 from service.api.pagination import link_headers
-from service.api.plans import IDEMPOTENCY_KEY_PATTERN
 from service.api.schemas.network_plans import (
     NetworkActivationSchema,
     NetworkPlanListSchema,
@@ -148,16 +147,7 @@ class NetworkPlans(MethodView):
         **PROBLEM,
     )
     @blp.alt_response(429, description="Too many planning requests of this token", headers=hh.RETRY, **PROBLEM)
-    @blp.header_parameters(
-        {
-            "in": "header",
-            "name": idempotency.HEADER,
-            "required": False,
-            "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
-            "description": "Optional. Same key + same body → the first response again (the same job), with "
-            f"`{idempotency.REPLAYED_HEADER}: true`; kept 24 h per token.",
-        }
-    )
+    @blp.header_parameters(hh.idempotency_key("the first response again (the same job)"))
     def post(self, body):
         """Start a network plan of the active trucks and their active sites (answers 202 with the job)
 

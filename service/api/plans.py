@@ -43,9 +43,6 @@ TRIPS_CACHE: LruCache[tuple[bytes, str]] = LruCache(256)
 HEAVY = ("trips", "inputs")
 #: Error alternatives are documented as RFC 9457 problem documents, like every other error.
 PROBLEM = {"schema": ProblemSchema, "content_type": PROBLEM_JSON}
-#: What the server accepts, in OpenAPI terms: 1–255 visible ASCII characters, bare or as an
-#: sf-string ``"…"`` with ``\"`` and ``\\`` escapes (service.idempotency.parse_key).
-IDEMPOTENCY_KEY_PATTERN = r'^([\x21\x23-\x5b\x5d-\x7e]{1,255}|"([\x21\x23-\x5b\x5d-\x7e]|\\["\\]){1,255}")$'
 
 
 def _plan(plan_id: int) -> Plan:
@@ -185,16 +182,7 @@ class TruckPlans(MethodView):
     @blp.alt_response(
         503, description="Planning busy, or stopped at the planning time limit", headers=hh.RETRY, **PROBLEM
     )
-    @blp.header_parameters(
-        {
-            "in": "header",
-            "name": idempotency.HEADER,
-            "required": False,
-            "schema": {"type": "string", "pattern": IDEMPOTENCY_KEY_PATTERN},
-            "description": "Optional. Same key + same body → the first response again, with "
-            f"`{idempotency.REPLAYED_HEADER}: true`; kept 24 h per token.",
-        }
-    )
+    @blp.header_parameters(hh.idempotency_key("the first response again"))
     def post(self, body, code):
         """Compute and record a plan from the truck's active sites on its calendar (honours Idempotency-Key)
 

@@ -10,26 +10,15 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from tests.api.one_truck import post_network
+
 A0_RATE = 280.0  # the stored demand is 200: A0 uses 1.4× it
 NOISE = [0.05, -0.08, 0.03, -0.02, 0.07, -0.04, 0.01, -0.06]  # relative weekly noise, fixed
 
 
 @pytest.fixture
 def network(client, auth):
-    truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
-    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
-    for i in range(4):
-        site = {
-            "code": f"A{i}",
-            "name": f"Site {i}",
-            "truck": "T1",
-            "demand_per_day": 200.0,
-            "holding_cost": 0.002,
-            "stop_cost": 30.0,
-            "tank_capacity": 10000.0,
-            "safety_stock": 500.0,
-        }
-        assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
+    post_network(client, auth, [200.0] * 4)
 
 
 def record_history(client, auth, code: str, rate: float, weeks: int = 8, shift: int = 0) -> None:

@@ -12,26 +12,10 @@ import pytest
 from sqlalchemy import func, select
 
 from service.persistence.models import Depot, Product, Site, Truck
+from tests.api.fleet_bodies import DIESEL, LPG, PRODUCTS, SITE, SITES, TRUCK, TRUCKS
 
 DEPOTS = "/api/v1/depots"
-PRODUCTS = "/api/v1/products"
-TRUCKS = "/api/v1/trucks"
-SITES = "/api/v1/sites"
 DEPOT = {"code": "D-N", "name": "North depot", "latitude": 52.37, "longitude": 4.89}
-# Safe fills: liquid fuels 0.90–0.95, LPG 0.80–0.85 (International Fire Code 5704.2.9.7.5 and
-# 40 CFR 280.20(c) for liquid fuels; OSHA 1910.110 and NFPA 58 practice for LPG).
-DIESEL = {"code": "DSL", "name": "Diesel", "safe_fill": 0.95}
-LPG = {"code": "LPG", "name": "Propane", "safe_fill": 0.8}
-TRUCK = {"code": "T1", "name": "Truck one", "dispatch_cost": 150.0, "capacity": 18000.0}
-SITE = {
-    "code": "S1",
-    "name": "Site one",
-    "truck": "T1",
-    "demand_per_day": 300.0,
-    "holding_cost": 0.001,
-    "stop_cost": 30.0,
-    "tank_capacity": 10000.0,
-}
 
 
 def post(client, auth, path, body, status=201, role="admin"):

@@ -22,6 +22,7 @@ from sqlalchemy import func, select
 from service import bounded, idempotency
 from service.api import plans as plans_api
 from service.persistence.models import IdempotencyRecord, Plan, Token
+from tests.api.one_truck import post_network
 from tests.reliability import slow_planner as slow_planner_module
 
 URL = "/api/v1/trucks/T1/plans"
@@ -32,20 +33,7 @@ SLOW_SECONDS = slow_planner_module.SLOW_SECONDS  # more than three leases
 
 @pytest.fixture
 def network(client, auth):
-    truck = {"code": "T1", "name": "Truck T1", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
-    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
-    for i, demand in enumerate((300.0, 120.0, 650.0)):
-        site = {
-            "code": f"A{i}",
-            "name": f"Site A{i}",
-            "truck": "T1",
-            "demand_per_day": demand,
-            "holding_cost": 0.002,
-            "stop_cost": 30.0,
-            "tank_capacity": 10000.0,
-            "safety_stock": 500.0,
-        }
-        assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
+    post_network(client, auth, (300.0, 120.0, 650.0))
 
 
 @pytest.fixture

@@ -18,6 +18,7 @@ from service.api.usable_stock import lasts_a_day
 from service.persistence.models import Plan, Site, Truck
 from service.planning import PlanningInputError, SiteInput, TruckInput
 from service.planning.inputs import validate
+from tests.api.fleet_bodies import site
 
 SITES = "/api/v1/sites"
 TRUCKS = "/api/v1/trucks"
@@ -29,18 +30,6 @@ def truck(code: str, capacity: float) -> dict:
     # Every day, many trips: these tests are about the one-day rule, not the calendar (a tank of one
     # day cannot last a weekend).
     return {"code": code, "name": f"Truck {code}", "dispatch_cost": 150.0, "capacity": capacity, **UNCONSTRAINED_CALENDAR}
-
-
-def site(code: str, truck_code: str = "T1", **extra) -> dict:
-    return {
-        "code": code,
-        "name": f"Site {code}",
-        "truck": truck_code,
-        "demand_per_day": 300.0,
-        "holding_cost": 0.001,
-        "stop_cost": 30.0,
-        "tank_capacity": 10000.0,
-    } | extra
 
 
 @pytest.fixture

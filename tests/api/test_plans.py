@@ -12,6 +12,7 @@ from sqlalchemy import func, select
 
 from service import idempotency
 from service.persistence.models import IdempotencyRecord, Plan, Token
+from tests.api.fleet_bodies import truck
 
 PLAN_FIELDS = {
     "id",
@@ -27,10 +28,6 @@ PLAN_FIELDS = {
 }
 SITE_PARAMS = {"demand_per_day", "holding_cost", "stop_cost", "tank_capacity", "safe_fill", "safety_stock"}
 START = "2026-12-07"  # a Monday
-
-
-def truck(code: str):
-    return {"code": code, "name": f"Truck {code}", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
 
 
 def site(code: str, truck_code: str = "T1", **extra):

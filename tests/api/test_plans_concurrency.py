@@ -15,6 +15,7 @@ from werkzeug.serving import make_server
 from service import create_app
 from service.persistence.models import IdempotencyRecord, Plan
 from service.request_db import dispose
+from tests.api.one_truck import post_network
 
 START = "2026-12-07"
 
@@ -71,20 +72,7 @@ def servers(request, app):
 
 @pytest.fixture
 def network(client, auth):
-    truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
-    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
-    for i in range(4):
-        site = {
-            "code": f"A{i}",
-            "name": f"Site {i}",
-            "truck": "T1",
-            "demand_per_day": 150.0 + 100 * i,
-            "holding_cost": 0.002,
-            "stop_cost": 30.0,
-            "tank_capacity": 10000.0,
-            "safety_stock": 500.0,
-        }
-        assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
+    post_network(client, auth, [150.0 + 100 * i for i in range(4)])
 
 
 def _post_until_done(base, headers, key, barrier, deadline):

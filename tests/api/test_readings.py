@@ -8,26 +8,14 @@ import pytest
 from sqlalchemy import func, select
 
 from service.persistence.models import Reading
+from tests.api.one_truck import post_network
 
 URL = "/api/v1/sites/A0/readings"
 
 
 @pytest.fixture
 def network(client, auth):
-    truck = {"code": "T1", "name": "Truck", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
-    assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
-    for i in range(3):
-        site = {
-            "code": f"A{i}",
-            "name": f"Site {i}",
-            "truck": "T1",
-            "demand_per_day": 200.0 + 100 * i,
-            "holding_cost": 0.002,
-            "stop_cost": 30.0,
-            "tank_capacity": 10000.0,
-            "safety_stock": 500.0,
-        }
-        assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
+    post_network(client, auth, [200.0 + 100 * i for i in range(3)])
 
 
 def ago(**delta) -> str:

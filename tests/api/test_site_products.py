@@ -8,24 +8,8 @@ import pytest
 from sqlalchemy import select
 
 from service.persistence.models import Site
+from tests.api.fleet_bodies import DIESEL, LPG, PRODUCTS, SITE, SITES, TRUCK, TRUCKS
 
-PRODUCTS = "/api/v1/products"
-TRUCKS = "/api/v1/trucks"
-SITES = "/api/v1/sites"
-# Safe fills: liquid fuels 0.90–0.95, LPG 0.80–0.85 (IFC 5704.2.9.7.5 and 40 CFR 280.20(c) for liquid
-# fuels, OSHA 1910.110 for LPG; as noted in issue 16).
-DIESEL = {"code": "DSL", "name": "Diesel", "safe_fill": 0.95}
-LPG = {"code": "LPG", "name": "Propane", "safe_fill": 0.8}
-TRUCK = {"code": "T1", "name": "Truck one", "dispatch_cost": 150.0, "capacity": 18000.0}
-SITE = {
-    "code": "S1",
-    "name": "Site one",
-    "truck": "T1",
-    "demand_per_day": 300.0,
-    "holding_cost": 0.001,
-    "stop_cost": 30.0,
-    "tank_capacity": 10000.0,
-}
 HEADER = "code,name,truck,demand_per_day,holding_cost,stop_cost,tank_capacity"
 
 

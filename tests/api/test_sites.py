@@ -8,24 +8,9 @@ import pytest
 from sqlalchemy import func, select
 
 from service.persistence.models import Plan, PlanSite, Site, Truck
+from tests.api.fleet_bodies import site, truck
 
 BASE = "/api/v1/sites"
-
-
-def truck(code: str):
-    return {"code": code, "name": f"Truck {code}", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6}
-
-
-def site(code: str, truck_code: str = "T1", **extra):
-    return {
-        "code": code,
-        "name": f"Site {code}",
-        "truck": truck_code,
-        "demand_per_day": 300.0,
-        "holding_cost": 0.001,
-        "stop_cost": 30.0,
-        "tank_capacity": 10000.0,
-    } | extra
 
 
 @pytest.fixture

@@ -186,17 +186,7 @@ def test_import_is_admin_only_and_needs_text_csv(client, auth, trucks):
 def test_export_defuses_formula_cells_and_round_trips(client, auth, trucks, db_session):
     names = {"F1": '=HYPERLINK("http://x","y")', "F2": "+SUM(A1)", "F3": "-2+3", "F4": "@cmd", "F5": "plain"}
     for code, name in names.items():
-        body = {
-            "code": code,
-            "name": name,
-            "truck": "T1",
-            "demand_per_day": 12.5,
-            "holding_cost": 0.0015,
-            "stop_cost": 30,
-            "tank_capacity": 1000,
-            "longitude": -3.25,
-            "latitude": 51.1,
-        }
+        body = site_body(code, name) | {"longitude": -3.25, "latitude": 51.1}
         assert client.post("/api/v1/sites", json=body, headers=auth("admin")).status_code == 201
     body = {
         "code": "-dash",

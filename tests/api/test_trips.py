@@ -9,6 +9,8 @@ from collections import Counter
 import pytest
 from contract import UNCONSTRAINED_CALENDAR
 
+from tests.api.one_truck import post_sites
+
 START = dt.date(2026, 12, 7)  # Monday of ISO week 2026-W50
 TRIP_FIELDS = {"date", "trip", "load", "stops", "route", "route_note"}  # issue 16: driving order
 STOP_FIELDS = {
@@ -38,18 +40,7 @@ def network(client, auth):
     truck |= UNCONSTRAINED_CALENDAR  # these tests are about the listing, not the calendar
     assert client.post("/api/v1/trucks", json=truck, headers=auth("admin")).status_code == 201
     assert client.post("/api/v1/trucks", json=truck | {"code": "T2"}, headers=auth("admin")).status_code == 201
-    for i, demand in enumerate((300.0, 120.0, 650.0, 90.0)):
-        site = {
-            "code": f"A{i}",
-            "name": f"Site {i}",
-            "truck": "T1",
-            "demand_per_day": demand,
-            "holding_cost": 0.002,
-            "stop_cost": 30.0,
-            "tank_capacity": 10000.0,
-            "safety_stock": 500.0,
-        }
-        assert client.post("/api/v1/sites", json=site, headers=auth("admin")).status_code == 201
+    post_sites(client, auth, (300.0, 120.0, 650.0, 90.0))
 
 
 @pytest.fixture

@@ -5,24 +5,9 @@ from __future__ import annotations
 from sqlalchemy import func, select
 
 from service.persistence.models import Truck
+from tests.api.fleet_bodies import site, truck
 
 BASE = "/api/v1/trucks"
-
-
-def truck(code: str = "T1", **extra):
-    return {"code": code, "name": f"Truck {code}", "dispatch_cost": 150.0, "capacity": 18000.0, "max_stops": 6} | extra
-
-
-def site(code: str, truck_code: str = "T1"):
-    return {
-        "code": code,
-        "name": f"Site {code}",
-        "truck": truck_code,
-        "demand_per_day": 300.0,
-        "holding_cost": 0.001,
-        "stop_cost": 30.0,
-        "tank_capacity": 10000.0,
-    }
 
 
 def create(client, auth, body, path=BASE):

@@ -43,6 +43,29 @@ def test_downgrade_then_upgrade_round_trip(database_url):
         engine.dispose()
 
 
+def _old_rows_then_head(config, engine, now: dt.datetime) -> None:
+    """Store truck ``OLD-1`` and its site ``OLD-S`` at the current (downgraded) revision, then upgrade
+    to head and dispose of the engine's connections."""
+    with engine.begin() as conn:
+        conn.execute(
+            text(
+                "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
+                " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
+            ),
+            {"yes": True, "now": now},
+        )
+        conn.execute(
+            text(
+                "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
+                " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
+                " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
+            ),
+            {"yes": True, "now": now},
+        )
+    command.upgrade(config, "head")
+    engine.dispose()
+
+
 def test_0005_gives_existing_trucks_the_default_calendar_and_keeps_the_change_stamp(database_url):
     """Issue 13: a truck stored before calendars works Monday to Friday, one trip a day, no closed
     dates, no holiday region; its table still moves the change stamp (SQLite's triggers survive)."""
@@ -50,24 +73,7 @@ def test_0005_gives_existing_trucks_the_default_calendar_and_keeps_the_change_st
     command.downgrade(config, "0004")
     engine = create_engine(database_url)
     try:
-        with engine.begin() as conn:
-            conn.execute(
-                text(
-                    "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
-                    " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
-                ),
-                {"yes": True, "now": dt.datetime(2026, 12, 1, tzinfo=dt.UTC)},
-            )
-            conn.execute(
-                text(
-                    "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
-                    " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
-                    " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
-                ),
-                {"yes": True, "now": dt.datetime(2026, 12, 1, tzinfo=dt.UTC)},
-            )
-        command.upgrade(config, "head")
-        engine.dispose()
+        _old_rows_then_head(config, engine, dt.datetime(2026, 12, 1, tzinfo=dt.UTC))
         with Session(engine) as session:
             old = session.scalars(select(Truck).where(Truck.code == "OLD-1")).one()
             assert old.working_days == [1, 2, 3, 4, 5]
@@ -122,24 +128,7 @@ def test_0006_defaults_and_every_watched_table_still_moves_the_change_stamp(data
     engine = create_engine(database_url)
     now = dt.datetime(2026, 12, 1, tzinfo=dt.UTC)
     try:
-        with engine.begin() as conn:
-            conn.execute(
-                text(
-                    "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
-                    " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
-                ),
-                {"yes": True, "now": now},
-            )
-            conn.execute(
-                text(
-                    "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
-                    " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
-                    " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
-                ),
-                {"yes": True, "now": now},
-            )
-        command.upgrade(config, "head")
-        engine.dispose()
+        _old_rows_then_head(config, engine, now)
         with Session(engine) as session:
             old = session.scalars(select(Truck).where(Truck.code == "OLD-1")).one()
             site = session.scalars(select(Site).where(Site.code == "OLD-S")).one()
@@ -174,24 +163,7 @@ def test_0007_gives_existing_sites_no_weather_region_and_keeps_the_change_stamp(
     engine = create_engine(database_url)
     now = dt.datetime(2026, 12, 1, tzinfo=dt.UTC)
     try:
-        with engine.begin() as conn:
-            conn.execute(
-                text(
-                    "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
-                    " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
-                ),
-                {"yes": True, "now": now},
-            )
-            conn.execute(
-                text(
-                    "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
-                    " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
-                    " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
-                ),
-                {"yes": True, "now": now},
-            )
-        command.upgrade(config, "head")
-        engine.dispose()
+        _old_rows_then_head(config, engine, now)
         with engine.connect() as conn:
             row = conn.execute(text("SELECT weather_region, base_temperature, version FROM sites")).one()
         assert tuple(row) == (None, 15.5, 1)
@@ -236,24 +208,7 @@ def test_0008_gives_existing_trucks_and_sites_fleet_defaults_and_keeps_the_chang
     engine = create_engine(database_url)
     now = dt.datetime(2026, 12, 1, tzinfo=dt.UTC)
     try:
-        with engine.begin() as conn:
-            conn.execute(
-                text(
-                    "INSERT INTO trucks (code, name, dispatch_cost, capacity, max_stops, active, version, created_at,"
-                    " updated_at) VALUES ('OLD-1', 'Old truck', 100, 9000, NULL, :yes, 1, :now, :now)"
-                ),
-                {"yes": True, "now": now},
-            )
-            conn.execute(
-                text(
-                    "INSERT INTO sites (code, name, truck_id, demand_per_day, holding_cost, stop_cost, tank_capacity,"
-                    " safe_fill, safety_stock, active, version, created_at, updated_at) SELECT 'OLD-S', 'Old site',"
-                    " id, 100, 0.01, 5, 5000, 0.9, 0, :yes, 1, :now, :now FROM trucks WHERE code = 'OLD-1'"
-                ),
-                {"yes": True, "now": now},
-            )
-        command.upgrade(config, "head")
-        engine.dispose()
+        _old_rows_then_head(config, engine, now)
         with engine.connect() as conn:
             truck = conn.execute(text("SELECT depot, cost_per_km, compartments, products, version FROM trucks")).one()
             site = conn.execute(text("SELECT product, version FROM sites")).one()

@@ -231,6 +231,17 @@ def test_sign_in_week_trips_and_site_chart_in_chromium(server):
     assert os.path.getsize(ARTIFACTS / "status-overview.png") > 10_000
 
 
+def _signed_in(browser, base: str, token: str):
+    """A new page (1366 × 900, no JavaScript) signed in to the status page with ``token``."""
+    context = browser.new_context(viewport={"width": 1366, "height": 900}, java_script_enabled=False)
+    page = context.new_page()
+    page.goto(f"{base}/status")
+    page.fill("#token", token)
+    page.click("button[type=submit]")
+    page.wait_for_load_state()
+    return page
+
+
 def _non_blank(path: Path) -> None:
     """The picture shows something: its grey levels vary (a blank page has one level, variance 0)."""
     from PIL import Image, ImageStat  # noqa: PLC0415
@@ -268,12 +279,7 @@ def test_latest_readings_lowest_first_and_load_sheets_print_one_a4_page_per_truc
     with sync_playwright() as p:
         browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
         try:
-            context = browser.new_context(viewport={"width": 1366, "height": 900}, java_script_enabled=False)
-            page = context.new_page()
-            page.goto(f"{base}/status")
-            page.fill("#token", server["token"])
-            page.click("button[type=submit]")
-            page.wait_for_load_state()
+            page = _signed_in(browser, base, server["token"])
 
             # The overview: each site's latest reading; the 0 L tank says so plainly.
             row = page.locator("table.readings tbody tr").filter(has_text=EMPTY_SITE)
@@ -362,12 +368,7 @@ def test_network_plans_show_progress_and_outcome_in_chromium(server):
     with sync_playwright() as p:
         browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
         try:
-            context = browser.new_context(viewport={"width": 1366, "height": 900}, java_script_enabled=False)
-            page = context.new_page()
-            page.goto(f"{base}/status")
-            page.fill("#token", server["token"])
-            page.click("button[type=submit]")
-            page.wait_for_load_state()
+            page = _signed_in(browser, base, server["token"])
             section = page.locator("section.network-plans")
             assert section.is_visible()
             # The progress bar by its role and label, as assistive technology finds it.
