@@ -15,7 +15,9 @@
 4. routes every trip of each candidate (:func:`routing.shortest_tour`), loads it into the compartments
    (:func:`compartments.load_trip`; a trip that does not load is split into trips that do, in driving
    order) and costs it as ``K + c × route length + Σ stop costs``; the cheapest candidate per truck wins;
-5. reports the network's cost per day, the lower bound of :mod:`bound`, utilisation and warnings.
+5. with shifted trucks, offers the sites set aside to the shifted trucks with hours to spare
+   (:func:`_reoffer`, ``docs/fleet.md`` §6a step 5);
+6. reports the network's cost per day, the lower bound of :mod:`bound`, utilisation and warnings.
 
 The trucks' plans do not interact once the assignment is fixed, so the network cost is their sum.
 """
@@ -510,8 +512,11 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
     With a shift: sites whose one-stop trip alone is longer than the shift are set aside; the stop limit
     and trips per day start at what the shift allows (``floor`` of the hours left for stops over the
     minutes per stop; ``floor`` of the shift over the shortest one-stop trip); while no candidate's every
-    day fits, the trips per day are cut when every listed trip fits the shift, else the stop limit (in
-    proportion to the overflow, at least by one), and the truck is planned again (once the time budget is spent, straight to one stop and one trip a
+    day fits: when every listed trip fits the shift, the farthest ``1 − 1/o`` of the sites are set aside
+    (``o`` the longest day over the shift) if that is less than one trip a day's share ``1/n``, else the
+    trips per day are cut (to ``⌈n/o⌉``, ``⌊n/o⌋`` once the truck's share of the budget is spent, at least
+    by one); otherwise the stop limit is cut (in proportion to the overflow, at least by one); and the
+    truck is planned again (once the time budget is spent, straight to one stop and one trip a
     day). At one stop and one trip a day every day is one one-stop trip, which
     fits (the sites left all passed the first test); should none fit even so, the truck's sites are set
     aside. Sites set aside while the limits were cut get the reason "the truck's shift cannot fit …".
