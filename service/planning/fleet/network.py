@@ -15,7 +15,9 @@
 4. routes every trip of each candidate (:func:`routing.shortest_tour`), loads it into the compartments
    (:func:`compartments.load_trip`; a trip that does not load is split into trips that do, in driving
    order) and costs it as ``K + c × route length + Σ stop costs``; the cheapest candidate per truck wins;
-5. reports the network's cost per day, the lower bound of :mod:`bound`, utilisation and warnings.
+5. with shifted trucks, offers the sites set aside to the shifted trucks with hours to spare
+   (:func:`_reoffer`, ``docs/fleet.md`` §6a step 5);
+6. reports the network's cost per day, the lower bound of :mod:`bound`, utilisation and warnings.
 
 The trucks' plans do not interact once the assignment is fixed, so the network cost is their sum.
 """
@@ -70,6 +72,13 @@ ROUTED_DAYS = 63
 STEM_SCALES = (1.0, None, 0.5)
 #: Slack on the shift check (hours), for rounding only.
 SHIFT_TOLERANCE = 1e-9
+#: With any shifted truck, the share of the time budget (counted as this share of the sites more) kept
+#: for offering the sites set aside to the shifted trucks with hours to spare (``_reoffer``).
+REOFFER_SHARE = 0.25
+#: Seconds left below which no more offers are planned (one planner call and its costing).
+REOFFER_SECONDS = 1.0
+#: Reasons of sites no re-plan can serve (set before the assignment, whatever the trucks' plans).
+FIXED_REASONS = ("no truck carries", "usable stock holds less than one day")
 
 
 @dataclass
@@ -503,14 +512,18 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
     With a shift: sites whose one-stop trip alone is longer than the shift are set aside; the stop limit
     and trips per day start at what the shift allows (``floor`` of the hours left for stops over the
     minutes per stop; ``floor`` of the shift over the shortest one-stop trip); while no candidate's every
-    day fits, the trips per day are cut when every listed trip fits the shift, else the stop limit (in
-    proportion to the overflow, at least by one), and the truck is planned again (once the time budget is spent, straight to one stop and one trip a
+    day fits: when every listed trip fits the shift, the farthest ``1 − 1/o`` of the sites are set aside
+    (``o`` the longest day over the shift) if that is less than one trip a day's share ``1/n``, else the
+    trips per day are cut (to ``⌈n/o⌉``, ``⌊n/o⌋`` once the truck's share of the budget is spent, at least
+    by one); otherwise the stop limit is cut (in proportion to the overflow, at least by one); and the
+    truck is planned again (once the time budget is spent, straight to one stop and one trip a
     day). At one stop and one trip a day every day is one one-stop trip, which
     fits (the sites left all passed the first test); should none fit even so, the truck's sites are set
-    aside. Sites set aside while the limits were cut get the reason "the truck's shift cannot fit …"."""
+    aside. Sites set aside while the limits were cut get the reason "the truck's shift cannot fit …".
+    Returns the plan (or ``None``) and, with a shift, the truck at its last limits (for :func:`_reoffer`)."""
     truck = tk.truck
     if truck.shift_hours is None:
-        return _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, unserved)[0]
+        return _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, unserved)[0], None
     shift = float(truck.shift_hours)
     local_products = dict(zip([codes[i] for i in tk.sites], products, strict=True))
     single = np.array([truck.trip_hours(float(tk.d[0, j] + tk.d[j, 0]), 1) for j in range(1, len(tk.sites) + 1)])
@@ -523,7 +536,7 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
         )
     tk = _subset(tk, ~too_long)
     if not len(tk.sites):
-        return None
+        return None, None
     single = single[~too_long]
     stop_h = float(truck.stop_minutes or 0.0) / 60.0
     load_h = float(truck.load_minutes or 0.0) / 60.0
@@ -543,7 +556,7 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
         keep = np.array([codes[i] not in unserved for i in tk.sites], dtype=bool)
         tk = _subset(tk, keep)
         if not len(tk.sites):
-            return None
+            return None, None
         cur = replace(tk, truck=replace(truck, max_stops=stops), calendar=replace(tk.calendar, trips_per_day=tpd))
         before = set(unserved)
         prods = [local_products[codes[i]] for i in cur.sites]
@@ -555,7 +568,7 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
                     f"of at most {stops} stop(s) a day; {unserved[code]}"
                 )
         if best is not None or rejected is None:
-            return best
+            return best, cur
         over = rejected.utilisation["longest_day_hours"] / shift
         seen_stops = max((len(t.stops) for t in rejected.trips), default=1)
         seen_trips = max((t.trip for t in rejected.trips), default=1)
@@ -565,7 +578,17 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
             stops, tpd = 1, min(tpd, safe_tpd)
         elif tpd > 1 and longest_trip <= shift + SHIFT_TOLERANCE:  # the trips fit, their number does not
             now = min(tpd, seen_trips)
-            tpd = max(1, min(now - 1, int(math.floor(now / over))))
+            # Dropping the 1 − 1/over farthest share of the sites costs less than one trip a day (1/now of them).
+            if len(cur.sites) > 1 and over * (now - 1) < now:
+                drop = max(1, min(len(cur.sites) - 1, math.ceil(len(cur.sites) * (1.0 - 1.0 / over))))
+                for j in np.argsort(-(cur.d[0, 1:] + cur.d[1:, 0]), kind="stable")[:drop]:
+                    unserved.setdefault(
+                        codes[cur.sites[j]],
+                        f"the truck's shift cannot fit it: the busiest day of truck `{truck.code}` needs "
+                        f"{over * shift:.2f} h at {now} trip(s) a day, its shift is {shift:g} h",
+                    )
+            else:  # while the truck's share of the budget lasts, round up: the next round may drop sites instead
+                tpd = max(1, min(now - 1, int((math.floor if clock.late() else math.ceil)(now / over))))
         elif now_stops > 1:
             over_trip = max(longest_trip / shift, 1.0)
             stops = max(1, min(now_stops - 1, int(math.floor(now_stops / over_trip))))
@@ -576,7 +599,7 @@ def _plan_truck(tk, fleet_sites, start, clock, codes, stop_cost, products, unser
                 unserved.setdefault(
                     codes[i], f"the truck's shift cannot fit its trips: truck `{truck.code}`, shift {shift:g} h"
                 )
-            return None
+            return None, None
         tightened = True
 
 
@@ -614,6 +637,58 @@ def _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, products, 
     if cyclic is not None and cyclic.cost_per_day < best.cost_per_day - 1e-9:
         best = cyclic
     return best, rejected
+
+
+def _reoffer(planned, eligible, r, matrix, fleet_sites, start, clock, codes, stop_cost, products_of, unserved):
+    """Offer the sites set aside (for the shifts, throughput or the one-truck planner; not those of
+    :data:`FIXED_REASONS`) to the shifted trucks with hours to spare (``docs/fleet.md`` §6a).
+
+    Trucks whose longest day ``h`` is under their shift ``S`` are taken most spare first. Each is offered
+    the ``k = ⌈n (S − h) / h⌉`` eligible set-aside sites nearest its depot (``n`` its sites: the spare
+    hours at its current hours per site) and planned again (:func:`_plan_truck_once`) at its last limits
+    (trips per day, stops) on its sites plus the offered ones; the new plan is kept only when it fits the
+    shift and serves more sites, else ``k`` is halved. Rounds repeat while a plan was kept and at least
+    :data:`REOFFER_SECONDS` are left. Updates ``planned`` and ``unserved`` in place."""
+    index = {c: i for i, c in enumerate(codes)}
+    kept = True
+    while kept:
+        kept = False
+        spare = []
+        for t, (plan, limits) in planned.items():
+            if limits is None:
+                continue
+            shift, longest = float(limits.truck.shift_hours), plan.utilisation["longest_day_hours"]
+            if longest < shift - SHIFT_TOLERANCE:
+                spare.append((longest / shift, t))
+        for _, t in sorted(spare):
+            plan, limits = planned[t]
+            shift, longest = float(limits.truck.shift_hours), plan.utilisation["longest_day_hours"]
+            offer = [
+                i for i in np.flatnonzero(eligible[:, t]).tolist()
+                if codes[i] in unserved and not unserved[codes[i]].startswith(FIXED_REASONS)
+            ]  # fmt: skip
+            offer.sort(key=lambda i: r[i, t])
+            own = np.array([index[s.code] for s in plan.sites], dtype=int)
+            k = min(len(offer), math.ceil(len(own) * (shift - longest) / max(longest, SHIFT_TOLERANCE)))
+            while k >= 1 and clock.left() >= REOFFER_SECONDS:
+                idx = np.concatenate([own, np.array(offer[:k], dtype=int)])
+                tk = replace(limits, sites=idx, d=matrix(t, idx))
+                offered = {codes[i] for i in offer[:k]}
+                scratch = {c: why for c, why in unserved.items() if c not in offered}
+                clock.share(0.5)
+                prods = [products_of[i] for i in idx]
+                best, _ = _plan_truck_once(tk, fleet_sites, start, clock, codes, stop_cost, prods, scratch)
+                if best is not None and _fits_shift(best, tk.truck) and len(best.sites) > len(plan.sites):
+                    served = {s.code for s in best.sites}
+                    for c in offered - served:
+                        scratch.setdefault(c, unserved[c])
+                    unserved.clear()
+                    unserved.update(scratch)
+                    planned[t] = (best, limits)
+                    kept = True
+                    break
+                k //= 2
+                clock.tick()
 
 
 def _subset(tk: _Truck, keep: np.ndarray) -> _Truck:
@@ -744,23 +819,33 @@ def plan_network(
     parts = (demand[served], H, stop_cost[served], cap_days, stem, visit)
     clock.report(0.12, until=0.12)
     products_of = [s.product for s in sites]
-    plans: list[TruckPlan] = []
+    planned: dict[int, tuple[TruckPlan, _Truck | None]] = {}
     total_sites = max(1, int((assigned >= 0).sum()))
+    shifted = any(t.shift_hours is not None for t in trucks)
+    reserve = REOFFER_SHARE * total_sites if shifted else 0.0
     done = 0
     for t in range(m):
         idx = np.flatnonzero(assigned == t)
         if not len(idx):
             continue
-        clock.report(clock.fraction, until=0.12 + 0.88 * (done + len(idx)) / total_sites)
+        clock.report(clock.fraction, until=0.12 + 0.88 * (done + len(idx)) / (total_sites + reserve))
         nodes = [depot_points[truck_depot[t]]] + [site_points[i] for i in idx]
         tk = _Truck(t, trucks[t], cals[t], idx, source.matrix(nodes, nodes), shift_tpd[t])
         prods = [products_of[i] for i in idx]
-        clock.share(len(idx) / max(1, total_sites - done))
-        plan = _plan_truck(tk, sites, start, clock, codes, stop_cost, prods, unserved)
+        clock.share(len(idx) / max(1, total_sites - done + reserve))
+        plan, limits = _plan_truck(tk, sites, start, clock, codes, stop_cost, prods, unserved)
         if plan is not None:
-            plans.append(plan)
+            planned[t] = (plan, limits)
         done += len(idx)
-        clock.report(0.12 + 0.88 * done / total_sites)
+        clock.report(0.12 + 0.88 * done / (total_sites + reserve))
+    if shifted:
+        clock.report(clock.fraction, until=1.0)
+        def matrix(t: int, idx: np.ndarray) -> np.ndarray:
+            nodes = [depot_points[truck_depot[t]]] + [site_points[i] for i in idx]
+            return source.matrix(nodes, nodes)
+
+        _reoffer(planned, eligible, r, matrix, sites, start, clock, codes, stop_cost, products_of, unserved)
+    plans = [planned[t][0] for t in sorted(planned)]
     assignment = {s.code: p.truck for p in plans for s in p.sites}
     kept = np.array([codes[i] in assignment for i in served], dtype=bool)
     lower = network_bound(*(x[kept] for x in parts))[0] if kept.any() else 0.0

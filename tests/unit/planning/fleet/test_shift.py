@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 
 from service.planning import SiteInput
 from service.planning.errors import PlanningInputError
-from service.planning.fleet import Depot, FleetSite, FleetTruck, Point, Product, plan_network
+from service.planning.fleet import Depot, FleetSite, FleetTruck, Point, Product, network, plan_network
 
 from .networks import fleet
 
@@ -118,3 +118,25 @@ def test_bad_shift_settings_are_named(changes, field):
     with pytest.raises(PlanningInputError) as err:
         plan_network([site], [truck], [Depot("D1", Point(52.1, 5.1))], [Product("p")], start_date=START)
     assert err.value.field == field
+
+
+def test_sites_one_truck_sets_aside_go_to_a_truck_with_hours_to_spare(monkeypatch):
+    # 16 sites around one depot, two trucks with 5-hour shifts (60 km/h, 15 min per stop, 30 min loading):
+    # T01's busiest day sets three of its sites aside while T02's days end early.
+    sites, trucks, depots, products, calendars = fleet(16, 2, 1, seed=4)
+    shift = {"shift_hours": 5.0, "average_speed_kmh": 60.0, "stop_minutes": 15.0, "load_minutes": 30.0}
+    trucks = [replace(t, **shift) for t in trucks]
+    monkeypatch.setattr(network, "_reoffer", lambda *args: None)
+    alone = plan_network(sites, trucks, depots, products, calendars, start_date=START)
+    monkeypatch.undo()
+    result = plan_network(sites, trucks, depots, products, calendars, start_date=START)
+    set_aside = {u.code: u.reason for u in alone.unserved}
+    moved = {c: t for c, t in result.assignment.items() if c not in alone.assignment}
+    assert moved
+    for code, truck in moved.items():
+        assert set_aside[code].startswith("the truck's shift cannot fit it")
+        assert f"truck `{truck}`" not in set_aside[code]  # served by a truck other than the one that set it aside
+    assert len(result.assignment) > len(alone.assignment)
+    truck_of = {t.code: t for t in trucks}
+    for plan in result.trucks:  # every day of every plan still fits the shift, recomputed from the legs
+        assert max(_day_hours(plan, truck_of[plan.truck]).values()) <= 5.0 + 1e-6
